@@ -1,0 +1,1 @@
+"""Services: the decisions between routers and the store."""
