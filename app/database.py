@@ -1,16 +1,29 @@
 """Engine and sessions: the one place that opens database connections.
 
-SQLite gets WAL journalling, foreign keys and a busy timeout on every connection;
+SQLite gets WAL journalling, foreign keys, ``synchronous=FULL`` (an acknowledged shot
+is on disk) and a busy timeout on every connection. We emit BEGIN ourselves (the
+documented pysqlite recipe) so that write transactions can take the write lock up
+front (``BEGIN IMMEDIATE``) instead of failing on a stale snapshot later.
 PostgreSQL is reached through psycopg 3 (``postgresql+psycopg://``).
 """
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+import time
+import zlib
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
+from pathlib import Path
+from typing import TypeVar
 
-from sqlalchemy import Engine, create_engine, event
+from sqlalchemy import Engine, create_engine, event, text
+from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError
 from sqlalchemy.orm import Session, sessionmaker
+
+T = TypeVar("T")
+
+# Connection execution option read by the SQLite "begin" hook.
+_SQLITE_BEGIN = "wakeledger_sqlite_begin"
 
 
 def normalise_url(url: str) -> str:
@@ -28,12 +41,18 @@ def make_engine(url: str) -> Engine:
 
         @event.listens_for(engine, "connect")
         def _sqlite_pragmas(dbapi_conn, _record):  # pragma: no cover - trivial
+            dbapi_conn.isolation_level = None  # BEGIN is emitted by _sqlite_begin
             cur = dbapi_conn.cursor()
             cur.execute("PRAGMA journal_mode=WAL")
             cur.execute("PRAGMA foreign_keys=ON")
-            cur.execute("PRAGMA synchronous=NORMAL")
+            cur.execute("PRAGMA synchronous=FULL")
             cur.execute("PRAGMA busy_timeout=30000")
             cur.close()
+
+        @event.listens_for(engine, "begin")
+        def _sqlite_begin(conn):  # pragma: no cover - trivial
+            mode = conn.get_execution_options().get(_SQLITE_BEGIN, "DEFERRED")
+            conn.exec_driver_sql(f"BEGIN {mode}")
 
         return engine
     return create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=10)
@@ -48,3 +67,68 @@ def transaction(factory: sessionmaker[Session]) -> Iterator[Session]:
     """A session whose work is committed on success and rolled back on any error."""
     with factory() as session, session.begin():
         yield session
+
+
+def begin_write(session: Session, lock_name: str | None = None) -> None:
+    """Start a write transaction that holds the writer lock for ``lock_name``.
+
+    SQLite: ``BEGIN IMMEDIATE`` (only possible as the first statement of the
+    transaction). PostgreSQL: a transaction-scoped advisory lock on the name, so two
+    writers of the same campaign queue instead of racing on unique keys.
+    """
+    if session.in_transaction():
+        conn = session.connection()
+    else:
+        conn = session.connection(execution_options={_SQLITE_BEGIN: "IMMEDIATE"})
+    if conn.dialect.name == "postgresql" and lock_name is not None:
+        key = zlib.crc32(lock_name.encode())  # 32-bit, fits pg_advisory_xact_lock(bigint)
+        conn.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": key})
+
+
+def is_retryable(exc: BaseException) -> bool:
+    """Unique-key races, deadlocks, serialization failures and SQLite lock timeouts."""
+    if isinstance(exc, IntegrityError):
+        return True
+    if isinstance(exc, OperationalError):
+        msg = str(exc.orig).lower() if isinstance(exc, DBAPIError) else str(exc).lower()
+        return any(k in msg for k in ("locked", "deadlock", "could not serialize", "busy"))
+    return False
+
+
+def run_write(session: Session, work: Callable[[], T], attempts: int = 5) -> T:
+    """Run ``work`` (which starts with begin_write) and commit; retry on races.
+
+    ``work`` must be safe to repeat from scratch: it is re-run after a rollback.
+    """
+    for attempt in range(1, attempts + 1):
+        try:
+            result = work()
+            session.commit()
+            return result
+        except Exception as exc:
+            session.rollback()
+            if attempt == attempts or not is_retryable(exc):
+                raise
+            time.sleep(0.01 * attempt)
+    raise AssertionError("unreachable")
+
+
+MIGRATIONS_DIR = Path(__file__).resolve().parent.parent / "migrations"
+
+
+def alembic_config(url: str | None = None):
+    """An Alembic Config pointing at migrations/ (no alembic.ini needed)."""
+    from alembic.config import Config
+
+    cfg = Config()
+    cfg.set_main_option("script_location", str(MIGRATIONS_DIR))
+    if url is not None:
+        cfg.set_main_option("sqlalchemy.url", normalise_url(url).replace("%", "%%"))
+    return cfg
+
+
+def upgrade_database(url: str, revision: str = "head") -> None:
+    """Apply every migration up to ``revision`` (``wakeledger db upgrade``)."""
+    from alembic import command
+
+    command.upgrade(alembic_config(url), revision)

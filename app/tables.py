@@ -9,7 +9,7 @@ revision in migrations/versions.
 
 from __future__ import annotations
 
-from datetime import datetime
+from datetime import datetime, timezone
 from typing import Any
 
 from sqlalchemy import (
@@ -22,6 +22,7 @@ from sqlalchemy import (
     Integer,
     String,
     Text,
+    TypeDecorator,
     UniqueConstraint,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
@@ -31,8 +32,34 @@ class Base(DeclarativeBase):
     pass
 
 
-def _utc_dt() -> DateTime:
-    return DateTime(timezone=True)
+class UTCDateTime(TypeDecorator[datetime]):
+    """Timezone-aware UTC datetimes on every backend.
+
+    SQLite keeps no offset, so values are converted to UTC on the way in (naive
+    values are refused) and marked UTC on the way out. Stored text sorts in time order.
+    """
+
+    impl = DateTime(timezone=True)
+    cache_ok = True
+
+    def process_bind_param(self, value: datetime | None, dialect: Any) -> datetime | None:
+        if value is None:
+            return None
+        if value.tzinfo is None:
+            raise ValueError("naive datetime given to a UTC column")
+        value = value.astimezone(timezone.utc)
+        return value.replace(tzinfo=None) if dialect.name == "sqlite" else value
+
+    def process_result_value(self, value: datetime | None, dialect: Any) -> datetime | None:
+        if value is None:
+            return None
+        if value.tzinfo is None:
+            return value.replace(tzinfo=timezone.utc)
+        return value.astimezone(timezone.utc)
+
+
+def _utc_dt() -> UTCDateTime:
+    return UTCDateTime()
 
 
 class Campaign(Base):
@@ -91,7 +118,7 @@ class Shot(Base):
     plasma_gradient_pct_per_m: Mapped[float] = mapped_column(Float, default=0.0)
     plasma_length_m: Mapped[float] = mapped_column(Float)
     plasma_ion_mass_amu: Mapped[float] = mapped_column(Float)
-    plasma_ion_charge: Mapped[int] = mapped_column(Integer, default=1)
+    plasma_ion_charge: Mapped[float] = mapped_column(Float, default=1.0)
     seed_method: Mapped[str] = mapped_column(String(32), default="none")
     seed_position_mm: Mapped[float | None] = mapped_column(Float)
     seed_electron_charge_pc: Mapped[float | None] = mapped_column(Float)

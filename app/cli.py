@@ -1,0 +1,246 @@
+"""The ``wakeledger`` command.
+
+Each subcommand is one function decorated with ``@command(...)``; its ``configure``
+callable adds the arguments. To add one (e.g. ``export``), write::
+
+    def _export_args(p: argparse.ArgumentParser) -> None:
+        p.add_argument("--campaign", required=True)
+
+    @command("export", help="...", configure=_export_args)
+    def export(args: argparse.Namespace, settings: Settings) -> int:
+        ...
+        return 0
+
+Keep the function small: parse nothing by hand, call a service, print, return the
+exit code. Import heavy modules inside the function so ``wakeledger --help`` stays fast.
+Two-word commands (``db upgrade``, ``token create``) are registered as "db upgrade".
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+
+from app.config import Settings
+
+Handler = Callable[[argparse.Namespace, Settings], int]
+
+
+@dataclass
+class Command:
+    name: str
+    help: str
+    handler: Handler
+    configure: Callable[[argparse.ArgumentParser], None] | None
+
+
+COMMANDS: dict[str, Command] = {}
+
+
+def command(name: str, help: str, configure: Callable[[argparse.ArgumentParser], None] | None = None):
+    def register(fn: Handler) -> Handler:
+        COMMANDS[name] = Command(name, help, fn, configure)
+        return fn
+
+    return register
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="wakeledger", description="Shot ledger and self-modulation model check "
+                                     "(advisory; it does not replace machine protection or local procedures).")
+    parser.add_argument("--database-url", help="overrides DATABASE_URL")
+    top = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    groups: dict[str, argparse._SubParsersAction] = {}
+    for cmd in COMMANDS.values():
+        words = cmd.name.split()
+        if len(words) == 1:
+            sub = top.add_parser(words[0], help=cmd.help, description=cmd.help)
+        else:
+            group, leaf = words
+            if group not in groups:
+                gp = top.add_parser(group, help=f"{group} commands")
+                groups[group] = gp.add_subparsers(dest=f"{group}_command", required=True, metavar="COMMAND")
+            sub = groups[group].add_parser(leaf, help=cmd.help, description=cmd.help)
+        if cmd.configure:
+            cmd.configure(sub)
+        sub.set_defaults(_command=cmd)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    settings = Settings(database_url=args.database_url) if args.database_url else Settings()
+    return int(args._command.handler(args, settings) or 0)
+
+
+# --- built-in commands ----------------------------------------------------------------------------
+
+
+def _serve_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--host", default="127.0.0.1")
+    p.add_argument("--port", type=int, default=8000)
+    p.add_argument("--log-level", default="info")
+
+
+@command("serve", help="run the API and dashboard (applies migrations first)", configure=_serve_args)
+def serve(args: argparse.Namespace, settings: Settings) -> int:
+    import uvicorn
+
+    from app.database import upgrade_database
+    from app.main import create_app
+
+    upgrade_database(settings.database_url)
+    app = create_app(settings.model_copy(update={"migrate_on_start": False}))
+    uvicorn.run(app, host=args.host, port=args.port, log_level=args.log_level)
+    return 0
+
+
+@command("db upgrade", help="apply every database migration (creates the tables on an empty database)")
+def db_upgrade(args: argparse.Namespace, settings: Settings) -> int:
+    from app.database import upgrade_database
+
+    upgrade_database(settings.database_url)
+    print("database is at the latest revision", file=sys.stderr)
+    return 0
+
+
+def _token_args(p: argparse.ArgumentParser) -> None:
+    from app.services.auth import ROLES
+
+    p.add_argument("--role", required=True, choices=ROLES)
+    p.add_argument("--name", required=True, help="who or what uses the token (shown in the audit trail)")
+
+
+@command("token create", help="create an API token; prints only the token", configure=_token_args)
+def token_create(args: argparse.Namespace, settings: Settings) -> int:
+    from app.database import make_engine, make_session_factory
+    from app.services.auth import create_token
+
+    engine = make_engine(settings.database_url)
+    try:
+        with make_session_factory(engine)() as session:
+            raw = create_token(session, args.role, args.name, actor="cli")
+    finally:
+        engine.dispose()
+    print(raw)
+    return 0
+
+
+def _demo_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--port", type=int, default=8000)
+    p.add_argument("--db", default="./wakeledger-demo.db",
+                   help="SQLite file of the demo (created if missing; DATABASE_URL is not used)")
+    p.add_argument("--log-level", default="warning")
+
+
+@command("demo", help="serve an invented demo campaign on 127.0.0.1; visitors read without signing in",
+         configure=_demo_args)
+def demo(args: argparse.Namespace, settings: Settings) -> int:
+    import uvicorn
+
+    from seed_demo.loader import prepare_demo
+
+    prepared = prepare_demo(args.db, settings)
+    load = prepared.load
+    what = "already loaded" if load.skipped else f"loaded {load.shots_created} shots in {load.seconds:.1f} s"
+    print(f"demo campaign {load.campaign_slug!r}: {load.shots_in_campaign} shots ({what})")
+    print(f"database:    {prepared.database_url}")
+    print(f"dashboard:   http://127.0.0.1:{args.port}/campaigns/{load.campaign_slug}")
+    print(f"admin token: {prepared.admin_token}")
+    print("invented data; advisory only: it does not replace machine protection, interlocks or local procedures")
+    sys.stdout.flush()
+    uvicorn.run(prepared.app, host="127.0.0.1", port=args.port, log_level=args.log_level)
+    return 0
+
+
+class TextProgressBar:
+    """A plain-text progress bar on stderr, redrawn in place; silent for small totals."""
+
+    def __init__(self, label: str, minimum_total: int = 1000, width: int = 30, stream=None) -> None:
+        self.label, self.minimum_total, self.width = label, minimum_total, width
+        self.stream = stream or sys.stderr
+        self.shown = False
+
+    def __call__(self, done: int, total: int) -> None:
+        if total < self.minimum_total:
+            return
+        filled = self.width * done // total if total else self.width
+        bar = "#" * filled + "-" * (self.width - filled)
+        self.stream.write(f"\r{self.label} [{bar}] {100 * done // max(total, 1):3d}% {done}/{total} shots")
+        self.stream.flush()
+        self.shown = True
+
+    def close(self) -> None:
+        if self.shown:
+            self.stream.write("\n")
+            self.stream.flush()
+
+
+def _export_args(p: argparse.ArgumentParser) -> None:
+    from app.services.export_formats import EXPORT_FORMATS
+
+    p.add_argument("--campaign", required=True, metavar="SLUG")
+    p.add_argument("--week", metavar="YYYY-Www", help="ISO week in the campaign's timezone, e.g. 2026-W47 "
+                   "(default: the current week)")
+    p.add_argument("--format", choices=EXPORT_FORMATS, help="default: from the --out file extension")
+    p.add_argument("--out", metavar="PATH", help="file to write, or a directory for the default name "
+                   "wakeledger-SLUG-WEEK.FORMAT (default: that name in the current directory)")
+
+
+@command("export", help="write a campaign's weekly summary as csv, json, html or parquet", configure=_export_args)
+def export(args: argparse.Namespace, settings: Settings) -> int:
+    from datetime import datetime, timezone
+    from pathlib import Path
+    from zoneinfo import ZoneInfo
+
+    from app.database import make_engine, make_session_factory
+    from app.services.export_formats import EXPORT_FORMATS, export_file_name, write_export_file
+    from app.services.summary import IsoWeek, WeekFormatError, build_weekly_summary
+    from app.store.campaigns import get_campaign
+
+    def fail(message: str, code: int = 2) -> int:
+        print(f"wakeledger export: error: {message}", file=sys.stderr)
+        return code
+
+    try:
+        week = IsoWeek.parse(args.week) if args.week is not None else None
+    except WeekFormatError as exc:
+        return fail(str(exc))
+    out = Path(args.out) if args.out else None
+    fmt = args.format
+    if fmt is None:
+        suffix = out.suffix.lower().lstrip(".") if out is not None and not out.is_dir() else ""
+        if suffix not in EXPORT_FORMATS:
+            return fail(f"give --format ({', '.join(EXPORT_FORMATS)}) or an --out file with one of those extensions")
+        fmt = suffix
+    engine = make_engine(settings.database_url)
+    try:
+        with make_session_factory(engine)() as session:
+            campaign = get_campaign(session, args.campaign)
+            if campaign is None:
+                return fail(f"campaign {args.campaign!r} does not exist", 1)
+            week = week or IsoWeek.containing(datetime.now(timezone.utc), ZoneInfo(campaign.timezone))
+            name = export_file_name(campaign.slug, week.label, fmt)
+            target = out / name if out is not None and out.is_dir() else out or Path(name)
+            if not target.parent.is_dir():
+                return fail(f"directory {str(target.parent)!r} does not exist", 1)
+            summary = build_weekly_summary(session, campaign, week)
+    finally:
+        engine.dispose()
+    bar = TextProgressBar(f"{campaign.slug} {week.label} {fmt}")
+    try:
+        write_export_file(summary, fmt, target, progress=bar)
+    except OSError as exc:
+        bar.close()
+        return fail(f"could not write {str(target)!r}: {exc.strerror or exc}", 1)
+    bar.close()
+    empty = " (no shots in this week)" if summary.is_empty else ""
+    print(f"wrote {target}: {summary.shot_count} shots, {campaign.slug} {week.label} ({campaign.timezone}){empty}",
+          file=sys.stderr)
+    return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    raise SystemExit(main())

@@ -1,0 +1,106 @@
+"""The FastAPI application: ``create_app(settings=None)``.
+
+Routers are listed once in ``_include_routers``; add yours there.
+"""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+
+from fastapi import FastAPI
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
+
+from app.config import Settings, get_settings
+from app.database import make_engine, make_session_factory, upgrade_database
+from app.problems import BODY_TOO_LARGE, ProblemError, install_problem_handlers, problem_response
+from app.services.jobs import JobRunner
+
+
+class BodySizeLimit:
+    """413 for bodies over ``limit`` bytes: by Content-Length up front, else while streaming."""
+
+    def __init__(self, app: ASGIApp, limit: int) -> None:
+        self.app, self.limit = app, limit
+
+    def _too_large(self) -> ProblemError:
+        return ProblemError(413, "Content too large", f"the request body exceeds {self.limit} bytes",
+                            type_=BODY_TOO_LARGE)
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        for name, value in scope.get("headers", ()):
+            if name == b"content-length":
+                try:
+                    too_big = int(value) > self.limit
+                except ValueError:
+                    too_big = False
+                if too_big:
+                    await problem_response(self._too_large())(scope, receive, send)
+                    return
+        received = 0
+
+        async def limited_receive() -> Message:
+            nonlocal received
+            message = await receive()
+            if message["type"] == "http.request":
+                received += len(message.get("body", b""))
+                if received > self.limit:
+                    # A ProblemError (an HTTPException) passes through FastAPI's body reader
+                    # and reaches the problem handlers as a 413.
+                    raise self._too_large()
+            return message
+
+        await self.app(scope, limited_receive, send)
+
+
+def _include_routers(app: FastAPI) -> None:
+    from app.routers import api
+
+    app.include_router(api.router)
+    app.include_router(api.ops_router)  # /healthz and /metrics at the root as well
+
+    from fastapi.staticfiles import StaticFiles
+
+    from app.routers import pages
+
+    app.include_router(pages.router)
+    pages.install_page_handlers(app)
+    app.mount("/static", StaticFiles(directory=pages.STATIC_DIR), name="static")
+    from app.routers import summary
+
+    app.include_router(summary.router)
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    settings = settings or get_settings()
+    engine = make_engine(settings.database_url)
+    factory = make_session_factory(engine)
+    runner = JobRunner(factory)
+
+    @asynccontextmanager
+    async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
+        if settings.migrate_on_start:
+            upgrade_database(settings.database_url)
+        runner.resume_unfinished()
+        yield
+        runner.join(timeout=5.0)
+        engine.dispose()
+
+    app = FastAPI(
+        title="wakeledger",
+        version="0.1.0",
+        summary="Shot ledger and self-modulation model check (advisory only: it does not replace "
+        "machine protection, interlocks, radiation safety or the facility's procedures).",
+        lifespan=lifespan,
+    )
+    app.state.settings = settings
+    app.state.engine = engine
+    app.state.session_factory = factory
+    app.state.jobs = runner
+    install_problem_handlers(app)
+    _include_routers(app)
+    app.add_middleware(BodySizeLimit, limit=settings.max_body_bytes)
+    return app

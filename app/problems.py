@@ -1,0 +1,150 @@
+"""RFC 9457 problem details: one error shape for every failure the API reports.
+
+Body: ``type``, ``title``, ``status``, ``detail`` and, for input errors, ``errors``:
+a list of ``{"field": "<dotted path>", "reason": "..."}`` naming every failing field.
+FastAPI/pydantic validation errors and ``model.ShotInputError`` are converted the
+same way, so a client parses one format.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Iterable, Sequence
+from typing import Any
+
+from fastapi import FastAPI, HTTPException, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from model import ShotInputError
+
+PROBLEM_JSON = "application/problem+json"
+log = logging.getLogger(__name__)
+
+# Problem types (relative URIs, resolved against the API's base).
+INVALID_INPUT = "/problems/invalid-input"
+SHOT_CONFLICT = "/problems/shot-conflict"
+NOT_FOUND = "/problems/not-found"
+UNAUTHORIZED = "/problems/unauthorized"
+FORBIDDEN = "/problems/forbidden"
+BODY_TOO_LARGE = "/problems/body-too-large"
+ALREADY_EXISTS = "/problems/already-exists"
+INTERNAL = "/problems/internal-error"
+
+FieldProblem = tuple[str, str]
+
+
+class ProblemError(HTTPException):
+    """Raise anywhere below a router to answer with a problem document."""
+
+    def __init__(
+        self,
+        status: int,
+        title: str,
+        detail: str = "",
+        *,
+        type_: str = "about:blank",
+        errors: Iterable[FieldProblem] = (),
+        headers: dict[str, str] | None = None,
+        extra: dict[str, Any] | None = None,
+    ) -> None:
+        super().__init__(status_code=status, detail=detail, headers=headers)
+        self.title = title
+        self.type_ = type_
+        self.errors = [{"field": f, "reason": r} for f, r in errors]
+        self.extra = extra or {}
+
+    def body(self) -> dict[str, Any]:
+        body: dict[str, Any] = {
+            "type": self.type_,
+            "title": self.title,
+            "status": self.status_code,
+            "detail": self.detail,
+        }
+        if self.errors:
+            body["errors"] = self.errors
+        body.update(self.extra)
+        return body
+
+
+def invalid_input(problems: Sequence[FieldProblem], detail: str | None = None) -> ProblemError:
+    """422 naming every failing field."""
+    if detail is None:
+        fields = ", ".join(f for f, _ in problems[:5])
+        more = f" and {len(problems) - 5} more" if len(problems) > 5 else ""
+        detail = f"{len(problems)} invalid field(s): {fields}{more}"
+    return ProblemError(422, "Invalid input", detail, type_=INVALID_INPUT, errors=problems)
+
+
+def not_found(what: str) -> ProblemError:
+    return ProblemError(404, "Not found", f"{what} does not exist", type_=NOT_FOUND)
+
+
+def problem_response(exc: ProblemError) -> JSONResponse:
+    return JSONResponse(
+        exc.body(), status_code=exc.status_code, headers=exc.headers, media_type=PROBLEM_JSON
+    )
+
+
+def dotted(loc: Sequence[Any]) -> str:
+    """('body', 'shots', 3, 'taken_at') -> 'shots.3.taken_at'; other locations keep their prefix."""
+    parts = list(loc)
+    if parts and parts[0] == "body":
+        parts = parts[1:]
+    return ".".join(str(p) for p in parts) or "body"
+
+
+def pydantic_problems(errors: Iterable[dict[str, Any]], prefix: str = "") -> list[FieldProblem]:
+    out = []
+    for err in errors:
+        path = dotted(err.get("loc", ()))
+        if prefix:
+            path = f"{prefix}.{path}" if path != "body" else prefix
+        out.append((path, err.get("msg", "invalid")))
+    return out
+
+
+_STATUS_TITLES = {
+    400: "Bad request",
+    401: "Unauthorized",
+    403: "Forbidden",
+    404: "Not found",
+    405: "Method not allowed",
+    409: "Conflict",
+    413: "Content too large",
+    415: "Unsupported media type",
+    422: "Invalid input",
+    500: "Internal server error",
+}
+
+
+def install_problem_handlers(app: FastAPI) -> None:
+    async def on_problem(_request: Request, exc: ProblemError) -> JSONResponse:
+        return problem_response(exc)
+
+    async def on_http(_request: Request, exc: StarletteHTTPException) -> JSONResponse:
+        title = _STATUS_TITLES.get(exc.status_code, "Error")
+        detail = exc.detail if isinstance(exc.detail, str) else title
+        return problem_response(
+            ProblemError(exc.status_code, title, detail, headers=getattr(exc, "headers", None))
+        )
+
+    async def on_validation(_request: Request, exc: RequestValidationError) -> JSONResponse:
+        return problem_response(invalid_input(pydantic_problems(exc.errors())))
+
+    async def on_unexpected(_request: Request, exc: Exception) -> JSONResponse:
+        log.exception("unhandled error", exc_info=exc)
+        return problem_response(
+            ProblemError(500, "Internal server error", "the error was logged", type_=INTERNAL)
+        )
+
+    app.add_exception_handler(ProblemError, on_problem)
+    app.add_exception_handler(StarletteHTTPException, on_http)
+    app.add_exception_handler(RequestValidationError, on_validation)
+    app.add_exception_handler(Exception, on_unexpected)
+
+    async def on_shot_input(_request: Request, exc: ShotInputError) -> JSONResponse:
+        return problem_response(invalid_input([(str(f), str(r)) for f, r in exc.problems]))
+
+    app.add_exception_handler(ShotInputError, on_shot_input)

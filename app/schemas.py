@@ -1,0 +1,121 @@
+"""Pydantic schemas at the API edge.
+
+Shot bodies are taken as plain JSON objects so that the raw payload is stored verbatim;
+their envelope (``shot_id``, ``taken_at``, ``notes``, ``tags``) is checked by
+``ShotEnvelope`` and the physics inputs by ``model.validate_shot`` (the ranges live only
+in ``model.INPUT_FIELDS``).
+"""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Any, Literal
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator
+
+SHOT_ID_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9._:+-]{0,127}$"
+SLUG_PATTERN = r"^[a-z0-9][a-z0-9-]{0,63}$"
+
+
+class ShotEnvelope(BaseModel):
+    """The bookkeeping part of a shot body. Other fields are not looked at here; they are
+    kept verbatim in the raw payload (and the physics sections are checked by the model)."""
+
+    model_config = ConfigDict(extra="ignore")
+
+    shot_id: str = Field(pattern=SHOT_ID_PATTERN, description="unique within the campaign")
+    taken_at: AwareDatetime = Field(description="ISO 8601 with a UTC offset; naive times are refused")
+    notes: str = Field(default="", max_length=20000)
+    tags: list[str] = Field(default_factory=list, max_length=100)
+
+
+class CampaignCreate(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    slug: str = Field(pattern=SLUG_PATTERN)
+    name: str = Field(min_length=1, max_length=200)
+    timezone: str = Field(default="UTC", description="IANA zone used for shift days and weekly summaries")
+    description: str = Field(default="", max_length=20000)
+    settings: dict[str, Any] = Field(
+        default_factory=dict, description="overrides of the model's default settings and limits"
+    )
+
+    @field_validator("timezone")
+    @classmethod
+    def _known_zone(cls, value: str) -> str:
+        try:
+            ZoneInfo(value)
+        except (ZoneInfoNotFoundError, ValueError):
+            raise ValueError(f"unknown IANA time zone {value!r}") from None
+        return value
+
+
+class CampaignOut(BaseModel):
+    slug: str
+    name: str
+    timezone: str
+    description: str
+    settings: dict[str, Any] = Field(description="the campaign's overrides")
+    effective_settings: dict[str, Any] = Field(description="defaults with the overrides applied")
+    settings_version: int
+    created_at: datetime
+    shot_count: int | None = None
+
+
+class CampaignList(BaseModel):
+    items: list[CampaignOut]
+
+
+class JobOut(BaseModel):
+    id: str
+    kind: str
+    campaign: str | None
+    state: Literal["queued", "running", "succeeded", "failed"]
+    done: int
+    total: int
+    message: str
+    result: dict[str, Any]
+    created_at: datetime
+    started_at: datetime | None
+    finished_at: datetime | None
+
+
+class SettingsChangeOut(BaseModel):
+    campaign: CampaignOut
+    job: JobOut
+
+
+class BatchIn(BaseModel):
+    shots: list[Any] = Field(description="up to max_batch_shots shot bodies (each checked by the ingest service)")
+
+
+class BatchItemOut(BaseModel):
+    index: int
+    shot_id: str
+    outcome: Literal["created", "unchanged", "duplicate_in_batch"]
+    status: str | None
+
+
+class BatchOut(BaseModel):
+    created: int
+    unchanged: int
+    duplicates_in_batch: int
+    items: list[BatchItemOut]
+
+
+class ShotPage(BaseModel):
+    items: list[dict[str, Any]]
+    next_cursor: str | None
+
+
+class RevisionOut(BaseModel):
+    revision: int
+    payload: dict[str, Any]
+    reason: str
+    author: str
+    created_at: datetime
+
+
+class RevisionList(BaseModel):
+    items: list[RevisionOut]

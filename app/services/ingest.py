@@ -1,0 +1,531 @@
+"""Ingest: validate, de-duplicate, evaluate (vectorised) and store shots in one transaction.
+
+``ingest_shots`` is the single entry point for the API (one shot or a batch) and for
+the demo generator. Nothing is half-written: the whole call commits or nothing does.
+
+Replay rules: a shot id already stored with an identical payload is ``unchanged``
+(nothing is written); with a different payload the whole call is refused (409) and the
+differing fields are named. Identical duplicates inside one batch are stored once
+(``duplicate_in_batch``); differing duplicates refuse the batch (409). "Identical"
+compares numbers by value (250 == 250.0) and taken_at as an instant.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import time
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from typing import Any
+
+import numpy as np
+from pydantic import TypeAdapter, ValidationError
+from sqlalchemy.orm import Session
+
+import model
+from app.database import begin_write, run_write
+from app.problems import SHOT_CONFLICT, FieldProblem, ProblemError, invalid_input, not_found, pydantic_problems
+from app.schemas import ShotEnvelope
+from app.services import metrics
+from app.services.campaigns import campaign_lock, get_campaign_or_404
+from app.store import audit
+from app.store import shots as shot_store
+from app.tables import Campaign, Shot
+
+_ENVELOPE = TypeAdapter(ShotEnvelope)
+SECTIONS = ("driver", "plasma", "seed", "measured")
+
+
+# --- inputs as columns ----------------------------------------------------------------------------
+
+
+def column_name(path: str) -> str:
+    """Shot table column of an input path: driver.sigma_z_mm -> driver_sigma_z_mm."""
+    return path.replace(".", "_")
+
+
+def _object_array(values: list[Any]) -> np.ndarray:
+    out = np.empty(len(values), dtype=object)
+    out[:] = values
+    return out
+
+
+def payload_columns(payloads: Sequence[Mapping[str, Any]]) -> dict[str, np.ndarray]:
+    """Dotted-path columns (object arrays, None where absent) of the known inputs."""
+    blocks = {sec: [p.get(sec) or {} for p in payloads] for sec in SECTIONS}
+    columns: dict[str, np.ndarray] = {}
+    for f in model.INPUT_FIELDS:
+        section, name = f.path.split(".", 1)
+        columns[f.path] = _object_array([b.get(name) for b in blocks[section]])
+    return columns
+
+
+def rows_columns(rows: Sequence[Mapping[str, Any]]) -> dict[str, np.ndarray]:
+    """Dotted-path columns from stored shot rows (typed columns, defaults already applied)."""
+    columns: dict[str, np.ndarray] = {}
+    for f in model.INPUT_FIELDS:
+        values = [r[column_name(f.path)] for r in rows]
+        if f.kind == "enum":
+            columns[f.path] = _object_array(values)
+        else:
+            columns[f.path] = np.array([np.nan if v is None else v for v in values], dtype=float)
+    return columns
+
+
+def input_row_values(clean: Mapping[str, np.ndarray]) -> list[dict[str, Any]]:
+    """Per shot {shot column: value} from validated columns (NaN -> None, integers as int)."""
+    per_column: dict[str, list[Any]] = {}
+    for f in model.INPUT_FIELDS:
+        values = clean[f.path].tolist()
+        if f.kind == "enum":
+            per_column[column_name(f.path)] = [str(v) for v in values]
+        elif f.kind == "integer":
+            per_column[column_name(f.path)] = [None if v != v else int(v) for v in values]
+        else:
+            per_column[column_name(f.path)] = [None if v != v else float(v) for v in values]
+    names = list(per_column)
+    return [dict(zip(names, vals)) for vals in zip(*per_column.values())]
+
+
+def needs_single_check(payload: Mapping[str, Any]) -> bool:
+    """Shots whose problems only the per-shot check (model.validate_shot) sees: a section
+    that is not an object, or seed fields without a seed method."""
+    for section in SECTIONS:
+        block = payload.get(section)
+        if block is not None and not isinstance(block, Mapping):
+            return True
+    seed = payload.get("seed")
+    return isinstance(seed, Mapping) and seed.get("method") is None and any(v is not None for v in seed.values())
+
+
+# --- canonical form, hashing and differences --------------------------------------------------------
+
+
+def _canonical(value: Any) -> Any:
+    """Numbers compare by value (250 == 250.0); everything else as posted."""
+    if isinstance(value, float):
+        return int(value) if value.is_integer() and abs(value) < 2**53 else value
+    if isinstance(value, Mapping):
+        return {str(k): _canonical(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_canonical(v) for v in value]
+    return value
+
+
+def canonical_payload(payload: Mapping[str, Any], taken_at: datetime) -> dict[str, Any]:
+    """The payload as compared for replays: the same instant in any offset is the same time."""
+    out = _canonical(payload)
+    out["taken_at"] = format_utc(taken_at)
+    return out
+
+
+def payload_digest(canonical: Mapping[str, Any]) -> str:
+    text = json.dumps(canonical, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def differing_paths(old: Any, new: Any, prefix: str = "") -> list[str]:
+    """Dotted paths of every leaf that differs between two JSON documents."""
+    if isinstance(old, Mapping) and isinstance(new, Mapping):
+        out: list[str] = []
+        for key in list(old) + [k for k in new if k not in old]:
+            path = f"{prefix}.{key}" if prefix else str(key)
+            if key not in old or key not in new:
+                out.append(path)
+            else:
+                out += differing_paths(old[key], new[key], path)
+        return out
+    if isinstance(old, list) and isinstance(new, list) and len(old) == len(new):
+        out = []
+        for i, (a, b) in enumerate(zip(old, new)):
+            out += differing_paths(a, b, f"{prefix}.{i}" if prefix else str(i))
+        return out
+    return [] if old == new else [prefix or "(document)"]
+
+
+def format_utc(when: datetime) -> str:
+    """ISO 8601 in UTC with a Z suffix; milliseconds (or microseconds) only when present."""
+    when = when.astimezone(timezone.utc)
+    text = when.strftime("%Y-%m-%dT%H:%M:%S")
+    if when.microsecond % 1000:
+        text += f".{when.microsecond:06d}"
+    elif when.microsecond:
+        text += f".{when.microsecond // 1000:03d}"
+    return text + "Z"
+
+
+# --- validation -----------------------------------------------------------------------------------
+
+
+@dataclass
+class PreparedShot:
+    """One valid shot body, ready to store."""
+
+    index: int  # position in the request
+    payload: dict[str, Any]  # verbatim, as posted
+    shot_id: str
+    taken_at: datetime  # UTC
+    notes: str
+    tags: list[str]
+    inputs: dict[str, Any]  # shot table input column -> value, defaults applied
+    canonical: dict[str, Any]
+    sha256: str
+
+
+def _non_finite_paths(value: Any, prefix: str = "") -> list[FieldProblem]:
+    if isinstance(value, float):
+        return [] if math.isfinite(value) else [(prefix, "NaN or infinity is not allowed")]
+    if isinstance(value, Mapping):
+        out: list[FieldProblem] = []
+        for k, v in value.items():
+            out += _non_finite_paths(v, f"{prefix}.{k}" if prefix else str(k))
+        return out
+    if isinstance(value, list):
+        out = []
+        for i, v in enumerate(value):
+            out += _non_finite_paths(v, f"{prefix}.{i}" if prefix else str(i))
+        return out
+    return []
+
+
+def _prefixed(prefix: str, path: str) -> str:
+    return f"{prefix}.{path}" if prefix else path
+
+
+def physics_problems(payload: Mapping[str, Any], prefix: str = "") -> list[FieldProblem]:
+    """Non-finite numbers anywhere (unknown fields too), and the section-1 inputs as the model checks them."""
+    non_finite = _non_finite_paths(payload)
+    problems = [(_prefixed(prefix, p), r) for p, r in non_finite]
+    try:
+        model.validate_shot(payload)
+    except model.ShotInputError as exc:
+        seen = {p for p, _ in non_finite}
+        problems += [(_prefixed(prefix, str(p)), str(r)) for p, r in exc.problems if str(p) not in seen]
+    return problems
+
+
+_CHECK_CHUNK = 64  # rows per vectorised check; a failing chunk is re-checked shot by shot
+
+
+def _checked_inputs(payloads: Sequence[Mapping[str, Any]], prefixes: Sequence[str]) -> tuple[list[dict[str, Any]], list[FieldProblem]]:
+    """Input column values of every shot, or the problems naming each failing field.
+
+    The vectorised check (model.validate_columns) clears the usual all-valid case quickly;
+    only failing chunks, and shots that need it, go through model.validate_shot, whose
+    problems carry per-shot field paths.
+    """
+    single = [needs_single_check(p) or bool(_non_finite_paths(p)) for p in payloads]
+    suspects = [i for i, flag in enumerate(single) if flag]
+    for start in range(0, len(payloads), _CHECK_CHUNK):
+        rows = [i for i in range(start, min(start + _CHECK_CHUNK, len(payloads))) if not single[i]]
+        if not rows:
+            continue
+        try:
+            model.validate_columns(payload_columns([payloads[i] for i in rows]))
+        except model.ShotInputError:
+            suspects += rows
+    problems: list[FieldProblem] = []
+    for i in sorted(suspects):
+        problems += physics_problems(payloads[i], prefixes[i])
+    if problems:
+        return [], problems
+    return input_row_values(model.validate_columns(payload_columns(payloads))), []
+
+
+def _reject(count: int, problems: list[FieldProblem], batch: bool) -> ProblemError:
+    metrics.SHOTS_REJECTED.inc(count, reason="invalid")
+    failing = {p.split(".", 2)[1] for p, _ in problems if p.startswith("shots.")}
+    if batch:
+        detail = f"{len(failing) or count} of {count} shots are invalid; nothing was stored"
+    else:
+        detail = f"the shot is invalid ({len(problems)} problem(s)); nothing was stored"
+    return invalid_input(problems, detail)
+
+
+def prepare_all(payloads: Sequence[Any], batch: bool) -> list[PreparedShot]:
+    """Validate every body; 422 naming every failing field (``shots.<i>.<path>`` in a batch)."""
+    problems: list[FieldProblem] = []
+    envelopes: dict[int, ShotEnvelope] = {}
+    objects: list[int] = []
+    for i, payload in enumerate(payloads):
+        prefix = f"shots.{i}" if batch else ""
+        if not isinstance(payload, Mapping):
+            problems.append((prefix or "body", "a shot must be a JSON object"))
+            continue
+        objects.append(i)
+        try:
+            envelopes[i] = _ENVELOPE.validate_python(payload)
+        except ValidationError as exc:
+            problems += pydantic_problems(exc.errors(include_url=False), prefix)
+    inputs, physics = _checked_inputs(
+        [payloads[i] for i in objects], [f"shots.{i}" if batch else "" for i in objects]
+    )
+    problems += physics
+    if problems:
+        if batch:  # in request order
+            problems.sort(key=lambda p: int(p[0].split(".", 2)[1]) if p[0].startswith("shots.") else -1)
+        raise _reject(len(payloads), problems, batch)
+    prepared: list[PreparedShot] = []
+    for i, row in zip(objects, inputs):
+        payload, envelope = payloads[i], envelopes[i]
+        taken_at = envelope.taken_at.astimezone(timezone.utc)
+        canonical = canonical_payload(payload, taken_at)
+        prepared.append(PreparedShot(
+            index=i, payload=payload, shot_id=envelope.shot_id, taken_at=taken_at,
+            notes=envelope.notes, tags=list(envelope.tags), inputs=row,
+            canonical=canonical, sha256=payload_digest(canonical),
+        ))
+    return prepared
+
+
+# --- evaluation ------------------------------------------------------------------------------------
+
+
+def evaluate_rows(rows: Sequence[Mapping[str, Any]], overrides: Mapping[str, Any], mode: str) -> dict[str, np.ndarray]:
+    """model.evaluate_table over shot input rows (column names), timed for /metrics."""
+    start = time.perf_counter()
+    table = model.evaluate_table(rows_columns(rows), overrides)
+    metrics.EVALUATION_SECONDS.observe(time.perf_counter() - start, mode=mode)
+    metrics.EVALUATION_SHOTS.inc(len(rows), mode=mode)
+    return table
+
+
+def _nan_to_none(values: np.ndarray) -> list[float | None]:
+    return [None if v != v or v in (math.inf, -math.inf) else v for v in np.asarray(values, dtype=float).tolist()]
+
+
+def evaluation_rows(
+    table: Mapping[str, np.ndarray],
+    shot_pks: Sequence[int],
+    campaign_id: int,
+    settings_version: int,
+    now: datetime,
+) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
+    """Evaluation rows and flag rows for the table's shots (in order)."""
+    names = list(model.OUTPUT_NAMES)
+    outputs = [_nan_to_none(table[name]) for name in names]
+    status = [str(s) for s in table["status"].tolist()]
+    fixed = dict(campaign_id=campaign_id, model_version=model.MODEL_VERSION,
+                 settings_version=settings_version, evaluated_at=now)
+    evals = []
+    for i, pk in enumerate(shot_pks):
+        row = {name: col[i] for name, col in zip(names, outputs)}
+        row.update(fixed, shot_pk=pk, status=status[i])
+        evals.append(row)
+    flags: list[dict[str, Any]] = []
+    for code in model.FLAG_CODES:
+        severities = np.asarray(table[f"flag.{code}"])
+        fired = np.flatnonzero(severities != "")
+        if fired.size == 0:
+            continue
+        values = _nan_to_none(table[f"flag_value.{code}"][fired])
+        limits = _nan_to_none(table[f"flag_limit.{code}"][fired])
+        for i, value, limit in zip(fired.tolist(), values, limits):
+            severity = str(severities[i])
+            flags.append(dict(
+                shot_pk=shot_pks[i], campaign_id=campaign_id, code=code, severity=severity,
+                value=value, limit_value=limit, message=model.flag_message(code, severity, value, limit),
+            ))
+    return evals, flags
+
+
+# --- storing -----------------------------------------------------------------------------------------
+
+
+def _shot_row(shot: PreparedShot, campaign_id: int, now: datetime) -> dict[str, Any]:
+    return {
+        "campaign_id": campaign_id,
+        "shot_id": shot.shot_id,
+        "taken_at": shot.taken_at,
+        "revision": 1,
+        "notes": shot.notes,
+        "tags": shot.tags,
+        "raw_payload": shot.payload,
+        "payload_sha256": shot.sha256,
+        "created_at": now,
+        "updated_at": now,
+        **shot.inputs,
+    }
+
+
+@dataclass
+class ItemOutcome:
+    index: int
+    shot_id: str
+    outcome: str  # created | unchanged | duplicate_in_batch
+    shot_pk: int | None = None
+    status: str | None = None
+
+
+@dataclass
+class IngestResult:
+    campaign: Campaign
+    items: list[ItemOutcome] = field(default_factory=list)
+
+    def count(self, outcome: str) -> int:
+        return sum(1 for i in self.items if i.outcome == outcome)
+
+
+def _conflict(problems: list[FieldProblem], detail: str) -> ProblemError:
+    return ProblemError(409, "Shot conflict", detail, type_=SHOT_CONFLICT, errors=problems)
+
+
+def _stored_canonical(payload: Mapping[str, Any]) -> dict[str, Any]:
+    return canonical_payload(payload, _ENVELOPE.validate_python(payload).taken_at)
+
+
+def ingest_shots(
+    session: Session, campaign_slug: str, payloads: Sequence[Any], actor: str, *, batch: bool = True
+) -> IngestResult:
+    """Store and evaluate shots all-or-nothing, committed before returning.
+
+    ``batch`` only changes how failing fields are named (``shots.<i>.<path>`` or ``<path>``).
+    Raises ProblemError: 404 unknown campaign, 422 invalid shots, 409 conflicting payloads.
+    """
+    prepared = prepare_all(payloads, batch)
+    prefix = (lambda i: f"shots.{i}") if batch else (lambda i: "")
+
+    first_by_id: dict[str, PreparedShot] = {}
+    duplicates: list[PreparedShot] = []
+    problems: list[FieldProblem] = []
+    for shot in prepared:
+        first = first_by_id.setdefault(shot.shot_id, shot)
+        if first is shot:
+            continue
+        if first.sha256 == shot.sha256:
+            duplicates.append(shot)
+        else:
+            problems += [(_prefixed(prefix(shot.index), path), f"differs from shots.{first.index}, which has the same shot_id")
+                         for path in differing_paths(first.canonical, shot.canonical)]
+    if problems:
+        metrics.SHOTS_REJECTED.inc(len(payloads), reason="conflict")
+        raise _conflict(problems, "the batch holds different payloads under one shot_id; nothing was stored")
+    unique = sorted(first_by_id.values(), key=lambda s: s.shot_id)
+
+    def work() -> IngestResult:
+        begin_write(session, campaign_lock(campaign_slug))
+        campaign = get_campaign_or_404(session, campaign_slug)
+        stored = shot_store.digests_by_shot_id(session, campaign.id, [s.shot_id for s in unique])
+        conflicts = [s for s in unique if s.shot_id in stored and stored[s.shot_id].payload_sha256 != s.sha256]
+        if conflicts:
+            old = shot_store.raw_payloads(session, [stored[s.shot_id].shot_pk for s in conflicts])
+            errs = [(_prefixed(prefix(s.index), path), f"differs from the stored shot {s.shot_id!r}")
+                    for s in sorted(conflicts, key=lambda s: s.index)
+                    for path in differing_paths(_stored_canonical(old[stored[s.shot_id].shot_pk]), s.canonical)]
+            raise _conflict(errs, f"{len(conflicts)} shot id(s) are already stored with a different payload "
+                                  "(correct a shot with PUT); nothing was stored")
+        result = IngestResult(campaign=campaign)
+        new = [s for s in unique if s.shot_id not in stored]
+        if new:
+            now = datetime.now(timezone.utc)
+            pks = shot_store.insert_shots(session, [_shot_row(s, campaign.id, now) for s in new])
+            shot_store.insert_revisions(session, [
+                dict(shot_pk=pk, revision=1, raw_payload=s.payload, payload_sha256=s.sha256,
+                     reason="first version", author=actor, created_at=now)
+                for s, pk in zip(new, pks)
+            ])
+            table = evaluate_rows([s.inputs for s in new], campaign.model_settings or {},
+                                  "batch" if batch else "single")
+            evals, flags = evaluation_rows(table, pks, campaign.id, campaign.settings_version, now)
+            shot_store.insert_evaluations(session, evals)
+            shot_store.insert_flags(session, flags)
+            result.items += [ItemOutcome(s.index, s.shot_id, "created", pk, ev["status"])
+                             for s, pk, ev in zip(new, pks, evals)]
+            audit.record(session, actor, "shots.ingest", campaign_slug=campaign.slug,
+                         target=f"{len(new)} shot(s)", detail={"created": [s.shot_id for s in new]})
+        result.items += [ItemOutcome(s.index, s.shot_id, "unchanged", stored[s.shot_id].shot_pk)
+                         for s in unique if s.shot_id in stored]
+        result.items += [ItemOutcome(s.index, s.shot_id, "duplicate_in_batch")
+                         for s in duplicates]
+        return result
+
+    try:
+        result = run_write(session, work)
+    except ProblemError as exc:
+        if exc.status_code == 409:
+            metrics.SHOTS_REJECTED.inc(len(payloads), reason="conflict")
+        raise
+    result.items.sort(key=lambda i: i.index)
+    metrics.SHOTS_INGESTED.inc(result.count("created"))
+    metrics.SHOTS_UNCHANGED.inc(result.count("unchanged") + result.count("duplicate_in_batch"))
+    return result
+
+
+# --- corrections ---------------------------------------------------------------------------------------
+
+
+def correct_shot(
+    session: Session, campaign_slug: str, shot_id: str, payload: Any, actor: str, reason: str = ""
+) -> tuple[Shot, bool]:
+    """Store a corrected shot as a new revision and re-evaluate it; (shot, changed).
+
+    Earlier revisions stay in shot_revisions; an identical payload changes nothing.
+    """
+    [shot] = prepare_all([payload], batch=False)
+    if shot.shot_id != shot_id:
+        raise invalid_input([("shot_id", f"must match the shot id in the path ({shot_id!r})")])
+
+    def work() -> tuple[Shot, bool]:
+        begin_write(session, campaign_lock(campaign_slug))
+        campaign = get_campaign_or_404(session, campaign_slug)
+        current = shot_store.get_shot(session, campaign.id, shot_id)
+        if current is None:
+            raise not_found(f"shot {shot_id!r} in campaign {campaign_slug!r}")
+        if current.payload_sha256 == shot.sha256:
+            return current, False
+        now = datetime.now(timezone.utc)
+        revision = current.revision + 1
+        changed = differing_paths(_stored_canonical(current.raw_payload), shot.canonical)
+        values = _shot_row(shot, campaign.id, now)
+        for key in ("campaign_id", "shot_id", "created_at"):
+            values.pop(key)
+        values["revision"] = revision
+        shot_store.update_shot(session, current.id, values)
+        shot_store.insert_revisions(session, [dict(
+            shot_pk=current.id, revision=revision, raw_payload=shot.payload, payload_sha256=shot.sha256,
+            reason=reason, author=actor, created_at=now)])
+        table = evaluate_rows([shot.inputs], campaign.model_settings or {}, "single")
+        evals, flags = evaluation_rows(table, [current.id], campaign.id, campaign.settings_version, now)
+        shot_store.replace_evaluations(session, evals, flags)
+        audit.record(session, actor, "shot.correct", campaign_slug=campaign.slug, target=shot_id,
+                     detail={"revision": revision, "reason": reason, "changed": changed})
+        session.expire(current)
+        return current, True
+
+    shot_row, changed = run_write(session, work)
+    if changed:
+        metrics.SHOTS_INGESTED.inc(1)
+    return shot_row, changed
+
+
+# --- re-evaluation after a settings change ------------------------------------------------------------
+
+REEVALUATION_CHUNK = 2000
+
+
+def count_stale(session: Session, campaign_slug: str) -> int:
+    campaign = get_campaign_or_404(session, campaign_slug)
+    return shot_store.count_stale(session, campaign.id, campaign.settings_version)
+
+
+def reevaluate_stale_chunk(session: Session, campaign_slug: str, chunk: int = REEVALUATION_CHUNK) -> int:
+    """Re-evaluate up to ``chunk`` shots evaluated with older settings; returns how many."""
+
+    def work() -> int:
+        begin_write(session, campaign_lock(campaign_slug))
+        campaign = get_campaign_or_404(session, campaign_slug)
+        rows = shot_store.stale_inputs(session, campaign.id, campaign.settings_version, chunk)
+        if not rows:
+            return 0
+        table = evaluate_rows(rows, campaign.model_settings or {}, "reevaluate")
+        evals, flags = evaluation_rows(table, [r["id"] for r in rows], campaign.id,
+                                       campaign.settings_version, datetime.now(timezone.utc))
+        shot_store.replace_evaluations(session, evals, flags)
+        return len(rows)
+
+    n = run_write(session, work)
+    metrics.SHOTS_REEVALUATED.inc(n)
+    return n

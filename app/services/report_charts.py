@@ -1,0 +1,218 @@
+"""Static SVG charts for the self-contained weekly report: no script, no network,
+and they print as crisply as the text around them.
+
+Points are drawn as zero-length round-capped path segments, one path per group, so
+a 10,000-shot scatter stays a few hundred kilobytes.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from html import escape
+
+import numpy as np
+from markupsafe import Markup
+
+# Colours per status; the legend always names them, so grey print stays readable.
+GROUP_COLOURS = {
+    "nominal": "#2e7d32",
+    "marginal": "#d39e00",
+    "outside": "#c62828",
+    "not_evaluated": "#757575",
+    "shots": "#1f5fa8",
+}
+_W, _H = 720, 260
+_M = {"left": 64, "right": 16, "top": 30, "bottom": 44}
+
+
+def nice_ticks(lo: float, hi: float, count: int = 5) -> list[float]:
+    """Round tick values covering [lo, hi] (1, 2, 5 times a power of ten)."""
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        return []
+    if hi <= lo:
+        pad = abs(lo) * 0.05 or 1.0
+        lo, hi = lo - pad, hi + pad
+    raw = (hi - lo) / max(count, 1)
+    mag = 10 ** math.floor(math.log10(raw))
+    step = next(m * mag for m in (1, 2, 5, 10) if m * mag >= raw)
+    first = math.ceil(lo / step) * step
+    ticks = []
+    t = first
+    while t <= hi + step * 1e-9:
+        ticks.append(0.0 if abs(t) < step * 1e-9 else t)
+        t += step
+    return ticks
+
+
+def _fmt(v: float) -> str:
+    if v == 0:
+        return "0"
+    a = abs(v)
+    if a >= 1e5 or a < 1e-3:
+        return f"{v:.3g}"
+    return f"{v:.6g}"
+
+
+def _frame(title: str, x_label: str, y_label: str) -> list[str]:
+    return [
+        f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {_W} {_H}" role="img" '
+        f'aria-label="{escape(title)}" class="chart">',
+        f"<title>{escape(title)}</title>",
+        f'<text x="{_M["left"]}" y="18" class="chart-title">{escape(title)}</text>',
+        f'<text x="{(_W + _M["left"]) / 2:.0f}" y="{_H - 6}" text-anchor="middle" class="axis-label">'
+        f"{escape(x_label)}</text>",
+        f'<text transform="translate(14 {(_H) / 2:.0f}) rotate(-90)" text-anchor="middle" '
+        f'class="axis-label">{escape(y_label)}</text>',
+    ]
+
+
+class _Scale:
+    def __init__(self, lo: float, hi: float, a: float, b: float):
+        if hi <= lo:
+            pad = abs(lo) * 0.05 or 1.0
+            lo, hi = lo - pad, hi + pad
+        self.lo, self.hi, self.a, self.b = lo, hi, a, b
+
+    def __call__(self, v: np.ndarray | float) -> np.ndarray | float:
+        return self.a + (np.asarray(v, dtype=float) - self.lo) * (self.b - self.a) / (self.hi - self.lo)
+
+
+def _axes(
+    xs: _Scale, ys: _Scale, x_ticks: Sequence[tuple[float, str]], y_ticks: Sequence[float]
+) -> list[str]:
+    x0, x1 = _M["left"], _W - _M["right"]
+    y0, y1 = _H - _M["bottom"], _M["top"]
+    out = [f'<rect x="{x0}" y="{y1}" width="{x1 - x0}" height="{y0 - y1}" class="plot-area"/>']
+    for v in y_ticks:
+        y = float(ys(v))
+        out.append(f'<line x1="{x0}" x2="{x1}" y1="{y:.1f}" y2="{y:.1f}" class="grid"/>')
+        out.append(f'<text x="{x0 - 6}" y="{y + 4:.1f}" text-anchor="end" class="tick">{_fmt(v)}</text>')
+    for v, label in x_ticks:
+        x = float(xs(v))
+        out.append(f'<line x1="{x:.1f}" x2="{x:.1f}" y1="{y0}" y2="{y0 + 4}" class="axis"/>')
+        out.append(f'<text x="{x:.1f}" y="{y0 + 16}" text-anchor="middle" class="tick">{escape(label)}</text>')
+    return out
+
+
+def _legend(groups: Sequence[str], counts: Mapping[str, int] | None = None) -> list[str]:
+    out, x = [], _W - _M["right"]
+    for g in reversed(list(groups)):
+        label = g.replace("_", " ") + (f" ({counts[g]})" if counts is not None else "")
+        x -= 14 + 7 * len(label)
+        out.append(
+            f'<rect x="{x}" y="9" width="10" height="10" fill="{GROUP_COLOURS.get(g, "#444")}"/>'
+            f'<text x="{x + 14}" y="18" class="legend">{escape(label)}</text>'
+        )
+    return out
+
+
+def empty_chart(title: str, message: str) -> Markup:
+    return Markup(
+        f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {_W} 60" role="img" '
+        f'aria-label="{escape(title)}" class="chart"><title>{escape(title)}</title>'
+        f'<text x="{_M["left"]}" y="18" class="chart-title">{escape(title)}</text>'
+        f'<text x="{_M["left"]}" y="44" class="empty">{escape(message)}</text></svg>'
+    )
+
+
+def scatter_svg(
+    x: np.ndarray,
+    y: np.ndarray,
+    groups: np.ndarray,
+    *,
+    title: str,
+    x_label: str,
+    y_label: str,
+    x_range: tuple[float, float] | None = None,
+    x_ticks: Sequence[tuple[float, str]] | None = None,
+    group_order: Sequence[str] = ("nominal", "marginal", "outside", "not_evaluated"),
+) -> Markup:
+    x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+    ok = np.isfinite(x) & np.isfinite(y)
+    if not ok.any():
+        return empty_chart(title, "No shots with these values in this week.")
+    xlo, xhi = x_range or (float(x[ok].min()), float(x[ok].max()))
+    ylo, yhi = float(y[ok].min()), float(y[ok].max())
+    yt = nice_ticks(ylo, yhi)
+    if yt:
+        ylo, yhi = min(ylo, yt[0]), max(yhi, yt[-1])
+    xs = _Scale(xlo, xhi, _M["left"] + 4, _W - _M["right"] - 4)
+    ys = _Scale(ylo, yhi, _H - _M["bottom"] - 4, _M["top"] + 4)
+    if x_ticks is None:
+        x_ticks = [(t, _fmt(t)) for t in nice_ticks(xs.lo, xs.hi)]
+    out = _frame(title, x_label, y_label) + _axes(xs, ys, x_ticks, yt)
+    present = [g for g in group_order if np.any(ok & (groups == g))]
+    for g in present:
+        m = ok & (groups == g)
+        px, py = xs(x[m]), ys(y[m])
+        d = "".join(f"M{a:.1f} {b:.1f}h0" for a, b in zip(px.tolist(), py.tolist()))
+        out.append(
+            f'<path d="{d}" stroke="{GROUP_COLOURS.get(g, "#444")}" class="points"/>'
+        )
+    out += _legend(present, {g: int(np.count_nonzero(ok & (groups == g))) for g in present})
+    out.append("</svg>")
+    return Markup("".join(out))
+
+
+def stacked_bars_svg(
+    categories: Sequence[str],
+    series: Mapping[str, Sequence[int]],
+    *,
+    title: str,
+    x_label: str,
+    y_label: str,
+) -> Markup:
+    totals = np.sum([np.asarray(v, dtype=float) for v in series.values()], axis=0)
+    if not len(categories) or not totals.any():
+        return empty_chart(title, "No shots in this week.")
+    yt = nice_ticks(0.0, float(totals.max()))
+    ys = _Scale(0.0, max(yt[-1], float(totals.max())), _H - _M["bottom"], _M["top"] + 4)
+    n = len(categories)
+    slot = (_W - _M["left"] - _M["right"]) / n
+    xs = _Scale(-0.5, n - 0.5, _M["left"], _W - _M["right"])
+    out = _frame(title, x_label, y_label) + _axes(xs, ys, list(zip(range(n), categories)), yt)
+    base = np.zeros(n)
+    for g, values in series.items():
+        v = np.asarray(values, dtype=float)
+        for i in np.flatnonzero(v):
+            top, bottom = float(ys(base[i] + v[i])), float(ys(base[i]))
+            out.append(
+                f'<rect x="{_M["left"] + i * slot + slot * 0.15:.1f}" y="{top:.1f}" '
+                f'width="{slot * 0.7:.1f}" height="{bottom - top:.1f}" '
+                f'fill="{GROUP_COLOURS.get(g, "#444")}"><title>{escape(categories[i])}: '
+                f"{int(v[i])} {escape(g.replace('_', ' '))}</title></rect>"
+            )
+        base += v
+    out += _legend([g for g in series if np.any(series[g])])
+    out.append("</svg>")
+    return Markup("".join(out))
+
+
+def histogram_svg(
+    values: np.ndarray, *, title: str, x_label: str, bins: int = 30, group: str = "shots"
+) -> Markup:
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    if not v.size:
+        return empty_chart(title, "No shots with this value in this week.")
+    counts, edges = np.histogram(v, bins=bins if np.ptp(v) > 0 else 1)
+    lo, hi = float(edges[0]), float(edges[-1])
+    if hi <= lo:
+        lo, hi = lo - 0.5, hi + 0.5
+        edges = np.array([lo, hi])
+    xs = _Scale(lo, hi, _M["left"] + 4, _W - _M["right"] - 4)
+    yt = nice_ticks(0.0, float(counts.max()))
+    ys = _Scale(0.0, max(yt[-1], float(counts.max())), _H - _M["bottom"], _M["top"] + 4)
+    x_ticks = [(t, _fmt(t)) for t in nice_ticks(xs.lo, xs.hi) if xs.lo <= t <= xs.hi]
+    out = _frame(title, x_label, "shots") + _axes(xs, ys, x_ticks, yt)
+    colour = GROUP_COLOURS.get(group, "#444")
+    for c, a, b in zip(counts.tolist(), edges[:-1].tolist(), edges[1:].tolist()):
+        if c:
+            x0, x1, top = float(xs(a)), float(xs(b)), float(ys(c))
+            out.append(
+                f'<rect x="{x0:.1f}" y="{top:.1f}" width="{max(x1 - x0 - 1, 0.5):.1f}" '
+                f'height="{float(ys(0.0)) - top:.1f}" fill="{colour}"/>'
+            )
+    out.append("</svg>")
+    return Markup("".join(out))

@@ -1,0 +1,39 @@
+"""Audit trail of writes (append only)."""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+from typing import Any
+
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from app.tables import AuditEntry
+
+
+def record(
+    session: Session,
+    actor: str,
+    action: str,
+    *,
+    campaign_slug: str | None = None,
+    target: str = "",
+    detail: dict[str, Any] | None = None,
+) -> None:
+    session.add(
+        AuditEntry(
+            at=datetime.now(timezone.utc),
+            actor=actor,
+            action=action,
+            campaign_slug=campaign_slug,
+            target=target,
+            detail=detail or {},
+        )
+    )
+
+
+def list_entries(session: Session, campaign_slug: str | None = None, limit: int = 100) -> list[AuditEntry]:
+    stmt = select(AuditEntry).order_by(AuditEntry.id.desc()).limit(limit)
+    if campaign_slug is not None:
+        stmt = stmt.where(AuditEntry.campaign_slug == campaign_slug)
+    return list(session.scalars(stmt))

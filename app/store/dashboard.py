@@ -1,0 +1,557 @@
+"""Read queries behind the dashboard pages.
+
+Everything that scales with the number of shots is aggregated or decimated in SQL,
+so a 100,000-shot campaign sends the web process only a few thousand rows per chart.
+All datetimes bound here are UTC (SQLite stores them without an offset).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from typing import Any
+
+from sqlalchemy import (
+    ColumnElement,
+    Select,
+    String,
+    and_,
+    case,
+    cast,
+    func,
+    literal,
+    or_,
+    select,
+)
+from sqlalchemy.orm import Session
+
+from app.tables import Campaign, Evaluation, Flag, Job, Shot, ShotRevision
+
+STATUSES = ("nominal", "marginal", "outside")
+# Sorting by status means sorting by severity, not alphabetically.
+STATUS_RANK = case(
+    (Evaluation.status == "outside", 2), (Evaluation.status == "marginal", 1), else_=0
+)
+
+# Numeric columns a user may put on a regime-map axis or sort the table by.
+INPUT_COLUMNS: dict[str, ColumnElement[Any]] = {
+    c.name: c
+    for c in Shot.__table__.columns
+    if c.name.split("_", 1)[0] in ("driver", "plasma", "seed", "measured")
+    and c.type.python_type in (float, int)
+}
+OUTPUT_COLUMNS: dict[str, ColumnElement[Any]] = {
+    c.name: c
+    for c in Evaluation.__table__.columns
+    if c.name not in ("shot_pk", "campaign_id", "settings_version")
+    and c.type.python_type is float
+}
+NUMERIC_COLUMNS: dict[str, ColumnElement[Any]] = {**INPUT_COLUMNS, **OUTPUT_COLUMNS}
+
+
+def as_utc(value: datetime | None) -> datetime | None:
+    """Aware datetimes to UTC; naive ones (SQLite round trip) are already UTC."""
+    if value is None:
+        return None
+    if value.tzinfo is None:
+        return value.replace(tzinfo=timezone.utc)
+    return value.astimezone(timezone.utc)
+
+
+# --------------------------------------------------------------------------- campaigns
+
+
+def campaign_by_slug(session: Session, slug: str) -> Campaign | None:
+    return session.scalar(select(Campaign).where(Campaign.slug == slug))
+
+
+def campaigns_with_status_counts(session: Session) -> list[tuple[Campaign, dict[str, int], datetime | None]]:
+    """Every campaign, its shot counts by status and the time of its latest shot."""
+    campaigns = list(session.scalars(select(Campaign).order_by(Campaign.name, Campaign.slug)))
+    counts: dict[int, dict[str, int]] = {c.id: dict.fromkeys(STATUSES, 0) for c in campaigns}
+    for campaign_id, status, n in session.execute(
+        select(Evaluation.campaign_id, Evaluation.status, func.count()).group_by(
+            Evaluation.campaign_id, Evaluation.status
+        )
+    ):
+        counts.setdefault(campaign_id, dict.fromkeys(STATUSES, 0))[status] = n
+    latest = dict(
+        session.execute(select(Shot.campaign_id, func.max(Shot.taken_at)).group_by(Shot.campaign_id)).all()
+    )
+    return [(c, counts[c.id], as_utc(latest.get(c.id))) for c in campaigns]
+
+
+# ------------------------------------------------------------------------------ counts
+
+
+def status_counts(session: Session, campaign_id: int) -> dict[str, int]:
+    counts = dict.fromkeys(STATUSES, 0)
+    rows = session.execute(
+        select(Evaluation.status, func.count())
+        .where(Evaluation.campaign_id == campaign_id)
+        .group_by(Evaluation.status)
+    )
+    for status, n in rows:
+        counts[status] = n
+    return counts
+
+
+@dataclass(frozen=True)
+class FlagCount:
+    code: str
+    severity: str
+    shots: int
+
+
+def flag_counts(session: Session, campaign_id: int) -> list[FlagCount]:
+    rows = session.execute(
+        select(Flag.code, Flag.severity, func.count())
+        .where(Flag.campaign_id == campaign_id)
+        .group_by(Flag.code, Flag.severity)
+        .order_by(Flag.code, Flag.severity)
+    )
+    return [FlagCount(code, severity, n) for code, severity, n in rows]
+
+
+def latest_shot_pk(session: Session, campaign_id: int) -> int:
+    return session.scalar(select(func.max(Shot.id)).where(Shot.campaign_id == campaign_id)) or 0
+
+
+# ---------------------------------------------------------------------- series (charts)
+
+
+@dataclass
+class Series:
+    """Column-wise rows of one chart trace (one status)."""
+
+    columns: dict[str, list[Any]]
+    total: int  # shots of this status that have the plotted values
+    step: int = 1  # every step-th shot kept (1: all)
+    capped: bool = False  # flagged shots beyond the cap were left out (oldest first)
+
+    def __len__(self) -> int:
+        return len(next(iter(self.columns.values()), []))
+
+
+def _evaluated(campaign_id: int) -> Select[Any]:
+    return (
+        select()
+        .select_from(Shot)
+        .join(Evaluation, Evaluation.shot_pk == Shot.id)
+        .where(Shot.campaign_id == campaign_id)
+    )
+
+
+def _upto(upto_pk: int | None) -> list[ColumnElement[bool]]:
+    # Charts are drawn from a snapshot (shots up to the live cursor) so that live updates
+    # extend them with exactly the shots stored later.
+    return [] if upto_pk is None else [Shot.id <= upto_pk]
+
+
+def counts_with_values(
+    session: Session, campaign_id: int, required: Sequence[ColumnElement[Any]], *, upto_pk: int | None = None
+) -> dict[str, int]:
+    """Shots per status (stored up to ``upto_pk``) whose ``required`` columns are all set."""
+    counts = dict.fromkeys(STATUSES, 0)
+    rows = session.execute(
+        _evaluated(campaign_id)
+        .where(*(c.is_not(None) for c in required), *_upto(upto_pk))
+        .with_only_columns(Evaluation.status, func.count())
+        .group_by(Evaluation.status)
+    )
+    for status, n in rows:
+        counts[status] = n
+    return counts
+
+
+def status_series(
+    session: Session,
+    campaign_id: int,
+    status: str,
+    columns: dict[str, ColumnElement[Any]],
+    *,
+    total: int,
+    max_points: int,
+    decimate: bool,
+    required: Sequence[ColumnElement[Any]] = (),
+    upto_pk: int | None = None,
+) -> Series:
+    """Shots of one status in time order, about ``max_points`` of them at most.
+
+    ``decimate`` keeps every k-th shot in storage order (shot id modulo k: one index scan,
+    no sort of the whole campaign), used for nominal shots; otherwise the most recent
+    ``max_points`` are kept (flagged shots are all shown up to that cap). ``total`` is the
+    number of shots of this status that have the ``required`` columns.
+    """
+    base = _evaluated(campaign_id).where(
+        Evaluation.status == status, *(c.is_not(None) for c in required), *_upto(upto_pk)
+    )
+    labelled = [c.label(name) for name, c in columns.items()]
+    step, capped = 1, False
+    if total > max_points and decimate:
+        step = -(-total // max_points)
+        stmt = base.with_only_columns(*labelled).where(Shot.id % step == 0).order_by(Shot.taken_at, Shot.id)
+    elif total > max_points:
+        capped = True
+        newest = (
+            base.with_only_columns(*labelled, Shot.id.label("_pk"), Shot.taken_at.label("_t"))
+            .order_by(Shot.taken_at.desc(), Shot.id.desc())
+            .limit(max_points)
+            .subquery()
+        )
+        stmt = select(*(newest.c[name] for name in columns)).order_by(newest.c._t, newest.c._pk)
+    else:
+        stmt = base.with_only_columns(*labelled).order_by(Shot.taken_at, Shot.id)
+    out: dict[str, list[Any]] = {name: [] for name in columns}
+    lists = list(out.values())
+    for row in session.execute(stmt):
+        for values, value in zip(lists, row):
+            values.append(value)
+    return Series(out, total, step, capped)
+
+
+# --------------------------------------------------------------------------- statistics
+
+
+@dataclass(frozen=True)
+class PhaseBin:
+    first_taken_at: datetime
+    last_taken_at: datetime
+    shots: int
+    phase_mean: float
+    phase_std: float
+    density_mean: float
+    density_std: float
+    phase_per_pct_density_mean: float | None
+
+
+def _std(sum_sq_dev: float, n: int) -> float:
+    return (max(sum_sq_dev, 0.0) / (n - 1)) ** 0.5 if n > 1 else 0.0
+
+
+def phase_bins(session: Session, campaign_id: int, *, max_bins: int, min_shots_per_bin: int) -> list[PhaseBin]:
+    """Measured modulation phase and plasma density in groups of consecutive shots.
+
+    Groups are ranges of the shot id (storage order: one pass, no window sort). Deviations
+    are taken from the campaign means so the variance survives float rounding at
+    densities of order 1e15.
+    """
+    phase = Shot.measured_modulation_phase_rad
+    density = Shot.plasma_density_cm3
+    measured = _evaluated(campaign_id).where(phase.is_not(None))
+    n, p0, d0, first, last = session.execute(
+        measured.with_only_columns(func.count(), func.avg(phase), func.avg(density), func.min(Shot.id), func.max(Shot.id))
+    ).one()
+    if n < 2:
+        return []
+    bins = max(1, min(max_bins, n // max(min_shots_per_bin, 1)))
+    width = -(-(last - first + 1) // bins)
+    group = ((Shot.id - first) // width).label("bin")
+    dp = phase - literal(p0)
+    dd = density - literal(d0)
+    rows = session.execute(
+        measured.with_only_columns(
+            group,
+            func.min(Shot.taken_at),
+            func.max(Shot.taken_at),
+            func.count(),
+            func.avg(dp),
+            func.sum(dp * dp),
+            func.avg(dd),
+            func.sum(dd * dd),
+            func.avg(Evaluation.phase_per_pct_density_rad),
+        )
+        .group_by(group)
+        .order_by(group)
+    )
+    out = []
+    for _bin, t0, t1, count, mdp, dp2, mdd, dd2, ppd in rows:
+        out.append(
+            PhaseBin(
+                first_taken_at=as_utc(_parse_dt(t0)),
+                last_taken_at=as_utc(_parse_dt(t1)),
+                shots=count,
+                phase_mean=p0 + mdp,
+                phase_std=_std(dp2 - count * mdp * mdp, count),
+                density_mean=d0 + mdd,
+                density_std=_std(dd2 - count * mdd * mdd, count),
+                phase_per_pct_density_mean=ppd,
+            )
+        )
+    return out
+
+
+def _parse_dt(value: Any) -> datetime:
+    # Aggregates (min/max) over a subquery lose the column type on SQLite.
+    if isinstance(value, datetime):
+        return value
+    return datetime.fromisoformat(str(value))
+
+
+@dataclass(frozen=True)
+class Spread:
+    shots: int
+    mean: float | None
+    std: float | None  # sample standard deviation (n - 1)
+
+
+def spreads(session: Session, campaign_id: int, columns: Sequence[ColumnElement[Any]], *, where: Sequence[ColumnElement[bool]] = ()) -> list[Spread]:
+    """Count, mean and sample standard deviation of several columns over the same shots.
+
+    Two passes (means, then squared deviations) so the variance survives float rounding
+    at values of order 1e15.
+    """
+    base = _evaluated(campaign_id).where(*(c.is_not(None) for c in columns), *where)
+    n, *means = session.execute(base.with_only_columns(func.count(), *(func.avg(c) for c in columns))).one()
+    if not n:
+        return [Spread(0, None, None) for _ in columns]
+    sums = session.execute(
+        base.with_only_columns(*(func.sum((c - literal(m)) * (c - literal(m))) for c, m in zip(columns, means)))
+    ).one()
+    return [Spread(n, m, _std(ss or 0.0, n)) for m, ss in zip(means, sums)]
+
+
+def median_density_offset(session: Session, campaign_id: int) -> tuple[int, float | None]:
+    """Number of shots with a measured frequency and the median of implied/set density − 1."""
+    ratio = (Evaluation.implied_density_cm3 / Shot.plasma_density_cm3 - 1.0).label("r")
+    base = _evaluated(campaign_id).where(Evaluation.implied_density_cm3.is_not(None))
+    n = session.scalar(base.with_only_columns(func.count())) or 0
+    if n == 0:
+        return 0, None
+    middle = list(
+        session.scalars(
+            base.with_only_columns(ratio).order_by(ratio).offset((n - 1) // 2).limit(2 - n % 2)
+        )
+    )
+    return n, sum(middle) / len(middle)
+
+
+# ------------------------------------------------------------------------------- table
+
+
+@dataclass
+class ShotFilter:
+    status: str | None = None
+    flag_code: str | None = None
+    taken_from: datetime | None = None
+    taken_to: datetime | None = None
+    seed_method: str | None = None
+    text: str | None = None
+
+    def conditions(self, campaign_id: int) -> list[ColumnElement[bool]]:
+        out: list[ColumnElement[bool]] = [Shot.campaign_id == campaign_id]
+        if self.status:
+            out.append(Evaluation.status == self.status)
+        if self.flag_code:
+            out.append(
+                Shot.id.in_(
+                    select(Flag.shot_pk).where(Flag.campaign_id == campaign_id, Flag.code == self.flag_code)
+                )
+            )
+        if self.taken_from:
+            out.append(Shot.taken_at >= as_utc(self.taken_from))
+        if self.taken_to:
+            out.append(Shot.taken_at < as_utc(self.taken_to))
+        if self.seed_method:
+            out.append(Shot.seed_method == self.seed_method)
+        if self.text:
+            pattern = "%" + _escape_like(self.text.lower()) + "%"
+            out.append(
+                or_(
+                    func.lower(Shot.notes).like(pattern, escape="\\"),
+                    func.lower(cast(Shot.tags, String)).like(pattern, escape="\\"),
+                    func.lower(Shot.shot_id).like(pattern, escape="\\"),
+                )
+            )
+        return out
+
+
+def _escape_like(text: str) -> str:
+    return text.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_")
+
+
+# Table columns a user may sort by: name -> SQL expression.
+SORT_COLUMNS: dict[str, ColumnElement[Any]] = {
+    "taken_at": Shot.taken_at,
+    "shot_id": Shot.shot_id,
+    "status": STATUS_RANK,
+    "revision": Shot.revision,
+    "seed_method": Shot.seed_method,
+    **NUMERIC_COLUMNS,
+}
+
+
+@dataclass
+class ShotRow:
+    pk: int
+    shot_id: str
+    taken_at: datetime
+    revision: int
+    status: str
+    seed_method: str
+    notes: str
+    tags: list[str]
+    values: dict[str, float | None]
+    flags: list[tuple[str, str]] = field(default_factory=list)  # (code, severity)
+
+
+def _table_query(campaign_id: int, flt: ShotFilter) -> Select[Any]:
+    return (
+        select()
+        .select_from(Shot)
+        .join(Evaluation, Evaluation.shot_pk == Shot.id)
+        .where(*flt.conditions(campaign_id))
+    )
+
+
+def count_shots(session: Session, campaign_id: int, flt: ShotFilter) -> int:
+    return session.scalar(_table_query(campaign_id, flt).with_only_columns(func.count())) or 0
+
+
+def _row_columns(value_columns: Sequence[str]) -> list[ColumnElement[Any]]:
+    return [
+        Shot.id,
+        Shot.shot_id,
+        Shot.taken_at,
+        Shot.revision,
+        Evaluation.status,
+        Shot.seed_method,
+        Shot.notes,
+        Shot.tags,
+        *(NUMERIC_COLUMNS[name].label(name) for name in value_columns),
+    ]
+
+
+def _to_row(row: Sequence[Any], value_columns: Sequence[str]) -> ShotRow:
+    pk, shot_id, taken_at, revision, status, seed_method, notes, tags = row[:8]
+    return ShotRow(
+        pk=pk,
+        shot_id=shot_id,
+        taken_at=as_utc(taken_at),
+        revision=revision,
+        status=status,
+        seed_method=seed_method,
+        notes=notes or "",
+        tags=list(tags or []),
+        values=dict(zip(value_columns, row[8:])),
+    )
+
+
+def _attach_flags(session: Session, rows: list[ShotRow]) -> None:
+    by_pk = {r.pk: r for r in rows}
+    if not by_pk:
+        return
+    for pk, code, severity in session.execute(
+        select(Flag.shot_pk, Flag.code, Flag.severity)
+        .where(Flag.shot_pk.in_(list(by_pk)))
+        .order_by(Flag.shot_pk, Flag.id)
+    ):
+        by_pk[pk].flags.append((code, severity))
+
+
+def shot_page(
+    session: Session,
+    campaign_id: int,
+    flt: ShotFilter,
+    *,
+    sort: str,
+    descending: bool,
+    offset: int,
+    limit: int,
+    value_columns: Sequence[str],
+) -> list[ShotRow]:
+    key = SORT_COLUMNS[sort]
+    order = (key.desc(), Shot.id.desc()) if descending else (key.asc(), Shot.id.asc())
+    stmt = (
+        _table_query(campaign_id, flt)
+        .with_only_columns(*_row_columns(value_columns))
+        .order_by(*order)
+        .offset(offset)
+        .limit(limit)
+    )
+    rows = [_to_row(r, value_columns) for r in session.execute(stmt)]
+    _attach_flags(session, rows)
+    return rows
+
+
+def shots_after(session: Session, campaign_id: int, after_pk: int, *, limit: int, value_columns: Sequence[str]) -> list[ShotRow]:
+    """Shots stored after ``after_pk`` (the live cursor), oldest first, at most ``limit``."""
+    stmt = (
+        _table_query(campaign_id, ShotFilter())
+        .where(Shot.id > after_pk)
+        .with_only_columns(*_row_columns(value_columns))
+        .order_by(Shot.id)
+        .limit(limit)
+    )
+    rows = [_to_row(r, value_columns) for r in session.execute(stmt)]
+    _attach_flags(session, rows)
+    return rows
+
+
+def iter_filtered_shots(
+    session: Session, campaign_id: int, flt: ShotFilter, *, value_columns: Sequence[str], sort: str, descending: bool, chunk: int = 2000
+) -> Iterator[ShotRow]:
+    """Every shot of the filter, in chunks (keyset on the shot key keeps memory flat)."""
+    key = SORT_COLUMNS[sort]
+    stmt = (
+        _table_query(campaign_id, flt)
+        .with_only_columns(*_row_columns(value_columns))
+        .order_by(key.desc() if descending else key.asc(), Shot.id.desc() if descending else Shot.id.asc())
+        .execution_options(yield_per=chunk)
+    )
+    result = session.execute(stmt)
+    for part in result.partitions():
+        rows = [_to_row(r, value_columns) for r in part]
+        _attach_flags(session, rows)
+        yield from rows
+
+
+# ------------------------------------------------------------------------- one shot
+
+
+def shot_with_evaluation(session: Session, campaign_id: int, shot_id: str) -> tuple[Shot, Evaluation | None] | None:
+    shot = session.scalar(select(Shot).where(Shot.campaign_id == campaign_id, Shot.shot_id == shot_id))
+    if shot is None:
+        return None
+    evaluation = session.get(Evaluation, shot.id)
+    return shot, evaluation
+
+
+def shot_flags(session: Session, shot_pk: int) -> list[Flag]:
+    return list(session.scalars(select(Flag).where(Flag.shot_pk == shot_pk).order_by(Flag.id)))
+
+
+def shot_revisions(session: Session, shot_pk: int) -> list[ShotRevision]:
+    return list(
+        session.scalars(select(ShotRevision).where(ShotRevision.shot_pk == shot_pk).order_by(ShotRevision.revision))
+    )
+
+
+def neighbour_shot_ids(session: Session, campaign_id: int, shot: Shot) -> tuple[str | None, str | None]:
+    """The shot ids just before and after this one in time order."""
+    before = session.scalar(
+        select(Shot.shot_id)
+        .where(
+            Shot.campaign_id == campaign_id,
+            or_(Shot.taken_at < shot.taken_at, and_(Shot.taken_at == shot.taken_at, Shot.id < shot.id)),
+        )
+        .order_by(Shot.taken_at.desc(), Shot.id.desc())
+        .limit(1)
+    )
+    after = session.scalar(
+        select(Shot.shot_id)
+        .where(
+            Shot.campaign_id == campaign_id,
+            or_(Shot.taken_at > shot.taken_at, and_(Shot.taken_at == shot.taken_at, Shot.id > shot.id)),
+        )
+        .order_by(Shot.taken_at, Shot.id)
+        .limit(1)
+    )
+    return before, after
+
+
+def latest_job(session: Session, campaign_id: int, kind: str) -> Job | None:
+    return session.scalar(
+        select(Job).where(Job.campaign_id == campaign_id, Job.kind == kind).order_by(Job.created_at.desc()).limit(1)
+    )

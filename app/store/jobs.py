@@ -1,0 +1,33 @@
+"""Background job rows: state and progress, persisted so a reader in any process sees them."""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+from typing import Any
+
+from sqlalchemy import select, update
+from sqlalchemy.orm import Session
+
+from app.tables import Job
+
+
+def add_job(session: Session, job: Job) -> Job:
+    session.add(job)
+    session.flush()
+    return job
+
+
+def get_job(session: Session, job_id: str) -> Job | None:
+    return session.get(Job, job_id)
+
+
+def unfinished_job_ids(session: Session) -> list[str]:
+    return list(session.scalars(select(Job.id).where(Job.state.in_(("queued", "running"))).order_by(Job.created_at)))
+
+
+def set_job(session: Session, job_id: str, **values: Any) -> None:
+    session.execute(update(Job).where(Job.id == job_id).values(**values))
+
+
+def now() -> datetime:
+    return datetime.now(timezone.utc)

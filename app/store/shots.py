@@ -1,0 +1,218 @@
+"""Shots, their revisions, evaluations and flags.
+
+Bulk paths use Core inserts (executemany / insertmanyvalues) so a 5,000-shot batch is a
+handful of statements.
+"""
+
+from __future__ import annotations
+
+import base64
+import json
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+from sqlalchemy import Select, and_, bindparam, delete, exists, func, insert, or_, select, update
+from sqlalchemy.orm import Session
+
+from app.tables import Evaluation, Flag, Shot, ShotRevision
+
+SHOTS = Shot.__table__
+REVISIONS = ShotRevision.__table__
+EVALUATIONS = Evaluation.__table__
+FLAGS = Flag.__table__
+
+
+@dataclass(frozen=True)
+class StoredDigest:
+    shot_pk: int
+    payload_sha256: str
+
+
+def digests_by_shot_id(session: Session, campaign_id: int, shot_ids: Sequence[str]) -> dict[str, StoredDigest]:
+    """Stored payload hashes for the given shot ids (chunked to stay under bind limits)."""
+    out: dict[str, StoredDigest] = {}
+    ids = list(shot_ids)
+    for start in range(0, len(ids), 900):
+        chunk = ids[start:start + 900]
+        rows = session.execute(
+            select(Shot.shot_id, Shot.id, Shot.payload_sha256).where(
+                Shot.campaign_id == campaign_id, Shot.shot_id.in_(chunk)
+            )
+        )
+        for shot_id, pk, sha in rows:
+            out[shot_id] = StoredDigest(pk, sha)
+    return out
+
+
+def raw_payloads(session: Session, shot_pks: Iterable[int]) -> dict[int, dict[str, Any]]:
+    pks = list(shot_pks)
+    if not pks:
+        return {}
+    return dict(session.execute(select(Shot.id, Shot.raw_payload).where(Shot.id.in_(pks))).all())
+
+
+def insert_shots(session: Session, rows: Sequence[dict[str, Any]]) -> list[int]:
+    """Insert shot rows; returns their primary keys in the order given."""
+    if not rows:
+        return []
+    result = session.execute(insert(SHOTS).returning(SHOTS.c.id, sort_by_parameter_order=True), list(rows))
+    return [pk for (pk,) in result]
+
+
+def insert_revisions(session: Session, rows: Sequence[dict[str, Any]]) -> None:
+    if rows:
+        session.execute(insert(REVISIONS), list(rows))
+
+
+def insert_evaluations(session: Session, rows: Sequence[dict[str, Any]]) -> None:
+    if rows:
+        session.execute(insert(EVALUATIONS), list(rows))
+
+
+def insert_flags(session: Session, rows: Sequence[dict[str, Any]]) -> None:
+    if rows:
+        session.execute(insert(FLAGS), list(rows))
+
+
+def replace_evaluations(session: Session, rows: Sequence[dict[str, Any]], flag_rows: Sequence[dict[str, Any]]) -> None:
+    """Overwrite the current evaluation of existing shots and swap their flags."""
+    if not rows:
+        return
+    pks = [r["shot_pk"] for r in rows]
+    for start in range(0, len(pks), 900):
+        session.execute(delete(FLAGS).where(FLAGS.c.shot_pk.in_(pks[start:start + 900])))
+    columns = [c for c in rows[0] if c != "shot_pk"]
+    stmt = (
+        update(EVALUATIONS)
+        .where(EVALUATIONS.c.shot_pk == bindparam("b_shot_pk"))
+        .values({c: bindparam(f"b_{c}") for c in columns})
+    )
+    session.execute(stmt, [{f"b_{k}": v for k, v in r.items()} for r in rows])
+    insert_flags(session, flag_rows)
+
+
+def update_shot(session: Session, shot_pk: int, values: dict[str, Any]) -> None:
+    session.execute(update(SHOTS).where(SHOTS.c.id == shot_pk).values(**values))
+
+
+def get_shot(session: Session, campaign_id: int, shot_id: str) -> Shot | None:
+    return session.scalar(select(Shot).where(Shot.campaign_id == campaign_id, Shot.shot_id == shot_id))
+
+
+def get_evaluation(session: Session, shot_pk: int) -> Evaluation | None:
+    return session.get(Evaluation, shot_pk)
+
+
+def flags_for(session: Session, shot_pks: Sequence[int]) -> dict[int, list[Flag]]:
+    out: dict[int, list[Flag]] = {pk: [] for pk in shot_pks}
+    if not shot_pks:
+        return out
+    for flag in session.scalars(select(Flag).where(Flag.shot_pk.in_(list(shot_pks))).order_by(Flag.id)):
+        out[flag.shot_pk].append(flag)
+    return out
+
+
+def revisions_of(session: Session, shot_pk: int) -> list[ShotRevision]:
+    return list(
+        session.scalars(select(ShotRevision).where(ShotRevision.shot_pk == shot_pk).order_by(ShotRevision.revision))
+    )
+
+
+# --- listing with filters and an opaque cursor over (taken_at, id) -------------------------
+
+
+@dataclass(frozen=True)
+class ShotFilter:
+    status: Sequence[str] = ()
+    flag_code: Sequence[str] = ()
+    taken_from: datetime | None = None
+    taken_to: datetime | None = None
+    seed_method: Sequence[str] = ()
+    descending: bool = False
+
+
+def encode_cursor(taken_at: datetime, pk: int, descending: bool) -> str:
+    raw = json.dumps([taken_at.isoformat(), pk, "d" if descending else "a"], separators=(",", ":"))
+    return base64.urlsafe_b64encode(raw.encode()).decode().rstrip("=")
+
+
+def decode_cursor(cursor: str) -> tuple[datetime, int, bool]:
+    """Raises ValueError for anything that is not a cursor we issued."""
+    padded = cursor + "=" * (-len(cursor) % 4)
+    taken_at, pk, order = json.loads(base64.urlsafe_b64decode(padded.encode()).decode())
+    when = datetime.fromisoformat(taken_at)
+    if when.tzinfo is None or not isinstance(pk, int) or order not in ("a", "d"):
+        raise ValueError("malformed cursor")
+    return when, pk, order == "d"
+
+
+def _filtered(campaign_id: int, f: ShotFilter) -> Select[Any]:
+    stmt = (
+        select(Shot, Evaluation)
+        .join(Evaluation, Evaluation.shot_pk == Shot.id)
+        .where(Shot.campaign_id == campaign_id)
+    )
+    if f.status:
+        stmt = stmt.where(Evaluation.status.in_(list(f.status)))
+    if f.flag_code:
+        stmt = stmt.where(exists().where(Flag.shot_pk == Shot.id, Flag.code.in_(list(f.flag_code))))
+    if f.taken_from is not None:
+        stmt = stmt.where(Shot.taken_at >= f.taken_from)
+    if f.taken_to is not None:
+        stmt = stmt.where(Shot.taken_at < f.taken_to)
+    if f.seed_method:
+        stmt = stmt.where(Shot.seed_method.in_(list(f.seed_method)))
+    return stmt
+
+
+def list_shots(
+    session: Session, campaign_id: int, f: ShotFilter, after: tuple[datetime, int] | None, limit: int
+) -> tuple[list[tuple[Shot, Evaluation]], tuple[datetime, int] | None]:
+    """One page in (taken_at, id) order and the key of its last row if more follow."""
+    stmt = _filtered(campaign_id, f)
+    if after is not None:
+        at, pk = after
+        if f.descending:
+            stmt = stmt.where(or_(Shot.taken_at < at, and_(Shot.taken_at == at, Shot.id < pk)))
+        else:
+            stmt = stmt.where(or_(Shot.taken_at > at, and_(Shot.taken_at == at, Shot.id > pk)))
+    order = (Shot.taken_at.desc(), Shot.id.desc()) if f.descending else (Shot.taken_at, Shot.id)
+    rows = [(s, e) for s, e in session.execute(stmt.order_by(*order).limit(limit + 1))]
+    more = len(rows) > limit
+    rows = rows[:limit]
+    last = (rows[-1][0].taken_at, rows[-1][0].id) if more and rows else None
+    return rows, last
+
+
+def count_shots(session: Session, campaign_id: int) -> int:
+    return session.scalar(select(func.count()).select_from(Shot).where(Shot.campaign_id == campaign_id)) or 0
+
+
+# --- re-evaluation --------------------------------------------------------------------------
+
+
+def input_columns() -> list[str]:
+    return [c.name for c in SHOTS.columns if c.name.split("_", 1)[0] in ("driver", "plasma", "seed", "measured")]
+
+
+def count_stale(session: Session, campaign_id: int, settings_version: int) -> int:
+    return session.scalar(
+        select(func.count()).select_from(Evaluation).where(
+            Evaluation.campaign_id == campaign_id, Evaluation.settings_version < settings_version
+        )
+    ) or 0
+
+
+def stale_inputs(session: Session, campaign_id: int, settings_version: int, limit: int) -> list[dict[str, Any]]:
+    """Input columns (plus ``id``) of shots evaluated with older settings, oldest first."""
+    cols = [SHOTS.c.id] + [SHOTS.c[name] for name in input_columns()]
+    stmt = (
+        select(*cols)
+        .join(EVALUATIONS, EVALUATIONS.c.shot_pk == SHOTS.c.id)
+        .where(EVALUATIONS.c.campaign_id == campaign_id, EVALUATIONS.c.settings_version < settings_version)
+        .order_by(SHOTS.c.id)
+        .limit(limit)
+    )
+    return [dict(r._mapping) for r in session.execute(stmt)]

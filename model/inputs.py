@@ -1,0 +1,303 @@
+"""Inputs of one shot (MODEL.md section 1): the field table and its validation.
+
+One set of rules, two drivers:
+- validate_shot(shot) for one shot in the API JSON shape (nested dicts);
+- validate_columns(columns) for evaluate_table (dotted-path column arrays).
+Both raise ShotInputError whose `.problems` lists (field_path, reason) for EVERY
+failing field. Nothing is clipped; unknown fields are allowed and kept.
+
+In a shot, a missing key or null means "absent"; NaN and infinity are rejected.
+In a table (columns), a NaN or None cell means "absent" (there is no other way to
+write a blank in a float column); infinity is rejected.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+SPECIES = ("proton", "electron", "positron", "ion")
+SEED_METHODS = ("ionization_front", "electron_bunch", "none")
+SEEDED_METHODS = ("ionization_front", "electron_bunch")
+SEED_POSITION_LIMIT_SIGMA_Z = 10.0
+
+
+@dataclass(frozen=True)
+class InputField:
+    """One row of the MODEL.md section-1 table."""
+
+    path: str
+    unit: str
+    kind: str  # "enum" | "float" | "integer"
+    description: str
+    minimum: float | None = None
+    maximum: float | None = None
+    exclusive_minimum: bool = False  # True: value must be > minimum
+    nonzero: bool = False
+    choices: tuple[str, ...] = ()
+    required: bool = False
+    default: Any = None
+    needed_for: str = ""  # "", "species=ion", "seeded", "seed=electron_bunch"
+
+    @property
+    def range_text(self) -> str:
+        if self.choices:
+            return "one of " + ", ".join(self.choices)
+        if self.minimum is not None and self.maximum is not None:
+            if self.minimum == -self.maximum:
+                return f"|value| <= {self.maximum:g}"
+            return f"{self.minimum:g} to {self.maximum:g}"
+        if self.minimum is not None:
+            return f"> {self.minimum:g}" if self.exclusive_minimum else f">= {self.minimum:g}"
+        if self.nonzero:
+            return "a non-zero integer"
+        return "finite"
+
+
+def _f(path: str, unit: str, kind: str, description: str, **kw: Any) -> InputField:
+    return InputField(path=path, unit=unit, kind=kind, description=description, **kw)
+
+
+INPUT_FIELDS: tuple[InputField, ...] = (
+    _f("driver.species", "", "enum", "driver species", choices=SPECIES, required=True),
+    _f("driver.mass_amu", "u", "float", "driver ion mass (species ion only)", minimum=0.0, exclusive_minimum=True, needed_for="species=ion"),
+    _f("driver.charge_state", "e", "integer", "driver ion charge state (species ion only)", nonzero=True, needed_for="species=ion"),
+    _f("driver.momentum_gev", "GeV/c", "float", "mean momentum", minimum=0.01, maximum=1e5, required=True),
+    _f("driver.population", "particles", "float", "bunch population N_b", minimum=1e6, maximum=1e14, required=True),
+    _f("driver.sigma_z_mm", "mm", "float", "rms bunch length", minimum=1e-3, maximum=1e4, required=True),
+    _f("driver.sigma_r_mm", "mm", "float", "rms transverse size per plane at the plasma entrance", minimum=1e-4, maximum=100.0, required=True),
+    _f("driver.emittance_n_mm_mrad", "mm mrad", "float", "normalised rms emittance", minimum=0.0, maximum=1e3, default=0.0),
+    _f("driver.offset_x_mm", "mm", "float", "centroid offset from the axis, x", minimum=-100.0, maximum=100.0, default=0.0),
+    _f("driver.offset_y_mm", "mm", "float", "centroid offset from the axis, y", minimum=-100.0, maximum=100.0, default=0.0),
+    _f("driver.angle_x_mrad", "mrad", "float", "centroid angle to the axis, x", minimum=-100.0, maximum=100.0, default=0.0),
+    _f("driver.angle_y_mrad", "mrad", "float", "centroid angle to the axis, y", minimum=-100.0, maximum=100.0, default=0.0),
+    _f("plasma.density_cm3", "cm^-3", "float", "electron density at the entrance", minimum=1e10, maximum=1e20, required=True),
+    _f("plasma.gradient_pct_per_m", "%/m", "float", "linear density gradient", minimum=-50.0, maximum=50.0, default=0.0),
+    _f("plasma.length_m", "m", "float", "plasma length", minimum=1e-3, maximum=1e3, required=True),
+    _f("plasma.ion_mass_amu", "u", "float", "plasma ion mass", minimum=0.0, exclusive_minimum=True, required=True),
+    _f("plasma.ion_charge", "e", "float", "plasma ion charge", minimum=1.0, maximum=100.0, default=1.0),
+    _f("seed.method", "", "enum", "seeding method", choices=SEED_METHODS, default="none"),
+    _f("seed.position_mm", "mm", "float", "seed position relative to the driver centre, + towards the head", needed_for="seeded"),
+    _f("seed.electron_charge_pc", "pC", "float", "seed electron bunch charge", minimum=0.0, exclusive_minimum=True, needed_for="seed=electron_bunch"),
+    _f("seed.electron_sigma_z_mm", "mm", "float", "seed electron bunch rms length", minimum=0.0, exclusive_minimum=True, needed_for="seed=electron_bunch"),
+    _f("seed.electron_sigma_r_mm", "mm", "float", "seed electron bunch rms radius", minimum=0.0, exclusive_minimum=True, needed_for="seed=electron_bunch"),
+    _f("measured.modulation_freq_ghz", "GHz", "float", "measured modulation frequency", minimum=0.0, exclusive_minimum=True),
+    _f("measured.microbunch_count", "", "float", "counted micro-bunches"),
+    _f("measured.modulation_phase_rad", "rad", "float", "measured modulation phase"),
+    _f("measured.halo_radius_mm", "mm", "float", "measured halo radius"),
+    _f("measured.witness_energy_mev", "MeV", "float", "witness energy"),
+)
+
+FIELDS_BY_PATH: dict[str, InputField] = {f.path: f for f in INPUT_FIELDS}
+SECTIONS = ("driver", "plasma", "seed", "measured")
+
+_NEEDED_TEXT = {
+    "species=ion": "missing (needed for species ion)",
+    "seeded": "missing (needed for seed methods ionization_front and electron_bunch)",
+    "seed=electron_bunch": "missing (needed for seed method electron_bunch)",
+}
+
+
+class ShotInputError(ValueError):
+    """Bad shot input; `.problems` lists (field_path, reason) for every failing field."""
+
+    def __init__(self, problems: Sequence[tuple[str, str]]):
+        self.problems: list[tuple[str, str]] = list(problems)
+        text = "; ".join(f"{path}: {reason}" for path, reason in self.problems)
+        super().__init__(f"invalid shot input ({len(self.problems)} field(s)): {text}")
+
+
+def _rows_text(rows: np.ndarray) -> str:
+    shown = ", ".join(str(int(r)) for r in rows[:5])
+    more = f" and {rows.size - 5} more" if rows.size > 5 else ""
+    return f" at rows {shown}{more}"
+
+
+def _numeric_column(values: np.ndarray, blank_nan: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(float values, absent mask, not-a-number mask) of one column."""
+    if values.dtype.kind in "fiu":
+        floats = values.astype(float, copy=False)
+        absent = np.isnan(floats) if blank_nan else np.zeros(floats.shape, bool)
+        return floats, absent, np.zeros(floats.shape, bool)
+    floats = np.full(values.shape, np.nan)
+    absent = np.zeros(values.shape, bool)
+    bad_type = np.zeros(values.shape, bool)
+    for i, v in enumerate(values.tolist()):
+        if v is None:
+            absent[i] = True
+        elif isinstance(v, bool) or not isinstance(v, (int, float)):
+            bad_type[i] = True
+        else:
+            floats[i] = float(v)
+            if blank_nan and math.isnan(floats[i]):
+                absent[i] = True
+    return floats, absent, bad_type
+
+
+def _enum_column(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(str values with '' for absent, absent mask) of one text column."""
+    if values.dtype.kind == "U":
+        return values, values == ""
+    out = np.empty(values.shape, dtype=object)
+    absent = np.zeros(values.shape, bool)
+    for i, v in enumerate(values.tolist()):
+        if v is None or v == "" or (isinstance(v, float) and math.isnan(v)):
+            out[i], absent[i] = "", True
+        else:
+            out[i] = v if isinstance(v, str) else repr(v)
+    return out.astype(str), absent
+
+
+def _check_columns(
+    columns: Mapping[str, Any], n: int, blank_nan: bool
+) -> tuple[dict[str, np.ndarray], list[tuple[str, str, np.ndarray]]]:
+    """Validate columns by the field table; return (clean columns, [(path, reason, bad rows)])."""
+    problems: list[tuple[str, str, np.ndarray]] = []
+    clean: dict[str, np.ndarray] = {}
+    present: dict[str, np.ndarray] = {}
+    all_rows = np.arange(n)
+
+    def report(path: str, reason: str, mask: np.ndarray) -> None:
+        if mask.any():
+            problems.append((path, reason, all_rows[mask]))
+
+    for f in INPUT_FIELDS:
+        raw = columns.get(f.path)
+        if raw is None:
+            values = np.full(n, "" if f.kind == "enum" else np.nan)
+        else:
+            values = np.asarray(raw)
+            if values.ndim == 0:
+                values = np.full(n, values.item(), dtype=values.dtype if values.dtype.kind != "O" else object)
+            if values.shape != (n,):
+                problems.append((f.path, f"column has {values.size} rows, expected {n}", np.empty(0, int)))
+                continue
+        if f.kind == "enum":
+            text, absent = _enum_column(values)
+            if f.default is not None:
+                text = np.where(absent, f.default, text)
+                absent = np.zeros(n, bool)
+            report(f.path, "missing", absent)
+            unknown = ~absent & ~np.isin(text, f.choices)
+            label = "species" if f.path == "driver.species" else "seed method"
+            for value in np.unique(text[unknown]):
+                report(f.path, f"unknown {label} {str(value)!r} (expected {f.range_text})", unknown & (text == value))
+            clean[f.path] = text
+            present[f.path] = ~absent
+            continue
+        floats, absent, bad_type = _numeric_column(values, blank_nan or raw is None)
+        report(f.path, "not a number", bad_type)
+        ok = ~absent & ~bad_type
+        nonfinite = ok & ~np.isfinite(floats)
+        report(f.path, "NaN or infinity is not allowed", nonfinite)
+        ok &= ~nonfinite
+        with np.errstate(invalid="ignore"):
+            out_of_range = np.zeros(n, bool)
+            if f.minimum is not None:
+                out_of_range |= (floats <= f.minimum) if f.exclusive_minimum else (floats < f.minimum)
+            if f.maximum is not None:
+                out_of_range |= floats > f.maximum
+            if f.nonzero:
+                out_of_range |= floats == 0
+            if f.kind == "integer":
+                out_of_range |= floats != np.round(floats)
+        report(f.path, f"out of range (must be {f.range_text})", ok & out_of_range)
+        if f.required:
+            report(f.path, "missing", absent)
+        if f.default is not None:
+            floats = np.where(absent, f.default, floats)
+            absent = np.zeros(n, bool)
+        clean[f.path] = floats
+        present[f.path] = ~absent
+
+    species = clean["driver.species"]
+    method = clean["seed.method"]
+    needs = {
+        "species=ion": species == "ion",
+        "seeded": np.isin(method, SEEDED_METHODS),
+        "seed=electron_bunch": method == "electron_bunch",
+    }
+    for f in INPUT_FIELDS:
+        if f.needed_for:
+            report(f.path, _NEEDED_TEXT[f.needed_for], needs[f.needed_for] & ~present[f.path])
+    with np.errstate(invalid="ignore"):
+        beyond = (
+            needs["seeded"]
+            & present["seed.position_mm"]
+            & (np.abs(clean["seed.position_mm"]) > SEED_POSITION_LIMIT_SIGMA_Z * clean["driver.sigma_z_mm"])
+        )
+    report("seed.position_mm", "out of range (seed position beyond 10 sigma_z of the driver)", beyond)
+    order = {f.path: i for i, f in enumerate(INPUT_FIELDS)}
+    problems.sort(key=lambda p: order.get(p[0], -1))
+    return clean, problems
+
+
+def validate_columns(columns: Mapping[str, Any]) -> dict[str, np.ndarray]:
+    """Validate dotted-path columns for evaluate_table; return clean columns (floats, defaults filled, NaN = absent)."""
+    lengths = {np.asarray(v).shape[0] for v in columns.values() if np.asarray(v).ndim == 1}
+    if len(lengths) > 1:
+        raise ShotInputError([("columns", f"columns have different lengths {sorted(lengths)}")])
+    n = lengths.pop() if lengths else 1
+    clean, problems = _check_columns(columns, n, blank_nan=True)
+    if problems:
+        raise ShotInputError([(path, reason + (_rows_text(rows) if rows.size else "")) for path, reason, rows in problems])
+    return clean
+
+
+def shot_to_columns(shot: Mapping[str, Any]) -> tuple[dict[str, np.ndarray], list[tuple[str, str]]]:
+    """Flatten a shot's known fields to 1-row columns; report sections that are not objects."""
+    problems: list[tuple[str, str]] = []
+    columns: dict[str, np.ndarray] = {}
+    for section in SECTIONS:
+        block = shot.get(section)
+        if block is not None and not isinstance(block, Mapping):
+            problems.append((section, "not an object"))
+            block = None
+        for f in INPUT_FIELDS:
+            if f.path.startswith(section + "."):
+                cell = np.empty(1, dtype=object)  # assigned, not built, so a list value stays one cell
+                cell[0] = None if block is None else block.get(f.path.split(".", 1)[1])
+                columns[f.path] = cell
+    return columns, problems
+
+
+def clean_shot_columns(shot: Mapping[str, Any]) -> dict[str, np.ndarray]:
+    """Validate one shot (API JSON shape) and return its 1-row clean columns, as validate_columns does."""
+    if not isinstance(shot, Mapping):
+        raise ShotInputError([("shot", "not an object")])
+    columns, problems = shot_to_columns(shot)
+    seed = shot.get("seed")
+    if isinstance(seed, Mapping) and seed.get("method") is None and any(v is not None for v in seed.values()):
+        problems.append(("seed.method", "missing (needed when other seed fields are given)"))
+    clean, column_problems = _check_columns(columns, 1, blank_nan=False)
+    problems += [(path, reason) for path, reason, _ in column_problems]
+    if problems:
+        raise ShotInputError(problems)
+    return clean
+
+
+def validate_shot(shot: Mapping[str, Any]) -> dict[str, Any]:
+    """Validate one shot (API JSON shape); return a normalised deep copy with defaults filled (MODEL.md section 1)."""
+    clean = clean_shot_columns(shot)
+    normalised = copy.deepcopy(dict(shot))
+    for f in INPUT_FIELDS:
+        section, name = f.path.split(".", 1)
+        value = clean[f.path][0]
+        if f.kind == "enum":
+            value = str(value)
+        elif math.isnan(value):
+            continue
+        elif f.kind == "integer":
+            value = int(value)
+        else:
+            value = float(value)
+        block = normalised.get(section)
+        if block is None:
+            block = normalised[section] = {}
+        block[name] = value
+    return normalised

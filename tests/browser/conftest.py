@@ -1,0 +1,65 @@
+"""Browser fixtures: Debian chromium driven by Playwright against a real uvicorn.
+
+The server is the ``live_server`` fixture of tests/conftest.py (127.0.0.1, free port,
+temp SQLite); ``page_server`` seeds it through the API with the shots of
+tests/dashboard/page_shots.py. Screenshots go to test-artifacts/ (gitignored).
+"""
+
+from __future__ import annotations
+
+import importlib.util
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import httpx
+import pytest
+
+CHROMIUM = Path("/usr/bin/chromium")
+ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
+CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                 "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+
+
+def _page_shots_module() -> Any:
+    path = Path(__file__).resolve().parents[1] / "dashboard" / "page_shots.py"
+    spec = importlib.util.spec_from_file_location("wakeledger_page_shots", path)
+    module = importlib.util.module_from_spec(spec)
+    assert spec.loader is not None
+    spec.loader.exec_module(module)
+    return module
+
+
+@pytest.fixture
+def browser() -> Iterator[Any]:
+    if not CHROMIUM.exists():
+        pytest.skip("browser tests need Debian chromium at /usr/bin/chromium (.ci/run installs it)")
+    sync_api = pytest.importorskip("playwright.sync_api", reason="browser tests need playwright")
+    with sync_api.sync_playwright() as p:
+        chromium = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        try:
+            yield chromium
+        finally:
+            chromium.close()
+
+
+@pytest.fixture
+def artifacts() -> Path:
+    ARTIFACTS.mkdir(exist_ok=True)
+    return ARTIFACTS
+
+
+@pytest.fixture
+def page_server(backend, live_server: str, admin_token: str, make_shot) -> dict[str, Any]:
+    if backend != "sqlite":
+        pytest.skip("browser tests run on SQLite only")
+    headers = {"Authorization": f"Bearer {admin_token}"}
+    with httpx.Client(base_url=live_server, headers=headers, timeout=30) as api:
+        r = api.post("/api/v1/campaigns", json={"slug": "browser-run", "name": "Browser run campaign",
+                                                "timezone": "Europe/Berlin"})
+        assert r.status_code == 201, r.text
+        shots = _page_shots_module().page_shots(make_shot)
+        r = api.post("/api/v1/campaigns/browser-run/shots/batch", json={"shots": shots})
+        assert r.status_code == 201, r.text
+    return {"base": live_server, "token": admin_token, "slug": "browser-run", "headers": headers,
+            "make_shot": make_shot}

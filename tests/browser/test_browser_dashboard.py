@@ -1,0 +1,90 @@
+"""The dashboard in a real browser: sign in, overview, filter, one shot, live update."""
+
+from __future__ import annotations
+
+import httpx
+import pytest
+
+pytestmark = pytest.mark.browser
+
+
+def _watch_console(page) -> list[str]:
+    problems: list[str] = []
+    page.on("console", lambda msg: problems.append(f"console {msg.type}: {msg.text}") if msg.type in ("error", "warning") and "WebGL" not in msg.text else None)
+    page.on("pageerror", lambda exc: problems.append(f"page error: {exc}"))
+    page.on("requestfailed", lambda req: problems.append(f"request failed: {req.url}"))
+    return problems
+
+
+def test_shift_physicist_signs_in_filters_to_outside_shots_and_opens_one_with_its_growth_chart(
+    browser, page_server, artifacts
+):
+    base, slug = page_server["base"], page_server["slug"]
+    context = browser.new_context(viewport={"width": 1360, "height": 900})
+    page = context.new_page()
+    problems = _watch_console(page)
+    outside_hosts: list[str] = []
+    page.on("request", lambda req: outside_hosts.append(req.url) if not req.url.startswith(base) else None)
+
+    page.goto(f"{base}/campaigns/{slug}")
+    assert "/sign-in" in page.url
+    page.screenshot(path=str(artifacts / "dashboard-sign-in.png"))
+    page.fill("input[name=token]", page_server["token"])
+    page.click("button[type=submit]")
+    page.wait_for_url(f"{base}/campaigns/{slug}")
+
+    page.wait_for_selector("#chart-timeline .plot-container svg")
+    page.wait_for_selector("#chart-regime .plot-container")
+    page.wait_for_selector("#chart-phase .plot-container")
+    page.wait_for_selector("#chart-calibration .plot-container")
+    assert page.locator(".caution").first.inner_text().startswith("Advisory only")
+    assert page.locator("[data-count=outside]").inner_text() == "6"
+    page.screenshot(path=str(artifacts / "dashboard-overview.png"), full_page=True)
+
+    page.goto(f"{base}/campaigns/{slug}/shots")
+    page.select_option("select[name=status]", "outside")
+    page.click("form.filters button[type=submit]")
+    page.wait_for_url("**status=outside**")
+    statuses = page.locator("#shot-rows td:nth-child(3)").all_inner_texts()
+    assert statuses and all(s.strip().endswith("outside") for s in statuses)
+    page.screenshot(path=str(artifacts / "dashboard-shots-outside.png"), full_page=True)
+
+    page.locator("#shot-rows a.mono").first.click()
+    page.wait_for_selector("#chart-growth .plot-container svg")
+    page.wait_for_selector("#chart-profile .plot-container svg")
+    assert page.locator("h1 .status").inner_text().strip().endswith("outside")
+    page.screenshot(path=str(artifacts / "dashboard-shot-detail.png"), full_page=True)
+
+    assert not outside_hosts, outside_hosts
+    assert not problems, problems
+    context.close()
+
+
+def test_a_new_shot_appears_on_the_open_overview_and_table_without_a_reload(browser, page_server, artifacts):
+    base, slug = page_server["base"], page_server["slug"]
+    context = browser.new_context(viewport={"width": 1360, "height": 900})
+    context.add_cookies([{"name": "wakeledger_token", "value": page_server["token"], "url": base}])
+    overview = context.new_page()
+    problems = _watch_console(overview)
+    overview.goto(f"{base}/campaigns/{slug}")
+    overview.wait_for_selector("#chart-timeline .plot-container")
+    table = context.new_page()
+    problems += _watch_console(table)
+    table.goto(f"{base}/campaigns/{slug}/shots")
+    before = overview.locator("[data-count=outside]").inner_text()
+
+    shot = page_server["make_shot"](1, shot_id="pg-live-1", taken_at="2026-11-17T12:00:00Z")
+    r = httpx.post(f"{base}/api/v1/campaigns/{slug}/shots", json=shot, headers=page_server["headers"], timeout=30)
+    assert r.status_code == 201, r.text
+
+    overview.wait_for_function(
+        "([n]) => document.querySelector('[data-count=outside]').textContent.trim() === String(n)",
+        arg=[int(before) + 1], timeout=5000)
+    table.wait_for_selector("#shot-rows tr:first-child a:text('pg-live-1')", timeout=5000)
+    traces = overview.evaluate(
+        "() => document.getElementById('chart-timeline').data.filter(t => t.meta && t.meta.status === 'outside')"
+        ".map(t => Array.from(t.customdata))")
+    assert all("pg-live-1" in ids for ids in traces)
+    table.screenshot(path=str(artifacts / "dashboard-shots-live.png"))
+    assert not problems, problems
+    context.close()

@@ -1,0 +1,328 @@
+"""Shared fixtures for every test package (owned by the service engineer).
+
+Databases
+- ``backend``: "sqlite" or "postgresql". Every test that uses a database fixture runs
+  once per backend. PostgreSQL runs only when WAKELEDGER_TEST_POSTGRES_URL names a server
+  (e.g. postgresql+psycopg://postgres@127.0.0.1:5432/postgres); otherwise those cases are
+  skipped with the reason. WAKELEDGER_TEST_BACKENDS=sqlite (comma list) restricts the set.
+  Select one with ``-k sqlite`` / ``-k postgresql``.
+- ``database_url``: a migrated database with no rows, fresh for each test. SQLite: a copy
+  of a migrated template file under tmp_path. PostgreSQL: one scratch database per test
+  session (CREATE DATABASE wl_test_<random>, dropped at the end), emptied before each test.
+- ``empty_database_url``: a database with no tables at all (for migration tests).
+
+App
+- ``settings``: app.config.Settings for ``database_url`` (demo mode off, no migration at start).
+- ``app``: ``create_app(settings)``; ``client``: a starlette TestClient (lifespan run).
+- ``live_server``: base URL ("http://127.0.0.1:<port>") of a real uvicorn serving ``app``
+  on a free loopback port, stopped after the test.
+- ``admin_token``, ``ingest_token``, ``viewer_token``: raw tokens of each role;
+  ``admin_headers``, ``ingest_headers``, ``viewer_headers``: {"Authorization": "Bearer ..."}.
+- ``campaign``: slug of a campaign created through the API ("test-campaign", default settings).
+
+Shots
+- ``reference_cases``: the worked examples, read from ../shared/reference_cases.json.
+- ``make_shot(case=0, shot_id=None, taken_at=None, changes=None, drop=())``: a valid shot
+  body built from worked example ``case`` (index or its shot_id, e.g. "ex-2"), with a
+  taken_at; ``changes`` maps dotted paths to new values ({"plasma.density_cm3": -1}),
+  ``drop`` lists dotted paths to remove.
+"""
+
+from __future__ import annotations
+
+import copy
+import json
+import os
+import shutil
+import socket
+import threading
+import time
+import uuid
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+import pytest
+from sqlalchemy import create_engine, text
+from sqlalchemy.engine import make_url
+
+REPO = Path(__file__).resolve().parents[1]
+REFERENCE_CASES_PATH = REPO.parent / "shared" / "reference_cases.json"
+PG_ENV = "WAKELEDGER_TEST_POSTGRES_URL"
+BACKENDS_ENV = "WAKELEDGER_TEST_BACKENDS"
+PG_SKIP_REASON = f"PostgreSQL tests need {PG_ENV} (e.g. postgresql+psycopg://postgres@127.0.0.1:5432/postgres)"
+
+
+def _wanted_backends() -> list[str]:
+    raw = os.environ.get(BACKENDS_ENV, "sqlite,postgresql")
+    return [b.strip() for b in raw.split(",") if b.strip()]
+
+
+def _backend_params() -> list[Any]:
+    return [pytest.param(b, marks=[pytest.mark.postgres] if b == "postgresql" else [], id=b)
+            for b in ("sqlite", "postgresql") if b in _wanted_backends()]
+
+
+# --- PostgreSQL scratch databases -------------------------------------------------------------
+
+
+def _pg_admin_url() -> str | None:
+    url = os.environ.get(PG_ENV)
+    if not url:
+        return None
+    from app.database import normalise_url
+
+    return normalise_url(url)
+
+
+def _create_pg_database(admin_url: str, suffix: str = "") -> str:
+    name = f"wl_test_{uuid.uuid4().hex[:12]}{suffix}"
+    engine = create_engine(admin_url, isolation_level="AUTOCOMMIT")
+    try:
+        with engine.connect() as conn:
+            conn.execute(text(f'CREATE DATABASE "{name}"'))
+    finally:
+        engine.dispose()
+    return make_url(admin_url).set(database=name).render_as_string(hide_password=False)
+
+
+def _drop_pg_database(admin_url: str, url: str) -> None:
+    name = make_url(url).database
+    engine = create_engine(admin_url, isolation_level="AUTOCOMMIT")
+    try:
+        with engine.connect() as conn:
+            conn.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
+    finally:
+        engine.dispose()
+
+
+@pytest.fixture(scope="session")
+def _pg_scratch_url() -> Iterator[str]:
+    admin = _pg_admin_url()
+    if admin is None:
+        pytest.skip(PG_SKIP_REASON)
+    from app.database import upgrade_database
+
+    url = _create_pg_database(admin)
+    try:
+        upgrade_database(url)
+        yield url
+    finally:
+        _drop_pg_database(admin, url)
+
+
+def _empty_all_tables(url: str) -> None:
+    """DELETE is much quicker than TRUNCATE for the handful of rows a test leaves."""
+    from app.tables import Base
+
+    engine = create_engine(url)
+    try:
+        with engine.begin() as conn:
+            for table in reversed(Base.metadata.sorted_tables):
+                conn.execute(table.delete())
+    finally:
+        engine.dispose()
+
+
+@pytest.fixture(scope="session")
+def _sqlite_template(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    from app.database import upgrade_database
+
+    path = tmp_path_factory.mktemp("sqlite-template") / "template.db"
+    upgrade_database(f"sqlite:///{path}")
+    return path
+
+
+# --- database fixtures ---------------------------------------------------------------------------
+
+
+@pytest.fixture(params=_backend_params())
+def backend(request: pytest.FixtureRequest) -> str:
+    if request.param == "postgresql" and _pg_admin_url() is None:
+        pytest.skip(PG_SKIP_REASON)
+    return request.param
+
+
+@pytest.fixture
+def database_url(backend: str, tmp_path: Path, request: pytest.FixtureRequest) -> str:
+    if backend == "sqlite":
+        path = tmp_path / "wakeledger.db"
+        shutil.copyfile(request.getfixturevalue("_sqlite_template"), path)
+        return f"sqlite:///{path}"
+    url = request.getfixturevalue("_pg_scratch_url")
+    _empty_all_tables(url)
+    return url
+
+
+@pytest.fixture
+def empty_database_url(backend: str, tmp_path: Path) -> Iterator[str]:
+    if backend == "sqlite":
+        yield f"sqlite:///{tmp_path / 'empty.db'}"
+        return
+    admin = _pg_admin_url()
+    assert admin is not None
+    url = _create_pg_database(admin, "_e")
+    try:
+        yield url
+    finally:
+        _drop_pg_database(admin, url)
+
+
+# --- app fixtures ----------------------------------------------------------------------------------
+
+
+@pytest.fixture
+def settings(database_url: str):
+    from app.config import Settings
+
+    return Settings(database_url=database_url, migrate_on_start=False, demo_mode=False)
+
+
+@pytest.fixture
+def app(settings):
+    from app.main import create_app
+
+    application = create_app(settings)
+    yield application
+    application.state.jobs.join(timeout=10)
+    application.state.engine.dispose()
+
+
+@pytest.fixture
+def client(app):
+    from starlette.testclient import TestClient
+
+    with TestClient(app) as test_client:
+        yield test_client
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+@pytest.fixture
+def live_server(app) -> Iterator[str]:
+    import uvicorn
+
+    sock = socket.socket()
+    sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+    sock.bind(("127.0.0.1", 0))
+    port = sock.getsockname()[1]
+    server = uvicorn.Server(uvicorn.Config(app, log_level="warning", lifespan="on"))
+    thread = threading.Thread(target=server.run, kwargs={"sockets": [sock]}, daemon=True)
+    thread.start()
+    for _ in range(500):  # bounded wait for start-up (5 s)
+        if server.started:
+            break
+        time.sleep(0.01)
+    else:
+        raise RuntimeError("uvicorn did not start")
+    try:
+        yield f"http://127.0.0.1:{port}"
+    finally:
+        server.should_exit = True
+        thread.join(timeout=10)
+        sock.close()
+
+
+def _token(app, role: str) -> str:
+    from app.services.auth import create_token
+
+    with app.state.session_factory() as session:
+        return create_token(session, role, f"test-{role}", actor="tests")
+
+
+@pytest.fixture
+def admin_token(app) -> str:
+    return _token(app, "admin")
+
+
+@pytest.fixture
+def ingest_token(app) -> str:
+    return _token(app, "ingest")
+
+
+@pytest.fixture
+def viewer_token(app) -> str:
+    return _token(app, "viewer")
+
+
+def bearer(token: str) -> dict[str, str]:
+    return {"Authorization": f"Bearer {token}"}
+
+
+@pytest.fixture
+def admin_headers(admin_token: str) -> dict[str, str]:
+    return bearer(admin_token)
+
+
+@pytest.fixture
+def ingest_headers(ingest_token: str) -> dict[str, str]:
+    return bearer(ingest_token)
+
+
+@pytest.fixture
+def viewer_headers(viewer_token: str) -> dict[str, str]:
+    return bearer(viewer_token)
+
+
+@pytest.fixture
+def campaign(client, admin_headers) -> str:
+    response = client.post(
+        "/api/v1/campaigns",
+        json={"slug": "test-campaign", "name": "Test campaign", "timezone": "UTC"},
+        headers=admin_headers,
+    )
+    assert response.status_code == 201, response.text
+    return "test-campaign"
+
+
+# --- shots ---------------------------------------------------------------------------------------------
+
+
+@pytest.fixture(scope="session")
+def reference_cases() -> list[dict[str, Any]]:
+    return json.loads(REFERENCE_CASES_PATH.read_text())
+
+
+def _set_path(doc: dict[str, Any], path: str, value: Any) -> None:
+    *parents, leaf = path.split(".")
+    node = doc
+    for part in parents:
+        node = node.setdefault(part, {})
+    node[leaf] = value
+
+
+def _drop_path(doc: dict[str, Any], path: str) -> None:
+    *parents, leaf = path.split(".")
+    node: Any = doc
+    for part in parents:
+        node = node.get(part, {})
+    node.pop(leaf, None)
+
+
+@pytest.fixture
+def make_shot(reference_cases) -> Callable[..., dict[str, Any]]:
+    def build(
+        case: int | str = 0,
+        shot_id: str | None = None,
+        taken_at: str | None = None,
+        changes: Mapping[str, Any] | None = None,
+        drop: Sequence[str] = (),
+    ) -> dict[str, Any]:
+        if isinstance(case, str):
+            index = next(i for i, c in enumerate(reference_cases) if c["input"]["shot_id"] == case)
+        else:
+            index = case
+        shot = copy.deepcopy(reference_cases[index]["input"])
+        shot["shot_id"] = shot_id or shot["shot_id"]
+        shot["taken_at"] = taken_at or f"2026-11-17T09:{index:02d}:03.120Z"
+        for path, value in (changes or {}).items():
+            _set_path(shot, path, value)
+        for path in drop:
+            _drop_path(shot, path)
+        return shot
+
+    return build

@@ -1,0 +1,52 @@
+"""Page-test fixtures: a campaign seeded through the API and a signed-in browser-like client."""
+
+from __future__ import annotations
+
+import importlib.util
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from app.services.auth import SESSION_COOKIE
+
+
+def _page_shots():
+    path = Path(__file__).resolve().parent / "page_shots.py"
+    spec = importlib.util.spec_from_file_location("wakeledger_page_shots", path)
+    module = importlib.util.module_from_spec(spec)
+    assert spec.loader is not None
+    spec.loader.exec_module(module)
+    return module.page_shots
+
+
+@pytest.fixture
+def page_shots(make_shot) -> list[dict[str, Any]]:
+    return _page_shots()(make_shot)
+
+
+@pytest.fixture
+def seeded(client, campaign, admin_headers, page_shots) -> str:
+    """The test campaign with 36 shots: 27 nominal, 3 marginal, 6 outside."""
+    response = client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": page_shots},
+                           headers=admin_headers)
+    assert response.status_code == 201, response.text
+    return campaign
+
+
+@pytest.fixture
+def viewer_client(client, viewer_token):
+    client.cookies.set(SESSION_COOKIE, viewer_token)
+    return client
+
+
+@pytest.fixture
+def admin_client(client, admin_token):
+    client.cookies.set(SESSION_COOKIE, admin_token)
+    return client
+
+
+@pytest.fixture
+def db(app):
+    with app.state.session_factory() as session:
+        yield session

@@ -1,0 +1,432 @@
+"""Dashboard pages: sign-in, campaign list, overview data, table, shot page, settings."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import re
+
+import numpy as np
+import pytest
+
+from app.routers.pages import CONTENT_SECURITY_POLICY, json_for_html
+from app.services import dashboard as dash
+from app.services.auth import SESSION_COOKIE
+from app.store import dashboard as store
+
+SLUG = "test-campaign"
+
+
+def _campaign(db):
+    return store.campaign_by_slug(db, SLUG)
+
+
+def _chart(html: str, chart_id: str) -> dict:
+    match = re.search(rf'<script type="application/json" data-chart="{chart_id}">(.*?)</script>', html, re.S)
+    assert match, f"no data block for {chart_id}"
+    return json.loads(match.group(1))
+
+
+# ------------------------------------------------------------------------ sign-in
+
+
+def test_signed_out_visitor_is_sent_to_sign_in_and_back_to_the_page_afterwards(client, seeded, viewer_token):
+    response = client.get(f"/campaigns/{SLUG}/shots?status=outside", follow_redirects=False)
+    assert response.status_code == 303
+    assert response.headers["location"].startswith("/sign-in?next=")
+    response = client.post("/sign-in", data={"token": viewer_token, "next": f"/campaigns/{SLUG}/shots?status=outside"},
+                           follow_redirects=False)
+    assert response.status_code == 303
+    assert response.headers["location"] == f"/campaigns/{SLUG}/shots?status=outside"
+
+
+def test_sign_in_sets_an_httponly_samesite_lax_cookie_and_sign_out_clears_it(client, viewer_token):
+    response = client.post("/sign-in", data={"token": viewer_token}, follow_redirects=False)
+    cookie = response.headers["set-cookie"]
+    assert cookie.startswith(f"{SESSION_COOKIE}=")
+    assert "HttpOnly" in cookie and "samesite=lax" in cookie.lower() and "Secure" not in cookie
+    assert client.get("/campaigns").status_code == 200
+    response = client.post("/sign-out", follow_redirects=False)
+    assert response.status_code == 303
+    assert 'Max-Age=0' in response.headers["set-cookie"] or "expires=" in response.headers["set-cookie"].lower()
+
+
+def test_sign_in_cookie_is_secure_when_the_settings_ask_for_it(settings, viewer_token, app):
+    from starlette.testclient import TestClient
+
+    from app.main import create_app
+
+    secure_app = create_app(settings.model_copy(update={"secure_cookies": True}))
+    with TestClient(secure_app) as secure_client:
+        response = secure_client.post("/sign-in", data={"token": viewer_token}, follow_redirects=False)
+        assert "Secure" in response.headers["set-cookie"]
+    secure_app.state.engine.dispose()
+
+
+def test_sign_in_with_an_unknown_token_is_refused_with_a_clear_message(client):
+    response = client.post("/sign-in", data={"token": "wlt_not-a-token"}, follow_redirects=False)
+    assert response.status_code == 401
+    assert "unknown or revoked" in response.text
+    assert "set-cookie" not in response.headers
+
+
+def test_sign_in_never_redirects_to_another_site(client, viewer_token):
+    response = client.post("/sign-in", data={"token": viewer_token, "next": "//elsewhere.invalid/x"},
+                           follow_redirects=False)
+    assert response.headers["location"] == "/campaigns"
+
+
+def test_a_revoked_or_stale_cookie_counts_as_signed_out(client):
+    client.cookies.set(SESSION_COOKIE, "wlt_stale")
+    response = client.get("/campaigns", follow_redirects=False)
+    assert response.status_code == 303 and response.headers["location"].startswith("/sign-in")
+
+
+# --------------------------------------------------------------- every page
+
+
+@pytest.mark.parametrize("path", ["/campaigns", f"/campaigns/{SLUG}", f"/campaigns/{SLUG}/shots",
+                                  f"/campaigns/{SLUG}/shots/pg-0000", f"/campaigns/{SLUG}/settings"])
+def test_every_page_carries_the_caution_the_weekly_summary_link_and_a_strict_csp(admin_client, seeded, path, db):
+    response = admin_client.get(path)
+    assert response.status_code == 200
+    assert "does not replace machine protection, interlocks, radiation" in response.text
+    assert "Local rules and licensed operators decide" in response.text
+    csp = response.headers["content-security-policy"]
+    assert csp == CONTENT_SECURITY_POLICY
+    assert "script-src 'self';" in csp and "unsafe-inline" not in csp.split("script-src")[1].split(";")[0]
+    if path != "/campaigns":
+        week = dash.current_week(_campaign(db))
+        assert f"/api/v1/campaigns/{SLUG}/summary?week={week}&amp;format=html" in response.text
+    # No inline executable script: every <script> either has src= or is a JSON data block.
+    for tag in re.findall(r"<script\b[^>]*>", response.text):
+        assert 'src="/' in tag or 'type="application/json"' in tag, tag
+    assert "https://" not in response.text.split("<footer>")[0].split("</head>")[0]
+
+
+def test_sign_in_page_carries_the_caution_too(client):
+    response = client.get("/sign-in")
+    assert "does not replace machine protection" in response.text
+    assert "content-security-policy" in response.headers
+
+
+def test_plotly_js_is_served_by_wakeledger_from_the_installed_package(client):
+    import plotly
+
+    response = client.get("/assets/plotly.min.js")
+    assert response.status_code == 200
+    assert response.headers["content-type"].startswith("text/javascript")
+    bundled = (plotly.__path__[0] + "/package_data/plotly.min.js")
+    assert len(response.content) == len(open(bundled, "rb").read())
+
+
+def test_unknown_campaign_and_shot_get_a_not_found_page(viewer_client, seeded):
+    assert viewer_client.get("/campaigns/nope").status_code == 404
+    response = viewer_client.get(f"/campaigns/{SLUG}/shots/pg-9999")
+    assert response.status_code == 404 and "does not exist" in response.text
+
+
+# --------------------------------------------------------------- campaigns & overview
+
+
+def test_campaign_list_shows_each_campaign_with_counts_by_status(viewer_client, seeded, db):
+    cards = dash.campaign_cards(db)
+    assert [c.campaign.slug for c in cards] == [SLUG]
+    assert cards[0].counts == {"nominal": 27, "marginal": 3, "outside": 6}
+    response = viewer_client.get("/campaigns")
+    assert "Test campaign" in response.text and "36 shots" in response.text
+
+
+def test_overview_counts_shots_by_status_and_by_flag_code(seeded, db, client, admin_headers):
+    data = dash.overview(db, _campaign(db))
+    assert data.counts == {"nominal": 27, "marginal": 3, "outside": 6}
+    stored = client.get(f"/api/v1/campaigns/{SLUG}/shots?limit=100", headers=admin_headers).json()
+    expected: dict[str, dict[str, int]] = {}
+    items = stored.get("items", stored.get("shots", []))
+    for item in items:
+        for flag in (item.get("evaluation") or item).get("flags", []):
+            expected.setdefault(flag["code"], {}).setdefault(flag["severity"], 0)
+            expected[flag["code"]][flag["severity"]] += 1
+    counted = {f.code: f.by_severity for f in data.flag_counts}
+    if expected:
+        assert counted == expected
+    assert counted["UNSEEDED"] == {"marginal": 3}
+    assert counted["DENSITY_MISMATCH"] == {"marginal": 3}
+
+
+def test_timeline_marks_flagged_shots_with_their_own_colour_shape_and_name(seeded, db):
+    figure = dash.timeline_figure(db, _campaign(db))
+    points = [t for t in figure["data"] if t.get("meta")]
+    assert {t["meta"]["y"] for t in points} == set(dash.TIMELINE_FIELDS)
+    by_status = {}
+    for trace in points:
+        by_status.setdefault(trace["meta"]["status"], trace)
+    assert {s: (t["marker"]["color"], t["marker"]["symbol"]) for s, t in by_status.items()} == {
+        "nominal": ("#0072B2", "circle"), "marginal": ("#E69F00", "diamond"), "outside": ("#D55E00", "x")}
+    assert by_status["outside"]["name"].startswith("outside (6)")
+    assert len(by_status["outside"]["x"]) == 6 and len(by_status["nominal"]["x"]) == 27
+
+
+def test_long_timelines_keep_every_kth_nominal_shot_and_all_flagged_shots(seeded, db, monkeypatch):
+    monkeypatch.setattr(dash, "TIMELINE_NOMINAL_POINTS", 10)
+    figure = dash.timeline_figure(db, _campaign(db))
+    density = {t["meta"]["status"]: t for t in figure["data"] if t.get("meta", {}).get("y") == "plasma_density_cm3"}
+    assert len(density["nominal"]["x"]) == 9  # 27 shots, every 3rd
+    assert "every 3th" in density["nominal"]["name"] or "every 3" in density["nominal"]["name"]
+    assert len(density["outside"]["x"]) == 6 and len(density["marginal"]["x"]) == 3
+    assert density["nominal"]["x"] == sorted(density["nominal"]["x"])
+
+
+def test_flagged_shots_beyond_the_cap_keep_the_most_recent(seeded, db, monkeypatch):
+    monkeypatch.setattr(dash, "FLAGGED_POINTS_CAP", 4)
+    figure = dash.timeline_figure(db, _campaign(db))
+    outside = next(t for t in figure["data"] if t.get("meta", {}).get("status") == "outside")
+    assert len(outside["x"]) == 4 and "latest" in outside["name"]
+    assert outside["customdata"] == sorted(outside["customdata"])[-4:] or outside["x"] == sorted(outside["x"])
+
+
+def test_large_scatters_switch_to_webgl(seeded, db, monkeypatch):
+    monkeypatch.setattr(dash, "WEBGL_ABOVE_POINTS", 5)
+    figure = dash.regime_figure(db, _campaign(db), "plasma_density_cm3", "efolds_exit")
+    assert {t["type"] for t in figure["data"]} == {"scattergl"}
+
+
+def test_regime_map_plots_any_two_numeric_fields_and_refuses_others(viewer_client, seeded):
+    response = viewer_client.get(f"/campaigns/{SLUG}/regime.json", params={"x": "driver_sigma_r_mm", "y": "hosing_ratio"})
+    assert response.status_code == 200
+    figure = response.json()
+    assert "driver.sigma_r_mm [mm]" in figure["layout"]["xaxis"]["title"]["text"]
+    assert sum(len(t["x"]) for t in figure["data"]) == 36
+    bad = viewer_client.get(f"/campaigns/{SLUG}/regime.json", params={"x": "notes", "y": "efolds_exit"})
+    assert bad.status_code == 422 and bad.json()["errors"][0]["field"] == "x"
+
+
+def test_regime_feed_needs_a_signed_in_viewer(client, seeded):
+    response = client.get(f"/campaigns/{SLUG}/regime.json", params={"x": "plasma_density_cm3", "y": "efolds_exit"})
+    assert response.status_code == 401
+
+
+def test_expected_phase_jitter_is_phase_per_percent_density_times_density_spread(seeded, db, page_shots):
+    summary = dash.phase_summary(db, _campaign(db))
+    with_phase = [s for s in page_shots if s.get("measured", {}).get("modulation_phase_rad") is not None]
+    density = np.array([s["plasma"]["density_cm3"] for s in with_phase])
+    phase = np.array([s["measured"]["modulation_phase_rad"] for s in with_phase])
+    spread_pct = 100 * np.std(density, ddof=1) / np.mean(density)
+    assert summary.shots_with_phase == len(with_phase)
+    assert summary.density_spread_pct == pytest.approx(spread_pct, rel=1e-9)
+    assert summary.measured_phase_std_rad == pytest.approx(np.std(phase, ddof=1), rel=1e-9)
+    assert summary.expected_phase_jitter_rad == pytest.approx(summary.phase_per_pct_density_rad * spread_pct, rel=1e-12)
+    figure = dash.phase_figure(db, _campaign(db))
+    names = [t["name"] for t in figure["data"]]
+    assert any("expected from density spread" in n for n in names)
+    assert any("measured rms phase spread" in n for n in names)
+
+
+def test_density_offset_is_the_median_of_implied_over_set_density_minus_one(seeded, db, client, admin_headers):
+    from app.tables import Evaluation, Shot
+
+    rows = db.query(Evaluation.implied_density_cm3, Shot.plasma_density_cm3).join(Shot, Shot.id == Evaluation.shot_pk) \
+        .filter(Evaluation.implied_density_cm3.isnot(None)).all()
+    expected = float(np.median([i / n - 1 for i, n in rows]))
+    summary = dash.calibration_summary(db, _campaign(db))
+    assert summary.shots_with_frequency == len(rows) == 30
+    assert summary.median_density_offset == pytest.approx(expected, rel=1e-12)
+    figure = dash.calibration_figure(db, _campaign(db))
+    assert figure["data"][0]["name"] == "measured = predicted"
+
+
+def test_overview_page_puts_chart_data_in_json_blocks(viewer_client, seeded):
+    html = viewer_client.get(f"/campaigns/{SLUG}").text
+    for chart_id in ("chart-flags", "chart-timeline", "chart-phase", "chart-calibration"):
+        assert _chart(html, chart_id)["data"]
+    assert 'id="chart-regime"' in html and 'id="live-config"' in html
+
+
+# --------------------------------------------------------------------------- table
+
+
+def _shot_ids(html: str) -> list[str]:
+    return re.findall(r'<a class="mono" href="/campaigns/test-campaign/shots/([^"]+)">', html)
+
+
+def test_table_filters_by_status_flag_code_seed_method_time_and_text(viewer_client, seeded):
+    def ids(**params):
+        response = viewer_client.get(f"/campaigns/{SLUG}/shots", params=params)
+        assert response.status_code == 200, response.text
+        return _shot_ids(response.text)
+
+    assert len(ids()) == 36
+    assert len(ids(status="outside")) == 6
+    assert len(ids(flag="UNSEEDED")) == 3
+    assert ids(seed="none") == ids(flag="UNSEEDED")
+    assert len(ids(q="wide")) == 3  # a tag
+    assert len(ids(q="RETUNE")) == 3  # in the notes, any case
+    # Times in the campaign's zone (UTC here); pg-0000 is at 08:00, one shot each 7 minutes.
+    assert ids(**{"from": "2026-11-16T08:00", "to": "2026-11-16T08:21"}) == ["pg-0002", "pg-0001", "pg-0000"]
+    assert ids(status="outside", q="wide") == ids(q="wide")
+
+
+def test_table_sorts_by_any_column_and_pages_by_one_hundred(viewer_client, seeded, db):
+    ascending = _shot_ids(viewer_client.get(f"/campaigns/{SLUG}/shots", params={"sort": "taken_at", "dir": "asc"}).text)
+    assert ascending[:2] == ["pg-0000", "pg-0001"]
+    by_status = viewer_client.get(f"/campaigns/{SLUG}/shots", params={"sort": "status", "dir": "desc"}).text
+    first_rows = re.findall(r'<span class="status (\w+)">', by_status)
+    assert first_rows[:6] == ["outside"] * 6
+    page = dash.table_page(db, _campaign(db), dash.TableQuery(store.ShotFilter(), page=1))
+    assert page.page_size == 100 and page.pages == 1 and page.total == 36
+
+
+def test_table_reports_bad_filters_instead_of_ignoring_them(viewer_client, seeded):
+    response = viewer_client.get(f"/campaigns/{SLUG}/shots", params={"status": "fine", "from": "yesterday", "sort": "notes"})
+    assert response.status_code == 422
+    for text in ("choose one of nominal, marginal, outside", "write a date and time", "cannot sort by"):
+        assert text in response.text.replace("&#39;", "'")
+
+
+def test_notes_with_markup_are_shown_as_text(viewer_client, seeded):
+    html = viewer_client.get(f"/campaigns/{SLUG}/shots", params={"q": "retune"}).text
+    assert "frequency looks off &lt;b&gt;check&lt;/b&gt; &amp; retune" in html
+    assert "<b>check</b>" not in html
+
+
+def test_csv_download_streams_the_whole_filtered_set(viewer_client, seeded):
+    response = viewer_client.get(f"/campaigns/{SLUG}/shots.csv", params={"status": "marginal"})
+    assert response.status_code == 200
+    assert response.headers["content-type"].startswith("text/csv")
+    assert "attachment" in response.headers["content-disposition"]
+    rows = list(csv.DictReader(io.StringIO(response.text)))
+    assert len(rows) == 3 and {r["status"] for r in rows} == {"marginal"}
+    assert "plasma.density_cm3" in rows[0] and "efolds_exit" in rows[0]
+    assert float(rows[0]["plasma.density_cm3"]) > 1e14
+
+
+def test_csv_cells_cannot_start_a_spreadsheet_formula():
+    assert dash._csv_text("=SUM(A1)") == "'=SUM(A1)"
+    assert dash._csv_text("plain") == "plain"
+
+
+# ------------------------------------------------------------------------- one shot
+
+
+def test_shot_page_shows_inputs_with_units_outputs_flags_and_history(admin_client, seeded, admin_headers, make_shot, db):
+    corrected = make_shot(2, shot_id="pg-0010", taken_at="2026-11-16T09:10:00Z", changes={"plasma.length_m": 10.0})
+    corrected["notes"] = "no seed this time"
+    corrected["tags"] = ["unseeded"]
+    response = admin_client.put(f"/api/v1/campaigns/{SLUG}/shots/pg-0010", params={"reason": "length was wrong"},
+                                json=corrected, headers=admin_headers)
+    assert response.status_code == 200, response.text
+    detail = dash.shot_detail(db, _campaign(db), "pg-0010")
+    units = {row.path: row.unit for row in detail.inputs}
+    assert units["plasma.density_cm3"] == "cm^-3" and units["driver.momentum_gev"] == "GeV/c"
+    outputs = {row.name: row for row in detail.outputs}
+    assert outputs["wakefield_estimate_mv_m"].unit == "MV/m" and outputs["efolds_exit"].value > 0
+    codes = {f.code: f for f in detail.flags}
+    assert codes["HOSING_RISK"].severity == "outside" and codes["HOSING_RISK"].limit == 1.0
+    assert codes["HOSING_RISK"].message and codes["HOSING_RISK"].value > 1.0
+    assert [r.revision for r in detail.revisions] == [2, 1]
+    assert ("plasma.length_m", 12.0, 10.0) in detail.revisions[0].changes
+    assert detail.revisions[0].reason == "length was wrong"
+    html = admin_client.get(f"/campaigns/{SLUG}/shots/pg-0010").text
+    assert "length was wrong" in html and "HOSING_RISK" in html
+    assert 'id="detailed-run"' in html
+
+
+def test_growth_curves_are_the_models_own_numbers_and_end_at_the_exit_values(seeded, db):
+    campaign = _campaign(db)
+    from app.services.campaigns import effective_settings
+
+    shot, evaluation = store.shot_with_evaluation(db, campaign.id, "pg-0000")
+    settings = effective_settings(campaign)
+    curves = dash.growth_curves(shot, settings)
+    assert curves["z_m"][-1] == pytest.approx(shot.plasma_length_m)
+    assert curves["efolds"][-1] == pytest.approx(evaluation.efolds_exit, rel=1e-9)
+    assert curves["modulation"][-1] == pytest.approx(math.exp(evaluation.growth_margin_efolds), rel=1e-9)
+    assert np.all(np.diff(curves["efolds"]) > 0) and np.all(np.diff(curves["modulation"]) > 0)
+    # N(L, xi) at the reference slice (xi_ref = r_ref sigma_z) is the shot's exit e-folds.
+    xi_ref = settings["reference_slice_sigma"] * shot.driver_sigma_z_mm
+    assert np.interp(xi_ref, curves["xi_mm"], curves["efolds_exit_xi"]) == pytest.approx(evaluation.efolds_exit, rel=2e-3)
+    figure = dash.growth_figure(curves, shot, evaluation, settings["saturation_modulation"])
+    star = [t for t in figure["data"] if t.get("marker", {}).get("symbol") == "star"]
+    assert star and star[0]["x"][0] == pytest.approx(evaluation.saturation_length_m, rel=1e-5)
+
+
+# ---------------------------------------------------------------------- live feed
+
+
+def test_live_feed_returns_only_shots_after_the_cursor_with_current_counts(viewer_client, seeded, admin_headers, make_shot):
+    first = viewer_client.get(f"/campaigns/{SLUG}/live", params={"since": 0}).json()
+    assert len(first["shots"]) == 36 and first["counts"]["outside"] == 6
+    cursor = first["cursor"]
+    again = viewer_client.get(f"/campaigns/{SLUG}/live", params={"since": cursor}).json()
+    assert again["shots"] == [] and again["cursor"] == cursor
+    new = make_shot(1, shot_id="pg-new", taken_at="2026-11-17T10:00:00Z")
+    assert viewer_client.post(f"/api/v1/campaigns/{SLUG}/shots", json=new, headers=admin_headers).status_code == 201
+    update = viewer_client.get(f"/campaigns/{SLUG}/live", params={"since": cursor, "fields": "hosing_ratio"}).json()
+    assert [s["shot_id"] for s in update["shots"]] == ["pg-new"]
+    shot = update["shots"][0]
+    assert shot["status"] == "outside" and update["counts"]["outside"] == 7
+    assert set(dash.TIMELINE_FIELDS) <= set(shot["values"]) and "hosing_ratio" in shot["values"]
+    assert shot["url"] == f"/campaigns/{SLUG}/shots/pg-new"
+
+
+def test_live_feed_is_bounded(viewer_client, seeded, monkeypatch):
+    monkeypatch.setattr(dash, "LIVE_MAX_ROWS", 5)
+    update = viewer_client.get(f"/campaigns/{SLUG}/live", params={"since": 0}).json()
+    assert len(update["shots"]) == 5 and update["more"] is True
+
+
+# ------------------------------------------------------------------------ security
+
+
+def test_chart_json_cannot_close_its_script_element():
+    text = str(json_for_html({"note": "</script><script>alert(1)</script>", "x": [float("nan"), 1.0], "a": "&"}))
+    assert "<" not in text and ">" not in text and "&" not in text
+    assert json.loads(text) == {"note": "</script><script>alert(1)</script>", "x": [None, 1.0], "a": "&"}
+
+
+def test_hover_text_from_users_is_escaped_for_plotly():
+    assert dash.text_for_chart("<a href=x>run</a>") == "&lt;a href=x&gt;run&lt;/a&gt;"
+
+
+# ------------------------------------------------------------------------ settings
+
+
+def test_settings_page_is_for_admins_only(viewer_client, seeded):
+    response = viewer_client.get(f"/campaigns/{SLUG}/settings")
+    assert response.status_code == 403 and "admin role" in response.text
+    assert viewer_client.post(f"/campaigns/{SLUG}/settings", data={}).status_code == 403
+
+
+def test_settings_form_rejects_bad_values_with_clear_errors_and_saves_nothing(admin_client, seeded, db):
+    form = {f.name: f.text for f in dash.settings_form(db, _campaign(db)).model_fields}
+    form["setting.noise_floor"] = "lots"
+    response = admin_client.post(f"/campaigns/{SLUG}/settings", data=form)
+    assert response.status_code == 422
+    assert "noise_floor must be a finite number" in response.text and 'value="lots"' in response.text
+    form["setting.noise_floor"] = "0.001"
+    form["limit.WEAK_SEED.marginal"] = "1"
+    form["limit.WEAK_SEED.outside"] = "3"  # below-rule: outside must lie below marginal
+    response = admin_client.post(f"/campaigns/{SLUG}/settings", data=form)
+    assert response.status_code == 422 and "out of order" in response.text
+    db.rollback()  # end the read snapshot taken before the request
+    assert _campaign(db).settings_version == 1
+
+
+def test_saving_settings_starts_the_reevaluation_and_shows_its_progress(admin_client, seeded, db, app, admin_headers):
+    form = {f.name: f.text for f in dash.settings_form(db, _campaign(db)).model_fields}
+    form["limit.HOSING_RISK.outside"] = "1000"
+    response = admin_client.post(f"/campaigns/{SLUG}/settings", data=form, follow_redirects=False)
+    assert response.status_code == 303
+    job_id = response.headers["location"].split("job=")[1]
+    app.state.jobs.join(timeout=30)
+    job = admin_client.get(f"/api/v1/jobs/{job_id}").json()  # the page polls this with the cookie
+    assert job["state"] == "succeeded" and job["kind"] == "reevaluate"
+    db.rollback()  # end the read snapshot taken before the request
+    campaign = _campaign(db)
+    assert campaign.settings_version == 2
+    assert campaign.model_settings == {"limits": {"HOSING_RISK": {"outside": 1000.0}}}
+    page = admin_client.get(response.headers["location"]).text
+    assert f'"job_id":"{job_id}"' in page
+    assert dash.overview(db, campaign).counts["outside"] < 6
