@@ -158,8 +158,9 @@ def demo(args: argparse.Namespace, settings: Settings) -> int:
 class TextProgressBar:
     """A plain-text progress bar on stderr, redrawn in place; silent for small totals."""
 
-    def __init__(self, label: str, minimum_total: int = 1000, width: int = 30, stream=None) -> None:
-        self.label, self.minimum_total, self.width = label, minimum_total, width
+    def __init__(self, label: str, minimum_total: int = 1000, width: int = 30, stream=None,
+                 unit: str = "shots") -> None:
+        self.label, self.minimum_total, self.width, self.unit = label, minimum_total, width, unit
         self.stream = stream or sys.stderr
         self.shown = False
 
@@ -168,7 +169,8 @@ class TextProgressBar:
             return
         filled = self.width * done // total if total else self.width
         bar = "#" * filled + "-" * (self.width - filled)
-        self.stream.write(f"\r{self.label} [{bar}] {100 * done // max(total, 1):3d}% {done}/{total} shots")
+        counts = f" {done}/{total} {self.unit}" if self.unit else ""
+        self.stream.write(f"\r{self.label} [{bar}] {100 * done // max(total, 1):3d}%{counts}")
         self.stream.flush()
         self.shown = True
 
@@ -239,6 +241,62 @@ def export(args: argparse.Namespace, settings: Settings) -> int:
     empty = " (no shots in this week)" if summary.is_empty else ""
     print(f"wrote {target}: {summary.shot_count} shots, {campaign.slug} {week.label} ({campaign.timezone}){empty}",
           file=sys.stderr)
+    return 0
+
+
+def _simulate_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("shot", metavar="SHOT.json", help="one shot in the API JSON shape")
+    p.add_argument("--out", required=True, metavar="PATH", help="HTML file to write (self-contained, opens offline)")
+    p.add_argument("--slices-per-wavelength", type=int, default=16, metavar="N",
+                   help="slices per plasma wavelength (at least 16; default 16)")
+    p.add_argument("--dz-m", type=float, default=None, metavar="DZ",
+                   help="integration step along the plasma in metres (default: the solver's choice)")
+
+
+@command("simulate", help="run the detailed envelope solver on one shot file and write an HTML report",
+         configure=_simulate_args)
+def simulate(args: argparse.Namespace, settings: Settings) -> int:
+    import json
+    from pathlib import Path
+
+    from app.problems import ProblemError
+    from app.services.detailed_runs import parse_parameters, problem_lines, simulate_to_html
+    from model import ShotInputError
+    from model.envelope import EnvelopeSizeError
+
+    options = {"slices_per_wavelength": "--slices-per-wavelength", "dz_m": "--dz-m"}
+
+    def fail(lines: list[str], code: int = 2) -> int:
+        for line in lines:
+            print(f"wakeledger simulate: error: {line}", file=sys.stderr)
+        return code
+
+    source, out = Path(args.shot), Path(args.out)
+    try:
+        shot = json.loads(source.read_text(encoding="utf-8"))
+    except OSError as exc:
+        return fail([f"cannot read {str(source)!r}: {exc.strerror or exc}"])
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        return fail([f"{str(source)!r} is not a JSON shot: {exc}"])
+    if not out.parent.is_dir():
+        return fail([f"directory {str(out.parent)!r} does not exist"])
+    bar = TextProgressBar(f"{shot.get('shot_id', source.stem) if isinstance(shot, dict) else source.stem} envelope",
+                          minimum_total=0, unit="")
+    try:
+        params = parse_parameters({"slices_per_wavelength": args.slices_per_wavelength, "dz_m": args.dz_m})
+        doc = simulate_to_html(shot, params, out, progress=lambda fraction: bar(round(1000 * fraction), 1000))
+    except ProblemError as exc:
+        bar.close()
+        return fail([f"{options.get(e['field'], e['field'])}: {e['reason']}" for e in exc.errors] or [str(exc.detail)])
+    except ShotInputError as exc:
+        bar.close()
+        return fail([f"{str(source)!r} is not a valid shot:"] + problem_lines(exc.problems))
+    except (EnvelopeSizeError, OSError) as exc:
+        bar.close()
+        return fail([str(exc)], 1)
+    bar.close()
+    n = doc["numerics"]
+    print(f"wrote {out}: {n['slices']} slices x {n['steps']} steps; {doc['validity_note']}", file=sys.stderr)
     return 0
 
 

@@ -9,13 +9,15 @@ PostgreSQL is reached through psycopg 3 (``postgresql+psycopg://``).
 
 from __future__ import annotations
 
+import json
 import time
 import zlib
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from typing import TypeVar
+from typing import Any, TypeVar
 
+import orjson
 from sqlalchemy import Engine, create_engine, event, text
 from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError
 from sqlalchemy.orm import Session, sessionmaker
@@ -34,10 +36,22 @@ def normalise_url(url: str) -> str:
     return url
 
 
+def json_dumps(value: Any) -> str:
+    """JSON columns: orjson (several times faster on 5,000-shot batches), json for what it refuses
+    (integers beyond 64 bits)."""
+    try:
+        return orjson.dumps(value).decode()
+    except TypeError:
+        return json.dumps(value, ensure_ascii=False)
+
+
+_JSON = {"json_serializer": json_dumps, "json_deserializer": orjson.loads}
+
+
 def make_engine(url: str) -> Engine:
     url = normalise_url(url)
     if url.startswith("sqlite"):
-        engine = create_engine(url, connect_args={"check_same_thread": False, "timeout": 30})
+        engine = create_engine(url, connect_args={"check_same_thread": False, "timeout": 30}, **_JSON)
 
         @event.listens_for(engine, "connect")
         def _sqlite_pragmas(dbapi_conn, _record):  # pragma: no cover - trivial
@@ -55,7 +69,7 @@ def make_engine(url: str) -> Engine:
             conn.exec_driver_sql(f"BEGIN {mode}")
 
         return engine
-    return create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=10)
+    return create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=10, **_JSON)
 
 
 def make_session_factory(engine: Engine) -> sessionmaker[Session]:

@@ -72,6 +72,9 @@ def _include_routers(app: FastAPI) -> None:
     from app.routers import summary
 
     app.include_router(summary.router)
+    from app.routers import detailed_runs  # also registers the "detailed_run" job kind
+
+    app.include_router(detailed_runs.router)
 
 
 def create_app(settings: Settings | None = None) -> FastAPI:

@@ -22,7 +22,7 @@ from scipy import constants as _c
 from model import form_factors as ff
 from model import growth, plasma
 from model import units as U
-from model.inputs import INPUT_FIELDS, clean_shot_columns, validate_columns
+from model.inputs import clean_shot_columns, validate_columns
 from model.rules import ABS_METRIC_CODES, FLAG_CODES, RULES, SEVERITIES, flag_message, resolve_settings
 
 MODEL_VERSION = "2026.12.1"
@@ -46,10 +46,15 @@ _STATUS_OF_RANK = np.array([0, 0, 1, 2], dtype=np.int8)  # severity rank -> stat
 
 
 def _names_of(names: np.ndarray, index: np.ndarray) -> np.ndarray:
-    """names[index] as a str array; gathering the UCS-4 code units as uint32 rows is ~10x faster than str indexing."""
-    width = names.dtype.itemsize // 4
-    rows = np.take(names.view(np.uint32).reshape(names.size, width), index.astype(np.intp), axis=0)
-    return rows.view(names.dtype).reshape(index.shape)
+    """names[index] as a str array.
+
+    Gathers the UCS-4 code units as uint32 rows (many times faster than indexing a str
+    array); when nothing fired, np.zeros returns lazily mapped pages of ''.
+    """
+    if names[0] == "" and not index.any():
+        return np.zeros(index.shape, dtype=names.dtype)
+    rows = names.view(np.uint32).reshape(names.size, names.dtype.itemsize // 4)
+    return np.take(rows, index.astype(np.intp), axis=0).view(names.dtype).reshape(index.shape)
 
 
 def _driver_mass_and_charge(cols: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
@@ -242,34 +247,23 @@ def _apply_rules(out: dict[str, np.ndarray], s: Mapping[str, Any], n: int) -> di
     return flags
 
 
-def _allocate(n: int) -> dict[str, np.ndarray]:
-    result = {name: np.empty(n) for name in OUTPUT_NAMES}
-    result["status_rank"] = np.empty(n, dtype=np.int8)
-    for code in FLAG_CODES:
-        result["rank." + code] = np.empty(n, dtype=np.int8)
-        result["flag_value." + code] = np.empty(n)
-        result["flag_limit." + code] = np.empty(n)
-    return result
-
-
 def _evaluate_clean(clean: Mapping[str, np.ndarray], s: Mapping[str, Any]) -> dict[str, np.ndarray]:
+    """The core in cache-sized chunks, then the rules on the whole table."""
     n = clean["driver.species"].shape[0]
-    result = _allocate(n)
+    result = {name: np.empty(n) for name in OUTPUT_NAMES}
+    result["_unseeded"] = np.empty(n, dtype=bool)
     for start in range(0, n, _CHUNK):
         stop = min(n, start + _CHUNK)
-        part = {k: v[start:stop] for k, v in clean.items()}
-        out = _core(part, s)
-        flags = _apply_rules(out, s, stop - start)
-        for name in OUTPUT_NAMES:
-            result[name][start:stop] = out[name]
-        for key, arr in flags.items():
-            result[key][start:stop] = arr
+        out = _core({k: v[start:stop] for k, v in clean.items()}, s)
+        for name, arr in result.items():
+            arr[start:stop] = out[name]
+    flags = _apply_rules(result, s, n)
     table: dict[str, np.ndarray] = {name: result[name] for name in OUTPUT_NAMES}
-    table["status"] = _names_of(_STATUS_NAMES, result["status_rank"])
+    table["status"] = _names_of(_STATUS_NAMES, flags["status_rank"])
     for code in FLAG_CODES:
-        table["flag." + code] = _names_of(_SEVERITY_NAMES, result["rank." + code])
-        table["flag_value." + code] = result["flag_value." + code]
-        table["flag_limit." + code] = result["flag_limit." + code]
+        table["flag." + code] = _names_of(_SEVERITY_NAMES, flags["rank." + code])
+        table["flag_value." + code] = flags["flag_value." + code]
+        table["flag_limit." + code] = flags["flag_limit." + code]
     return table
 
 
@@ -303,4 +297,4 @@ def evaluate_shot(shot: Mapping[str, Any], settings: Mapping[str, Any] | None = 
     return result
 
 
-__all__ = ["MODEL_VERSION", "OUTPUT_NAMES", "INPUT_FIELDS", "evaluate_shot", "evaluate_table"]
+__all__ = ["MODEL_VERSION", "OUTPUT_NAMES", "evaluate_shot", "evaluate_table"]

@@ -51,10 +51,14 @@ def efolds_at_modulation(log_target: ArrayLike) -> np.ndarray:
     y = np.asarray(log_target, dtype=float)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         x = np.where(y > 1.0, np.log(np.maximum(y - 0.5 * np.log(np.maximum(y, 1.0)), 1.0)), 2.0 * y - 2.0 * np.exp(np.minimum(2.0 * y, 0.0)))
+        # Each element stops once its own step is below rounding, so a shot gets the same
+        # N whether it is solved alone or in a table (the loop count depends on the batch).
+        active = np.ones(y.shape, bool)
         for _ in range(_NEWTON_STEPS):
             ex = np.exp(x)
             step = (ex + 0.5 * x - y) / (ex + 0.5)
-            x = x - step
-            if not np.any(np.abs(step) > 1e-15 * np.maximum(1.0, np.abs(x))):
+            active &= np.abs(step) > 1e-15 * np.maximum(1.0, np.abs(x))
+            if not active.any():
                 break
+            x = x - np.where(active, step, 0.0)
     return np.exp(x)

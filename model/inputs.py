@@ -183,34 +183,47 @@ def _check_columns(
                 text = np.where(absent, f.default, text)
                 absent = np.zeros(n, bool)
             report(f.path, "missing", absent)
-            unknown = ~absent & ~np.isin(text, f.choices)
+            known = np.zeros(n, bool)
+            for choice in f.choices:
+                known |= text == choice
+            unknown = ~absent & ~known
             label = "species" if f.path == "driver.species" else "seed method"
             for value in np.unique(text[unknown]):
                 report(f.path, f"unknown {label} {str(value)!r} (expected {f.range_text})", unknown & (text == value))
             clean[f.path] = text
             present[f.path] = ~absent
             continue
-        floats, absent, bad_type = _numeric_column(values, blank_nan or raw is None)
-        report(f.path, "not a number", bad_type)
-        ok = ~absent & ~bad_type
-        nonfinite = ok & ~np.isfinite(floats)
-        report(f.path, "NaN or infinity is not allowed", nonfinite)
-        ok &= ~nonfinite
+        if raw is None:  # the whole column is absent
+            floats = np.full(n, np.nan if f.default is None else float(f.default))
+            if f.required:
+                report(f.path, "missing", np.ones(n, bool))
+            clean[f.path] = floats
+            present[f.path] = np.full(n, f.default is not None)
+            continue
+        floats, absent, bad_type = _numeric_column(values, blank_nan)
         with np.errstate(invalid="ignore"):
-            out_of_range = np.zeros(n, bool)
+            # Fast path: one pass says whether every present cell is a finite in-range number.
+            upper = np.inf if f.maximum is None else f.maximum
+            good = np.abs(floats) < np.inf
             if f.minimum is not None:
-                out_of_range |= (floats <= f.minimum) if f.exclusive_minimum else (floats < f.minimum)
+                good &= (floats > f.minimum) if f.exclusive_minimum else (floats >= f.minimum)
             if f.maximum is not None:
-                out_of_range |= floats > f.maximum
+                good &= floats <= upper
             if f.nonzero:
-                out_of_range |= floats == 0
+                good &= floats != 0
             if f.kind == "integer":
-                out_of_range |= floats != np.round(floats)
-        report(f.path, f"out of range (must be {f.range_text})", ok & out_of_range)
-        if f.required:
+                good &= floats == np.round(floats)
+            if not (good | absent).all() or bad_type.any():
+                report(f.path, "not a number", bad_type)
+                finite = np.isfinite(floats)
+                report(f.path, "NaN or infinity is not allowed", ~absent & ~bad_type & ~finite)
+                report(f.path, f"out of range (must be {f.range_text})", ~absent & ~bad_type & finite & ~good)
+        any_absent = absent.any()
+        if f.required and any_absent:
             report(f.path, "missing", absent)
-        if f.default is not None:
+        if f.default is not None and any_absent:
             floats = np.where(absent, f.default, floats)
+        if f.default is not None:
             absent = np.zeros(n, bool)
         clean[f.path] = floats
         present[f.path] = ~absent
@@ -237,13 +250,17 @@ def _check_columns(
     return clean, problems
 
 
-def validate_columns(columns: Mapping[str, Any]) -> dict[str, np.ndarray]:
-    """Validate dotted-path columns for evaluate_table; return clean columns (floats, defaults filled, NaN = absent)."""
+def validate_columns(columns: Mapping[str, Any], nan_is_absent: bool = True) -> dict[str, np.ndarray]:
+    """Validate dotted-path columns for evaluate_table; return clean columns (floats, defaults filled, NaN = absent).
+
+    None cells are always absent; NaN cells are absent too unless nan_is_absent=False
+    (then NaN is refused as in a shot: use that for columns built from API payloads).
+    """
     lengths = {np.asarray(v).shape[0] for v in columns.values() if np.asarray(v).ndim == 1}
     if len(lengths) > 1:
         raise ShotInputError([("columns", f"columns have different lengths {sorted(lengths)}")])
     n = lengths.pop() if lengths else 1
-    clean, problems = _check_columns(columns, n, blank_nan=True)
+    clean, problems = _check_columns(columns, n, blank_nan=nan_is_absent)
     if problems:
         raise ShotInputError([(path, reason + (_rows_text(rows) if rows.size else "")) for path, reason, rows in problems])
     return clean

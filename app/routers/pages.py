@@ -18,7 +18,7 @@ from collections.abc import Iterator
 from datetime import date, datetime
 from pathlib import Path
 from typing import Any
-from urllib.parse import quote, urlencode
+from urllib.parse import quote, urlencode, urlsplit
 
 import jinja2
 import plotly
@@ -130,8 +130,6 @@ def _number(value: Any, digits: int = 4) -> str:
     if isinstance(value, float):
         if not math.isfinite(value):
             return "\u2014"
-        if value != 0 and (abs(value) >= 1e5 or abs(value) < 1e-3):
-            return f"{value:.{digits - 1}e}"
         return f"{value:.{digits}g}"
     return str(value)
 
@@ -206,6 +204,19 @@ def feed_viewer(request: Request) -> TokenInfo:
     return auth.require_role("viewer")(request)
 
 
+def _cross_site(request: Request) -> bool:
+    """A form posted from another site (besides the SameSite=Lax cookie, check Origin)."""
+    origin = request.headers.get("origin")
+    if not origin or origin == "null":
+        return origin == "null"
+    return urlsplit(origin).netloc != request.headers.get("host", request.url.netloc)
+
+
+def _refuse_cross_site(request: Request) -> Response:
+    return render(request, "error.html", {"title": "Refused",
+                  "message": "This form was sent from another site, so nothing was changed."}, 403)
+
+
 def _campaign_or_none(session: Session, slug: str) -> Campaign | None:
     return store.campaign_by_slug(session, slug)
 
@@ -258,7 +269,9 @@ def sign_in(request: Request, token: str = Form(""), next: str = Form("/campaign
 
 
 @router.post("/sign-out")
-def sign_out() -> Response:
+def sign_out(request: Request) -> Response:
+    if _cross_site(request):
+        return _refuse_cross_site(request)
     response = RedirectResponse("/sign-in", status_code=303)
     auth.clear_session_cookie(response)
     return response
@@ -403,7 +416,10 @@ def shot_detail(slug: str, shot_id: str, request: Request, _who: TokenInfo = Dep
     detail = dash.shot_detail(session, campaign, shot_id)
     if detail is None:
         return _not_found(request, f"Shot {shot_id!r} in campaign {slug!r}")
-    return render(request, "shot.html", {"campaign": campaign, "d": detail, "active": "shots"})
+    from app.services.detailed_runs import shot_panel
+
+    return render(request, "shot.html", {"campaign": campaign, "d": detail, "active": "shots",
+                                         "detailed": shot_panel(session, campaign, detail.shot)})
 
 
 # ------------------------------------------------------------------------ settings
@@ -445,6 +461,8 @@ async def settings_save(slug: str, request: Request, _who: TokenInfo = Depends(v
     refused = _admin_or_page(request)
     if refused:
         return refused
+    if _cross_site(request):
+        return _refuse_cross_site(request)
     submitted = {k: v for k, v in (await request.form()).items() if isinstance(v, str)}
     outcome = dash.save_settings(request.app, session, campaign, submitted, request.state.principal.actor)
     if outcome.errors:

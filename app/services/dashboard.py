@@ -50,10 +50,11 @@ INK = "#1d2733"
 GRID = "#e3e7ec"
 
 # Limits that keep a 100,000-shot campaign's pages small and quick.
-TIMELINE_NOMINAL_POINTS = 2500
-FLAGGED_POINTS_CAP = 1500  # per flagged status and chart: the most recent are kept
-SCATTER_NOMINAL_POINTS = 5000
-WEBGL_ABOVE_POINTS = 1500  # switch a chart to scattergl past this many points
+# Plotly's WebGL traces (scattergl) compile code at run time, which the pages' CSP
+# forbids (no 'unsafe-eval'), so every chart is SVG and long series are thinned.
+TIMELINE_NOMINAL_POINTS = 1500
+FLAGGED_POINTS_CAP = 1000  # per flagged status and chart; past it, 1 in k over the whole range
+SCATTER_NOMINAL_POINTS = 3000
 PHASE_MAX_BINS = 80
 PHASE_MIN_SHOTS_PER_BIN = 5
 TABLE_PAGE_SIZE = 100
@@ -181,7 +182,6 @@ def _point_trace(
     *,
     x_field: str,
     y_field: str,
-    webgl: bool,
     total: int,
     axes: tuple[str, str] = ("x", "y"),
     showlegend: bool = True,
@@ -190,9 +190,9 @@ def _point_trace(
     style = STATUS_STYLES[status]
     shown = f"{len(x):,} of {total:,}" if len(x) != total else f"{total:,}"
     return {
-        "type": "scattergl" if webgl else "scatter",
+        "type": "scatter",
         "mode": "markers",
-        "name": f"{status} ({shown}){note}",
+        "name": f"{status} ({shown}{note})",
         "legendgroup": status,
         "showlegend": showlegend,
         "x": x,
@@ -227,22 +227,20 @@ def _series_by_status(
     required: Sequence[str] = (),
     upto_pk: int | None = None,
 ) -> list[_StatusSeries]:
-    """Nominal shots decimated over the whole range; flagged shots all kept up to a cap."""
+    """Nominal shots thinned to ``nominal_points``; flagged shots all kept up to a cap."""
     wanted = {"shot_id": Shot.shot_id, "taken_at": Shot.taken_at}
     wanted.update({name: store.NUMERIC_COLUMNS[name] for name in columns})
     needed = [store.NUMERIC_COLUMNS[name] for name in required]
     totals = store.counts_with_values(session, campaign.id, needed, upto_pk=upto_pk)
     out = []
     for status in STATUSES:
-        decimate = status == "nominal"
         series = store.status_series(
             session,
             campaign.id,
             status,
             wanted,
             total=totals.get(status, 0),
-            max_points=nominal_points if decimate else FLAGGED_POINTS_CAP,
-            decimate=decimate,
+            max_points=nominal_points if status == "nominal" else FLAGGED_POINTS_CAP,
             required=needed,
             upto_pk=upto_pk,
         )
@@ -251,11 +249,7 @@ def _series_by_status(
 
 
 def _series_note(item: _StatusSeries) -> str:
-    if item.series.step > 1:
-        return f", 1 in {item.series.step}"
-    if item.series.capped:
-        return ", latest"
-    return ""
+    return f", 1 in {item.series.step}" if item.series.step > 1 else ""
 
 
 def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, Any]:
@@ -268,7 +262,9 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
     height = (1 - gap * (panels - 1)) / panels
     traces: list[dict[str, Any]] = []
     layout = _layout(height=190 * panels + 90, showlegend=True)
-    webgl = sum(len(s.series) for s in by_status) > WEBGL_ABOVE_POINTS
+    # The same shots in every panel: their times and labels are written once.
+    times = {item.status: [chart_time(t, zone) for t in item.series.columns["taken_at"]] for item in by_status}
+    labels = {item.status: [text_for_chart(v) for v in item.series.columns["shot_id"]] for item in by_status}
     for i, name in enumerate(TIMELINE_FIELDS):
         axis_id = "" if i == 0 else str(i + 1)
         top = 1 - i * (height + gap)
@@ -286,12 +282,11 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
             traces.append(
                 _point_trace(
                     item.status,
-                    [chart_time(t, zone) for t in cols["taken_at"]],
+                    times[item.status],
                     _numbers(cols[name]),
-                    [text_for_chart(s) for s in cols["shot_id"]],
+                    labels[item.status],
                     x_field="taken_at",
                     y_field=name,
-                    webgl=webgl,
                     total=item.series.total,
                     axes=(f"x{axis_id}", f"y{axis_id}"),
                     showlegend=i == 0,
@@ -310,7 +305,6 @@ def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk:
         session, campaign, tuple(dict.fromkeys((x, y))), nominal_points=SCATTER_NOMINAL_POINTS, required=(x, y),
         upto_pk=upto_pk,
     )
-    webgl = sum(len(s.series) for s in by_status) > WEBGL_ABOVE_POINTS
     traces = [
         _point_trace(
             item.status,
@@ -319,7 +313,6 @@ def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk:
             [text_for_chart(s) for s in item.series.columns["shot_id"]],
             x_field=x,
             y_field=y,
-            webgl=webgl,
             total=item.series.total,
             note=_series_note(item),
         )
@@ -384,7 +377,6 @@ def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = Non
     bins = store.phase_bins(
         session, campaign.id, max_bins=PHASE_MAX_BINS, min_shots_per_bin=PHASE_MIN_SHOTS_PER_BIN
     )
-    webgl = sum(len(s.series) for s in by_status) > WEBGL_ABOVE_POINTS
     traces: list[dict[str, Any]] = []
     centres, upper, lower, measured_rms, expected = [], [], [], [], []
     for b in bins:
@@ -413,7 +405,6 @@ def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = Non
                 [text_for_chart(s) for s in cols["shot_id"]],
                 x_field="taken_at",
                 y_field=PHASE_FIELD,
-                webgl=webgl,
                 total=item.series.total,
                 note=_series_note(item),
             )
@@ -452,7 +443,6 @@ def calibration_figure(session: Session, campaign: Campaign, upto_pk: int | None
         session, campaign, CALIBRATION_FIELDS, nominal_points=SCATTER_NOMINAL_POINTS, required=CALIBRATION_FIELDS,
         upto_pk=upto_pk,
     )
-    webgl = sum(len(s.series) for s in by_status) > WEBGL_ABOVE_POINTS
     traces = []
     values: list[float] = []
     for item in by_status:
@@ -462,7 +452,7 @@ def calibration_figure(session: Session, campaign: Campaign, upto_pk: int | None
         traces.append(
             _point_trace(
                 item.status, xs, ys, [text_for_chart(s) for s in item.series.columns["shot_id"]],
-                x_field=predicted, y_field=measured, webgl=webgl, total=item.series.total,
+                x_field=predicted, y_field=measured, total=item.series.total,
                 note=_series_note(item),
             )
         )
@@ -732,7 +722,7 @@ def _csv_text(value: str) -> str:
 
 
 def csv_header() -> list[str]:
-    return ["shot_id", "taken_at", "revision", "status", "flags", "seed.method", "notes", "tags",
+    return ["shot_id", "taken_at", "revision", "status", "flags", "driver.species", "seed.method", "notes", "tags",
             *(field_key(c) for c in CSV_VALUE_COLUMNS)]
 
 
@@ -748,6 +738,7 @@ def csv_rows(session: Session, campaign: Campaign, query: TableQuery) -> Iterato
             row.revision,
             row.status,
             ";".join(f"{code}:{severity}" for code, severity in row.flags),
+            row.species,
             row.seed_method,
             _csv_text(row.notes),
             _csv_text(";".join(row.tags)),
@@ -936,7 +927,7 @@ def shot_input_columns(shot: Shot) -> dict[str, Any]:
     return columns
 
 
-CURVE_POINTS = 120
+CURVE_POINTS = 80
 
 
 def growth_curves(shot: Shot, settings: Mapping[str, Any]) -> dict[str, list[float | None]]:

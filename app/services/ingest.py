@@ -53,13 +53,24 @@ def _object_array(values: list[Any]) -> np.ndarray:
     return out
 
 
+_NUMBER_OR_ABSENT = (int, float, type(None))
+
+
 def payload_columns(payloads: Sequence[Mapping[str, Any]]) -> dict[str, np.ndarray]:
-    """Dotted-path columns (object arrays, None where absent) of the known inputs."""
+    """Dotted-path columns of the known inputs, None (or NaN) where absent.
+
+    Numeric columns holding only numbers are float arrays, which the model checks much
+    faster than object arrays; anything else stays as posted for the model to refuse.
+    """
     blocks = {sec: [p.get(sec) or {} for p in payloads] for sec in SECTIONS}
     columns: dict[str, np.ndarray] = {}
     for f in model.INPUT_FIELDS:
         section, name = f.path.split(".", 1)
-        columns[f.path] = _object_array([b.get(name) for b in blocks[section]])
+        values = [b.get(name) for b in blocks[section]]
+        if f.kind != "enum" and all(type(v) in _NUMBER_OR_ABSENT for v in values):
+            columns[f.path] = np.array(values, dtype=float)
+        else:
+            columns[f.path] = _object_array(values)
     return columns
 
 
@@ -101,34 +112,26 @@ def needs_single_check(payload: Mapping[str, Any]) -> bool:
     return isinstance(seed, Mapping) and seed.get("method") is None and any(v is not None for v in seed.values())
 
 
-# --- canonical form, hashing and differences --------------------------------------------------------
+# --- identity of a payload: digest and differences -------------------------------------------------
 
 
-def _canonical(value: Any) -> Any:
-    """Numbers compare by value (250 == 250.0); everything else as posted."""
-    if isinstance(value, float):
-        return int(value) if value.is_integer() and abs(value) < 2**53 else value
-    if isinstance(value, Mapping):
-        return {str(k): _canonical(v) for k, v in value.items()}
-    if isinstance(value, list):
-        return [_canonical(v) for v in value]
-    return value
+def comparable_payload(payload: Mapping[str, Any], taken_at: datetime) -> dict[str, Any]:
+    """The payload as compared for replays: taken_at as the UTC instant, in any offset written."""
+    return {**payload, "taken_at": format_utc(taken_at)}
 
 
-def canonical_payload(payload: Mapping[str, Any], taken_at: datetime) -> dict[str, Any]:
-    """The payload as compared for replays: the same instant in any offset is the same time."""
-    out = _canonical(payload)
-    out["taken_at"] = format_utc(taken_at)
-    return out
-
-
-def payload_digest(canonical: Mapping[str, Any]) -> str:
-    text = json.dumps(canonical, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+def payload_digest(comparable: Mapping[str, Any]) -> str:
+    """sha256 of the sorted JSON; raises ValueError for NaN or infinity anywhere."""
+    text = json.dumps(comparable, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 def differing_paths(old: Any, new: Any, prefix: str = "") -> list[str]:
-    """Dotted paths of every leaf that differs between two JSON documents."""
+    """Dotted paths of every leaf that differs between two JSON documents.
+
+    Numbers compare by value (250 == 250.0), so a digest mismatch with no differing
+    path is still the same shot.
+    """
     if isinstance(old, Mapping) and isinstance(new, Mapping):
         out: list[str] = []
         for key in list(old) + [k for k in new if k not in old]:
@@ -143,7 +146,12 @@ def differing_paths(old: Any, new: Any, prefix: str = "") -> list[str]:
         for i, (a, b) in enumerate(zip(old, new)):
             out += differing_paths(a, b, f"{prefix}.{i}" if prefix else str(i))
         return out
-    return [] if old == new else [prefix or "(document)"]
+    if isinstance(old, bool) or isinstance(new, bool):
+        same = old is new
+    else:
+        same = type(old) in (int, float) and type(new) in (int, float) and old == new or (
+            type(old) is type(new) and old == new)
+    return [] if same else [prefix or "(document)"]
 
 
 def format_utc(when: datetime) -> str:
@@ -171,7 +179,7 @@ class PreparedShot:
     notes: str
     tags: list[str]
     inputs: dict[str, Any]  # shot table input column -> value, defaults applied
-    canonical: dict[str, Any]
+    comparable: dict[str, Any]
     sha256: str
 
 
@@ -210,14 +218,22 @@ def physics_problems(payload: Mapping[str, Any], prefix: str = "") -> list[Field
 _CHECK_CHUNK = 64  # rows per vectorised check; a failing chunk is re-checked shot by shot
 
 
-def _checked_inputs(payloads: Sequence[Mapping[str, Any]], prefixes: Sequence[str]) -> tuple[list[dict[str, Any]], list[FieldProblem]]:
+def _checked_inputs(
+    payloads: Sequence[Mapping[str, Any]], prefixes: Sequence[str], non_finite: Sequence[bool]
+) -> tuple[list[dict[str, Any]], list[FieldProblem]]:
     """Input column values of every shot, or the problems naming each failing field.
 
-    The vectorised check (model.validate_columns) clears the usual all-valid case quickly;
-    only failing chunks, and shots that need it, go through model.validate_shot, whose
-    problems carry per-shot field paths.
+    The vectorised check (model.validate_columns) clears the usual all-valid case in one
+    call; when it fails, chunks locate the failing shots, and those (with shots only the
+    per-shot check understands) go through model.validate_shot, whose problems carry
+    per-shot field paths.
     """
-    single = [needs_single_check(p) or bool(_non_finite_paths(p)) for p in payloads]
+    single = [bad or needs_single_check(p) for p, bad in zip(payloads, non_finite)]
+    if not any(single):
+        try:
+            return input_row_values(model.validate_columns(payload_columns(payloads))), []
+        except model.ShotInputError:
+            pass
     suspects = [i for i, flag in enumerate(single) if flag]
     for start in range(0, len(payloads), _CHECK_CHUNK):
         rows = [i for i in range(start, min(start + _CHECK_CHUNK, len(payloads))) if not single[i]]
@@ -230,9 +246,9 @@ def _checked_inputs(payloads: Sequence[Mapping[str, Any]], prefixes: Sequence[st
     problems: list[FieldProblem] = []
     for i in sorted(suspects):
         problems += physics_problems(payloads[i], prefixes[i])
-    if problems:
-        return [], problems
-    return input_row_values(model.validate_columns(payload_columns(payloads))), []
+    if not problems:  # pragma: no cover - a chunk failed but no shot alone does
+        problems = [("shots", "the inputs are inconsistent")]
+    return [], problems
 
 
 def _reject(count: int, problems: list[FieldProblem], batch: bool) -> ProblemError:
@@ -248,20 +264,31 @@ def _reject(count: int, problems: list[FieldProblem], batch: bool) -> ProblemErr
 def prepare_all(payloads: Sequence[Any], batch: bool) -> list[PreparedShot]:
     """Validate every body; 422 naming every failing field (``shots.<i>.<path>`` in a batch)."""
     problems: list[FieldProblem] = []
-    envelopes: dict[int, ShotEnvelope] = {}
+    valid: dict[int, tuple[ShotEnvelope, dict[str, Any], str]] = {}
     objects: list[int] = []
+    non_finite: list[bool] = []
     for i, payload in enumerate(payloads):
         prefix = f"shots.{i}" if batch else ""
         if not isinstance(payload, Mapping):
             problems.append((prefix or "body", "a shot must be a JSON object"))
             continue
         objects.append(i)
+        envelope = None
         try:
-            envelopes[i] = _ENVELOPE.validate_python(payload)
+            envelope = _ENVELOPE.validate_python(payload)
         except ValidationError as exc:
             problems += pydantic_problems(exc.errors(include_url=False), prefix)
+        comparable = comparable_payload(payload, envelope.taken_at) if envelope else payload
+        try:
+            digest = payload_digest(comparable)
+        except ValueError:  # NaN or infinity somewhere; physics_problems names where
+            non_finite.append(True)
+            continue
+        non_finite.append(False)
+        if envelope is not None:
+            valid[i] = (envelope, comparable, digest)
     inputs, physics = _checked_inputs(
-        [payloads[i] for i in objects], [f"shots.{i}" if batch else "" for i in objects]
+        [payloads[i] for i in objects], [f"shots.{i}" if batch else "" for i in objects], non_finite
     )
     problems += physics
     if problems:
@@ -270,13 +297,11 @@ def prepare_all(payloads: Sequence[Any], batch: bool) -> list[PreparedShot]:
         raise _reject(len(payloads), problems, batch)
     prepared: list[PreparedShot] = []
     for i, row in zip(objects, inputs):
-        payload, envelope = payloads[i], envelopes[i]
-        taken_at = envelope.taken_at.astimezone(timezone.utc)
-        canonical = canonical_payload(payload, taken_at)
+        envelope, comparable, digest = valid[i]
         prepared.append(PreparedShot(
-            index=i, payload=payload, shot_id=envelope.shot_id, taken_at=taken_at,
-            notes=envelope.notes, tags=list(envelope.tags), inputs=row,
-            canonical=canonical, sha256=payload_digest(canonical),
+            index=i, payload=payloads[i], shot_id=envelope.shot_id,
+            taken_at=envelope.taken_at.astimezone(timezone.utc), notes=envelope.notes,
+            tags=list(envelope.tags), inputs=row, comparable=comparable, sha256=digest,
         ))
     return prepared
 
@@ -373,8 +398,8 @@ def _conflict(problems: list[FieldProblem], detail: str) -> ProblemError:
     return ProblemError(409, "Shot conflict", detail, type_=SHOT_CONFLICT, errors=problems)
 
 
-def _stored_canonical(payload: Mapping[str, Any]) -> dict[str, Any]:
-    return canonical_payload(payload, _ENVELOPE.validate_python(payload).taken_at)
+def _stored_comparable(payload: Mapping[str, Any]) -> dict[str, Any]:
+    return comparable_payload(payload, _ENVELOPE.validate_python(payload).taken_at)
 
 
 def ingest_shots(
@@ -395,11 +420,11 @@ def ingest_shots(
         first = first_by_id.setdefault(shot.shot_id, shot)
         if first is shot:
             continue
-        if first.sha256 == shot.sha256:
+        paths = [] if first.sha256 == shot.sha256 else differing_paths(first.comparable, shot.comparable)
+        if not paths:
             duplicates.append(shot)
-        else:
-            problems += [(_prefixed(prefix(shot.index), path), f"differs from shots.{first.index}, which has the same shot_id")
-                         for path in differing_paths(first.canonical, shot.canonical)]
+        problems += [(_prefixed(prefix(shot.index), path), f"differs from shots.{first.index}, which has the same shot_id")
+                     for path in paths]
     if problems:
         metrics.SHOTS_REJECTED.inc(len(payloads), reason="conflict")
         raise _conflict(problems, "the batch holds different payloads under one shot_id; nothing was stored")
@@ -409,13 +434,16 @@ def ingest_shots(
         begin_write(session, campaign_lock(campaign_slug))
         campaign = get_campaign_or_404(session, campaign_slug)
         stored = shot_store.digests_by_shot_id(session, campaign.id, [s.shot_id for s in unique])
-        conflicts = [s for s in unique if s.shot_id in stored and stored[s.shot_id].payload_sha256 != s.sha256]
-        if conflicts:
-            old = shot_store.raw_payloads(session, [stored[s.shot_id].shot_pk for s in conflicts])
-            errs = [(_prefixed(prefix(s.index), path), f"differs from the stored shot {s.shot_id!r}")
-                    for s in sorted(conflicts, key=lambda s: s.index)
-                    for path in differing_paths(_stored_canonical(old[stored[s.shot_id].shot_pk]), s.canonical)]
-            raise _conflict(errs, f"{len(conflicts)} shot id(s) are already stored with a different payload "
+        mismatched = [s for s in unique if s.shot_id in stored and stored[s.shot_id].payload_sha256 != s.sha256]
+        old = shot_store.raw_payloads(session, [stored[s.shot_id].shot_pk for s in mismatched])
+        errs: list[FieldProblem] = []
+        conflicts = 0
+        for s in sorted(mismatched, key=lambda s: s.index):
+            paths = differing_paths(_stored_comparable(old[stored[s.shot_id].shot_pk]), s.comparable)
+            conflicts += bool(paths)
+            errs += [(_prefixed(prefix(s.index), path), f"differs from the stored shot {s.shot_id!r}") for path in paths]
+        if errs:
+            raise _conflict(errs, f"{conflicts} shot id(s) are already stored with a different payload "
                                   "(correct a shot with PUT); nothing was stored")
         result = IngestResult(campaign=campaign)
         new = [s for s in unique if s.shot_id not in stored]
@@ -474,11 +502,12 @@ def correct_shot(
         current = shot_store.get_shot(session, campaign.id, shot_id)
         if current is None:
             raise not_found(f"shot {shot_id!r} in campaign {campaign_slug!r}")
-        if current.payload_sha256 == shot.sha256:
+        changed = [] if current.payload_sha256 == shot.sha256 else differing_paths(
+            _stored_comparable(current.raw_payload), shot.comparable)
+        if not changed:
             return current, False
         now = datetime.now(timezone.utc)
         revision = current.revision + 1
-        changed = differing_paths(_stored_canonical(current.raw_payload), shot.canonical)
         values = _shot_row(shot, campaign.id, now)
         for key in ("campaign_id", "shot_id", "created_at"):
             values.pop(key)

@@ -127,8 +127,7 @@ class Series:
 
     columns: dict[str, list[Any]]
     total: int  # shots of this status that have the plotted values
-    step: int = 1  # every step-th shot kept (1: all)
-    capped: bool = False  # flagged shots beyond the cap were left out (oldest first)
+    step: int = 1  # about every step-th shot kept (1: all)
 
     def __len__(self) -> int:
         return len(next(iter(self.columns.values()), []))
@@ -173,42 +172,33 @@ def status_series(
     *,
     total: int,
     max_points: int,
-    decimate: bool,
     required: Sequence[ColumnElement[Any]] = (),
     upto_pk: int | None = None,
 ) -> Series:
-    """Shots of one status in time order, about ``max_points`` of them at most.
+    """Shots of one status in time order, at most ``max_points`` of them.
 
-    ``decimate`` keeps every k-th shot in storage order (shot id modulo k: one index scan,
-    no sort of the whole campaign), used for nominal shots; otherwise the most recent
-    ``max_points`` are kept (flagged shots are all shown up to that cap). ``total`` is the
-    number of shots of this status that have the ``required`` columns.
+    Past ``max_points`` every k-th shot in storage order is kept (shot id modulo k: one
+    index scan, no sort of the whole campaign), so the whole time range stays covered.
+    ``total`` is the number of shots of this status that have the ``required`` columns.
     """
     base = _evaluated(campaign_id).where(
         Evaluation.status == status, *(c.is_not(None) for c in required), *_upto(upto_pk)
     )
-    labelled = [c.label(name) for name, c in columns.items()]
-    step, capped = 1, False
-    if total > max_points and decimate:
+    stmt = base.with_only_columns(*(c.label(name) for name, c in columns.items())).order_by(Shot.taken_at, Shot.id)
+    step = 1
+    if total > max_points:
         step = -(-total // max_points)
-        stmt = base.with_only_columns(*labelled).where(Shot.id % step == 0).order_by(Shot.taken_at, Shot.id)
-    elif total > max_points:
-        capped = True
-        newest = (
-            base.with_only_columns(*labelled, Shot.id.label("_pk"), Shot.taken_at.label("_t"))
-            .order_by(Shot.taken_at.desc(), Shot.id.desc())
-            .limit(max_points)
-            .subquery()
-        )
-        stmt = select(*(newest.c[name] for name in columns)).order_by(newest.c._t, newest.c._pk)
-    else:
-        stmt = base.with_only_columns(*labelled).order_by(Shot.taken_at, Shot.id)
+        stmt = stmt.where(Shot.id % step == 0)
+    rows = session.execute(stmt).all()
+    if len(rows) > max_points:  # ids of this status were denser than average: thin evenly
+        keep = sorted({round(i * (len(rows) - 1) / (max_points - 1)) for i in range(max_points)}) if max_points > 1 else [0]
+        rows, step = [rows[i] for i in keep], -(-total // len(keep))
     out: dict[str, list[Any]] = {name: [] for name in columns}
     lists = list(out.values())
-    for row in session.execute(stmt):
+    for row in rows:
         for values, value in zip(lists, row):
             values.append(value)
-    return Series(out, total, step, capped)
+    return Series(out, total, step)
 
 
 # --------------------------------------------------------------------------- statistics
@@ -389,6 +379,7 @@ class ShotRow:
     taken_at: datetime
     revision: int
     status: str
+    species: str
     seed_method: str
     notes: str
     tags: list[str]
@@ -416,6 +407,7 @@ def _row_columns(value_columns: Sequence[str]) -> list[ColumnElement[Any]]:
         Shot.taken_at,
         Shot.revision,
         Evaluation.status,
+        Shot.driver_species,
         Shot.seed_method,
         Shot.notes,
         Shot.tags,
@@ -424,17 +416,18 @@ def _row_columns(value_columns: Sequence[str]) -> list[ColumnElement[Any]]:
 
 
 def _to_row(row: Sequence[Any], value_columns: Sequence[str]) -> ShotRow:
-    pk, shot_id, taken_at, revision, status, seed_method, notes, tags = row[:8]
+    pk, shot_id, taken_at, revision, status, species, seed_method, notes, tags = row[:9]
     return ShotRow(
         pk=pk,
         shot_id=shot_id,
         taken_at=as_utc(taken_at),
         revision=revision,
         status=status,
+        species=species,
         seed_method=seed_method,
         notes=notes or "",
         tags=list(tags or []),
-        values=dict(zip(value_columns, row[8:])),
+        values=dict(zip(value_columns, row[9:])),
     )
 
 

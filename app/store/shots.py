@@ -13,7 +13,7 @@ from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy import Select, and_, bindparam, delete, exists, func, insert, or_, select, update
+from sqlalchemy import Select, Table, and_, bindparam, delete, exists, func, insert, or_, select, update
 from sqlalchemy.orm import Session
 
 from app.tables import Evaluation, Flag, Shot, ShotRevision
@@ -53,27 +53,59 @@ def raw_payloads(session: Session, shot_pks: Iterable[int]) -> dict[int, dict[st
     return dict(session.execute(select(Shot.id, Shot.raw_payload).where(Shot.id.in_(pks))).all())
 
 
+def bulk_insert(session: Session, table: Table, rows: Sequence[dict[str, Any]]) -> None:
+    """Insert rows that all have the same keys, as one executemany.
+
+    On SQLite the values go through each column type's own bind processor and straight to
+    the driver's executemany, skipping SQLAlchemy's per-row parameter handling (the largest
+    cost of a 5,000-shot batch). Elsewhere this is a plain Core executemany.
+    """
+    if not rows:
+        return
+    conn = session.connection()
+    dialect = conn.dialect
+    if dialect.name != "sqlite":
+        session.execute(insert(table), list(rows))
+        return
+    names = list(rows[0])
+    columns: list[list[Any]] = []
+    for name in names:
+        values = [r[name] for r in rows]
+        process = table.c[name].type.bind_processor(dialect)
+        columns.append([process(v) for v in values] if process else values)
+    quote = dialect.identifier_preparer.quote
+    sql = (f"INSERT INTO {quote(table.name)} ({', '.join(quote(n) for n in names)}) "
+           f"VALUES ({', '.join('?' * len(names))})")
+    conn.exec_driver_sql(sql, list(zip(*columns)))
+
+
 def insert_shots(session: Session, rows: Sequence[dict[str, Any]]) -> list[int]:
-    """Insert shot rows; returns their primary keys in the order given."""
+    """Insert shot rows; returns their primary keys in the order given.
+
+    SQLite: the caller holds the database write lock (app.database.begin_write), so the
+    next keys are known and the rows go in through bulk_insert. PostgreSQL: RETURNING.
+    """
     if not rows:
         return []
+    if session.connection().dialect.name == "sqlite":
+        first = (session.scalar(select(func.max(SHOTS.c.id))) or 0) + 1
+        pks = list(range(first, first + len(rows)))
+        bulk_insert(session, SHOTS, [{"id": pk, **row} for pk, row in zip(pks, rows)])
+        return pks
     result = session.execute(insert(SHOTS).returning(SHOTS.c.id, sort_by_parameter_order=True), list(rows))
     return [pk for (pk,) in result]
 
 
 def insert_revisions(session: Session, rows: Sequence[dict[str, Any]]) -> None:
-    if rows:
-        session.execute(insert(REVISIONS), list(rows))
+    bulk_insert(session, REVISIONS, rows)
 
 
 def insert_evaluations(session: Session, rows: Sequence[dict[str, Any]]) -> None:
-    if rows:
-        session.execute(insert(EVALUATIONS), list(rows))
+    bulk_insert(session, EVALUATIONS, rows)
 
 
 def insert_flags(session: Session, rows: Sequence[dict[str, Any]]) -> None:
-    if rows:
-        session.execute(insert(FLAGS), list(rows))
+    bulk_insert(session, FLAGS, rows)
 
 
 def replace_evaluations(session: Session, rows: Sequence[dict[str, Any]], flag_rows: Sequence[dict[str, Any]]) -> None:

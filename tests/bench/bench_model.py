@@ -8,6 +8,7 @@ methods, evaluate_shot loop rate, and the speed-up of the table over the loop.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import time
 from pathlib import Path
@@ -78,6 +79,7 @@ def main() -> None:
     parser.add_argument("--repeats", type=int, default=3)
     args = parser.parse_args()
 
+    print(f"load average at start: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores (figures are best of {args.repeats})")
     evaluate_table(generated_columns(1000))  # warm-up
     table_rate = 0.0
     for n in args.sizes:

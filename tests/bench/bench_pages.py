@@ -149,6 +149,9 @@ def main() -> None:
             paths = [
                 "/campaigns",
                 "/campaigns/bench",
+                "/campaigns/bench/charts/timeline.json",
+                "/campaigns/bench/charts/phase.json",
+                "/campaigns/bench/charts/calibration.json",
                 "/campaigns/bench/regime.json?x=plasma_density_cm3&y=efolds_exit",
                 "/campaigns/bench/regime.json?x=driver_sigma_r_mm&y=hosing_ratio",
                 f"/campaigns/bench/live?since={args.shots - 50}",
@@ -175,6 +178,9 @@ def main() -> None:
                 csv_time = time.perf_counter() - t
                 print(f"{'/campaigns/bench/shots.csv (all 100k rows, streamed)':78s} {csv_time:9.3f} {'':7s} "
                       f"{len(response.content):10,d}")
+            overview = [p for p in paths if p.startswith(("/campaigns/bench/charts", "/campaigns/bench/regime"))]
+            total_bytes = sum(len(client.get(p).content) for p in ["/campaigns/bench", *overview[:4]])
+            print(f"overview page + its chart feeds (default regime map): {total_bytes / 1e6:.2f} MB in total")
             print(f"worst median time {worst_time:.3f} s (target < {TARGET_SECONDS} s); "
                   f"largest payload {worst_size / 1e6:.2f} MB (target < {TARGET_BYTES / 1e6:.2f} MB)")
         app.state.engine.dispose()

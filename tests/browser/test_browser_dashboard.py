@@ -8,7 +8,21 @@ import pytest
 pytestmark = pytest.mark.browser
 
 
+# CSP violations that a library swallows (e.g. a refused eval) never reach the console.
+_RECORD_CSP_VIOLATIONS = """
+window.__cspViolations = [];
+document.addEventListener("securitypolicyviolation", function (e) {
+  window.__cspViolations.push(e.violatedDirective + " " + e.blockedURI);
+});
+"""
+
+
+def _csp_violations(page) -> list[str]:
+    return page.evaluate("() => window.__cspViolations || []")
+
+
 def _watch_console(page) -> list[str]:
+    page.add_init_script(_RECORD_CSP_VIOLATIONS)
     problems: list[str] = []
     page.on("console", lambda msg: problems.append(f"console {msg.type}: {msg.text}") if msg.type in ("error", "warning") and "WebGL" not in msg.text else None)
     page.on("pageerror", lambda exc: problems.append(f"page error: {exc}"))
@@ -39,7 +53,13 @@ def test_shift_physicist_signs_in_filters_to_outside_shots_and_opens_one_with_it
     page.wait_for_selector("#chart-calibration .plot-container")
     assert page.locator(".caution").first.inner_text().startswith("Advisory only")
     assert page.locator("[data-count=outside]").inner_text() == "6"
+    assert page.locator("#chart-timeline .scatterlayer .point").count() == 4 * 36 - 3  # 3 unseeded: no seed position
+    assert page.locator("#chart-regime .scatterlayer .point").count() == 36
+    assert "not supported" not in page.locator("main").inner_text()
+    page.select_option("#regime-y", "hosing_ratio")
+    page.wait_for_function("() => document.getElementById('chart-regime').layout.yaxis.title.text.startsWith('hosing_ratio')")
     page.screenshot(path=str(artifacts / "dashboard-overview.png"), full_page=True)
+    assert _csp_violations(page) == []
 
     page.goto(f"{base}/campaigns/{slug}/shots")
     page.select_option("select[name=status]", "outside")
@@ -54,6 +74,7 @@ def test_shift_physicist_signs_in_filters_to_outside_shots_and_opens_one_with_it
     page.wait_for_selector("#chart-profile .plot-container svg")
     assert page.locator("h1 .status").inner_text().strip().endswith("outside")
     page.screenshot(path=str(artifacts / "dashboard-shot-detail.png"), full_page=True)
+    assert _csp_violations(page) == []
 
     assert not outside_hosts, outside_hosts
     assert not problems, problems

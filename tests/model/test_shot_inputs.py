@@ -172,3 +172,17 @@ def test_input_fields_table_describes_every_section_one_field():
     assert by_path["plasma.density_cm3"].unit == "cm^-3" and by_path["plasma.density_cm3"].required
     assert by_path["driver.emittance_n_mm_mrad"].default == 0.0
     assert by_path["seed.method"].choices == ("ionization_front", "electron_bunch", "none")
+
+
+def test_columns_built_from_api_payloads_can_refuse_nan_instead_of_reading_it_as_absent():
+    from model import validate_columns
+
+    columns = {"driver.species": np.array(["proton"], dtype=object), "driver.offset_x_mm": np.array([math.nan], dtype=object)}
+    for path, value in GOOD["driver"].items():
+        columns.setdefault(f"driver.{path}", np.array([value], dtype=object))
+    for path, value in GOOD["plasma"].items():
+        columns[f"plasma.{path}"] = np.array([value], dtype=object)
+    assert validate_columns(columns)["driver.offset_x_mm"][0] == 0.0  # absent -> default
+    with pytest.raises(ShotInputError) as caught:
+        validate_columns(columns, nan_is_absent=False)
+    assert dict(caught.value.problems)["driver.offset_x_mm"].startswith("NaN or infinity is not allowed")

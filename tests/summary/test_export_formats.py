@@ -91,14 +91,14 @@ def test_json_holds_the_summary_and_every_shot_with_its_flags(week_summary):
     for record in doc["shots"]:
         row = stored[record["shot_id"]]
         shot, evaluation, flags = row
-        assert record["status"] == evaluation.status
+        assert record["evaluation"]["status"] == evaluation.status
         assert record["plasma"]["density_cm3"] == shot.plasma_density_cm3
         assert record["seed"]["method"] == shot.seed_method
         assert record["measured"]["modulation_phase_rad"] == shot.measured_modulation_phase_rad
         assert record["tags"] == shot.tags
         for name in OUTPUT_NAMES:
-            assert record["outputs"][name] == getattr(evaluation, name), name
-        assert [(f["code"], f["severity"], f["message"]) for f in record["flags"]] == [
+            assert record["evaluation"][name] == getattr(evaluation, name), name
+        assert [(f["code"], f["severity"], f["message"]) for f in record["evaluation"]["flags"]] == [
             (f.code, f.severity, f.message) for f in flags
         ]
 

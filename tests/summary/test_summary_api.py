@@ -57,14 +57,14 @@ def test_the_json_summary_counts_the_model_evaluated_shots_and_compares_with_the
     assert summary["shot_count"] == 9 and sum(summary["status_counts"].values()) == 9
     listed = client.get("/api/v1/campaigns/test-campaign/shots", params={"from": "2026-11-16T00:00:00Z",
                         "to": "2026-11-23T00:00:00Z", "limit": 100}, headers=viewer_headers).json()
-    statuses = [s.get("status") or s.get("evaluation", {}).get("status") for s in listed["items"]]
+    statuses = [s["evaluation"]["status"] for s in listed["items"]]
     for status in ("nominal", "marginal", "outside"):
         assert summary["status_counts"][status] == statuses.count(status)
     assert summary["previous_week"]["week"] == "2026-W46"
     assert summary["previous_week"]["shot_count"] == 1
     assert summary["previous_week"]["delta"]["shot_count"] == 8
     flagged = {s["shot_id"] for s in summary["flagged_shots"]}
-    assert flagged == {s["shot_id"] for s in doc["shots"] if s["status"] != "nominal"}
+    assert flagged == {s["shot_id"] for s in doc["shots"] if s["evaluation"]["status"] != "nominal"}
     assert all(r["message"] for s in summary["flagged_shots"] for r in s["reasons"])
 
 

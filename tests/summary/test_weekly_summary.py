@@ -13,8 +13,6 @@ import pytest
 from sqlalchemy import select
 
 from app.services.summary import (
-    KEY_CONDITIONS,
-    KEY_OUTPUTS,
     IsoWeek,
     WeekFormatError,
     build_weekly_summary,
@@ -40,7 +38,7 @@ def stored_week(session, campaign, week: IsoWeek):
 
 
 def value_of(shot, evaluation, key: str):
-    if key in KEY_CONDITIONS or "." in key:
+    if "." in key:  # inputs are dotted paths, outputs plain names
         return getattr(shot, input_column(key))
     return getattr(evaluation, key)
 
