@@ -45,7 +45,8 @@ def json_dumps(value: Any) -> str:
         return json.dumps(value, ensure_ascii=False)
 
 
-_JSON = {"json_serializer": json_dumps, "json_deserializer": orjson.loads}
+# Reading keeps the standard parser: orjson turns integers beyond 64 bits into floats.
+_JSON = {"json_serializer": json_dumps, "json_deserializer": json.loads}
 
 
 def make_engine(url: str) -> Engine:

@@ -1,12 +1,23 @@
 """wakeledger closed-form model of beam self-modulation (MODEL.md sections 1-9).
 
 Pure numpy/scipy, SI inside. Public interface: evaluate_shot, evaluate_table,
-DEFAULT_SETTINGS, MODEL_VERSION, OUTPUT_NAMES, FLAG_CODES, INPUT_FIELDS,
-ShotInputError, validate_shot (plus SettingsError, resolve_settings, flag_message).
-The detailed envelope solver (section 10) lives in model.envelope.
+DEFAULT_SETTINGS, MODEL_VERSION, OUTPUT_NAMES, OUTPUT_UNITS, FLAG_CODES, INPUT_FIELDS,
+ShotInputError, validate_shot (plus SettingsError, resolve_settings, flag_message),
+and the growth curves of one shot: growth_along_plasma (N(z), delta(z)) and
+efolds_along_bunch (N(L, xi)). The physics, section by section: model.plasma,
+model.form_factors (section 2), model.seed (3), model.growth (4), model.phase (5),
+model.competing (6). The detailed envelope solver (section 10) lives in model.envelope.
 """
 
-from model.evaluate import MODEL_VERSION, OUTPUT_NAMES, evaluate_shot, evaluate_table
+from model.evaluate import (
+    MODEL_VERSION,
+    OUTPUT_NAMES,
+    OUTPUT_UNITS,
+    efolds_along_bunch,
+    evaluate_shot,
+    evaluate_table,
+    growth_along_plasma,
+)
 from model.inputs import INPUT_FIELDS, ShotInputError, validate_columns, validate_shot
 from model.rules import DEFAULT_SETTINGS, FLAG_CODES, SettingsError, flag_message, resolve_settings
 from model.envelope import simulate_envelope
@@ -17,11 +28,14 @@ __all__ = [
     "INPUT_FIELDS",
     "MODEL_VERSION",
     "OUTPUT_NAMES",
+    "OUTPUT_UNITS",
     "SettingsError",
     "ShotInputError",
+    "efolds_along_bunch",
     "evaluate_shot",
     "evaluate_table",
     "flag_message",
+    "growth_along_plasma",
     "resolve_settings",
     "simulate_envelope",
     "validate_columns",

@@ -40,9 +40,10 @@ from scipy.optimize import minimize_scalar
 
 from model import quadrature
 from model.form_factors import gaussian_on_axis_factor, wake_kernel_h
-from model.evaluate import _driver_mass_and_charge, evaluate_shot, evaluate_table
+from model.evaluate import evaluate_shot, evaluate_table
 from model.inputs import SEEDED_METHODS, ShotInputError, validate_shot
 from model.rules import resolve_settings
+from model.seed import driver_mass_and_charge, relative_noise
 from model.plasma import (
     ELEMENTARY_CHARGE,
     SPEED_OF_LIGHT,
@@ -280,22 +281,6 @@ def integrate_envelope(
     )
 
 
-def _species_mass_and_charge(driver: Mapping[str, Any]) -> tuple[float, float]:
-    """Driver mass M [kg] and charge number Z, through the closed-form model's species table (MODEL.md section 2)."""
-    cols = {
-        "driver.species": np.array([driver["species"]]),
-        "driver.mass_amu": np.array([driver.get("mass_amu", np.nan)], dtype=float),
-        "driver.charge_state": np.array([driver.get("charge_state", np.nan)], dtype=float),
-    }
-    mass, charge = _driver_mass_and_charge(cols)
-    return float(mass[0]), float(charge[0])
-
-
-def relative_noise(line_density_ref: float, kp: float, noise_floor: float) -> float:
-    """Relative noise eta = max(noise_floor, (lambda(zeta_ref)/k_p)^{-1/2}): shot noise per skin depth (MODEL.md section 3)."""
-    return max(noise_floor, 1.0 / math.sqrt(line_density_ref / kp))
-
-
 def envelope_setup(
     shot: Mapping[str, Any],
     settings: Mapping[str, Any],
@@ -308,7 +293,8 @@ def envelope_setup(
 ) -> EnvelopeSetup:
     """Slice grid, seed sources and SI constants of a validated shot (MODEL.md sections 1-3, 10)."""
     d, p, s = shot["driver"], shot["plasma"], shot["seed"]
-    mass, charge = _species_mass_and_charge(d)
+    mass_kg, charge_number = driver_mass_and_charge(d["species"], d.get("mass_amu", np.nan), d.get("charge_state", np.nan))
+    mass, charge = float(mass_kg), float(charge_number)
     momentum = d["momentum_gev"] * GEV_PER_C
     sigma_z = d["sigma_z_mm"] * MM
     sigma_r = d["sigma_r_mm"] * MM
@@ -503,7 +489,7 @@ def simulate_envelope(
     zeta_s = clean["seed"]["position_mm"] * MM if method in SEEDED_METHODS else 0.0
     zeta_ref = zeta_s - s["reference_slice_sigma"] * sigma_z
     kp0 = float(plasma_wavenumber(clean["plasma"]["density_cm3"] * PER_CM3))
-    eta = relative_noise(float(line_density(zeta_ref, d["population"], sigma_z)), kp0, s["noise_floor"])
+    eta = float(relative_noise(line_density(zeta_ref, d["population"], sigma_z), kp0, s["noise_floor"]))
     setup = envelope_setup(
         clean, s, int(slices_per_wavelength), line_profile=line_profile, zeta_tail_m=zeta_tail_m,
         noise_eta=eta, noise_wanted=noise_wanted,

@@ -4,7 +4,8 @@ Databases
 - ``backend``: "sqlite" or "postgresql". Every test that uses a database fixture runs
   once per backend. PostgreSQL runs only when WAKELEDGER_TEST_POSTGRES_URL names a server
   (e.g. postgresql+psycopg://postgres@127.0.0.1:5432/postgres); otherwise those cases are
-  skipped with the reason. WAKELEDGER_TEST_BACKENDS=sqlite (comma list) restricts the set.
+  skipped with the reason (they fail instead when WAKELEDGER_REQUIRE_POSTGRES is set, as
+  .ci/run does). WAKELEDGER_TEST_BACKENDS=sqlite (comma list) restricts the set.
   Select one with ``-k sqlite`` / ``-k postgresql``.
 - ``database_url``: a migrated database with no rows, fresh for each test. SQLite: a copy
   of a migrated template file under tmp_path. PostgreSQL: one scratch database per test
@@ -50,7 +51,15 @@ REPO = Path(__file__).resolve().parents[1]
 REFERENCE_CASES_PATH = REPO.parent / "shared" / "reference_cases.json"
 PG_ENV = "WAKELEDGER_TEST_POSTGRES_URL"
 BACKENDS_ENV = "WAKELEDGER_TEST_BACKENDS"
+REQUIRE_PG_ENV = "WAKELEDGER_REQUIRE_POSTGRES"
 PG_SKIP_REASON = f"PostgreSQL tests need {PG_ENV} (e.g. postgresql+psycopg://postgres@127.0.0.1:5432/postgres)"
+
+
+def _skip_postgres() -> None:
+    """Skip, or fail when CI demands PostgreSQL (WAKELEDGER_REQUIRE_POSTGRES=1)."""
+    if os.environ.get(REQUIRE_PG_ENV):
+        pytest.fail(f"{PG_SKIP_REASON}; {REQUIRE_PG_ENV} is set")
+    pytest.skip(PG_SKIP_REASON)
 
 
 def _wanted_backends() -> list[str]:
@@ -100,7 +109,7 @@ def _drop_pg_database(admin_url: str, url: str) -> None:
 def _pg_scratch_url() -> Iterator[str]:
     admin = _pg_admin_url()
     if admin is None:
-        pytest.skip(PG_SKIP_REASON)
+        _skip_postgres()
     from app.database import upgrade_database
 
     url = _create_pg_database(admin)
@@ -139,7 +148,7 @@ def _sqlite_template(tmp_path_factory: pytest.TempPathFactory) -> Path:
 @pytest.fixture(params=_backend_params())
 def backend(request: pytest.FixtureRequest) -> str:
     if request.param == "postgresql" and _pg_admin_url() is None:
-        pytest.skip(PG_SKIP_REASON)
+        _skip_postgres()
     return request.param
 
 

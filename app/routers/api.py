@@ -1,4 +1,8 @@
-"""REST API under /api/v1 (JSON in, JSON or problem+json out)."""
+"""REST API under /api/v1 (JSON in, JSON or problem+json out).
+
+Reads need the viewer role, shot writes ingest, campaign and settings writes admin
+(app.services.auth). /healthz and /metrics are also served at the root.
+"""
 
 from __future__ import annotations
 
@@ -171,7 +175,7 @@ def put_shot(
     reason: Annotated[str, Query(max_length=2000, description="why the shot is corrected")] = "",
 ) -> dict[str, Any]:
     """Store a correction as a new revision (re-evaluated); an identical body changes nothing."""
-    shot, _changed = correct_shot(session, slug, shot_id, payload, who.actor, reason)
+    correct_shot(session, slug, shot_id, payload, who.actor, reason)
     return shot_service.shot_detail(session, slug, shot_id)
 
 

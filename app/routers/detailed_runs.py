@@ -38,7 +38,7 @@ def start_detailed_run(
     params: Annotated[run_service.RunParameters | None, Body(description="optional run parameters")] = None,
 ) -> dict[str, Any]:
     """Queue an envelope solver run of the shot's current revision; follow it at the Location (the job)."""
-    job, _created = run_service.start_run(session, slug, shot_id, params or run_service.RunParameters(), who.actor)
+    job = run_service.start_run(session, slug, shot_id, params or run_service.RunParameters(), who.actor)
     request.app.state.jobs.start(job.id)
     response.headers["Location"] = f"/api/v1/jobs/{job.id}"
     return {"job_id": job.id, "job": job_service.job_out(job, slug).model_dump(mode="json"),

@@ -23,7 +23,7 @@ from urllib.parse import quote, urlencode, urlsplit
 import jinja2
 import plotly
 from fastapi import APIRouter, Depends, Form, Request
-from fastapi.responses import FileResponse, JSONResponse, RedirectResponse, Response, StreamingResponse
+from fastapi.responses import FileResponse, RedirectResponse, Response, StreamingResponse
 from fastapi.templating import Jinja2Templates
 from markupsafe import Markup
 from sqlalchemy.orm import Session
@@ -120,20 +120,6 @@ def json_response(value: Any, status_code: int = 200) -> Response:
                     headers={"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"})
 
 
-def _number(value: Any, digits: int = 4) -> str:
-    if value is None:
-        return "\u2014"
-    if isinstance(value, bool):
-        return str(value).lower()
-    if isinstance(value, int):
-        return f"{value:,}" if abs(value) >= 10000 else str(value)
-    if isinstance(value, float):
-        if not math.isfinite(value):
-            return "\u2014"
-        return f"{value:.{digits}g}"
-    return str(value)
-
-
 def _environment() -> jinja2.Environment:
     env = jinja2.Environment(
         loader=jinja2.FileSystemLoader(str(APP_DIR / "templates")),
@@ -143,7 +129,7 @@ def _environment() -> jinja2.Environment:
         lstrip_blocks=True,
     )
     env.filters["json_for_html"] = json_for_html
-    env.filters["num"] = _number
+    env.filters["num"] = dash.format_number
     env.filters["urlpart"] = lambda v: quote(str(v), safe="")
     env.filters["localtime"] = dash.local_time_text
     env.globals["status_styles"] = dash.STATUS_STYLES

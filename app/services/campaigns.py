@@ -11,7 +11,6 @@ from typing import Any
 from sqlalchemy.orm import Session
 
 import model
-
 from app.database import begin_write, run_write
 from app.problems import ALREADY_EXISTS, FieldProblem, ProblemError, invalid_input, not_found
 from app.schemas import CampaignCreate, CampaignOut

@@ -136,6 +136,19 @@ def summary_url(campaign: Campaign, week: str | None = None, fmt: str = "html") 
     return f"/api/v1/campaigns/{campaign.slug}/summary?week={week or current_week(campaign)}&format={fmt}"
 
 
+def format_number(value: Any, digits: int = 4) -> str:
+    """How numbers read on the pages: 4 significant digits, a dash for none."""
+    if value is None:
+        return "\u2014"
+    if isinstance(value, bool):
+        return str(value).lower()
+    if isinstance(value, int):
+        return f"{value:,}" if abs(value) >= 10000 else str(value)
+    if isinstance(value, float):
+        return f"{value:.{digits}g}" if math.isfinite(value) else "\u2014"
+    return str(value)
+
+
 def _number(value: Any) -> float | None:
     if value is None:
         return None
@@ -539,8 +552,6 @@ class Overview:
     counts: dict[str, int]
     flag_counts: list[FlagCodeCount]
     figures: dict[str, dict[str, Any]]
-    phase: PhaseSummary
-    calibration: CalibrationSummary
     regime_options: list[tuple[str, str]]
     regime_axes: tuple[str, str]
     live_cursor: int
@@ -558,11 +569,40 @@ CHART_FEEDS = {
 }
 
 
+def phase_facts(summary: PhaseSummary) -> list[tuple[str, str]]:
+    return [
+        ("shots with a measured phase", format_number(summary.shots_with_phase)),
+        ("measured phase spread (rms)", f"{format_number(summary.measured_phase_std_rad)} rad"),
+        ("density spread of those shots", f"{format_number(summary.density_spread_pct)} %"),
+        ("phase change per 1 % density (mean)", f"{format_number(summary.phase_per_pct_density_rad)} rad/%"),
+        ("expected phase jitter", f"{format_number(summary.expected_phase_jitter_rad)} rad"),
+    ]
+
+
+def calibration_facts(summary: CalibrationSummary) -> list[tuple[str, str]]:
+    offset = summary.median_density_offset
+    return [
+        ("shots with a measured frequency", format_number(summary.shots_with_frequency)),
+        ("implied density offset (median)", "\u2014" if offset is None else f"{format_number(100 * offset)} %"),
+    ]
+
+
+# The numbers shown beside a chart, sent with it (so the page itself stays quick).
+CHART_FACTS = {
+    "phase": lambda session, campaign: phase_facts(phase_summary(session, campaign)),
+    "calibration": lambda session, campaign: calibration_facts(calibration_summary(session, campaign)),
+}
+
+
 def chart_feed(session: Session, campaign: Campaign, name: str, **params: Any) -> dict[str, Any]:
-    """A chart drawn from the shots stored up to now, and that cursor for the live feed."""
+    """A chart drawn from the shots stored up to now, that cursor for the live feed, and
+    the figures shown beside it."""
     cursor = store.latest_shot_pk(session, campaign.id)
     builder = regime_figure if name == "regime" else CHART_FEEDS[name]
-    return {"figure": builder(session, campaign, upto_pk=cursor, **params), "cursor": cursor}
+    feed: dict[str, Any] = {"figure": builder(session, campaign, upto_pk=cursor, **params), "cursor": cursor}
+    if name in CHART_FACTS:
+        feed["facts"] = CHART_FACTS[name](session, campaign)
+    return feed
 
 
 def regime_options() -> list[tuple[str, str]]:
@@ -577,8 +617,6 @@ def overview(session: Session, campaign: Campaign) -> Overview:
         counts=store.status_counts(session, campaign.id),
         flag_counts=flags,
         figures={"flags": flag_figure(flags)},
-        phase=phase_summary(session, campaign),
-        calibration=calibration_summary(session, campaign),
         regime_options=regime_options(),
         regime_axes=DEFAULT_REGIME_AXES,
         live_cursor=store.latest_shot_pk(session, campaign.id),

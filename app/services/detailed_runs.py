@@ -33,6 +33,7 @@ from app.problems import FieldProblem, invalid_input, not_found, pydantic_proble
 from app.services import jobs
 from app.services.campaigns import get_campaign_or_404
 from app.services.dashboard import ADVISORY_CAUTION, INK, _axis, _layout
+from app.services.export_formats import format_number
 from app.store import audit
 from app.store import detailed_runs as run_store
 from app.store import jobs as job_store
@@ -64,9 +65,10 @@ class RunParameters(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     slices_per_wavelength: int = Field(
-        16, ge=16, le=MAX_SLICES_PER_WAVELENGTH, description="slices per plasma wavelength (at least 16)")
+        16, ge=16, le=MAX_SLICES_PER_WAVELENGTH, strict=True, description="slices per plasma wavelength (at least 16)")
     dz_m: float | None = Field(
-        None, gt=0, allow_inf_nan=False, description="integration step along the plasma [m]; default: the solver's choice")
+        None, gt=0, allow_inf_nan=False, strict=True,
+        description="integration step along the plasma [m]; default: the solver's choice")
 
 
 def parse_parameters(raw: Mapping[str, Any] | None) -> RunParameters:
@@ -103,11 +105,11 @@ def _same_request(a: Mapping[str, Any], b: Mapping[str, Any]) -> bool:
     return all(a.get(k) == b.get(k) for k in keys)
 
 
-def start_run(session: Session, slug: str, shot_id: str, params: RunParameters, actor: str) -> tuple[Job, bool]:
-    """Queue a run of the shot's current revision; returns (job, created). The same request while an
-    identical run is still queued or running returns that job instead of a second one."""
+def start_run(session: Session, slug: str, shot_id: str, params: RunParameters, actor: str) -> Job:
+    """Queue a run of the shot's current revision. Asked again while an identical run is still
+    queued or running, it returns that job instead of starting a second one."""
 
-    def work() -> tuple[Job, bool]:
+    def work() -> Job:
         begin_write(session)
         campaign = get_campaign_or_404(session, slug)
         shot = _shot_or_404(session, campaign, shot_id)
@@ -125,11 +127,11 @@ def start_run(session: Session, slug: str, shot_id: str, params: RunParameters, 
         }
         for job in run_store.unfinished_jobs(session, RUN_KIND, campaign.id):
             if _same_request(jobs.job_params(job), wanted):
-                return job, False
+                return job
         job = jobs.new_job(session, RUN_KIND, campaign.id, wanted)
         audit.record(session, actor, "detailed_run.start", campaign_slug=slug, target=shot.shot_id,
                      detail={"job_id": job.id, **{k: v for k, v in wanted.items() if k != "settings"}})
-        return job, True
+        return job
 
     return run_write(session, work)
 
@@ -270,6 +272,7 @@ def shot_panel(session: Session, campaign: Campaign, shot: Shot) -> dict[str, An
     return {
         "latest": view,
         "problem": problem,
+        "titles": CHART_TITLES,
         "config": {
             "runs_url": runs_url(campaign.slug, shot.shot_id),
             "job_id": pending,
@@ -278,15 +281,11 @@ def shot_panel(session: Session, campaign: Campaign, shot: Shot) -> dict[str, An
     }
 
 
-def _text(value: Any, unit: str = "", digits: int = 4) -> str:
-    if value is None or (isinstance(value, float) and not math.isfinite(value)):
-        return "\u2014"
-    if isinstance(value, int):
-        text = str(value)
-    else:
-        a = abs(value)
-        text = f"{value:.{digits - 1}e}" if a and (a >= 1e5 or a < 1e-3) else f"{value:.{digits}g}"
-    return f"{text} {unit}".strip()
+def _text(value: Any, unit: str = "") -> str:
+    """Counts as they are, other numbers as the exports write them."""
+    if isinstance(value, int) and not isinstance(value, bool):
+        return f"{value} {unit}".strip()
+    return format_number(value, unit)
 
 
 def run_facts(doc: Mapping[str, Any], run: DetailedRun | None = None) -> list[list[str]]:
@@ -306,7 +305,7 @@ def run_facts(doc: Mapping[str, Any], run: DetailedRun | None = None) -> list[li
         ["saturation (closed form)", _text(doc.get("closed_form_saturation_z_m"), "m")],
         ["fitted e-folds", f"{_text(doc.get('fitted_efolds'))} against {_text(doc.get('closed_form_efolds_at_fit'))} "
                            f"closed form (difference {_text(doc.get('efolds_difference'))})"],
-        ["wall time", _text(n.get("wall_time_s"), "s", 3)],
+        ["wall time", _text(n.get("wall_time_s"), "s")],
     ]
     return facts
 
@@ -386,8 +385,11 @@ def sigma_map_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
         log_sigma = np.log10(np.where(sigma > 0, sigma, np.nan))
     finite = log_sigma[np.isfinite(log_sigma)]
     lo, hi = (float(finite.min()), float(finite.max())) if finite.size else (-2.0, 1.0)
-    ticks = [v for v in (0.001, 0.002, 0.005, 0.01, 0.02, 0.05, 0.1, 0.2, 0.5, 1, 2, 5, 10, 20, 50, 100)
-             if lo - 0.05 <= math.log10(v) <= hi + 0.05]
+    tick_values = [math.log10(v) for v in (0.001, 0.002, 0.005, 0.01, 0.02, 0.05, 0.1, 0.2, 0.5, 1, 2, 5, 10, 20, 50, 100)
+                   if lo <= math.log10(v) <= hi]
+    tick_digits = 3
+    if len(tick_values) < 3:  # a narrow range: evenly spaced ticks instead of round numbers
+        tick_values, tick_digits = np.linspace(lo, hi, 5).tolist(), 4
     grouped = f"; maximum over groups of {bin_size} slices" if bin_size > 1 else ""
     shapes, annotations = _validity_marks(doc)
     zeta_ref = float(doc["reference_zeta_m"]) * 1e3
@@ -402,7 +404,7 @@ def sigma_map_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
         "zmin": lo,
         "zmax": hi,
         "colorbar": {"title": {"text": "σ_r [mm]", "side": "right"},
-                     "tickvals": [math.log10(v) for v in ticks], "ticktext": [f"{v:g}" for v in ticks]},
+                     "tickvals": tick_values, "ticktext": [f"{10 ** v:.{tick_digits}g}" for v in tick_values]},
         "hovertemplate": "z %{x:.3g} m<br>ζ %{y:.4g} mm<br>log₁₀(σ_r / mm) %{z:.3f}<extra></extra>",
         "name": "σ_r(ζ, z)",
     }

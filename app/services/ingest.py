@@ -246,9 +246,10 @@ def _checked_inputs(
     problems: list[FieldProblem] = []
     for i in sorted(suspects):
         problems += physics_problems(payloads[i], prefixes[i])
-    if not problems:  # pragma: no cover - a chunk failed but no shot alone does
-        problems = [("shots", "the inputs are inconsistent")]
-    return [], problems
+    if problems:
+        return [], problems
+    # Every suspect passed on its own: check the whole set (a ShotInputError here still 422s).
+    return input_row_values(model.validate_columns(payload_columns(payloads))), []
 
 
 def _reject(count: int, problems: list[FieldProblem], batch: bool) -> ProblemError:

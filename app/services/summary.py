@@ -26,6 +26,7 @@ from sqlalchemy.orm import Session
 from app.store import summary as summary_store
 from app.store.summary import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS, FlagRow
 from app.tables import Campaign, Shot
+from model import OUTPUT_UNITS  # unit of each output name, beside model.OUTPUT_NAMES
 
 STATUSES = ("nominal", "marginal", "outside")
 NOT_EVALUATED = "not_evaluated"
@@ -61,43 +62,6 @@ KEY_OUTPUTS = (
     "bunch_length_over_plasma_wavelength",
     "frequency_mismatch_pct",
 )
-
-# Units of the evaluation outputs (MODEL.md section 8); "" is dimensionless, as in
-# model.INPUT_FIELDS.
-OUTPUT_UNITS: dict[str, str] = {
-    "plasma_frequency_ghz": "GHz",
-    "plasma_wavelength_mm": "mm",
-    "skin_depth_mm": "mm",
-    "wavebreaking_field_gv_m": "GV/m",
-    "lorentz_gamma": "",
-    "peak_beam_density_cm3": "cm^-3",
-    "density_ratio": "",
-    "kp_sigma_r": "",
-    "bunch_length_over_plasma_wavelength": "",
-    "geometric_emittance_nm": "nm",
-    "waist_beta_m": "m",
-    "seed_density_cm3": "cm^-3",
-    "seed_field_mv_m": "MV/m",
-    "seed_to_noise_efolds": "e-folds",
-    "efolds_exit": "e-folds",
-    "modulation_exit": "",
-    "growth_margin_efolds": "e-folds",
-    "saturation_length_m": "m",
-    "wakefield_estimate_mv_m": "MV/m",
-    "hosing_efolds_exit": "e-folds",
-    "asymptotic_validity": "",
-    "phase_slip_rad": "rad",
-    "phase_velocity_deficit": "",
-    "phase_per_pct_density_rad": "rad/%",
-    "density_tolerance_pct": "%",
-    "compensating_gradient_pct_per_m": "%/m",
-    "gradient_phase_error_rad": "rad",
-    "hosing_ratio": "",
-    "ion_motion_index": "",
-    "divergence_ratio": "",
-    "frequency_mismatch_pct": "%",
-    "implied_density_cm3": "cm^-3",
-}
 
 
 class WeekFormatError(ValueError):
@@ -253,7 +217,7 @@ class WeekShots:
 
 @lru_cache(maxsize=1)
 def _input_units() -> dict[str, str]:
-    from model import INPUT_FIELDS  # late: importing this module must not need the model
+    from model import INPUT_FIELDS
 
     return {f.path: f.unit for f in INPUT_FIELDS}
 

@@ -134,11 +134,13 @@ class Series:
 
 
 def _evaluated(campaign_id: int) -> Select[Any]:
+    # The campaign on both sides lets the planner start from whichever index is narrower
+    # (evaluations by campaign and status, or shots by campaign and time).
     return (
         select()
         .select_from(Shot)
         .join(Evaluation, Evaluation.shot_pk == Shot.id)
-        .where(Shot.campaign_id == campaign_id)
+        .where(Shot.campaign_id == campaign_id, Evaluation.campaign_id == campaign_id)
     )
 
 
@@ -220,23 +222,38 @@ def _std(sum_sq_dev: float, n: int) -> float:
     return (max(sum_sq_dev, 0.0) / (n - 1)) ** 0.5 if n > 1 else 0.0
 
 
+def _reference_values(session: Session, base: Select[Any], columns: Sequence[ColumnElement[Any]]) -> list[float]:
+    """One shot's values, subtracted before summing squares so that a spread of 0.1 % at
+    values of order 1e15 keeps its digits in a single pass."""
+    row = session.execute(base.with_only_columns(*columns).limit(1)).first()
+    return [float(v) for v in row] if row else [0.0] * len(columns)
+
+
+def _spread_of(n: int, total: float, total_sq: float, shift: float) -> Spread:
+    """Mean and sample standard deviation from sums of (x - shift) and (x - shift)^2."""
+    if not n:
+        return Spread(0, None, None)
+    mean_dev = total / n
+    return Spread(n, shift + mean_dev, _std(total_sq - n * mean_dev * mean_dev, n))
+
+
 def phase_bins(session: Session, campaign_id: int, *, max_bins: int, min_shots_per_bin: int) -> list[PhaseBin]:
     """Measured modulation phase and plasma density in groups of consecutive shots.
 
-    Groups are ranges of the shot id (storage order: one pass, no window sort). Deviations
-    are taken from the campaign means so the variance survives float rounding at
-    densities of order 1e15.
+    Groups are ranges of the shot id (storage order): one grouped pass, no window sort.
     """
     phase = Shot.measured_modulation_phase_rad
     density = Shot.plasma_density_cm3
     measured = _evaluated(campaign_id).where(phase.is_not(None))
-    n, p0, d0, first, last = session.execute(
-        measured.with_only_columns(func.count(), func.avg(phase), func.avg(density), func.min(Shot.id), func.max(Shot.id))
+    first, last = session.execute(
+        select(func.min(Shot.id), func.max(Shot.id)).where(Shot.campaign_id == campaign_id)
     ).one()
-    if n < 2:
+    if first is None:
         return []
-    bins = max(1, min(max_bins, n // max(min_shots_per_bin, 1)))
-    width = -(-(last - first + 1) // bins)
+    p0, d0 = _reference_values(session, measured, (phase, density))
+    span = last - first + 1
+    bins = max(1, min(max_bins, span // max(min_shots_per_bin, 1)))
+    width = -(-span // bins)
     group = ((Shot.id - first) // width).label("bin")
     dp = phase - literal(p0)
     dd = density - literal(d0)
@@ -246,26 +263,30 @@ def phase_bins(session: Session, campaign_id: int, *, max_bins: int, min_shots_p
             func.min(Shot.taken_at),
             func.max(Shot.taken_at),
             func.count(),
-            func.avg(dp),
+            func.sum(dp),
             func.sum(dp * dp),
-            func.avg(dd),
+            func.sum(dd),
             func.sum(dd * dd),
             func.avg(Evaluation.phase_per_pct_density_rad),
         )
         .group_by(group)
         .order_by(group)
-    )
+    ).all()
+    if sum(r[3] for r in rows) < 2:
+        return []
     out = []
-    for _bin, t0, t1, count, mdp, dp2, mdd, dd2, ppd in rows:
+    for _bin, t0, t1, count, sp, sp2, sd, sd2, ppd in rows:
+        ph = _spread_of(count, sp, sp2, p0)
+        de = _spread_of(count, sd, sd2, d0)
         out.append(
             PhaseBin(
                 first_taken_at=as_utc(_parse_dt(t0)),
                 last_taken_at=as_utc(_parse_dt(t1)),
                 shots=count,
-                phase_mean=p0 + mdp,
-                phase_std=_std(dp2 - count * mdp * mdp, count),
-                density_mean=d0 + mdd,
-                density_std=_std(dd2 - count * mdd * mdd, count),
+                phase_mean=ph.mean,
+                phase_std=ph.std,
+                density_mean=de.mean,
+                density_std=de.std,
                 phase_per_pct_density_mean=ppd,
             )
         )
@@ -287,19 +308,17 @@ class Spread:
 
 
 def spreads(session: Session, campaign_id: int, columns: Sequence[ColumnElement[Any]], *, where: Sequence[ColumnElement[bool]] = ()) -> list[Spread]:
-    """Count, mean and sample standard deviation of several columns over the same shots.
-
-    Two passes (means, then squared deviations) so the variance survives float rounding
-    at values of order 1e15.
-    """
+    """Count, mean and sample standard deviation of several columns over the same shots
+    (those where all of them are set), in one pass."""
     base = _evaluated(campaign_id).where(*(c.is_not(None) for c in columns), *where)
-    n, *means = session.execute(base.with_only_columns(func.count(), *(func.avg(c) for c in columns))).one()
-    if not n:
-        return [Spread(0, None, None) for _ in columns]
-    sums = session.execute(
-        base.with_only_columns(*(func.sum((c - literal(m)) * (c - literal(m))) for c, m in zip(columns, means)))
+    shifts = _reference_values(session, base, columns)
+    deviations = [c - literal(x) for c, x in zip(columns, shifts)]
+    n, *sums = session.execute(
+        base.with_only_columns(
+            func.count(), *(f for d in deviations for f in (func.sum(d), func.sum(d * d)))
+        )
     ).one()
-    return [Spread(n, m, _std(ss or 0.0, n)) for m, ss in zip(means, sums)]
+    return [_spread_of(n, sums[2 * i] or 0.0, sums[2 * i + 1] or 0.0, shifts[i]) for i in range(len(columns))]
 
 
 def median_density_offset(session: Session, campaign_id: int) -> tuple[int, float | None]:

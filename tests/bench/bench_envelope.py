@@ -24,7 +24,7 @@ sys.path.insert(0, str(ROOT))
 from model.envelope import envelope_result_to_json, simulate_envelope  # noqa: E402
 
 TARGET_S = 2.0
-CASES = ROOT.parent / "shared" / "reference_cases.json"
+CASES = ROOT / "tests" / "data" / "reference_cases.json"
 
 
 def main() -> None:

@@ -56,6 +56,8 @@ def test_shift_physicist_signs_in_filters_to_outside_shots_and_opens_one_with_it
     assert page.locator("#chart-timeline .scatterlayer .point").count() == 4 * 36 - 3  # 3 unseeded: no seed position
     assert page.locator("#chart-regime .scatterlayer .point").count() == 36
     assert "not supported" not in page.locator("main").inner_text()
+    assert "expected phase jitter" in page.locator("#facts-chart-phase").inner_text()
+    assert "implied density offset" in page.locator("#facts-chart-calibration").inner_text()
     page.select_option("#regime-y", "hosing_ratio")
     page.wait_for_function("() => document.getElementById('chart-regime').layout.yaxis.title.text.startsWith('hosing_ratio')")
     page.screenshot(path=str(artifacts / "dashboard-overview.png"), full_page=True)
@@ -107,5 +109,28 @@ def test_a_new_shot_appears_on_the_open_overview_and_table_without_a_reload(brow
         ".map(t => Array.from(t.customdata))")
     assert all("pg-live-1" in ids for ids in traces)
     table.screenshot(path=str(artifacts / "dashboard-shots-live.png"))
+    assert not problems, problems
+    context.close()
+
+
+def test_admin_changes_a_limit_and_watches_the_reevaluation_finish(browser, page_server, artifacts):
+    base, slug = page_server["base"], page_server["slug"]
+    context = browser.new_context(viewport={"width": 1360, "height": 900})
+    context.add_cookies([{"name": "wakeledger_token", "value": page_server["token"], "url": base}])
+    page = context.new_page()
+    problems = _watch_console(page)
+    page.goto(f"{base}/campaigns/{slug}/settings")
+    page.fill("input[name='limit.HOSING_RISK.outside']", "not a number")
+    page.click("#settings-form button[type=submit]")
+    assert page.locator(".errors").is_visible()
+    assert "must be a finite number" in page.locator(".errors").inner_text()
+    page.screenshot(path=str(artifacts / "dashboard-settings-error.png"), full_page=True)
+    page.fill("input[name='limit.HOSING_RISK.outside']", "1000")
+    page.click("#settings-form button[type=submit]")
+    page.wait_for_url("**/settings?job=**")
+    page.wait_for_function("() => document.getElementById('job-text').textContent.includes('succeeded')", timeout=30000)
+    assert "36 of 36" in page.locator("#job-text").inner_text()
+    page.screenshot(path=str(artifacts / "dashboard-settings-job.png"), full_page=True)
+    assert _csp_violations(page) == []
     assert not problems, problems
     context.close()

@@ -250,6 +250,11 @@ def test_overview_page_embeds_small_charts_and_loads_the_long_series_from_feeds(
         assert feed["figure"]["data"] and feed["cursor"] > 0
     assert 'id="chart-regime"' in html and 'id="live-config"' in html
     assert viewer_client.get(f"/campaigns/{SLUG}/charts/nothing.json").status_code == 404
+    phase_facts = dict(viewer_client.get(f"/campaigns/{SLUG}/charts/phase.json").json()["facts"])
+    assert phase_facts["shots with a measured phase"] == "30"
+    assert phase_facts["expected phase jitter"].endswith(" rad")
+    calibration_facts = dict(viewer_client.get(f"/campaigns/{SLUG}/charts/calibration.json").json()["facts"])
+    assert calibration_facts["implied density offset (median)"].endswith(" %")
 
 
 def test_chart_feeds_are_a_snapshot_up_to_their_cursor(seeded, db, client, admin_headers, make_shot):
@@ -284,7 +289,8 @@ def test_table_filters_by_status_flag_code_seed_method_time_and_text(viewer_clie
     assert len(ids(q="wide")) == 3  # a tag
     assert len(ids(q="RETUNE")) == 3  # in the notes, any case
     # Times in the campaign's zone (UTC here); pg-0000 is at 08:00, one shot each 7 minutes.
-    assert ids(**{"from": "2026-11-16T08:00", "to": "2026-11-16T08:21"}) == ["pg-0002", "pg-0001", "pg-0000"]
+    assert ids(**{"from": "2026-11-16T07:59:30", "to": "2026-11-16T08:20:30"}) == ["pg-0002", "pg-0001", "pg-0000"]
+    assert ids(**{"from": "2026-11-16T08:59:30+01:00", "to": "2026-11-16T09:10:30+01:00"}) == ["pg-0001", "pg-0000"]
     assert ids(status="outside", q="wide") == ids(q="wide")
 
 

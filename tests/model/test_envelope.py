@@ -24,7 +24,7 @@ from model.form_factors import wake_kernel_h
 from model.plasma import plasma_wavenumber
 from model.quadrature import wake_kernel_h_by_quadrature
 
-CASES = json.loads((Path(__file__).resolve().parents[3] / "shared" / "reference_cases.json").read_text())
+CASES = json.loads((Path(__file__).resolve().parents[1] / "data" / "reference_cases.json").read_text())
 EX1 = next(c["input"] for c in CASES if c["input"]["shot_id"] == "ex-1")
 EX2 = next(c["input"] for c in CASES if c["input"]["shot_id"] == "ex-2")
 EX3 = next(c["input"] for c in CASES if c["input"]["shot_id"] == "ex-3")

@@ -13,7 +13,7 @@ from model import evaluate_shot
 from model.form_factors import envelope_seed_factor
 from model.plasma import plasma_wavenumber, wavebreaking_field
 
-CASES = json.loads((Path(__file__).resolve().parents[3] / "shared" / "reference_cases.json").read_text())
+CASES = json.loads((Path(__file__).resolve().parents[1] / "data" / "reference_cases.json").read_text())
 EX1, EX2, EX3 = (c["input"] for c in CASES)
 
 

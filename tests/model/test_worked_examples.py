@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 
 from model import FLAG_CODES, OUTPUT_NAMES, evaluate_shot, evaluate_table
-# The worked examples live beside the repository, in ../shared/ (MODEL.md section 9).
-CASES = json.loads((Path(__file__).resolve().parents[3] / "shared" / "reference_cases.json").read_text())
+# The worked examples of MODEL.md section 9, kept in the repository as tests/data/reference_cases.json.
+CASES = json.loads((Path(__file__).resolve().parents[1] / "data" / "reference_cases.json").read_text())
 IDS = [c["input"]["shot_id"] for c in CASES]
 
 

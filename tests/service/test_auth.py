@@ -87,3 +87,8 @@ def test_demo_mode_lets_anonymous_visitors_read_but_not_write(settings, make_sho
         assert client.post("/api/v1/campaigns/demo/shots", json=make_shot()).status_code == 401
         assert client.get("/api/v1/campaigns", headers={"Authorization": "Bearer wrong"}).status_code == 401
     demo.state.engine.dispose()
+
+
+def test_a_malformed_authorization_header_gets_401(client, campaign, viewer_token):
+    response = client.get("/api/v1/campaigns", headers={"Authorization": f"Basic {viewer_token}"})
+    assert response.status_code == 401

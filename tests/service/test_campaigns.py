@@ -124,3 +124,26 @@ def test_writes_leave_an_audit_trail(app, client, admin_headers, ingest_headers,
     assert ("shots.ingest", "token:test-ingest") in actions
     assert ("shot.correct", "token:test-ingest") in actions
     assert ("campaign.settings", "token:test-admin") in actions
+
+
+def test_a_re_evaluation_interrupted_by_a_restart_finishes_when_the_service_starts_again(
+    settings, client, admin_headers, ingest_headers, viewer_headers, campaign, make_shot
+):
+    from starlette.testclient import TestClient
+
+    from app.main import create_app
+    from app.services import jobs as job_service
+    from app.services.campaigns import change_settings
+
+    shots = [make_shot(0, shot_id=f"r-{i}", taken_at=f"2026-11-17T10:00:{i:02d}Z") for i in range(5)]
+    client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": shots}, headers=ingest_headers)
+    restarted = create_app(settings)
+    with restarted.state.session_factory() as session:  # the settings change commits, then the process "dies"
+        _campaign, job = change_settings(session, campaign, {"noise_floor": 0.002}, "test")
+    assert job.state == "queued"
+    with TestClient(restarted) as again:  # start-up resumes unfinished jobs
+        finished = _wait_for_job(again, viewer_headers, job.id)
+    restarted.state.engine.dispose()
+    assert finished["state"] == "succeeded"
+    assert finished["result"]["reevaluated"] == 5
+    assert job_service.JOB_KINDS["reevaluate"]

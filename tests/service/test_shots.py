@@ -433,3 +433,40 @@ def test_a_what_if_with_bad_input_gets_422(client, viewer_headers, campaign, mak
     response = client.post("/api/v1/evaluate", json=make_shot(changes={"plasma.density_cm3": 0}), headers=viewer_headers)
     assert response.status_code == 422
     assert _fields(response) == ["plasma.density_cm3"]
+
+
+def test_taken_at_is_stored_and_answered_in_utc(client, campaign, ingest_headers, viewer_headers, make_shot):
+    client.post(_shots_url(campaign), json=make_shot(taken_at="2026-11-17T10:12:03.120+01:00"), headers=ingest_headers)
+    stored = client.get(f"{_shots_url(campaign)}/ex-1", headers=viewer_headers).json()
+    assert stored["taken_at"] == "2026-11-17T09:12:03.120Z"
+    assert stored["payload"]["taken_at"] == "2026-11-17T10:12:03.120+01:00"  # the raw payload stays verbatim
+
+
+def test_an_unknown_field_holding_a_huge_integer_is_kept(client, campaign, ingest_headers, viewer_headers, make_shot):
+    shot = make_shot()
+    shot["daq"] = {"counter": 10**30}
+    assert client.post(_shots_url(campaign), json=shot, headers=ingest_headers).status_code == 201
+    assert client.get(f"{_shots_url(campaign)}/ex-1", headers=viewer_headers).json()["payload"]["daq"]["counter"] == 10**30
+
+
+def test_seed_fields_without_a_seed_method_are_refused_alone_and_in_a_batch(client, campaign, ingest_headers, make_shot):
+    shot = make_shot(drop=["seed.method"])
+    single = client.post(_shots_url(campaign), json=shot, headers=ingest_headers)
+    assert single.status_code == 422
+    assert _fields(single) == ["seed.method"]
+    batch = client.post(f"{_shots_url(campaign)}/batch", json={"shots": [make_shot(1), shot]}, headers=ingest_headers)
+    assert batch.status_code == 422
+    assert _fields(batch) == ["shots.1.seed.method"]
+
+
+def test_a_section_that_is_not_an_object_is_named(client, campaign, ingest_headers, make_shot):
+    shot = make_shot()
+    shot["plasma"] = 5
+    response = client.post(f"{_shots_url(campaign)}/batch", json={"shots": [make_shot(1), shot]}, headers=ingest_headers)
+    assert response.status_code == 422
+    assert "shots.1.plasma" in _fields(response)
+
+
+def test_a_caller_without_a_token_gets_401_before_any_validation(client, campaign):
+    response = client.post(f"{_shots_url(campaign)}/batch", json={"nonsense": True})
+    assert response.status_code == 401

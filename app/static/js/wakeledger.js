@@ -42,6 +42,9 @@
 
   var charts = {};
   var chartCursor = {}; // chart id -> last shot pk it already shows (null: not live)
+  var chartReload = {}; // chart id -> function that fetches the chart afresh (thinned again)
+  var chartAdded = {}; // chart id -> points added by live updates since it was drawn
+  var LIVE_POINTS_BEFORE_RELOAD = 3000;
 
   function openShotOnClick(div) {
     var base = shotLinkBase();
@@ -59,6 +62,7 @@
     if (!div || !window.Plotly) return null;
     charts[id] = figure;
     chartCursor[id] = typeof cursor === "number" ? cursor : null;
+    chartAdded[id] = 0;
     div.classList.remove("loading");
     var done = Plotly.react(div, figure.data, figure.layout, PLOT_CONFIG);
     if (!div.dataset.clickBound) {
@@ -73,15 +77,30 @@
       .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); return r.json(); });
   }
 
+  function showFacts(chartId, facts) {
+    var dl = document.getElementById("facts-" + chartId);
+    if (!dl || !facts) return;
+    while (dl.firstChild) dl.removeChild(dl.firstChild);
+    facts.forEach(function (pair) {
+      dl.appendChild(el("dt", null, pair[0]));
+      dl.appendChild(el("dd", null, pair[1]));
+    });
+  }
+
   function drawFeedCharts() {
     var divs = document.querySelectorAll(".chart[data-feed]");
     Array.prototype.forEach.call(divs, function (div) {
-      fetchJson(div.getAttribute("data-feed"))
-        .then(function (feed) { return drawChart(div.id, feed.figure, feed.cursor); })
-        .catch(function (err) {
-          div.classList.remove("loading");
-          div.textContent = "This chart could not be loaded (" + err.message + "). Reload the page to try again.";
-        });
+      var load = function () {
+        chartCursor[div.id] = null; // no live extension while it reloads
+        return fetchJson(div.getAttribute("data-feed"))
+          .then(function (feed) { showFacts(div.id, feed.facts); return drawChart(div.id, feed.figure, feed.cursor); })
+          .catch(function (err) {
+            div.classList.remove("loading");
+            if (!div.data) div.textContent = "This chart could not be loaded (" + err.message + "). Reload the page to try again.";
+          });
+      };
+      chartReload[div.id] = load;
+      load();
     });
   }
 
@@ -114,6 +133,7 @@
 
     function load() {
       var mine = ++seq;
+      chartCursor["chart-regime"] = null;
       state.textContent = "loading\u2026";
       var url = cfg.url + "?x=" + encodeURIComponent(xs.value) + "&y=" + encodeURIComponent(ys.value);
       fetchJson(url)
@@ -132,6 +152,7 @@
     logx.addEventListener("change", axisTypes);
     logy.addEventListener("change", axisTypes);
     form.addEventListener("submit", function (e) { e.preventDefault(); load(); });
+    chartReload["chart-regime"] = load;
     load();
   }
 
@@ -145,6 +166,11 @@
       var shots = allShots.filter(function (s) { return s.pk > seen; });
       if (!shots.length) return;
       chartCursor[id] = shots[shots.length - 1].pk;
+      chartAdded[id] += shots.length;
+      if (chartAdded[id] > LIVE_POINTS_BEFORE_RELOAD && chartReload[id]) {
+        chartReload[id](); // a long-open page: fetch the chart thinned again instead of growing it
+        return;
+      }
       var update = { x: [], y: [], customdata: [] }, indices = [];
       div.data.forEach(function (trace, i) {
         var meta = trace.meta;
