@@ -152,8 +152,8 @@ def _core(cols: Mapping[str, np.ndarray], s: Mapping[str, Any]) -> dict[str, np.
     out["seed_field_mv_m"] = n_seed * field_per_density / U.MV_PER_M
     xi_ref = s["reference_slice_sigma"] * sigma_z
     zeta_ref = zeta_s - xi_ref
-    n_ref = seed.local_peak_density(nb0, zeta_ref, sigma_z)
-    eta = seed.relative_noise(plasma.line_density(zeta_ref, population, sigma_z), kp, s["noise_floor"])
+    n_ref, line_ref = seed.slice_densities(nb0, population, zeta_ref, sigma_z)
+    eta = seed.relative_noise(line_ref, kp, s["noise_floor"])
     noise_density = n_ref * eta
     out["seed_to_noise_efolds"] = np.where(seeded, seed.seed_to_noise_efolds(log_n_seed, noise_density), np.nan)
     coupling_per_density = growth.coupling_per_density(charge, gamma, mass, n0)

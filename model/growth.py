@@ -74,22 +74,12 @@ def log_modulation(log_scale: ArrayLike, n_efolds: ArrayLike) -> np.ndarray:
     return np.asarray(log_scale, dtype=float) + n + 0.5 * np.log(n)
 
 
-def modulation_curve(log_seed_force: ArrayLike, integrated_coupling: ArrayLike, z: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
-    """(N(z), delta(z)) of the linear growth, delta = s z^2 (3^{3/2}/4N)^{5/2} e^N / sqrt(6 pi), not clipped at saturation (MODEL.md section 4; Schroeder et al., PRL 107, 145002 (2011)).
-
-    The arguments broadcast: N and delta along the plasma for one slice (z an array), or
-    N along the bunch at one z (integrated_coupling of each slice an array).
-    """
-    n = efolds(integrated_coupling, z)
-    with np.errstate(divide="ignore", over="ignore"):
-        return n, np.exp(log_modulation(log_modulation_scale(log_seed_force, integrated_coupling), n))
-
-
 def saturation_reference(
     log_scale: ArrayLike, efolds_exit: ArrayLike, length: ArrayLike, log_saturation: float
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """(saturated, ln delta(L), N(z_ref), z_ref) with z_ref solving delta(z_ref) = delta_sat where delta(L) >= delta_sat, else z_ref = L (MODEL.md section 4)."""
-    log_scale, n_exit, length = (np.array(x, dtype=float, ndmin=1) for x in np.broadcast_arrays(log_scale, efolds_exit, length))
+    log_scale, n_exit, length = (np.atleast_1d(x) for x in np.broadcast_arrays(
+        np.asarray(log_scale, dtype=float), np.asarray(efolds_exit, dtype=float), np.asarray(length, dtype=float)))
     log_delta_exit = log_modulation(log_scale, n_exit)
     saturated = log_delta_exit >= log_saturation
     n_ref = n_exit.copy()

@@ -38,7 +38,7 @@ def density_tolerance_pct(kp: ArrayLike, xi: ArrayLike, phase_tolerance: ArrayLi
 
 
 def compensating_gradient_pct_per_m(efolds: ArrayLike, kp: ArrayLike, xi: ArrayLike, z: ArrayLike) -> np.ndarray:
-    """Linear density gradient 100 * 4N/(3 sqrt(3) k_p xi z) whose k_p drift cancels the growth slip N/sqrt(3) at xi [%/m] (MODEL.md section 5, slip of Pukhov et al., PRL 107, 145003 (2011))."""
+    """Linear density gradient 100 * 4N/(3 sqrt(3) k_p xi z) whose k_p drift at xi cancels the rate of the growth slip at z, k_p xi g/2 = d(N/sqrt(3))/dz [%/m] (MODEL.md section 5; slip of Pukhov et al., PRL 107, 145003 (2011))."""
     return 400.0 * phase_slip(efolds) / (3.0 * (np.asarray(kp, dtype=float) * xi) * z)
 
 

@@ -58,10 +58,12 @@ def log_equivalent_cut_density(log_seed_field: ArrayLike, field_per_density: Arr
     return np.asarray(log_seed_field, dtype=float) - np.log(field_per_density)
 
 
-def local_peak_density(peak_density: ArrayLike, zeta: ArrayLike, sigma_z: ArrayLike) -> np.ndarray:
-    """Peak density of the slice at zeta, n(zeta) = n_b0 exp(-zeta^2 / 2 sigma_z^2) [1/m^3] (MODEL.md section 3, Gaussian bunch)."""
-    x = np.asarray(zeta, dtype=float) / np.asarray(sigma_z, dtype=float)
-    return np.asarray(peak_density, dtype=float) * np.exp(-0.5 * x * x)
+def slice_densities(peak_density: ArrayLike, population: ArrayLike, zeta: ArrayLike, sigma_z: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
+    """(n(zeta), lambda(zeta)) of the slice at zeta: local peak density n_b0 e^{-zeta^2/2 sigma_z^2} [1/m^3] and line density N_b/(sqrt(2 pi) sigma_z) e^{-zeta^2/2 sigma_z^2} [1/m] (MODEL.md sections 2-3, Gaussian bunch)."""
+    sigma_z = np.asarray(sigma_z, dtype=float)
+    x = np.asarray(zeta, dtype=float) / sigma_z
+    profile = np.exp(-0.5 * x * x)
+    return np.asarray(peak_density, dtype=float) * profile, np.asarray(population, dtype=float) / (np.sqrt(2.0 * np.pi) * sigma_z) * profile
 
 
 def relative_noise(line_density_ref: ArrayLike, kp: ArrayLike, noise_floor: ArrayLike) -> np.ndarray:
@@ -85,11 +87,11 @@ def log_seed_force(
 __all__ = [
     "cut_field_per_density",
     "driver_mass_and_charge",
-    "local_peak_density",
     "log_electron_bunch_seed_field",
     "log_equivalent_cut_density",
     "log_ionization_front_seed_density",
     "log_seed_force",
     "relative_noise",
     "seed_to_noise_efolds",
+    "slice_densities",
 ]

@@ -2,13 +2,13 @@
 
 from __future__ import annotations
 
-import json
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Body, Depends, Request, Response
 from sqlalchemy.orm import Session
 
 from app.deps import get_session
+from app.routers.pages import json_response  # stored results are large: encoded once, not walked by FastAPI
 from app.services import detailed_runs as run_service
 from app.services import jobs as job_service
 from app.services.auth import TokenInfo, require_role
@@ -19,12 +19,6 @@ DB = Annotated[Session, Depends(get_session)]
 Viewer = Annotated[TokenInfo, Depends(require_role("viewer"))]
 Ingester = Annotated[TokenInfo, Depends(require_role("ingest"))]
 RUNS = "/campaigns/{slug}/shots/{shot_id}/detailed-runs"
-
-
-def _json(value: Any) -> Response:
-    # The stored results are large: encode them once, without FastAPI's per-element walk.
-    text = json.dumps(value, separators=(",", ":"), allow_nan=False, ensure_ascii=False)
-    return Response(text.encode("utf-8"), media_type="application/json", headers={"Cache-Control": "no-store"})
 
 
 @router.post(RUNS, status_code=202)
@@ -48,16 +42,16 @@ def start_detailed_run(
 @router.get(RUNS)
 def list_detailed_runs(slug: str, shot_id: str, session: DB, _who: Viewer) -> Response:
     """Stored runs of the shot, newest first, without their results."""
-    return _json({"items": run_service.list_runs(session, slug, shot_id)})
+    return json_response({"items": run_service.list_runs(session, slug, shot_id)})
 
 
 @router.get(RUNS + "/{run_id}")
 def get_detailed_run(slug: str, shot_id: str, run_id: int, session: DB, _who: Viewer) -> Response:
     """One stored run with its full result (arrays as lists, SI units, null for NaN)."""
-    return _json(run_service.get_run(session, slug, shot_id, run_id))
+    return json_response(run_service.get_run(session, slug, shot_id, run_id))
 
 
 @router.get(RUNS + "/{run_id}/figures")
 def get_detailed_run_figures(slug: str, shot_id: str, run_id: int, session: DB, _who: Viewer) -> Response:
     """The run as the shot page draws it: key numbers, validity note and three Plotly figures (decimated)."""
-    return _json(run_service.run_view(session, slug, shot_id, run_id))
+    return json_response(run_service.run_view(session, slug, shot_id, run_id))

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import base64
 import json
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
@@ -53,23 +53,37 @@ def raw_payloads(session: Session, shot_pks: Iterable[int]) -> dict[int, dict[st
     return dict(session.execute(select(Shot.id, Shot.raw_payload).where(Shot.id.in_(pks))).all())
 
 
-def bulk_insert(session: Session, table: Table, rows: Sequence[dict[str, Any]]) -> None:
-    """Insert rows that all have the same keys in one driver call.
+Columns = Mapping[str, Sequence[Any]]  # column name -> values, all of one length
+
+
+def _processed(process: Callable[[Any], Any], values: Sequence[Any]) -> list[Any]:
+    """Apply a bind processor, once per run of the same object (constant columns are common)."""
+    out: list[Any] = []
+    last: Any = _processed
+    done: Any = None
+    for value in values:
+        if value is not last:
+            last, done = value, process(value)
+        out.append(done)
+    return out
+
+
+def bulk_insert(session: Session, table: Table, rows: Columns) -> None:
+    """Insert rows given as columns in one driver call.
 
     The values go through each column type's own bind processor, then straight to the
     driver (SQLite: executemany; PostgreSQL: COPY), skipping SQLAlchemy's per-row
     parameter handling, the largest cost of a 5,000-shot batch.
     """
-    if not rows:
+    if not rows or not len(next(iter(rows.values()))):
         return
     conn = session.connection()
     dialect = conn.dialect
-    names = list(rows[0])
-    columns: list[list[Any]] = []
+    names = list(rows)
+    columns: list[Sequence[Any]] = []
     for name in names:
-        values = [r[name] for r in rows]
         process = table.c[name].type.dialect_impl(dialect).bind_processor(dialect)
-        columns.append([process(v) for v in values] if process else values)
+        columns.append(_processed(process, rows[name]) if process else rows[name])
     quote = dialect.identifier_preparer.quote
     column_list = ", ".join(quote(n) for n in names)
     if dialect.name == "postgresql":
@@ -83,40 +97,40 @@ def bulk_insert(session: Session, table: Table, rows: Sequence[dict[str, Any]]) 
                          list(zip(*columns)))
 
 
-def insert_shots(session: Session, rows: Sequence[dict[str, Any]]) -> list[int]:
+def insert_shots(session: Session, rows: Columns) -> list[int]:
     """Insert shot rows; returns their primary keys in the order given.
 
     The keys are taken first (SQLite: the caller holds the database write lock, see
     app.database.begin_write, so they follow the largest key; PostgreSQL: from the
     sequence), then the rows go in through bulk_insert.
     """
-    if not rows:
+    n = len(next(iter(rows.values()), []))
+    if n == 0:
         return []
     if session.connection().dialect.name == "sqlite":
         first = (session.scalar(select(func.max(SHOTS.c.id))) or 0) + 1
-        pks = list(range(first, first + len(rows)))
+        pks = list(range(first, first + n))
     else:
         pks = list(session.scalars(
-            text("SELECT nextval(pg_get_serial_sequence('shots', 'id')) FROM generate_series(1, :n)"),
-            {"n": len(rows)}))
-    bulk_insert(session, SHOTS, [{"id": pk, **row} for pk, row in zip(pks, rows)])
+            text("SELECT nextval(pg_get_serial_sequence('shots', 'id')) FROM generate_series(1, :n)"), {"n": n}))
+    bulk_insert(session, SHOTS, {"id": pks, **rows})
     return pks
 
 
-def insert_revisions(session: Session, rows: Sequence[dict[str, Any]]) -> None:
+def insert_revisions(session: Session, rows: Columns) -> None:
     bulk_insert(session, REVISIONS, rows)
 
 
-def insert_evaluations(session: Session, rows: Sequence[dict[str, Any]]) -> None:
+def insert_evaluations(session: Session, rows: Columns) -> None:
     bulk_insert(session, EVALUATIONS, rows)
 
 
-def insert_flags(session: Session, rows: Sequence[dict[str, Any]]) -> None:
+def insert_flags(session: Session, rows: Columns) -> None:
     bulk_insert(session, FLAGS, rows)
 
 
 def replace_evaluations(session: Session, rows: Sequence[dict[str, Any]], flag_rows: Sequence[dict[str, Any]]) -> None:
-    """Overwrite the current evaluation of existing shots and swap their flags."""
+    """Overwrite the current evaluation of existing shots and swap their flags (rows as dicts)."""
     if not rows:
         return
     pks = [r["shot_pk"] for r in rows]
@@ -129,7 +143,8 @@ def replace_evaluations(session: Session, rows: Sequence[dict[str, Any]], flag_r
         .values({c: bindparam(f"b_{c}") for c in columns})
     )
     session.execute(stmt, [{f"b_{k}": v for k, v in r.items()} for r in rows])
-    insert_flags(session, flag_rows)
+    if flag_rows:
+        insert_flags(session, {name: [r[name] for r in flag_rows] for name in flag_rows[0]})
 
 
 def update_shot(session: Session, shot_pk: int, values: dict[str, Any]) -> None:
@@ -244,14 +259,17 @@ def count_stale(session: Session, campaign_id: int, settings_version: int) -> in
     ) or 0
 
 
-def stale_inputs(session: Session, campaign_id: int, settings_version: int, limit: int) -> list[dict[str, Any]]:
-    """Input columns (plus ``id``) of shots evaluated with older settings, oldest first."""
-    cols = [SHOTS.c.id] + [SHOTS.c[name] for name in input_columns()]
+def stale_inputs(
+    session: Session, campaign_id: int, settings_version: int, limit: int
+) -> tuple[list[int], dict[str, list[Any]]]:
+    """Keys and input columns of shots evaluated with older settings, oldest first."""
+    names = input_columns()
     stmt = (
-        select(*cols)
+        select(SHOTS.c.id, *[SHOTS.c[name] for name in names])
         .join(EVALUATIONS, EVALUATIONS.c.shot_pk == SHOTS.c.id)
         .where(EVALUATIONS.c.campaign_id == campaign_id, EVALUATIONS.c.settings_version < settings_version)
         .order_by(SHOTS.c.id)
         .limit(limit)
     )
-    return [dict(r._mapping) for r in session.execute(stmt)]
+    rows = session.execute(stmt).all()
+    return [r[0] for r in rows], {name: [r[i + 1] for r in rows] for i, name in enumerate(names)}

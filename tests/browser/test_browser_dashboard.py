@@ -124,6 +124,8 @@ def test_admin_changes_a_limit_and_watches_the_reevaluation_finish(browser, page
     page.click("#settings-form button[type=submit]")
     assert page.locator(".errors").is_visible()
     assert "must be a finite number" in page.locator(".errors").inner_text()
+    # The refused form comes back as a 422 page, which chromium logs; nothing else may.
+    problems[:] = [p for p in problems if "status of 422" not in p]
     page.screenshot(path=str(artifacts / "dashboard-settings-error.png"), full_page=True)
     page.fill("input[name='limit.HOSING_RISK.outside']", "1000")
     page.click("#settings-form button[type=submit]")

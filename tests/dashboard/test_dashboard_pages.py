@@ -465,3 +465,12 @@ def test_saving_settings_starts_the_reevaluation_and_shows_its_progress(admin_cl
     page = admin_client.get(response.headers["location"]).text
     assert f'"job_id":"{job_id}"' in page
     assert dash.overview(db, campaign).counts["outside"] < 6
+
+
+def test_a_campaign_without_shots_still_has_every_page(viewer_client, campaign):
+    for path in (f"/campaigns/{SLUG}", f"/campaigns/{SLUG}/shots", f"/campaigns/{SLUG}/shots.csv",
+                 f"/campaigns/{SLUG}/charts/timeline.json", f"/campaigns/{SLUG}/charts/phase.json",
+                 f"/campaigns/{SLUG}/charts/calibration.json", f"/campaigns/{SLUG}/live?since=0",
+                 f"/campaigns/{SLUG}/regime.json?x=plasma_density_cm3&y=plasma_density_cm3"):
+        assert viewer_client.get(path).status_code == 200, path
+    assert "No shots match this filter." in viewer_client.get(f"/campaigns/{SLUG}/shots").text

@@ -470,3 +470,13 @@ def test_a_section_that_is_not_an_object_is_named(client, campaign, ingest_heade
 def test_a_caller_without_a_token_gets_401_before_any_validation(client, campaign):
     response = client.post(f"{_shots_url(campaign)}/batch", json={"nonsense": True})
     assert response.status_code == 401
+
+
+def test_an_input_integer_too_large_for_a_float_gets_422_not_a_crash(client, app, campaign, ingest_headers, make_shot):
+    shot = make_shot()
+    body = json.dumps(shot).replace('"density_cm3": 400000000000000.0', '"density_cm3": 1' + "0" * 400)
+    for url, content in ((_shots_url(campaign), body), (f"{_shots_url(campaign)}/batch", '{"shots": [' + body + "]}")):
+        response = client.post(url, content=content, headers={**ingest_headers, "Content-Type": "application/json"})
+        assert response.status_code == 422, response.text
+        assert _fields(response)[0].endswith("plasma.density_cm3")
+    assert _count(app, Shot) == 0

@@ -129,8 +129,13 @@
     if (cfg.job_id) follow(cfg, cfg.job_id);
   }
 
-  // Deferred scripts run in document order before DOMContentLoaded: Plotly (loaded after this
-  // file) is ready by then.
-  if (document.readyState === "loading") document.addEventListener("DOMContentLoaded", start);
-  else start();
+  // This deferred file runs before Plotly's (which comes later in the page) while the document is
+  // already "interactive"; DOMContentLoaded fires only after every deferred script, Plotly included.
+  var started = false;
+  function startOnce() { if (!started) { started = true; start(); } }
+  if (document.readyState === "complete") startOnce();
+  else {
+    document.addEventListener("DOMContentLoaded", startOnce);
+    window.addEventListener("load", startOnce);
+  }
 })();
