@@ -23,6 +23,7 @@ import sys
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
+from app.advisory import ADVISORY_CAUTION
 from app.config import Settings
 
 Handler = Callable[[argparse.Namespace, Settings], int]
@@ -48,8 +49,8 @@ def command(name: str, help: str, configure: Callable[[argparse.ArgumentParser],
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="wakeledger", description="Shot ledger and self-modulation model check "
-                                     "(advisory; it does not replace machine protection or local procedures).")
+    parser = argparse.ArgumentParser(prog="wakeledger",
+                                     description=f"Shot ledger and self-modulation model check. {ADVISORY_CAUTION}")
     parser.add_argument("--database-url", help="overrides DATABASE_URL")
     top = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     groups: dict[str, argparse._SubParsersAction] = {}
@@ -149,7 +150,7 @@ def demo(args: argparse.Namespace, settings: Settings) -> int:
     print(f"database:    {prepared.database_url}")
     print(f"dashboard:   http://127.0.0.1:{args.port}/campaigns/{load.campaign_slug}")
     print(f"admin token: {prepared.admin_token}")
-    print("invented data; advisory only: it does not replace machine protection, interlocks or local procedures")
+    print(f"invented data. {ADVISORY_CAUTION}")
     sys.stdout.flush()
     uvicorn.run(prepared.app, host="127.0.0.1", port=args.port, log_level=args.log_level)
     return 0

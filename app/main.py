@@ -11,6 +11,7 @@ from contextlib import asynccontextmanager
 from fastapi import FastAPI
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
+from app.advisory import ADVISORY_CAUTION
 from app.config import Settings, get_settings
 from app.database import make_engine, make_session_factory, upgrade_database
 from app.problems import BODY_TOO_LARGE, ProblemError, install_problem_handlers, problem_response
@@ -95,8 +96,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app = FastAPI(
         title="wakeledger",
         version="0.1.0",
-        summary="Shot ledger and self-modulation model check (advisory only: it does not replace "
-        "machine protection, interlocks, radiation safety or the facility's procedures).",
+        summary="Shot ledger and self-modulation model check",
+        description=ADVISORY_CAUTION,
         lifespan=lifespan,
     )
     app.state.settings = settings

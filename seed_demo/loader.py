@@ -97,7 +97,8 @@ def demo_database_url(path: str | Path = DEMO_DATABASE_PATH) -> str:
 
 
 def prepare_demo(path: str | Path, settings: Settings) -> PreparedDemo:
-    """Migrate the demo database, load the demo campaign if it is empty, make a fresh admin token."""
+    """Migrate the demo database, load the demo campaign if it is empty, make a fresh admin token
+    (revoking the earlier demo admin tokens)."""
     from app.database import upgrade_database
     from app.main import create_app
     from app.services.auth import create_token
@@ -108,7 +109,8 @@ def prepare_demo(path: str | Path, settings: Settings) -> PreparedDemo:
     app = create_app(demo_settings)
     factory = app.state.session_factory
     report = load_demo_campaign(factory)
-    # Only the token's hash is stored, so a demo start cannot show an earlier token again.
+    # Only the token's hash is stored, so a demo start cannot show an earlier token again;
+    # the earlier demo-admin tokens are revoked, so only the one printed now is valid.
     with factory() as session:
-        token = create_token(session, "admin", DEMO_TOKEN_NAME, actor="demo")
+        token = create_token(session, "admin", DEMO_TOKEN_NAME, actor="demo", replace_named=True)
     return PreparedDemo(app=app, database_url=url, load=report, admin_token=token)

@@ -28,11 +28,13 @@ from fastapi.templating import Jinja2Templates
 from markupsafe import Markup
 from sqlalchemy.orm import Session
 
+from app.advisory import add_caution_global
 from app.deps import get_session
 from app.problems import ProblemError
 from app.services import auth
 from app.services import dashboard as dash
 from app.services.auth import TokenInfo
+from app.services.charts import STATUS_STYLES
 from app.store import dashboard as store
 from app.tables import Campaign
 
@@ -132,9 +134,8 @@ def _environment() -> jinja2.Environment:
     env.filters["num"] = dash.format_number
     env.filters["urlpart"] = lambda v: quote(str(v), safe="")
     env.filters["localtime"] = dash.local_time_text
-    env.globals["status_styles"] = dash.STATUS_STYLES
-    env.globals["caution"] = dash.ADVISORY_CAUTION
-    return env
+    env.globals["status_styles"] = STATUS_STYLES
+    return add_caution_global(env)
 
 
 templates = Jinja2Templates(env=_environment())
@@ -144,8 +145,10 @@ def render(request: Request, name: str, context: dict[str, Any], status_code: in
     context = {"principal": getattr(request.state, "principal", None), "campaign": None,
                "active": "", **context}
     campaign: Campaign | None = context["campaign"]
-    context.setdefault("summary_link", dash.summary_url(campaign) if campaign else None)
-    context.setdefault("week", dash.current_week(campaign) if campaign else None)
+    if campaign is not None and "summary" not in context:
+        with request.app.state.session_factory() as session:
+            context["summary"] = dash.campaign_summary_links(session, campaign)
+    context.setdefault("summary", None)
     response = templates.TemplateResponse(request, name, context, status_code=status_code)
     response.headers.update(PAGE_HEADERS)
     return response

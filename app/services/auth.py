@@ -54,14 +54,23 @@ def hash_token(raw_token: str) -> str:
     return hashlib.sha256(raw_token.encode("utf-8")).hexdigest()
 
 
-def create_token(session: Session, role: str, name: str, actor: str = "cli") -> str:
-    """Store a new token (hashed) and return the raw token, which is never stored."""
+def create_token(session: Session, role: str, name: str, actor: str = "cli", *, replace_named: bool = False) -> str:
+    """Store a new token (hashed) and return the raw token, which is never stored.
+
+    With ``replace_named`` the earlier active tokens of the same name are revoked in the
+    same transaction (the demo's admin token: only the one printed last stays valid).
+    """
     if role not in _RANK:
         raise ValueError(f"unknown role {role!r}; choose one of {', '.join(ROLES)}")
     raw = TOKEN_PREFIX + secrets.token_urlsafe(32)
+    now = datetime.now(timezone.utc)
     begin_write(session)
-    row = tokens.add_token(session, name, role, hash_token(raw), datetime.now(timezone.utc))
+    row = tokens.add_token(session, name, role, hash_token(raw), now)
     audit.record(session, actor, "token.create", target=f"token:{row.id}", detail={"name": name, "role": role})
+    if replace_named:
+        for revoked in tokens.revoke_tokens_named(session, name, now, keep_id=row.id):
+            audit.record(session, actor, "token.revoke", target=f"token:{revoked}",
+                         detail={"name": name, "replaced_by": row.id})
     session.commit()
     return raw
 

@@ -3,8 +3,8 @@
 Charts are plain figure dicts (``{"data": [...], "layout": {...}}``) that the static
 JavaScript hands to Plotly. Every point trace carries ``meta`` = {status, x, y} naming
 the fields it plots, so live updates can extend the right traces without knowing the
-chart. Status is shown by colour (Okabe-Ito), by marker shape and by name, never by
-colour alone. Large series are decimated in SQL (app.store.dashboard).
+chart. Palette, status shapes and layout defaults come from app.services.charts.
+Large series are decimated in SQL (app.store.dashboard).
 """
 
 from __future__ import annotations
@@ -17,37 +17,16 @@ from datetime import datetime, timezone
 from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
+import numpy as np
 from sqlalchemy.orm import Session
 
+from app.services.charts import INK, OKABE_ITO, SEVERITY_STYLES, STATUS_STYLES, axis, layout
+from app.services.phase_spread import PhaseJitter, circular_mean_rad, phase_jitter
 from app.services.summary import OUTPUT_UNITS, IsoWeek, input_path, unit_of
 from app.store import dashboard as store
 from app.store.dashboard import STATUSES, ShotFilter, ShotRow
 from app.store.summary import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS
 from app.tables import Campaign, Shot
-
-
-@dataclass(frozen=True)
-class StatusStyle:
-    name: str
-    colour: str
-    symbol: str  # Plotly marker symbol
-    glyph: str  # the same shape in text
-    meaning: str
-
-
-# Okabe-Ito palette (colour-blind safe); the shape and the word carry the status too.
-STATUS_STYLES: dict[str, StatusStyle] = {
-    "nominal": StatusStyle("nominal", "#0072B2", "circle", "\u25cf", "inside every limit"),
-    "marginal": StatusStyle("marginal", "#E69F00", "diamond", "\u25c6", "past a first limit"),
-    "outside": StatusStyle("outside", "#D55E00", "x", "\u2716", "past a second limit"),
-}
-SEVERITY_STYLES: dict[str, dict[str, str]] = {
-    "outside": {"colour": "#D55E00", "pattern": "x"},
-    "marginal": {"colour": "#E69F00", "pattern": "/"},
-    "info": {"colour": "#999999", "pattern": ""},
-}
-INK = "#1d2733"
-GRID = "#e3e7ec"
 
 # Limits that keep a 100,000-shot campaign's pages small and quick.
 # Plotly's WebGL traces (scattergl) compile code at run time, which the pages' CSP
@@ -57,6 +36,7 @@ FLAGGED_POINTS_CAP = 1000  # per flagged status and chart; past it, 1 in k over 
 SCATTER_NOMINAL_POINTS = 3000
 PHASE_MAX_BINS = 80
 PHASE_MIN_SHOTS_PER_BIN = 5
+PHASE_MAX_ROWS = 20000  # shots the phase figures are computed from; past it, 1 in k
 TABLE_PAGE_SIZE = 100
 LIVE_MAX_ROWS = 200
 
@@ -85,11 +65,6 @@ SHORT_LABELS = {
     "efolds_exit": "e-folds at exit",
     "growth_margin_efolds": "growth margin [e-folds]",
 }
-
-ADVISORY_CAUTION = (
-    "wakeledger is advisory: it does not replace machine protection, interlocks, radiation "
-    "safety or the facility's own procedures. Local rules and licensed operators decide."
-)
 
 
 # ------------------------------------------------------------------------ labels & time
@@ -136,6 +111,30 @@ def summary_url(campaign: Campaign, week: str | None = None, fmt: str = "html") 
     return f"/api/v1/campaigns/{campaign.slug}/summary?week={week or current_week(campaign)}&format={fmt}"
 
 
+@dataclass(frozen=True)
+class SummaryLinks:
+    """Where the weekly-summary links point: the latest ISO week with shots (the current
+    week for an empty campaign), and the current week too when that is another week."""
+
+    week: str
+    url: str
+    this_week: str | None = None
+    this_week_url: str | None = None
+
+
+def summary_links(campaign: Campaign, latest_taken_at: datetime | None, now: datetime | None = None) -> SummaryLinks:
+    this_week = current_week(campaign, now)
+    latest = local_time(latest_taken_at, campaign_zone(campaign))
+    week = IsoWeek.containing(latest, campaign_zone(campaign)).label if latest else this_week
+    if week == this_week:
+        return SummaryLinks(week, summary_url(campaign, week))
+    return SummaryLinks(week, summary_url(campaign, week), this_week, summary_url(campaign, this_week))
+
+
+def campaign_summary_links(session: Session, campaign: Campaign, now: datetime | None = None) -> SummaryLinks:
+    return summary_links(campaign, store.latest_taken_at(session, campaign.id), now)
+
+
 def format_number(value: Any, digits: int = 4) -> str:
     """How numbers read on the pages: 4 significant digits, a dash for none."""
     if value is None:
@@ -166,25 +165,6 @@ def text_for_chart(value: str) -> str:
 
 
 # -------------------------------------------------------------------------- figures
-
-
-def _layout(**extra: Any) -> dict[str, Any]:
-    layout: dict[str, Any] = {
-        "margin": {"l": 70, "r": 20, "t": 30, "b": 50},
-        "paper_bgcolor": "rgba(0,0,0,0)",
-        "plot_bgcolor": "#ffffff",
-        "font": {"family": "system-ui, -apple-system, 'Segoe UI', sans-serif", "size": 12, "color": INK},
-        "hovermode": "closest",
-        "legend": {"orientation": "h", "y": 1.02, "yanchor": "bottom", "x": 0, "xanchor": "left"},
-    }
-    layout.update(extra)
-    return layout
-
-
-def _axis(title: str, **extra: Any) -> dict[str, Any]:
-    axis = {"title": {"text": title}, "gridcolor": GRID, "zeroline": False, "automargin": True}
-    axis.update(extra)
-    return axis
 
 
 def _point_trace(
@@ -274,16 +254,16 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
     gap = 0.04
     height = (1 - gap * (panels - 1)) / panels
     traces: list[dict[str, Any]] = []
-    layout = _layout(height=190 * panels + 90, showlegend=True)
+    figure_layout = layout(height=190 * panels + 90, showlegend=True)
     # The same shots in every panel: their times and labels are written once.
     times = {item.status: [chart_time(t, zone) for t in item.series.columns["taken_at"]] for item in by_status}
     labels = {item.status: [text_for_chart(v) for v in item.series.columns["shot_id"]] for item in by_status}
     for i, name in enumerate(TIMELINE_FIELDS):
         axis_id = "" if i == 0 else str(i + 1)
         top = 1 - i * (height + gap)
-        layout[f"yaxis{axis_id}"] = _axis(SHORT_LABELS.get(name, field_label(name)), domain=[top - height, top],
-                                          exponentformat="power")
-        layout[f"xaxis{axis_id}"] = _axis(
+        figure_layout[f"yaxis{axis_id}"] = axis(SHORT_LABELS.get(name, field_label(name)),
+                                                domain=[top - height, top], exponentformat="power")
+        figure_layout[f"xaxis{axis_id}"] = axis(
             f"taken at ({zone.key})" if i == panels - 1 else "",
             type="date",
             anchor=f"y{axis_id}",
@@ -306,10 +286,10 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
                     note=_series_note(item),
                 )
             )
-    for key in list(layout):
-        if key.startswith("xaxis") and layout[key].get("matches") is None:
-            layout[key].pop("matches", None)
-    return {"data": traces, "layout": layout}
+    for key in list(figure_layout):
+        if key.startswith("xaxis") and figure_layout[key].get("matches") is None:
+            figure_layout[key].pop("matches", None)
+    return {"data": traces, "layout": figure_layout}
 
 
 def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk: int | None = None) -> dict[str, Any]:
@@ -331,12 +311,12 @@ def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk:
         )
         for item in by_status
     ]
-    layout = _layout(
+    figure_layout = layout(
         height=520,
-        xaxis=_axis(field_label(x), exponentformat="power"),
-        yaxis=_axis(field_label(y), exponentformat="power"),
+        xaxis=axis(field_label(x), exponentformat="power"),
+        yaxis=axis(field_label(y), exponentformat="power"),
     )
-    return {"data": traces, "layout": layout}
+    return {"data": traces, "layout": figure_layout}
 
 
 @dataclass(frozen=True)
@@ -346,59 +326,84 @@ class PhaseSummary:
     density_spread_pct: float | None
     phase_per_pct_density_rad: float | None
     expected_phase_jitter_rad: float | None
+    thinned_step: int = 1  # the spreads come from about every k-th shot of a large campaign
 
 
-def expected_phase_jitter_rad(phase_per_pct_density_rad: float | None, density_spread_pct: float | None) -> float | None:
-    """MODEL.md section 5: phase change per 1 % of density times the density spread in %."""
-    if phase_per_pct_density_rad is None or density_spread_pct is None:
-        return None
-    return phase_per_pct_density_rad * density_spread_pct
+def _phase_rows(session: Session, campaign: Campaign, upto_pk: int | None = None) -> store.PhaseRows:
+    return store.phase_rows(session, campaign.id, max_rows=PHASE_MAX_ROWS, upto_pk=upto_pk)
 
 
-def _spread_pct(mean: float | None, std: float | None) -> float | None:
-    return 100.0 * std / mean if mean and std is not None else None
+def _jitter(rows: store.PhaseRows, part: slice = slice(None)) -> PhaseJitter:
+    """The shared definition (app.services.phase_spread) over the shots with a measured phase."""
+    as_array = lambda values: np.array(values[part], dtype=float)  # noqa: E731 - None becomes NaN
+    return phase_jitter(as_array(rows.phase), as_array(rows.density), as_array(rows.phase_per_pct_density))
 
 
-def phase_summary(session: Session, campaign: Campaign) -> PhaseSummary:
-    phase, density, per_pct_spread = store.spreads(
-        session, campaign.id,
-        (Shot.measured_modulation_phase_rad, Shot.plasma_density_cm3, store.NUMERIC_COLUMNS["phase_per_pct_density_rad"]),
-    )
-    per_pct = per_pct_spread.mean
-    spread = _spread_pct(density.mean, density.std)
+def phase_summary(session: Session, campaign: Campaign, upto_pk: int | None = None,
+                  rows: store.PhaseRows | None = None) -> PhaseSummary:
+    rows = rows if rows is not None else _phase_rows(session, campaign, upto_pk)
+    jitter = _jitter(rows)
     return PhaseSummary(
-        shots_with_phase=phase.shots,
-        measured_phase_std_rad=phase.std if phase.shots > 1 else None,
-        density_spread_pct=spread if density.shots > 1 else None,
-        phase_per_pct_density_rad=per_pct,
-        expected_phase_jitter_rad=expected_phase_jitter_rad(per_pct, spread) if density.shots > 1 else None,
+        shots_with_phase=rows.total,
+        measured_phase_std_rad=jitter.measured_phase_std_rad,
+        density_spread_pct=jitter.density_spread_pct,
+        phase_per_pct_density_rad=jitter.phase_per_pct_density_rad,
+        expected_phase_jitter_rad=jitter.expected_phase_jitter_rad,
+        thinned_step=rows.step,
     )
 
 
-def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, Any]:
+@dataclass(frozen=True)
+class PhaseGroup:
+    first_taken_at: datetime
+    last_taken_at: datetime
+    phase_mean_rad: float | None  # circular mean
+    jitter: PhaseJitter
+
+
+def phase_groups(session: Session, rows: store.PhaseRows) -> list[PhaseGroup]:
+    """Consecutive shots (storage order) in at most PHASE_MAX_BINS groups of at least
+    PHASE_MIN_SHOTS_PER_BIN shots where there are enough."""
+    n = len(rows.pk)
+    if n < 2:
+        return []
+    count = max(1, min(PHASE_MAX_BINS, n // PHASE_MIN_SHOTS_PER_BIN))
+    edges = np.linspace(0, n, count + 1).round().astype(int).tolist()
+    parts = [(lo, hi) for lo, hi in zip(edges[:-1], edges[1:]) if hi > lo]
+    # Only the groups' first and last shots need their times (a few hundred, not every row).
+    times = store.taken_at_of(session, [rows.pk[i] for lo, hi in parts for i in (lo, hi - 1)])
+    phases = np.array(rows.phase, dtype=float)
+    return [
+        PhaseGroup(times[rows.pk[lo]], times[rows.pk[hi - 1]], circular_mean_rad(phases[lo:hi]),
+                   _jitter(rows, slice(lo, hi)))
+        for lo, hi in parts
+    ]
+
+
+def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = None,
+                 rows: store.PhaseRows | None = None) -> dict[str, Any]:
     """Measured modulation phase against shot time, beside the jitter the density spread predicts.
 
-    Top: each shot's phase with, per group of consecutive shots, the group mean ± the
-    expected jitter (phase per % density × density spread in %). Bottom: per group, the
-    measured rms phase spread beside that expected jitter.
+    Top: each shot's phase with, per group of consecutive shots, the group's circular mean ±
+    the expected jitter (median phase per % density × density spread in %). Bottom: per group,
+    the measured phase spread (about the circular mean) beside that expected jitter.
     """
     zone = campaign_zone(campaign)
     by_status = _series_by_status(
         session, campaign, (PHASE_FIELD,), nominal_points=TIMELINE_NOMINAL_POINTS, required=(PHASE_FIELD,),
         upto_pk=upto_pk,
     )
-    bins = store.phase_bins(
-        session, campaign.id, max_bins=PHASE_MAX_BINS, min_shots_per_bin=PHASE_MIN_SHOTS_PER_BIN
-    )
+    groups = phase_groups(session, rows if rows is not None else _phase_rows(session, campaign, upto_pk))
     traces: list[dict[str, Any]] = []
     centres, upper, lower, measured_rms, expected = [], [], [], [], []
-    for b in bins:
-        mid = b.first_taken_at + (b.last_taken_at - b.first_taken_at) / 2
-        jitter = expected_phase_jitter_rad(b.phase_per_pct_density_mean, _spread_pct(b.density_mean, b.density_std))
+    for g in groups:
+        mid = g.first_taken_at + (g.last_taken_at - g.first_taken_at) / 2
+        jitter = g.jitter.expected_phase_jitter_rad
+        banded = jitter is not None and g.phase_mean_rad is not None
         centres.append(chart_time(mid, zone))
-        upper.append(_number(b.phase_mean + jitter) if jitter is not None else None)
-        lower.append(_number(b.phase_mean - jitter) if jitter is not None else None)
-        measured_rms.append(_number(b.phase_std))
+        upper.append(_number(g.phase_mean_rad + jitter) if banded else None)
+        lower.append(_number(g.phase_mean_rad - jitter) if banded else None)
+        measured_rms.append(_number(g.jitter.measured_phase_std_rad))
         expected.append(_number(jitter))
     band = {"color": "rgba(0,158,115,0.55)", "width": 1, "shape": "hv"}
     traces.append({"type": "scatter", "mode": "lines", "x": centres, "y": lower, "line": band,
@@ -427,15 +432,15 @@ def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = Non
                    "line": {"color": INK, "width": 2}, "marker": {"symbol": "square", "size": 6}})
     traces.append({"type": "scatter", "mode": "lines", "x": centres, "y": expected,
                    "name": "expected jitter (per group)", "xaxis": "x2", "yaxis": "y2",
-                   "line": {"color": "#009E73", "width": 2, "dash": "dash"}})
-    layout = _layout(
+                   "line": {"color": OKABE_ITO["bluish_green"], "width": 2, "dash": "dash"}})
+    figure_layout = layout(
         height=560,
-        xaxis=_axis("", type="date", anchor="y", showticklabels=False),
-        yaxis=_axis("measured phase [rad]", domain=[0.42, 1.0]),
-        xaxis2=_axis(f"taken at ({zone.key})", type="date", anchor="y2", matches="x"),
-        yaxis2=_axis("phase spread [rad]", domain=[0.0, 0.32], rangemode="tozero"),
+        xaxis=axis("", type="date", anchor="y", showticklabels=False),
+        yaxis=axis("measured phase [rad]", domain=[0.42, 1.0]),
+        xaxis2=axis(f"taken at ({zone.key})", type="date", anchor="y2", matches="x"),
+        yaxis2=axis("phase spread [rad]", domain=[0.0, 0.32], rangemode="tozero"),
     )
-    return {"data": traces, "layout": layout}
+    return {"data": traces, "layout": figure_layout}
 
 
 @dataclass(frozen=True)
@@ -473,13 +478,13 @@ def calibration_figure(session: Session, campaign: Campaign, upto_pk: int | None
         lo, hi = min(values), max(values)
         traces.insert(0, {"type": "scatter", "mode": "lines", "x": [lo, hi], "y": [lo, hi],
                           "name": "measured = predicted", "hoverinfo": "skip",
-                          "line": {"color": "#56B4E9", "dash": "dot", "width": 2}})
-    layout = _layout(
+                          "line": {"color": OKABE_ITO["sky_blue"], "dash": "dot", "width": 2}})
+    figure_layout = layout(
         height=460,
-        xaxis=_axis("predicted plasma frequency [GHz]"),
-        yaxis=_axis("measured modulation frequency [GHz]"),
+        xaxis=axis("predicted plasma frequency [GHz]"),
+        yaxis=axis("measured modulation frequency [GHz]"),
     )
-    return {"data": traces, "layout": layout}
+    return {"data": traces, "layout": figure_layout}
 
 
 @dataclass(frozen=True)
@@ -514,14 +519,14 @@ def flag_figure(counts: Sequence[FlagCodeCount]) -> dict[str, Any]:
                                    "solidity": 0.25}},
             "hovertemplate": "%{y}: %{x} shots<extra>" + severity + "</extra>",
         })
-    layout = _layout(
+    figure_layout = layout(
         height=max(180, 34 * len(codes) + 90),
         barmode="stack",
-        xaxis=_axis("shots"),
-        yaxis=_axis("", automargin=True),
+        xaxis=axis("shots"),
+        yaxis=axis("", automargin=True),
         margin={"l": 150, "r": 20, "t": 30, "b": 45},
     )
-    return {"data": traces, "layout": layout}
+    return {"data": traces, "layout": figure_layout}
 
 
 # -------------------------------------------------------------------------- pages
@@ -532,7 +537,7 @@ class CampaignCard:
     campaign: Campaign
     counts: dict[str, int]
     latest_local: datetime | None
-    summary_url: str
+    summary: SummaryLinks
 
     @property
     def total(self) -> int:
@@ -541,7 +546,7 @@ class CampaignCard:
 
 def campaign_cards(session: Session) -> list[CampaignCard]:
     return [
-        CampaignCard(c, counts, local_time(latest, campaign_zone(c)), summary_url(c))
+        CampaignCard(c, counts, local_time(latest, campaign_zone(c)), summary_links(c, latest))
         for c, counts, latest in store.campaigns_with_status_counts(session)
     ]
 
@@ -570,11 +575,13 @@ CHART_FEEDS = {
 
 
 def phase_facts(summary: PhaseSummary) -> list[tuple[str, str]]:
+    sample = f" (from 1 in {summary.thinned_step} shots)" if summary.thinned_step > 1 else ""
     return [
         ("shots with a measured phase", format_number(summary.shots_with_phase)),
-        ("measured phase spread (rms)", f"{format_number(summary.measured_phase_std_rad)} rad"),
-        ("density spread of those shots", f"{format_number(summary.density_spread_pct)} %"),
-        ("phase change per 1 % density (mean)", f"{format_number(summary.phase_per_pct_density_rad)} rad/%"),
+        ("measured phase spread (std about the circular mean)",
+         f"{format_number(summary.measured_phase_std_rad)} rad{sample}"),
+        ("density spread of those shots", f"{format_number(summary.density_spread_pct)} %{sample}"),
+        ("phase change per 1 % density (median)", f"{format_number(summary.phase_per_pct_density_rad)} rad/%"),
         ("expected phase jitter", f"{format_number(summary.expected_phase_jitter_rad)} rad"),
     ]
 
@@ -598,6 +605,10 @@ def chart_feed(session: Session, campaign: Campaign, name: str, **params: Any) -
     """A chart drawn from the shots stored up to now, that cursor for the live feed, and
     the figures shown beside it."""
     cursor = store.latest_shot_pk(session, campaign.id)
+    if name == "phase":  # the chart and its figures from one read of the phases
+        rows = _phase_rows(session, campaign, cursor)
+        return {"figure": phase_figure(session, campaign, upto_pk=cursor, rows=rows), "cursor": cursor,
+                "facts": phase_facts(phase_summary(session, campaign, rows=rows))}
     builder = regime_figure if name == "regime" else CHART_FEEDS[name]
     feed: dict[str, Any] = {"figure": builder(session, campaign, upto_pk=cursor, **params), "cursor": cursor}
     if name in CHART_FACTS:
@@ -975,8 +986,6 @@ def growth_curves(shot: Shot, settings: Mapping[str, Any]) -> dict[str, list[flo
     shorter plasmas (N(z), δ(z) = δ_sat·e^margin) and with the reference slice moved
     along the bunch (N(L, ξ)): the model's own formulas, on arrays.
     """
-    import numpy as np
-
     from model import evaluate_table
 
     base = shot_input_columns(shot)
@@ -1017,29 +1026,29 @@ def growth_figure(curves: Mapping[str, list[Any]], shot: Shot, evaluation: Any, 
     after = [m if z_sat is not None and zz is not None and zz >= z_sat else None for zz, m in zip(z, modulation)]
     traces: list[dict[str, Any]] = [
         {"type": "scatter", "mode": "lines", "x": z, "y": before, "name": "\u03b4(z) relative radius modulation",
-         "line": {"color": "#0072B2", "width": 3}, "hovertemplate": "z %{x:.3g} m<br>\u03b4 %{y:.3g}<extra></extra>"},
+         "line": {"color": OKABE_ITO["blue"], "width": 3}, "hovertemplate": "z %{x:.3g} m<br>\u03b4 %{y:.3g}<extra></extra>"},
         {"type": "scatter", "mode": "lines", "x": z, "y": after, "name": "\u03b4(z) linear, past saturation (not valid)",
-         "line": {"color": "#0072B2", "width": 2, "dash": "dot"}, "hovertemplate": "z %{x:.3g} m<br>\u03b4 %{y:.3g}<extra></extra>"},
+         "line": {"color": OKABE_ITO["blue"], "width": 2, "dash": "dot"}, "hovertemplate": "z %{x:.3g} m<br>\u03b4 %{y:.3g}<extra></extra>"},
         {"type": "scatter", "mode": "lines", "x": [z[0], z[-1]], "y": [delta_sat, delta_sat],
-         "name": f"saturation level \u03b4_sat = {delta_sat:g}", "line": {"color": "#999999", "dash": "dash"},
+         "name": f"saturation level \u03b4_sat = {delta_sat:g}", "line": {"color": OKABE_ITO["grey"], "dash": "dash"},
          "hoverinfo": "skip"},
         {"type": "scatter", "mode": "lines", "x": z, "y": efolds, "name": "N(z) e-folds (right axis)", "yaxis": "y2",
-         "line": {"color": "#009E73", "width": 2, "dash": "dashdot"}, "hovertemplate": "z %{x:.3g} m<br>N %{y:.3g}<extra></extra>"},
+         "line": {"color": OKABE_ITO["bluish_green"], "width": 2, "dash": "dashdot"}, "hovertemplate": "z %{x:.3g} m<br>N %{y:.3g}<extra></extra>"},
     ]
     if z_sat is not None:
         traces.append({"type": "scatter", "mode": "markers+text", "x": [_number(z_sat)], "y": [delta_sat],
                        "name": f"saturation at z = {z_sat:.3g} m", "text": [f"saturation {z_sat:.3g} m"],
                        "textposition": "top left",
-                       "marker": {"symbol": "star", "size": 14, "color": "#D55E00", "line": {"color": INK, "width": 1}}})
-    layout = _layout(
+                       "marker": {"symbol": "star", "size": 14, "color": OKABE_ITO["vermillion"], "line": {"color": INK, "width": 1}}})
+    figure_layout = layout(
         height=400,
-        xaxis=_axis("z along the plasma [m]"),
-        yaxis=_axis("\u03b4 (relative radius modulation)", type="log", exponentformat="power"),
-        yaxis2=_axis("N (e-folds)", overlaying="y", side="right", rangemode="tozero", showgrid=False,
+        xaxis=axis("z along the plasma [m]"),
+        yaxis=axis("\u03b4 (relative radius modulation)", type="log", exponentformat="power"),
+        yaxis2=axis("N (e-folds)", overlaying="y", side="right", rangemode="tozero", showgrid=False,
                      tickmode="auto"),
         margin={"l": 70, "r": 70, "t": 30, "b": 50},
     )
-    return {"data": traces, "layout": layout}
+    return {"data": traces, "layout": figure_layout}
 
 
 def efold_profile_figure(curves: Mapping[str, list[Any]], shot: Shot, settings: Mapping[str, Any]) -> dict[str, Any]:
@@ -1047,18 +1056,18 @@ def efold_profile_figure(curves: Mapping[str, list[Any]], shot: Shot, settings: 
     ys = _numbers(curves["efolds_exit_xi"])
     traces = [
         {"type": "scatter", "mode": "lines", "x": _numbers(curves["xi_mm"]), "y": ys,
-         "name": "N(L, \u03be) e-folds at the exit", "line": {"color": "#CC79A7", "width": 3},
+         "name": "N(L, \u03be) e-folds at the exit", "line": {"color": OKABE_ITO["reddish_purple"], "width": 3},
          "hovertemplate": "\u03be %{x:.3g} mm<br>N %{y:.3g}<extra></extra>"},
         {"type": "scatter", "mode": "lines", "x": [xi_ref, xi_ref], "y": [0, max([v for v in ys if v is not None] or [1])],
-         "name": f"reference slice \u03be_ref = {xi_ref:.3g} mm", "line": {"color": "#999999", "dash": "dash"},
+         "name": f"reference slice \u03be_ref = {xi_ref:.3g} mm", "line": {"color": OKABE_ITO["grey"], "dash": "dash"},
          "hoverinfo": "skip"},
     ]
-    layout = _layout(
+    figure_layout = layout(
         height=360,
-        xaxis=_axis("\u03be behind the seed [mm]"),
-        yaxis=_axis("N at the plasma exit (e-folds)", rangemode="tozero"),
+        xaxis=axis("\u03be behind the seed [mm]"),
+        yaxis=axis("N at the plasma exit (e-folds)", rangemode="tozero"),
     )
-    return {"data": traces, "layout": layout}
+    return {"data": traces, "layout": figure_layout}
 
 
 def shot_detail(session: Session, campaign: Campaign, shot_id: str) -> ShotDetail | None:

@@ -12,8 +12,6 @@ self-contained HTML file. Every chart marks where the envelope model stops being
 from __future__ import annotations
 
 import math
-import os
-import tempfile
 import threading
 import time
 import warnings
@@ -32,8 +30,9 @@ from app.database import begin_write, run_write
 from app.problems import FieldProblem, invalid_input, not_found, pydantic_problems
 from app.services import jobs
 from app.services.campaigns import get_campaign_or_404
-from app.services.dashboard import ADVISORY_CAUTION, INK, _axis, _layout
+from app.services.charts import INK, OKABE_ITO, axis, layout
 from app.services.export_formats import format_number
+from app.services.files import write_atomically
 from app.store import audit
 from app.store import detailed_runs as run_store
 from app.store import jobs as job_store
@@ -53,10 +52,10 @@ MAP_MAX_Z = 100
 CURVE_MAX_POINTS = 800
 FIELD_MAX_POINTS = 4000
 
-SOLVER_COLOUR = "#0072B2"
-CLOSED_FORM_COLOUR = "#009E73"
-LIMIT_COLOUR = "#D55E00"
-REFERENCE_COLOUR = "#999999"
+SOLVER_COLOUR = OKABE_ITO["blue"]
+CLOSED_FORM_COLOUR = OKABE_ITO["bluish_green"]
+LIMIT_COLOUR = OKABE_ITO["vermillion"]
+REFERENCE_COLOUR = OKABE_ITO["grey"]
 
 
 class RunParameters(BaseModel):
@@ -408,10 +407,10 @@ def sigma_map_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
         "hovertemplate": "z %{x:.3g} m<br>ζ %{y:.4g} mm<br>log₁₀(σ_r / mm) %{z:.3f}<extra></extra>",
         "name": "σ_r(ζ, z)",
     }
-    layout = _layout(
+    figure_layout = layout(
         height=420,
-        xaxis=_axis("z along the plasma [m]"),
-        yaxis=_axis("ζ along the bunch [mm]"),
+        xaxis=axis("z along the plasma [m]"),
+        yaxis=axis("ζ along the bunch [mm]"),
         shapes=shapes,
         annotations=[*annotations, {
             "xref": "paper", "yref": "paper", "x": 0, "y": -0.2, "xanchor": "left", "yanchor": "top",
@@ -419,7 +418,7 @@ def sigma_map_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
             "text": f"head up; dotted line: reference slice{grouped}"}],
         margin={"l": 70, "r": 20, "t": 40, "b": 80},
     )
-    return {"data": [trace], "layout": layout}
+    return {"data": [trace], "layout": figure_layout}
 
 
 def modulation_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
@@ -450,16 +449,16 @@ def modulation_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
          "name": f"saturation level δ_sat = {sat:g}", "line": {"color": REFERENCE_COLOUR, "dash": "dot"},
          "hoverinfo": "skip"},
     ]
-    layout = _layout(
+    figure_layout = layout(
         height=380,
-        xaxis=_axis("z along the plasma [m]"),
-        yaxis=_axis(f"δ at the reference slice ζ = {float(doc['reference_zeta_m']) * 1e3:.4g} mm",
+        xaxis=axis("z along the plasma [m]"),
+        yaxis=axis(f"δ at the reference slice ζ = {float(doc['reference_zeta_m']) * 1e3:.4g} mm",
                     type="log", exponentformat="power", **({"range": y_range} if y_range else {})),
         shapes=shapes,
         annotations=annotations,
         margin={"l": 70, "r": 20, "t": 40, "b": 50},
     )
-    return {"data": traces, "layout": layout}
+    return {"data": traces, "layout": figure_layout}
 
 
 def exit_field_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
@@ -494,16 +493,16 @@ def exit_field_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
         note = (f"at the plasma exit, z = {length:.3g} m, past saturation (valid until z = {valid:.3g} m): "
                 "qualitative only")
         colour = LIMIT_COLOUR
-    layout = _layout(
+    figure_layout = layout(
         height=360,
-        xaxis=_axis("ζ along the bunch [mm] (head right; dashed: reference slice)"),
-        yaxis=_axis("on-axis E_z [MV/m]"),
+        xaxis=axis("ζ along the bunch [mm] (head right; dashed: reference slice)"),
+        yaxis=axis("on-axis E_z [MV/m]"),
         shapes=shapes,
         annotations=[{"xref": "paper", "yref": "paper", "x": 0, "y": 1.0, "xanchor": "left", "yanchor": "bottom",
                       "showarrow": False, "text": note, "font": {"color": colour, "size": 11}}],
         margin={"l": 70, "r": 20, "t": 40, "b": 50},
     )
-    return {"data": traces, "layout": layout}
+    return {"data": traces, "layout": figure_layout}
 
 
 CHART_TITLES = {
@@ -524,9 +523,11 @@ def run_figures(doc: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
 def _file_template():
     from jinja2 import Environment, PackageLoader, select_autoescape
 
+    from app.advisory import add_caution_global
+
     env = Environment(loader=PackageLoader("app", "templates"), autoescape=select_autoescape(["html"]),
                       trim_blocks=True, lstrip_blocks=True)
-    return env.get_template("detailed_run_file.html")
+    return add_caution_global(env).get_template("detailed_run_file.html")
 
 
 def render_run_html(shot: Mapping[str, Any], doc: Mapping[str, Any]) -> str:
@@ -546,31 +547,9 @@ def render_run_html(shot: Mapping[str, Any], doc: Mapping[str, Any]) -> str:
         charts=charts,
         facts=run_facts(doc),
         validity_note=doc.get("validity_note") or "",
-        caution=ADVISORY_CAUTION,
         model_version=model.MODEL_VERSION,
         created=datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC"),
     )
-
-
-def write_text_atomically(path: Path, text: str) -> None:
-    """Write to a temporary file beside the target, then rename it into place (never half-written)."""
-    path = Path(path)
-    fd, tmp_name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as out:
-            out.write(text)
-            out.flush()
-            os.fsync(out.fileno())
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp_name, 0o666 & ~umask)
-        os.replace(tmp_name, path)
-    except BaseException:
-        try:
-            os.unlink(tmp_name)
-        except FileNotFoundError:
-            pass
-        raise
 
 
 def simulate_to_html(
@@ -597,7 +576,8 @@ def simulate_to_html(
         raise invalid_input(problems)
     result = envelope.simulate_envelope(shot, settings, params.slices_per_wavelength, params.dz_m, progress=progress)
     doc = envelope.envelope_result_to_json(result)
-    write_text_atomically(out, render_run_html(shot, doc))
+    html = render_run_html(shot, doc).encode("utf-8")
+    write_atomically(out, lambda stream: stream.write(html))
     return doc
 
 

@@ -3,8 +3,8 @@ a self-contained HTML report (inline CSS and SVG charts, no script, prints clean
 and Parquet (pyarrow, typed columns for pandas).
 
 Every writer takes a binary stream and an optional ``progress(done, total)`` callback
-counted in shots. ``write_export_file`` writes to a temporary file beside the target
-and renames it into place, so a reader never sees a half-written export.
+counted in shots. ``write_export_file`` writes through ``app.services.files.write_atomically``,
+so a reader never sees a half-written export.
 """
 
 from __future__ import annotations
@@ -13,8 +13,6 @@ import csv
 import io
 import json
 import math
-import os
-import tempfile
 from collections.abc import Callable, Iterator
 from dataclasses import asdict
 from datetime import datetime, timedelta
@@ -25,8 +23,10 @@ from zoneinfo import ZoneInfo
 import numpy as np
 from jinja2 import Environment, PackageLoader, select_autoescape
 
+from app.advisory import ADVISORY_CAUTION, add_caution_global
 from app.services import report_charts as charts
-from app.services.dashboard import ADVISORY_CAUTION
+from app.services.charts import STATUS_STYLES
+from app.services.files import write_atomically
 from app.services.ingest import format_utc
 from app.services.summary import (
     INPUT_PATHS,
@@ -338,12 +338,13 @@ def write_parquet(summary: WeeklySummary, out: BinaryIO, progress: Progress | No
 
 # --- HTML report ---------------------------------------------------------------
 
-_templates = Environment(
+_templates = add_caution_global(Environment(
     loader=PackageLoader("app", "templates"),
     autoescape=select_autoescape(["html"]),
     trim_blocks=True,
     lstrip_blocks=True,
-)
+))
+_templates.globals["status_styles"] = STATUS_STYLES
 # Flagged shots listed in the HTML report per status; the CSV/JSON exports list all.
 HTML_FLAGGED_LIMIT = 500
 
@@ -436,7 +437,6 @@ def render_html(summary: WeeklySummary) -> str:
         flagged=flagged,
         flagged_limit=HTML_FLAGGED_LIMIT,
         local=lambda t: t.astimezone(tz).strftime("%a %Y-%m-%d %H:%M:%S"),
-        caution=ADVISORY_CAUTION,
         file_stem=export_file_name(summary.campaign_slug, summary.week.label, "").rstrip("."),
     )
 
@@ -472,23 +472,5 @@ def render_export(summary: WeeklySummary, fmt: str) -> bytes:
 def write_export_file(
     summary: WeeklySummary, fmt: str, path: Path, progress: Progress | None = None
 ) -> Path:
-    """Write to a temporary file in the target's directory, then rename it into place."""
-    path = Path(path)
-    directory = path.parent if str(path.parent) else Path(".")
-    fd, tmp_name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=directory)
-    try:
-        with os.fdopen(fd, "wb") as out:
-            write_export(summary, fmt, out, progress)
-            out.flush()
-            os.fsync(out.fileno())
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp_name, 0o666 & ~umask)
-        os.replace(tmp_name, path)
-    except BaseException:
-        try:
-            os.unlink(tmp_name)
-        except FileNotFoundError:
-            pass
-        raise
-    return path
+    """Write the export to ``path`` atomically (never half-written)."""
+    return write_atomically(path, lambda out: write_export(summary, fmt, out, progress))

@@ -1,8 +1,9 @@
 """Static SVG charts for the self-contained weekly report: no script, no network,
 and they print as crisply as the text around them.
 
-Points are drawn as zero-length round-capped path segments, one path per group, so
-a 10,000-shot scatter stays a few hundred kilobytes.
+Points are drawn one path per group, so a 10,000-shot scatter stays a few hundred
+kilobytes: nominal shots as zero-length round-capped segments (dots), marginal shots as
+diamonds and outside shots as crosses, the shapes of app.services.charts.STATUS_STYLES.
 """
 
 from __future__ import annotations
@@ -14,14 +15,16 @@ from html import escape
 import numpy as np
 from markupsafe import Markup
 
-# Colours per status; the legend always names them, so grey print stays readable.
+from app.services.charts import STATUS_STYLES
+
+# Colours per status (the dashboard's palette); the legend always names them and the
+# scatter marks each status by its shape too, so grey print stays readable.
 GROUP_COLOURS = {
-    "nominal": "#2e7d32",
-    "marginal": "#d39e00",
-    "outside": "#c62828",
+    **{status: style.colour for status, style in STATUS_STYLES.items()},
     "not_evaluated": "#757575",
     "shots": "#1f5fa8",
 }
+_MARKER_SIZE = 2.6  # half-width of a diamond or cross in px
 _W, _H = 720, 260
 _M = {"left": 64, "right": 16, "top": 30, "bottom": 44}
 
@@ -95,15 +98,36 @@ def _axes(
     return out
 
 
-def _legend(groups: Sequence[str], counts: Mapping[str, int] | None = None) -> list[str]:
+def _symbol(group: str) -> str:
+    style = STATUS_STYLES.get(group)
+    return style.symbol if style else "circle"
+
+
+def _marker_path(symbol: str, px: Sequence[float], py: Sequence[float]) -> str:
+    """SVG path data drawing one marker of ``symbol`` (a Plotly symbol name) at each point."""
+    r = _MARKER_SIZE
+    if symbol == "diamond":
+        return "".join(f"M{a:.1f} {b - r:.1f}l{r} {r}l{-r} {r}l{-r} {-r}z" for a, b in zip(px, py))
+    if symbol == "x":
+        return "".join(f"M{a - r:.1f} {b - r:.1f}l{2 * r} {2 * r}m0 {-2 * r}l{-2 * r} {2 * r}" for a, b in zip(px, py))
+    return "".join(f"M{a:.1f} {b:.1f}h0" for a, b in zip(px, py))
+
+
+def _legend(groups: Sequence[str], counts: Mapping[str, int] | None = None, shapes: bool = False) -> list[str]:
+    """Group names right-aligned above the plot: a colour swatch each, or the marker shape
+    (``shapes``) where the chart draws the groups as shaped points."""
     out, x = [], _W - _M["right"]
     for g in reversed(list(groups)):
         label = g.replace("_", " ") + (f" ({counts[g]})" if counts is not None else "")
         x -= 14 + 7 * len(label)
-        out.append(
-            f'<rect x="{x}" y="9" width="10" height="10" fill="{GROUP_COLOURS.get(g, "#444")}"/>'
-            f'<text x="{x + 14}" y="18" class="legend">{escape(label)}</text>'
-        )
+        colour = GROUP_COLOURS.get(g, "#444")
+        if shapes:
+            symbol = _symbol(g)
+            swatch = (f'<path d="{_marker_path(symbol, [x + 5], [14])}" stroke="{colour}" '
+                      f'class="points marker-{symbol}"/>')
+        else:
+            swatch = f'<rect x="{x}" y="9" width="10" height="10" fill="{colour}"/>'
+        out.append(swatch + f'<text x="{x + 14}" y="18" class="legend">{escape(label)}</text>')
     return out
 
 
@@ -146,11 +170,12 @@ def scatter_svg(
     for g in present:
         m = ok & (groups == g)
         px, py = xs(x[m]), ys(y[m])
-        d = "".join(f"M{a:.1f} {b:.1f}h0" for a, b in zip(px.tolist(), py.tolist()))
+        symbol = _symbol(g)
+        d = _marker_path(symbol, px.tolist(), py.tolist())
         out.append(
-            f'<path d="{d}" stroke="{GROUP_COLOURS.get(g, "#444")}" class="points"/>'
+            f'<path d="{d}" stroke="{GROUP_COLOURS.get(g, "#444")}" class="points marker-{symbol}"/>'
         )
-    out += _legend(present, {g: int(np.count_nonzero(ok & (groups == g))) for g in present})
+    out += _legend(present, {g: int(np.count_nonzero(ok & (groups == g))) for g in present}, shapes=True)
     out.append("</svg>")
     return Markup("".join(out))
 

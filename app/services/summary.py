@@ -23,6 +23,7 @@ from zoneinfo import ZoneInfo
 import numpy as np
 from sqlalchemy.orm import Session
 
+from app.services.phase_spread import phase_jitter
 from app.store import summary as summary_store
 from app.store.summary import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS, FlagRow
 from app.tables import Campaign, Shot
@@ -353,33 +354,20 @@ def quantity_range(key: str, values: np.ndarray) -> QuantityRange:
     return QuantityRange(key, unit_of(key), int(v.size), float(v.min()), float(np.median(v)), float(v.max()))
 
 
-def phase_spread_rad(phases: np.ndarray) -> float | None:
-    """Sample std of phases taken about their circular mean, so that values either
-    side of +-pi are not counted as 2 pi apart (equals the plain std away from the wrap)."""
-    v = _finite(phases)
-    if v.size < 2:
-        return None
-    centre = np.angle(np.mean(np.exp(1j * v)))
-    deviation = np.angle(np.exp(1j * (v - centre)))
-    return float(np.std(deviation, ddof=1))
-
-
 def phase_stability(shots: WeekShots) -> PhaseStability:
-    phase = _finite(shots.inputs["measured.modulation_phase_rad"])
-    density = _finite(shots.inputs["plasma.density_cm3"])
-    spread_pct = (
-        float(100.0 * np.std(density, ddof=1) / np.mean(density)) if density.size >= 2 else None
+    jitter = phase_jitter(
+        shots.inputs["measured.modulation_phase_rad"],
+        shots.inputs["plasma.density_cm3"],
+        shots.outputs["phase_per_pct_density_rad"],
     )
-    per_pct = _median(shots.outputs["phase_per_pct_density_rad"])
-    measured = phase_spread_rad(phase)
-    expected = per_pct * spread_pct if per_pct is not None and spread_pct is not None else None
+    measured, expected = jitter.measured_phase_std_rad, jitter.expected_phase_jitter_rad
     ratio = measured / expected if measured is not None and expected else None
     return PhaseStability(
-        measured_count=int(phase.size),
+        measured_count=jitter.phase_count,
         measured_phase_std_rad=measured,
-        density_count=int(density.size),
-        density_spread_pct=spread_pct,
-        phase_per_pct_density_rad=per_pct,
+        density_count=jitter.density_count,
+        density_spread_pct=jitter.density_spread_pct,
+        phase_per_pct_density_rad=jitter.phase_per_pct_density_rad,
         expected_phase_jitter_rad=expected,
         measured_over_expected=_num(ratio),
     )

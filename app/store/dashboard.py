@@ -20,7 +20,6 @@ from sqlalchemy import (
     case,
     cast,
     func,
-    literal,
     or_,
     select,
 )
@@ -112,6 +111,11 @@ def flag_counts(session: Session, campaign_id: int) -> list[FlagCount]:
         .order_by(Flag.code, Flag.severity)
     )
     return [FlagCount(code, severity, n) for code, severity, n in rows]
+
+
+def latest_taken_at(session: Session, campaign_id: int) -> datetime | None:
+    """When the campaign's latest shot was taken (UTC), None for an empty campaign."""
+    return as_utc(session.scalar(select(func.max(Shot.taken_at)).where(Shot.campaign_id == campaign_id)))
 
 
 def latest_shot_pk(session: Session, campaign_id: int) -> int:
@@ -206,119 +210,42 @@ def status_series(
 # --------------------------------------------------------------------------- statistics
 
 
-@dataclass(frozen=True)
-class PhaseBin:
-    first_taken_at: datetime
-    last_taken_at: datetime
-    shots: int
-    phase_mean: float
-    phase_std: float
-    density_mean: float
-    density_std: float
-    phase_per_pct_density_mean: float | None
+@dataclass
+class PhaseRows:
+    """Shots with a measured phase, in storage order, thinned to about every ``step``-th."""
+
+    pk: list[int]
+    phase: list[float]
+    density: list[float | None]
+    phase_per_pct_density: list[float | None]
+    total: int  # shots with a measured phase (before thinning)
+    step: int = 1
 
 
-def _std(sum_sq_dev: float, n: int) -> float:
-    return (max(sum_sq_dev, 0.0) / (n - 1)) ** 0.5 if n > 1 else 0.0
-
-
-def _reference_values(session: Session, base: Select[Any], columns: Sequence[ColumnElement[Any]]) -> list[float]:
-    """One shot's values, subtracted before summing squares so that a spread of 0.1 % at
-    values of order 1e15 keeps its digits in a single pass."""
-    row = session.execute(base.with_only_columns(*columns).limit(1)).first()
-    return [float(v) for v in row] if row else [0.0] * len(columns)
-
-
-def _spread_of(n: int, total: float, total_sq: float, shift: float) -> Spread:
-    """Mean and sample standard deviation from sums of (x - shift) and (x - shift)^2."""
-    if not n:
-        return Spread(0, None, None)
-    mean_dev = total / n
-    return Spread(n, shift + mean_dev, _std(total_sq - n * mean_dev * mean_dev, n))
-
-
-def phase_bins(session: Session, campaign_id: int, *, max_bins: int, min_shots_per_bin: int) -> list[PhaseBin]:
-    """Measured modulation phase and plasma density in groups of consecutive shots.
-
-    Groups are ranges of the shot id (storage order): one grouped pass, no window sort.
-    """
+def phase_rows(session: Session, campaign_id: int, *, max_rows: int, upto_pk: int | None = None) -> PhaseRows:
+    """Measured phase, density and phase change per 1 % density of the evaluated shots that
+    have a measured phase, at most about ``max_rows`` of them (shot id modulo k past that,
+    so the whole campaign stays covered)."""
     phase = Shot.measured_modulation_phase_rad
-    density = Shot.plasma_density_cm3
-    measured = _evaluated(campaign_id).where(phase.is_not(None))
-    first, last = session.execute(
-        select(func.min(Shot.id), func.max(Shot.id)).where(Shot.campaign_id == campaign_id)
-    ).one()
-    if first is None:
-        return []
-    p0, d0 = _reference_values(session, measured, (phase, density))
-    span = last - first + 1
-    bins = max(1, min(max_bins, span // max(min_shots_per_bin, 1)))
-    width = -(-span // bins)
-    group = ((Shot.id - first) // width).label("bin")
-    dp = phase - literal(p0)
-    dd = density - literal(d0)
-    rows = session.execute(
-        measured.with_only_columns(
-            group,
-            func.min(Shot.taken_at),
-            func.max(Shot.taken_at),
-            func.count(),
-            func.sum(dp),
-            func.sum(dp * dp),
-            func.sum(dd),
-            func.sum(dd * dd),
-            func.avg(Evaluation.phase_per_pct_density_rad),
-        )
-        .group_by(group)
-        .order_by(group)
-    ).all()
-    if sum(r[3] for r in rows) < 2:
-        return []
-    out = []
-    for _bin, t0, t1, count, sp, sp2, sd, sd2, ppd in rows:
-        ph = _spread_of(count, sp, sp2, p0)
-        de = _spread_of(count, sd, sd2, d0)
-        out.append(
-            PhaseBin(
-                first_taken_at=as_utc(_parse_dt(t0)),
-                last_taken_at=as_utc(_parse_dt(t1)),
-                shots=count,
-                phase_mean=ph.mean,
-                phase_std=ph.std,
-                density_mean=de.mean,
-                density_std=de.std,
-                phase_per_pct_density_mean=ppd,
-            )
-        )
-    return out
+    base = _evaluated(campaign_id).where(phase.is_not(None), *_upto(upto_pk))
+    total = session.scalar(base.with_only_columns(func.count())) or 0
+    step = -(-total // max_rows) if total > max_rows else 1
+    stmt = base.with_only_columns(
+        Shot.id, phase, Shot.plasma_density_cm3, Evaluation.phase_per_pct_density_rad
+    ).order_by(Shot.id)
+    if step > 1:
+        stmt = stmt.where(Shot.id % step == 0)
+    rows = session.execute(stmt).all()
+    pk, phases, density, per_pct = ([list(c) for c in zip(*rows)] if rows else [[], [], [], []])
+    return PhaseRows(pk, phases, density, per_pct, total, step)
 
 
-def _parse_dt(value: Any) -> datetime:
-    # Aggregates (min/max) over a subquery lose the column type on SQLite.
-    if isinstance(value, datetime):
-        return value
-    return datetime.fromisoformat(str(value))
-
-
-@dataclass(frozen=True)
-class Spread:
-    shots: int
-    mean: float | None
-    std: float | None  # sample standard deviation (n - 1)
-
-
-def spreads(session: Session, campaign_id: int, columns: Sequence[ColumnElement[Any]], *, where: Sequence[ColumnElement[bool]] = ()) -> list[Spread]:
-    """Count, mean and sample standard deviation of several columns over the same shots
-    (those where all of them are set), in one pass."""
-    base = _evaluated(campaign_id).where(*(c.is_not(None) for c in columns), *where)
-    shifts = _reference_values(session, base, columns)
-    deviations = [c - literal(x) for c, x in zip(columns, shifts)]
-    n, *sums = session.execute(
-        base.with_only_columns(
-            func.count(), *(f for d in deviations for f in (func.sum(d), func.sum(d * d)))
-        )
-    ).one()
-    return [_spread_of(n, sums[2 * i] or 0.0, sums[2 * i + 1] or 0.0, shifts[i]) for i in range(len(columns))]
+def taken_at_of(session: Session, shot_pks: Sequence[int]) -> dict[int, datetime]:
+    """When each of a few shots (by primary key) was taken, UTC."""
+    if not shot_pks:
+        return {}
+    rows = session.execute(select(Shot.id, Shot.taken_at).where(Shot.id.in_(list(set(shot_pks)))))
+    return {pk: as_utc(t) for pk, t in rows}
 
 
 def median_density_offset(session: Session, campaign_id: int) -> tuple[int, float | None]:

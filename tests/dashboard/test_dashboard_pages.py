@@ -474,3 +474,50 @@ def test_a_campaign_without_shots_still_has_every_page(viewer_client, campaign):
                  f"/campaigns/{SLUG}/regime.json?x=plasma_density_cm3&y=plasma_density_cm3"):
         assert viewer_client.get(path).status_code == 200, path
     assert "No shots match this filter." in viewer_client.get(f"/campaigns/{SLUG}/shots").text
+
+
+# ------------------------------------------------------------ weekly-summary link
+
+
+def test_the_weekly_summary_link_points_at_the_latest_week_with_shots_and_keeps_a_this_week_link(admin_client, seeded, db):
+    campaign = _campaign(db)
+    this_week = dash.current_week(campaign)
+    if this_week == "2026-W47":  # the page shots are all taken in 2026-W47
+        pytest.skip("run during 2026-W47: the latest week with shots is this week")
+    for path in (f"/campaigns/{SLUG}", "/campaigns"):
+        page = admin_client.get(path).text
+        assert f'href="/api/v1/campaigns/{SLUG}/summary?week=2026-W47&amp;format=html">Weekly summary 2026-W47' in page
+        assert f'href="/api/v1/campaigns/{SLUG}/summary?week={this_week}&amp;format=html">this week ({this_week})' in page
+
+
+def test_the_weekly_summary_link_of_an_empty_campaign_is_the_current_week_alone(admin_client, campaign, db):
+    links = dash.campaign_summary_links(db, _campaign(db))
+    week = dash.current_week(_campaign(db))
+    assert (links.week, links.this_week, links.this_week_url) == (week, None, None)
+    page = admin_client.get(f"/campaigns/{SLUG}").text
+    assert f'summary?week={week}&amp;format=html">Weekly summary {week}</a>' in page
+    assert "this week (" not in page
+
+
+def test_when_the_latest_shot_is_this_week_there_is_one_weekly_summary_link(seeded, db):
+    from datetime import datetime, timezone
+
+    links = dash.campaign_summary_links(db, _campaign(db), now=datetime(2026, 11, 20, 12, tzinfo=timezone.utc))
+    assert links.week == "2026-W47" and links.this_week is None
+    assert links.url == f"/api/v1/campaigns/{SLUG}/summary?week=2026-W47&format=html"
+
+
+def test_phases_either_side_of_plus_minus_pi_get_a_small_spread_on_the_overview(client, campaign, admin_headers, make_shot, db):
+    # Phases within 0.05 rad of +-pi, alternating sides: 0.1 rad apart at most, not 2 pi.
+    phases = [(math.pi - 0.05 * ((i // 2) % 5) / 4) * (1 if i % 2 else -1) for i in range(30)]
+    shots = [make_shot(0, shot_id=f"wrap-{i:03d}", taken_at=f"2026-11-17T{8 + i // 6:02d}:{(i % 6) * 7:02d}:00Z",
+                       changes={"measured.modulation_phase_rad": p}) for i, p in enumerate(phases)]
+    response = client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": shots}, headers=admin_headers)
+    assert response.status_code == 201, response.text
+    summary = dash.phase_summary(db, _campaign(db))
+    assert summary.shots_with_phase == 30
+    assert summary.measured_phase_std_rad < 0.05
+    assert np.std(phases, ddof=1) > 3  # what a plain std about the plain mean would say
+    figure = dash.phase_figure(db, _campaign(db))
+    per_group = next(t for t in figure["data"] if t["name"].startswith("measured rms phase spread"))
+    assert per_group["y"] and all(v is not None and v < 0.05 for v in per_group["y"])

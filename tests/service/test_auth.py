@@ -92,3 +92,16 @@ def test_demo_mode_lets_anonymous_visitors_read_but_not_write(settings, make_sho
 def test_a_malformed_authorization_header_gets_401(client, campaign, viewer_token):
     response = client.get("/api/v1/campaigns", headers={"Authorization": f"Basic {viewer_token}"})
     assert response.status_code == 401
+
+
+def test_replacing_a_named_token_revokes_only_the_earlier_tokens_of_that_name(app):
+    from app.services.auth import create_token, resolve_token
+
+    with app.state.session_factory() as session:
+        old = create_token(session, "admin", "shift-desk", actor="tests")
+        other = create_token(session, "viewer", "control-room-screen", actor="tests")
+        new = create_token(session, "admin", "shift-desk", actor="tests", replace_named=True)
+    with app.state.session_factory() as session:
+        assert resolve_token(session, old) is None
+        assert resolve_token(session, new).name == "shift-desk"
+        assert resolve_token(session, other).name == "control-room-screen"

@@ -14,7 +14,8 @@ import pyarrow.parquet as pq
 import pytest
 from sqlalchemy import select
 
-from app.services.export_formats import ADVISORY_CAUTION, render_export, summary_document
+from app.advisory import ADVISORY_CAUTION
+from app.services.export_formats import render_export, summary_document
 from app.services.summary import INPUT_PATHS, OUTPUT_NAMES, IsoWeek, build_weekly_summary, input_column
 from app.tables import Evaluation, Flag, Shot
 from week_data import add_campaign, insert_shots, spread_over_week

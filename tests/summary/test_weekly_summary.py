@@ -239,3 +239,19 @@ def test_iso_weeks_parse_and_step_back_across_the_year():
     assert IsoWeek.parse("2026W53").label == "2026-W53"  # 2026 has 53 ISO weeks
     assert IsoWeek.parse("2027-W01").previous() == IsoWeek(2026, 53)
     assert IsoWeek(2026, 1).monday().isoformat() == "2025-12-29"
+
+
+def test_phases_either_side_of_plus_minus_pi_get_a_small_spread_not_one_near_pi(session_factory):
+    # Phases within 0.05 rad of +-pi, alternating sides: 0.1 rad apart at most, not 2 pi.
+    phases = [(math.pi - 0.05 * ((i // 2) % 5) / 4) * (1 if i % 2 else -1) for i in range(40)]
+    with session_factory() as session:
+        campaign = add_campaign(session, "wrapping-phase")
+        pks = insert_shots(session, campaign, spread_over_week(datetime(2026, 11, 16, tzinfo=timezone.utc), 40),
+                           measured_fraction=1.0)
+        for pk, phase in zip(pks, phases):
+            session.get(Shot, pk).measured_modulation_phase_rad = phase
+        session.commit()
+        summary = build_weekly_summary(session, campaign, WEEK)
+    assert summary.phase_stability.measured_count == 40
+    assert summary.phase_stability.measured_phase_std_rad < 0.05
+    assert statistics.stdev(phases) > 3  # what a plain std about the plain mean would say
