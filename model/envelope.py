@@ -40,8 +40,8 @@ from scipy.optimize import minimize_scalar
 
 from model import quadrature
 from model.form_factors import gaussian_on_axis_factor, wake_kernel_h
-from model.evaluate import evaluate_shot, evaluate_table
-from model.inputs import SEEDED_METHODS, ShotInputError, validate_shot
+from model.evaluate import evaluate_shot, growth_along_plasma
+from model.inputs import SEEDED_METHODS, ShotInputError, clean_shot_columns, validate_shot
 from model.rules import resolve_settings
 from model.seed import driver_mass_and_charge, relative_noise
 from model.plasma import (
@@ -426,18 +426,9 @@ def saturation_point(z: np.ndarray, delta: np.ndarray, level: float) -> tuple[fl
 
 
 def closed_form_curves(shot: Mapping[str, Any], settings: Mapping[str, Any], z_m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Closed-form N(z) and delta(z) (MODEL.md section 4) from the closed-form model itself: the shot evaluated with plasma length z."""
-    columns: dict[str, Any] = {}
-    for section in ("driver", "plasma", "seed"):
-        for key, value in shot[section].items():
-            if np.isscalar(value) or value is None:
-                columns[f"{section}.{key}"] = np.full(z_m.size, value, dtype=object if isinstance(value, str) or value is None else float)
-    ok = z_m >= 1e-3  # the model's smallest plasma length
-    columns["plasma.length_m"] = np.where(ok, z_m, 1e-3)
-    table = evaluate_table(columns, settings)
-    n = np.where(ok, table["efolds_exit"], np.nan)
-    delta = np.where(ok, settings["saturation_modulation"] * np.exp(table["growth_margin_efolds"]), np.nan)
-    return n, delta
+    """Closed-form N(z) and linear delta(z) (MODEL.md section 4), from the closed-form model's own curve function."""
+    curves = growth_along_plasma(clean_shot_columns(shot), z_m, settings)
+    return curves["efolds"], curves["modulation"]
 
 
 def fit_efolds(z: np.ndarray, delta: np.ndarray, n_closed: np.ndarray) -> tuple[float, float] | None:

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import copy
 import math
+import sys
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -133,7 +134,10 @@ def _numeric_column(values: np.ndarray, blank_nan: bool) -> tuple[np.ndarray, np
         elif isinstance(v, bool) or not isinstance(v, (int, float)):
             bad_type[i] = True
         else:
-            floats[i] = float(v)
+            try:
+                floats[i] = float(v)
+            except OverflowError:  # an integer beyond float range: refused by the range check
+                floats[i] = sys.float_info.max if v > 0 else -sys.float_info.max
             if blank_nan and math.isnan(floats[i]):
                 absent[i] = True
     return floats, absent, bad_type

@@ -40,7 +40,9 @@ PHASE_MAX_ROWS = 20000  # shots the phase figures are computed from; past it, 1 
 TABLE_PAGE_SIZE = 100
 LIVE_MAX_ROWS = 200
 
-TIMELINE_FIELDS = ("plasma_density_cm3", "driver_population", "seed_position_mm", "driver_sigma_z_mm")
+TIMELINE_FIELDS = (
+    "plasma_density_cm3", "driver_population", "seed_position_mm", "driver_sigma_z_mm", "driver_sigma_r_mm",
+)
 TABLE_VALUE_COLUMNS = (
     "plasma_density_cm3",
     "driver_population",
@@ -62,6 +64,7 @@ SHORT_LABELS = {
     "driver_population": "population",
     "seed_position_mm": "seed position [mm]",
     "driver_sigma_z_mm": "σ_z [mm]",
+    "driver_sigma_r_mm": "σ_r [mm]",
     "efolds_exit": "e-folds at exit",
     "growth_margin_efolds": "growth margin [e-folds]",
 }
@@ -980,40 +983,25 @@ CURVE_POINTS = 80
 
 
 def growth_curves(shot: Shot, settings: Mapping[str, Any]) -> dict[str, list[float | None]]:
-    """δ(z) and N(z) along the plasma and N at the exit against ξ behind the seed.
+    """δ(z) and N(z) along the plasma and N at the exit against ξ behind the seed, from the model's curve functions."""
+    from model import efolds_along_bunch, growth_along_plasma
 
-    The model has no public curve function yet, so it is asked for the same shot with
-    shorter plasmas (N(z), δ(z) = δ_sat·e^margin) and with the reference slice moved
-    along the bunch (N(L, ξ)): the model's own formulas, on arrays.
-    """
-    from model import evaluate_table
-
-    base = shot_input_columns(shot)
+    columns = shot_input_columns(shot)
     length = float(shot.plasma_length_m)
     z = np.linspace(length / CURVE_POINTS, length, CURVE_POINTS)
-    z = np.maximum(z, 1e-3)
-    along = {k: np.repeat(np.asarray(v, dtype=object if isinstance(v[0], str) else float), z.size) for k, v in base.items()}
-    along["plasma.length_m"] = z
-    out = evaluate_table(along, settings)
-    delta_sat = float(settings["saturation_modulation"])
-    modulation = delta_sat * np.exp(np.asarray(out["growth_margin_efolds"], dtype=float))
+    along = growth_along_plasma(columns, z, settings)
 
     sigma_z = float(shot.driver_sigma_z_mm)
     seeded = shot.seed_method in ("ionization_front", "electron_bunch")
     zeta_s = float(shot.seed_position_mm) if seeded and shot.seed_position_mm is not None else 0.0
     xi_max = max(zeta_s + 3.0 * sigma_z, 0.5 * sigma_z)
-    xi = np.linspace(xi_max / CURVE_POINTS, xi_max, CURVE_POINTS)
-    efolds_xi = []
-    for value in xi:
-        point = dict(settings)
-        point["reference_slice_sigma"] = float(value / sigma_z)
-        efolds_xi.append(float(np.asarray(evaluate_table(base, point)["efolds_exit"], dtype=float)[0]))
+    xi_mm = np.linspace(xi_max / CURVE_POINTS, xi_max, CURVE_POINTS)
     return {
         "z_m": z.tolist(),
-        "efolds": np.asarray(out["efolds_exit"], dtype=float).tolist(),
-        "modulation": modulation.tolist(),
-        "xi_mm": xi.tolist(),
-        "efolds_exit_xi": efolds_xi,
+        "efolds": along["efolds"].tolist(),
+        "modulation": along["modulation"].tolist(),
+        "xi_mm": xi_mm.tolist(),
+        "efolds_exit_xi": efolds_along_bunch(columns, xi_mm * 1e-3, settings).tolist(),
     }
 
 

@@ -62,6 +62,12 @@ def test_negative_density_is_out_of_range_and_the_reason_gives_the_range():
     assert problems["plasma.density_cm3"].startswith("out of range") and "1e+10 to 1e+20" in problems["plasma.density_cm3"]
 
 
+@pytest.mark.parametrize("huge", [10**400, -(10**400)])
+def test_an_integer_beyond_float_range_is_out_of_range_not_a_crash(huge):
+    problems, _ = problems_of(shot_with({"driver.population": huge}))
+    assert problems["driver.population"].startswith("out of range")
+
+
 @pytest.mark.parametrize("bad", [math.nan, math.inf, -math.inf])
 def test_nan_and_infinity_are_rejected_even_in_optional_fields(bad):
     problems, _ = problems_of(shot_with({"driver.offset_x_mm": bad, "measured.halo_radius_mm": bad}))
