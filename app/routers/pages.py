@@ -135,6 +135,7 @@ def _environment() -> jinja2.Environment:
     env.filters["urlpart"] = lambda v: quote(str(v), safe="")
     env.filters["localtime"] = dash.local_time_text
     env.globals["status_styles"] = STATUS_STYLES
+    env.globals["phase_window_shots"] = dash.NEIGHBOUR_WINDOW_SHOTS
     return add_caution_global(env)
 
 
@@ -414,13 +415,17 @@ def shot_detail(slug: str, shot_id: str, request: Request, _who: TokenInfo = Dep
 # ------------------------------------------------------------------------ settings
 
 
-def _admin_or_page(request: Request) -> Response | None:
+def _settings_campaign_or_page(request: Request, session: Session, slug: str) -> Campaign | Response:
+    """The campaign whose settings an admin opens, or the page that refuses (404 or 403)."""
+    campaign = _campaign_or_none(session, slug)
+    if campaign is None:
+        return _not_found(request, f"Campaign {slug!r}")
     who: TokenInfo = request.state.principal
     if not who.can("admin"):
         return render(request, "error.html", {"title": "Admins only",
                       "message": "Changing the limits and model settings needs the admin role; "
                                  f"you are signed in as {who.role}."}, 403)
-    return None
+    return campaign
 
 
 _JOB_ID = re.compile(r"[0-9a-fA-F-]{1,64}")
@@ -429,12 +434,9 @@ _JOB_ID = re.compile(r"[0-9a-fA-F-]{1,64}")
 @router.get("/campaigns/{slug}/settings")
 def settings_form(slug: str, request: Request, job: str | None = None, _who: TokenInfo = Depends(viewer),
                   session: Session = Depends(get_session)) -> Response:
-    campaign = _campaign_or_none(session, slug)
-    if campaign is None:
-        return _not_found(request, f"Campaign {slug!r}")
-    refused = _admin_or_page(request)
-    if refused:
-        return refused
+    campaign = _settings_campaign_or_page(request, session, slug)
+    if isinstance(campaign, Response):
+        return campaign
     form = dash.settings_form(session, campaign)
     job_id = job if job and _JOB_ID.fullmatch(job) else form.latest_job_id
     return render(request, "settings.html", {"campaign": campaign, "form": form, "errors": {}, "saved": False,
@@ -444,12 +446,9 @@ def settings_form(slug: str, request: Request, job: str | None = None, _who: Tok
 @router.post("/campaigns/{slug}/settings")
 async def settings_save(slug: str, request: Request, _who: TokenInfo = Depends(viewer),
                         session: Session = Depends(get_session)) -> Response:
-    campaign = _campaign_or_none(session, slug)
-    if campaign is None:
-        return _not_found(request, f"Campaign {slug!r}")
-    refused = _admin_or_page(request)
-    if refused:
-        return refused
+    campaign = _settings_campaign_or_page(request, session, slug)
+    if isinstance(campaign, Response):
+        return campaign
     if _cross_site(request):
         return _refuse_cross_site(request)
     submitted = {k: v for k, v in (await request.form()).items() if isinstance(v, str)}
