@@ -22,7 +22,7 @@ App
 - ``campaign``: slug of a campaign created through the API ("test-campaign", default settings).
 
 Shots
-- ``reference_cases``: the worked examples, read from ../shared/reference_cases.json.
+- ``reference_cases``: the worked examples, read from tests/data/reference_cases.json (the specification's copy).
 - ``make_shot(case=0, shot_id=None, taken_at=None, changes=None, drop=())``: a valid shot
   body built from worked example ``case`` (index or its shot_id, e.g. "ex-2"), with a
   taken_at; ``changes`` maps dotted paths to new values ({"plasma.density_cm3": -1}),
@@ -48,7 +48,7 @@ from sqlalchemy import create_engine, text
 from sqlalchemy.engine import make_url
 
 REPO = Path(__file__).resolve().parents[1]
-REFERENCE_CASES_PATH = REPO.parent / "shared" / "reference_cases.json"
+REFERENCE_CASES_PATH = REPO / "tests" / "data" / "reference_cases.json"
 PG_ENV = "WAKELEDGER_TEST_POSTGRES_URL"
 BACKENDS_ENV = "WAKELEDGER_TEST_BACKENDS"
 REQUIRE_PG_ENV = "WAKELEDGER_REQUIRE_POSTGRES"

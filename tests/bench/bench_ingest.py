@@ -40,7 +40,7 @@ from app.services.auth import create_token  # noqa: E402
 from app.services.campaigns import create_campaign  # noqa: E402
 from app.tables import Evaluation, Flag, Shot, ShotRevision  # noqa: E402
 
-REFERENCE_CASES = ROOT.parent / "shared" / "reference_cases.json"
+REFERENCE_CASES = ROOT / "tests" / "data" / "reference_cases.json"
 TARGET_SHOTS_PER_S = 5000
 TARGET_RAW_FRACTION = 0.30
 
