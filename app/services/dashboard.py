@@ -21,7 +21,7 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from app.services.charts import INK, OKABE_ITO, SEVERITY_STYLES, STATUS_STYLES, axis, layout
-from app.services.phase_spread import PhaseJitter, circular_mean_rad, phase_jitter
+from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS, PhaseJitter, circular_mean_rad, phase_jitter
 from app.services.summary import OUTPUT_UNITS, IsoWeek, input_path, unit_of
 from app.store import dashboard as store
 from app.store.dashboard import STATUSES, ShotFilter, ShotRow
@@ -365,7 +365,7 @@ class PhaseGroup:
 
 
 def phase_groups(session: Session, rows: store.PhaseRows) -> list[PhaseGroup]:
-    """Consecutive shots (storage order) in at most PHASE_MAX_BINS groups of at least
+    """Consecutive shots (taken_at order) in at most PHASE_MAX_BINS groups of at least
     PHASE_MIN_SHOTS_PER_BIN shots where there are enough."""
     n = len(rows.pk)
     if n < 2:
@@ -385,11 +385,12 @@ def phase_groups(session: Session, rows: store.PhaseRows) -> list[PhaseGroup]:
 
 def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = None,
                  rows: store.PhaseRows | None = None) -> dict[str, Any]:
-    """Measured modulation phase against shot time, beside the jitter the density spread predicts.
+    """Measured modulation phase against shot time, beside the jitter the density jitter predicts.
 
     Top: each shot's phase with, per group of consecutive shots, the group's circular mean ±
-    the expected jitter (median phase per % density × density spread in %). Bottom: per group,
-    the measured phase spread (about the circular mean) beside that expected jitter.
+    the expected jitter (median phase per % density × shot-to-shot density jitter in %).
+    Bottom: per group, the measured shot-to-shot phase jitter beside that expected jitter
+    (both about running windows of neighbouring shots, app.services.phase_spread).
     """
     zone = campaign_zone(campaign)
     by_status = _series_by_status(
@@ -414,7 +415,7 @@ def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = Non
                    "hoverinfo": "skip", "xaxis": "x", "yaxis": "y"})
     traces.append({"type": "scatter", "mode": "lines", "x": centres, "y": upper, "line": band,
                    "fill": "tonexty", "fillcolor": "rgba(0,158,115,0.15)",
-                   "name": "group mean \u00b1 jitter expected from density spread", "legendgroup": "band",
+                   "name": "group mean \u00b1 jitter expected from shot-to-shot density jitter", "legendgroup": "band",
                    "hoverinfo": "skip", "xaxis": "x", "yaxis": "y"})
     for item in by_status:
         cols = item.series.columns
@@ -431,17 +432,17 @@ def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = Non
             )
         )
     traces.append({"type": "scatter", "mode": "lines+markers", "x": centres, "y": measured_rms,
-                   "name": "measured rms phase spread (per group)", "xaxis": "x2", "yaxis": "y2",
+                   "name": "measured shot-to-shot phase jitter (per group)", "xaxis": "x2", "yaxis": "y2",
                    "line": {"color": INK, "width": 2}, "marker": {"symbol": "square", "size": 6}})
     traces.append({"type": "scatter", "mode": "lines", "x": centres, "y": expected,
-                   "name": "expected jitter (per group)", "xaxis": "x2", "yaxis": "y2",
+                   "name": "expected shot-to-shot jitter (per group)", "xaxis": "x2", "yaxis": "y2",
                    "line": {"color": OKABE_ITO["bluish_green"], "width": 2, "dash": "dash"}})
     figure_layout = layout(
         height=560,
         xaxis=axis("", type="date", anchor="y", showticklabels=False),
         yaxis=axis("measured phase [rad]", domain=[0.42, 1.0]),
         xaxis2=axis(f"taken at ({zone.key})", type="date", anchor="y2", matches="x"),
-        yaxis2=axis("phase spread [rad]", domain=[0.0, 0.32], rangemode="tozero"),
+        yaxis2=axis("shot-to-shot jitter [rad]", domain=[0.0, 0.32], rangemode="tozero"),
     )
     return {"data": traces, "layout": figure_layout}
 
@@ -579,13 +580,15 @@ CHART_FEEDS = {
 
 def phase_facts(summary: PhaseSummary) -> list[tuple[str, str]]:
     sample = f" (from 1 in {summary.thinned_step} shots)" if summary.thinned_step > 1 else ""
+    window = NEIGHBOUR_WINDOW_SHOTS
     return [
         ("shots with a measured phase", format_number(summary.shots_with_phase)),
-        ("measured phase spread (std about the circular mean)",
+        (f"measured shot-to-shot phase jitter (robust spread about a running circular mean of {window} neighbouring shots)",
          f"{format_number(summary.measured_phase_std_rad)} rad{sample}"),
-        ("density spread of those shots", f"{format_number(summary.density_spread_pct)} %{sample}"),
+        (f"shot-to-shot density jitter of those shots (robust spread about a running median of {window} neighbouring shots)",
+         f"{format_number(summary.density_spread_pct)} %{sample}"),
         ("phase change per 1 % density (median)", f"{format_number(summary.phase_per_pct_density_rad)} rad/%"),
-        ("expected phase jitter", f"{format_number(summary.expected_phase_jitter_rad)} rad"),
+        ("expected phase jitter (shot-to-shot)", f"{format_number(summary.expected_phase_jitter_rad)} rad"),
     ]
 
 

@@ -28,6 +28,7 @@ from app.services import report_charts as charts
 from app.services.charts import STATUS_STYLES
 from app.services.files import write_atomically
 from app.services.ingest import format_utc
+from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
 from app.services.summary import (
     INPUT_PATHS,
     NOT_EVALUATED,
@@ -345,6 +346,7 @@ _templates = add_caution_global(Environment(
     lstrip_blocks=True,
 ))
 _templates.globals["status_styles"] = STATUS_STYLES
+_templates.globals["phase_window_shots"] = NEIGHBOUR_WINDOW_SHOTS
 # Flagged shots listed in the HTML report per status; the CSV/JSON exports list all.
 HTML_FLAGGED_LIMIT = 500
 

@@ -250,12 +250,15 @@ class FlaggedShot:
 
 @dataclass(frozen=True)
 class PhaseStability:
+    """The week's shot-to-shot phase stability (app.services.phase_spread): deviations from
+    a running circular mean / running median of NEIGHBOUR_WINDOW_SHOTS neighbouring shots."""
+
     measured_count: int
-    measured_phase_std_rad: float | None
+    measured_phase_std_rad: float | None  # shot-to-shot phase jitter
     density_count: int
-    density_spread_pct: float | None
-    phase_per_pct_density_rad: float | None
-    expected_phase_jitter_rad: float | None
+    density_spread_pct: float | None  # shot-to-shot density jitter, % of the running median
+    phase_per_pct_density_rad: float | None  # median over the week's shots
+    expected_phase_jitter_rad: float | None  # phase_per_pct_density_rad x density_spread_pct
     measured_over_expected: float | None
 
 

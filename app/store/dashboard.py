@@ -212,7 +212,7 @@ def status_series(
 
 @dataclass
 class PhaseRows:
-    """Shots with a measured phase, in storage order, thinned to about every ``step``-th."""
+    """Shots with a measured phase, in taken_at order, thinned to about every ``step``-th."""
 
     pk: list[int]
     phase: list[float]
@@ -224,15 +224,16 @@ class PhaseRows:
 
 def phase_rows(session: Session, campaign_id: int, *, max_rows: int, upto_pk: int | None = None) -> PhaseRows:
     """Measured phase, density and phase change per 1 % density of the evaluated shots that
-    have a measured phase, at most about ``max_rows`` of them (shot id modulo k past that,
-    so the whole campaign stays covered)."""
+    have a measured phase, in taken_at order (the shot-to-shot figures compare neighbours in
+    time), at most about ``max_rows`` of them (shot id modulo k past that, so the whole
+    campaign stays covered)."""
     phase = Shot.measured_modulation_phase_rad
     base = _evaluated(campaign_id).where(phase.is_not(None), *_upto(upto_pk))
     total = session.scalar(base.with_only_columns(func.count())) or 0
     step = -(-total // max_rows) if total > max_rows else 1
     stmt = base.with_only_columns(
         Shot.id, phase, Shot.plasma_density_cm3, Evaluation.phase_per_pct_density_rad
-    ).order_by(Shot.id)
+    ).order_by(Shot.taken_at, Shot.id)
     if step > 1:
         stmt = stmt.where(Shot.id % step == 0)
     rows = session.execute(stmt).all()

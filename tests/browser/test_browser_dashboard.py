@@ -53,7 +53,7 @@ def test_shift_physicist_signs_in_filters_to_outside_shots_and_opens_one_with_it
     page.wait_for_selector("#chart-calibration .plot-container")
     assert page.locator(".caution").first.inner_text().startswith("Advisory only")
     assert page.locator("[data-count=outside]").inner_text() == "6"
-    assert page.locator("#chart-timeline .scatterlayer .point").count() == 4 * 36 - 3  # 3 unseeded: no seed position
+    assert page.locator("#chart-timeline .scatterlayer .point").count() == 5 * 36 - 3  # five panels; 3 unseeded: no seed position
     assert page.locator("#chart-regime .scatterlayer .point").count() == 36
     assert "not supported" not in page.locator("main").inner_text()
     assert "expected phase jitter" in page.locator("#facts-chart-phase").inner_text()

@@ -19,6 +19,7 @@ from app.services.summary import (
     input_column,
 )
 from app.tables import Evaluation, Flag, Shot
+from tests import shot_to_shot_reference as reference
 from week_data import add_campaign, insert_shots, spread_over_week
 
 WEEK = IsoWeek(2026, 47)
@@ -104,18 +105,18 @@ def test_phase_stability_and_density_calibration_figures(session_factory, zurich
         summary = build_weekly_summary(session, zurich_weeks, WEEK)
         rows = stored_week(session, zurich_weeks, WEEK)
 
-    phases = [s.measured_modulation_phase_rad for s, _, _ in rows if s.measured_modulation_phase_rad is not None]
-    densities = [s.plasma_density_cm3 for s, _, _ in rows]
+    in_time_order = sorted(rows, key=lambda row: (row[0].taken_at, row[0].id))
+    phases = [s.measured_modulation_phase_rad for s, _, _ in in_time_order if s.measured_modulation_phase_rad is not None]
+    densities = [s.plasma_density_cm3 for s, _, _ in in_time_order]
     per_pct = statistics.median(e.phase_per_pct_density_rad for _, e, _ in rows)
-    spread_pct = 100 * statistics.stdev(densities) / statistics.fmean(densities)
+    jitter_pct, phase_jitter = reference.density_jitter_pct(densities), reference.phase_jitter_rad(phases)
     p = summary.phase_stability
-    assert p.measured_count == len(phases)
-    # The invented phases sit far from +-pi, so the spread about the circular mean is the plain stdev.
-    assert math.isclose(p.measured_phase_std_rad, statistics.stdev(phases), rel_tol=1e-9)
-    assert math.isclose(p.density_spread_pct, spread_pct, rel_tol=1e-9)
+    assert p.measured_count == len(phases) and len(phases) >= reference.WINDOW
+    assert math.isclose(p.measured_phase_std_rad, phase_jitter, rel_tol=1e-9)
+    assert math.isclose(p.density_spread_pct, jitter_pct, rel_tol=1e-9)
     assert math.isclose(p.phase_per_pct_density_rad, per_pct, rel_tol=1e-12)
-    assert math.isclose(p.expected_phase_jitter_rad, per_pct * spread_pct, rel_tol=1e-9)
-    assert math.isclose(p.measured_over_expected, statistics.stdev(phases) / (per_pct * spread_pct), rel_tol=1e-9)
+    assert math.isclose(p.expected_phase_jitter_rad, per_pct * jitter_pct, rel_tol=1e-9)
+    assert math.isclose(p.measured_over_expected, phase_jitter / (per_pct * jitter_pct), rel_tol=1e-9)
 
     measured = [(s, e) for s, e, _ in rows if e.implied_density_cm3 is not None]
     mismatch = [e.frequency_mismatch_pct for _, e in measured]
