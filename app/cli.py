@@ -245,6 +245,37 @@ def export(args: argparse.Namespace, settings: Settings) -> int:
     return 0
 
 
+def _reevaluate_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--campaign", required=True, metavar="SLUG")
+
+
+@command("reevaluate", help="re-evaluate now, in the foreground, a campaign's shots evaluated with older "
+         "settings or an older model version", configure=_reevaluate_args)
+def reevaluate(args: argparse.Namespace, settings: Settings) -> int:
+    from app.database import make_engine, make_session_factory
+    from app.services.campaigns import reevaluate_now
+    from app.store.campaigns import get_campaign
+    from model import MODEL_VERSION
+
+    engine = make_engine(settings.database_url)
+    try:
+        factory = make_session_factory(engine)
+        with factory() as session:
+            known = get_campaign(session, args.campaign) is not None
+        if not known:
+            print(f"wakeledger reevaluate: error: campaign {args.campaign!r} does not exist", file=sys.stderr)
+            return 1
+        bar = TextProgressBar(f"{args.campaign} re-evaluation")
+        try:
+            done = reevaluate_now(factory, args.campaign, "cli", lambda d, t, _message: bar(d, t))
+        finally:
+            bar.close()
+    finally:
+        engine.dispose()
+    print(f"re-evaluated {done} shots of {args.campaign} with model {MODEL_VERSION}", file=sys.stderr)
+    return 0
+
+
 def _simulate_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("shot", metavar="SHOT.json", help="one shot in the API JSON shape")
     p.add_argument("--out", required=True, metavar="PATH", help="HTML file to write (self-contained, opens offline)")

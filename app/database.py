@@ -84,6 +84,24 @@ def transaction(factory: sessionmaker[Session]) -> Iterator[Session]:
         yield session
 
 
+@contextmanager
+def snapshot_read(session: Session) -> Iterator[Session]:
+    """A session whose reads all see one snapshot, for reports built from several queries.
+
+    PostgreSQL at READ COMMITTED gives every statement its own snapshot, so a write
+    committed between two queries would show in the second only: the reads run in a
+    separate session whose transaction begins at REPEATABLE READ (rolled back at the end).
+    SQLite: a transaction reads one snapshot already, so the caller's session serves.
+    """
+    engine = session.get_bind().engine
+    if engine.dialect.name != "postgresql":
+        yield session
+        return
+    with Session(engine) as read:
+        read.connection(execution_options={"isolation_level": "REPEATABLE READ"})
+        yield read
+
+
 def begin_write(session: Session, lock_name: str | None = None) -> None:
     """Start a write transaction that holds the writer lock for ``lock_name``.
 

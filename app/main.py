@@ -15,6 +15,7 @@ from app.advisory import ADVISORY_CAUTION
 from app.config import Settings, get_settings
 from app.database import make_engine, make_session_factory, upgrade_database
 from app.problems import BODY_TOO_LARGE, ProblemError, install_problem_handlers, problem_response
+from app.services.campaigns import queue_model_upgrade_reevaluations
 from app.services.jobs import JobRunner
 
 
@@ -89,6 +90,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         if settings.migrate_on_start:
             upgrade_database(settings.database_url)
         runner.resume_unfinished()
+        # Shots evaluated by an older model version (wakeledger was upgraded) are re-evaluated.
+        with factory() as session:
+            upgrade_jobs = queue_model_upgrade_reevaluations(session)
+        for job_id in upgrade_jobs:
+            runner.start(job_id)
         yield
         runner.join(timeout=5.0)
         engine.dispose()

@@ -6,9 +6,9 @@ import copy
 import math
 from collections.abc import Mapping
 from datetime import datetime, timezone
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, sessionmaker
 
 import model
 from app.database import begin_write, run_write
@@ -17,6 +17,9 @@ from app.schemas import CampaignCreate, CampaignOut
 from app.store import audit
 from app.store import campaigns as campaign_store
 from app.tables import Campaign, Job
+
+if TYPE_CHECKING:
+    from app.services.jobs import Progress
 
 
 def default_settings() -> dict[str, Any]:
@@ -170,3 +173,54 @@ def change_settings(session: Session, slug: str, patch: Mapping[str, Any], actor
         return campaign, job
 
     return run_write(session, work)
+
+
+MODEL_UPGRADE_ACTOR = "wakeledger (model upgrade)"
+
+
+def queue_model_upgrade_reevaluations(session: Session, actor: str = MODEL_UPGRADE_ACTOR) -> list[str]:
+    """Queue the "reevaluate" job of every campaign holding evaluations by another model
+    version, unless one is already queued or running; returns the new job ids (start them)."""
+    from app.services import jobs
+    from app.store import jobs as job_store
+    from app.store import shots as shot_store
+
+    ids = shot_store.campaign_ids_evaluated_by_other_model(session, model.MODEL_VERSION)
+    campaigns = [(c.id, c.slug) for c in (campaign_store.get_campaign_by_id(session, i) for i in ids) if c is not None]
+    session.rollback()  # end the read: each write below begins with its campaign's writer lock
+    queued: list[str] = []
+    for campaign_id, slug in campaigns:
+
+        def work() -> Job | None:
+            # Under the campaign lock, so two processes starting at once queue one job.
+            begin_write(session, campaign_lock(slug))
+            if job_store.has_unfinished_job(session, "reevaluate", campaign_id):
+                return None
+            current = campaign_store.get_campaign_by_id(session, campaign_id)
+            if current is None:
+                return None
+            job = jobs.queue_reevaluation(session, campaign_id, current.settings_version)
+            audit.record(session, actor, "campaign.reevaluate", campaign_slug=slug, target=slug,
+                         detail={"reason": "model upgrade", "model_version": model.MODEL_VERSION, "job": job.id})
+            return job
+
+        job = run_write(session, work)
+        if job is not None:
+            queued.append(job.id)
+    return queued
+
+
+def reevaluate_now(factory: sessionmaker[Session], slug: str, actor: str, progress: Progress) -> int:
+    """Run the campaign's re-evaluation in this thread (``wakeledger reevaluate``); audited.
+    Returns how many shots were re-evaluated."""
+    from app.services.ingest import reevaluate_campaign
+
+    done = reevaluate_campaign(factory, slug, progress)
+    with factory() as session:
+        def work() -> None:
+            begin_write(session)
+            audit.record(session, actor, "campaign.reevaluate", campaign_slug=slug, target=slug,
+                         detail={"reevaluated": done, "model_version": model.MODEL_VERSION})
+
+        run_write(session, work)
+    return done

@@ -26,7 +26,7 @@ from typing import Any
 
 import numpy as np
 from pydantic import TypeAdapter, ValidationError
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, sessionmaker
 
 import model
 from app.database import begin_write, run_write
@@ -34,6 +34,7 @@ from app.problems import SHOT_CONFLICT, FieldProblem, ProblemError, invalid_inpu
 from app.schemas import ShotEnvelope
 from app.services import metrics
 from app.services.campaigns import campaign_lock, get_campaign_or_404
+from app.services.jobs import Progress
 from app.store import audit
 from app.store import shots as shot_store
 from app.tables import Campaign, Shot
@@ -619,23 +620,25 @@ def correct_shot(
     return shot_row, changed
 
 
-# --- re-evaluation after a settings change ------------------------------------------------------------
+# --- re-evaluation after a settings change or a model upgrade -------------------------------------
 
 REEVALUATION_CHUNK = 2000
 
 
 def count_stale(session: Session, campaign_slug: str) -> int:
+    """Shots of the campaign evaluated with older settings or by another model version."""
     campaign = get_campaign_or_404(session, campaign_slug)
-    return shot_store.count_stale(session, campaign.id, campaign.settings_version)
+    return shot_store.count_stale(session, campaign.id, campaign.settings_version, model.MODEL_VERSION)
 
 
 def reevaluate_stale_chunk(session: Session, campaign_slug: str, chunk: int = REEVALUATION_CHUNK) -> int:
-    """Re-evaluate up to ``chunk`` shots evaluated with older settings; returns how many."""
+    """Re-evaluate up to ``chunk`` stale shots (see count_stale); returns how many."""
 
     def work() -> int:
         begin_write(session, campaign_lock(campaign_slug))
         campaign = get_campaign_or_404(session, campaign_slug)
-        pks, inputs = shot_store.stale_inputs(session, campaign.id, campaign.settings_version, chunk)
+        pks, inputs = shot_store.stale_inputs(session, campaign.id, campaign.settings_version,
+                                              model.MODEL_VERSION, chunk)
         if not pks:
             return 0
         table = evaluate_inputs(inputs, campaign.model_settings or {}, "reevaluate")
@@ -647,3 +650,20 @@ def reevaluate_stale_chunk(session: Session, campaign_slug: str, chunk: int = RE
     n = run_write(session, work)
     metrics.SHOTS_REEVALUATED.inc(n)
     return n
+
+
+def reevaluate_campaign(factory: sessionmaker[Session], campaign_slug: str, progress: Progress) -> int:
+    """Re-evaluate every stale shot of the campaign, chunk by chunk (each its own
+    transaction); returns how many. The "reevaluate" job and ``wakeledger reevaluate`` run this."""
+    with factory() as session:
+        total = count_stale(session, campaign_slug)
+    progress(0, total, f"re-evaluating {total} shots")
+    done = 0
+    while True:
+        with factory() as session:
+            n = reevaluate_stale_chunk(session, campaign_slug)
+        if n == 0:
+            return done
+        done += n
+        total = max(total, done)
+        progress(done, total, f"re-evaluated {done} of {total} shots")

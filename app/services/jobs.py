@@ -138,22 +138,11 @@ class JobRunner:
 
 @job_kind("reevaluate")
 def run_reevaluation(factory: sessionmaker[Session], job_id: str, progress: Progress) -> dict[str, Any]:
-    """Re-evaluate every shot of the campaign whose evaluation predates its settings version."""
-    from app.services.ingest import count_stale, reevaluate_stale_chunk
+    """Re-evaluate every shot of the campaign evaluated with older settings or another model version."""
+    from app.services.ingest import reevaluate_campaign
     from app.store.campaigns import get_campaign_by_id
 
     with factory() as session:
         job = job_store.get_job(session, job_id)
         slug = get_campaign_by_id(session, job.campaign_id).slug
-        total = count_stale(session, slug)
-    progress(0, total, f"re-evaluating {total} shots")
-    done = 0
-    while True:
-        with factory() as session:
-            n = reevaluate_stale_chunk(session, slug)
-        if n == 0:
-            break
-        done += n
-        total = max(total, done)
-        progress(done, total, f"re-evaluated {done} of {total} shots")
-    return {"reevaluated": done}
+    return {"reevaluated": reevaluate_campaign(factory, slug, progress)}

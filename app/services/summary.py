@@ -23,6 +23,7 @@ from zoneinfo import ZoneInfo
 import numpy as np
 from sqlalchemy.orm import Session
 
+from app.database import snapshot_read
 from app.services.phase_spread import phase_jitter
 from app.store import summary as summary_store
 from app.store.summary import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS, FlagRow
@@ -501,6 +502,13 @@ def build_weekly_summary(
     session: Session, campaign: Campaign, week: IsoWeek, *, now: datetime | None = None
 ) -> WeeklySummary:
     """The summary of one ISO week of a campaign, in the campaign's timezone."""
+    # One snapshot for every read: a re-evaluation committed meanwhile cannot pair old
+    # statuses with new flags, nor this week with a different previous week.
+    with snapshot_read(session) as read:
+        return _build_weekly_summary(read, campaign, week, now)
+
+
+def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, now: datetime | None) -> WeeklySummary:
     tz = ZoneInfo(campaign.timezone)
     with collector_paused():
         shots = load_week_shots(session, campaign, week)

@@ -25,6 +25,14 @@ def unfinished_job_ids(session: Session) -> list[str]:
     return list(session.scalars(select(Job.id).where(Job.state.in_(("queued", "running"))).order_by(Job.created_at)))
 
 
+def has_unfinished_job(session: Session, kind: str, campaign_id: int) -> bool:
+    """Whether a job of this kind is queued or running for the campaign."""
+    return session.scalar(
+        select(Job.id).where(Job.kind == kind, Job.campaign_id == campaign_id, Job.state.in_(("queued", "running")))
+        .limit(1)
+    ) is not None
+
+
 def set_job(session: Session, job_id: str, **values: Any) -> None:
     session.execute(update(Job).where(Job.id == job_id).values(**values))
 

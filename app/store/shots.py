@@ -13,7 +13,7 @@ from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy import Select, Table, and_, bindparam, delete, exists, func, or_, select, text, update
+from sqlalchemy import ColumnElement, Select, Table, and_, bindparam, delete, exists, func, or_, select, text, update
 from sqlalchemy.orm import Session
 
 from app.tables import Evaluation, Flag, Shot, ShotRevision
@@ -251,25 +251,39 @@ def input_columns() -> list[str]:
     return [c.name for c in SHOTS.columns if c.name.split("_", 1)[0] in ("driver", "plasma", "seed", "measured")]
 
 
-def count_stale(session: Session, campaign_id: int, settings_version: int) -> int:
+def _is_stale(campaign_id: int, settings_version: int, model_version: str) -> ColumnElement[bool]:
+    """Evaluations made with older settings or by another model version."""
+    return and_(
+        EVALUATIONS.c.campaign_id == campaign_id,
+        or_(EVALUATIONS.c.settings_version < settings_version, EVALUATIONS.c.model_version != model_version),
+    )
+
+
+def count_stale(session: Session, campaign_id: int, settings_version: int, model_version: str) -> int:
     return session.scalar(
-        select(func.count()).select_from(Evaluation).where(
-            Evaluation.campaign_id == campaign_id, Evaluation.settings_version < settings_version
-        )
+        select(func.count()).select_from(EVALUATIONS).where(_is_stale(campaign_id, settings_version, model_version))
     ) or 0
 
 
 def stale_inputs(
-    session: Session, campaign_id: int, settings_version: int, limit: int
+    session: Session, campaign_id: int, settings_version: int, model_version: str, limit: int
 ) -> tuple[list[int], dict[str, list[Any]]]:
-    """Keys and input columns of shots evaluated with older settings, oldest first."""
+    """Keys and input columns of shots evaluated with older settings or another model, oldest first."""
     names = input_columns()
     stmt = (
         select(SHOTS.c.id, *[SHOTS.c[name] for name in names])
         .join(EVALUATIONS, EVALUATIONS.c.shot_pk == SHOTS.c.id)
-        .where(EVALUATIONS.c.campaign_id == campaign_id, EVALUATIONS.c.settings_version < settings_version)
+        .where(_is_stale(campaign_id, settings_version, model_version))
         .order_by(SHOTS.c.id)
         .limit(limit)
     )
     rows = session.execute(stmt).all()
     return [r[0] for r in rows], {name: [r[i + 1] for r in rows] for i, name in enumerate(names)}
+
+
+def campaign_ids_evaluated_by_other_model(session: Session, model_version: str) -> list[int]:
+    """Campaigns holding any evaluation made by a model version other than ``model_version``."""
+    return list(session.scalars(
+        select(EVALUATIONS.c.campaign_id).where(EVALUATIONS.c.model_version != model_version)
+        .distinct().order_by(EVALUATIONS.c.campaign_id)
+    ))
