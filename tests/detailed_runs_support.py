@@ -1,9 +1,10 @@
-"""Helpers shared by the detailed-run tests (service and dashboard): a quick shot and a job wait."""
+"""Helpers shared by the detailed-run tests (service and dashboard): a quick shot and a quick run."""
 
 from __future__ import annotations
 
-import time
 from typing import Any
+
+from tests.jobs_support import wait_for_job
 
 # Worked example ex-1 with a 0.5 m plasma: about 2,400 slices x 200 steps, well under a second.
 QUICK_CHANGES = {"plasma.length_m": 0.5}
@@ -14,16 +15,6 @@ def post_quick_shot(client, campaign: str, headers: dict[str, str], make_shot, s
                            json=make_shot("ex-1", shot_id=shot_id, changes=QUICK_CHANGES), headers=headers)
     assert response.status_code == 201, response.text
     return shot_id
-
-
-def wait_for_job(client, job_id: str, headers: dict[str, str], timeout_s: float = 60.0) -> dict[str, Any]:
-    """Poll GET /api/v1/jobs/{id} until the job is finished (bounded: at most timeout_s)."""
-    deadline = time.monotonic() + timeout_s
-    while True:
-        job = client.get(f"/api/v1/jobs/{job_id}", headers=headers).json()
-        if job["state"] in ("succeeded", "failed") or time.monotonic() > deadline:
-            return job
-        time.sleep(0.05)
 
 
 def run_quick_detailed_run(client, campaign: str, headers: dict[str, str], shot_id: str) -> dict[str, Any]:

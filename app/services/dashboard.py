@@ -1200,28 +1200,24 @@ def save_settings(app: Any, session: Session, campaign: Campaign, submitted: Map
 
     errors: dict[str, str] = {}
     new: dict[str, Any] = {"limits": {}}
-    for key, default in DEFAULT_SETTINGS.items():
-        if key == "limits":
-            continue
-        name = f"setting.{key}"
+
+    def changed_value(name: str, default: float, what: str) -> float | None:
+        """The box's number when it differs from the default; an empty box means the default."""
         text = submitted.get(name, "")
         try:
             value = _parse_number(text) if text.strip() else default
         except ValueError:
-            errors[name] = f"{key} must be a finite number, e.g. {default:g}"
-            continue
-        if value != default:
+            errors[name] = f"{what} must be a finite number, e.g. {default:g}"
+            return None
+        return value if value != default else None
+
+    for key, default in DEFAULT_SETTINGS.items():
+        if key != "limits" and (value := changed_value(f"setting.{key}", default, key)) is not None:
             new[key] = value
     for code, levels in DEFAULT_SETTINGS["limits"].items():
         for level, default in levels.items():
-            name = _limit_field_name(code, level)
-            text = submitted.get(name, "")
-            try:
-                value = _parse_number(text) if text.strip() else default
-            except ValueError:
-                errors[name] = f"the {level} limit of {code} must be a finite number, e.g. {default:g}"
-                continue
-            if value != default:
+            value = changed_value(_limit_field_name(code, level), default, f"the {level} limit of {code}")
+            if value is not None:
                 new["limits"].setdefault(code, {})[level] = value
     if not new["limits"]:
         del new["limits"]

@@ -2,20 +2,10 @@
 
 from __future__ import annotations
 
-import time
-
 from sqlalchemy import select
 
 from app.tables import AuditEntry, Evaluation
-
-
-def _wait_for_job(client, headers, job_id: str) -> dict:
-    for _ in range(400):  # bounded: 20 s
-        job = client.get(f"/api/v1/jobs/{job_id}", headers=headers).json()
-        if job["state"] in ("succeeded", "failed"):
-            return job
-        time.sleep(0.05)
-    raise AssertionError(f"job {job_id} did not finish: {job}")
+from tests.jobs_support import wait_for_job
 
 
 def test_an_admin_creates_a_campaign_and_everyone_can_read_it(client, admin_headers, viewer_headers):
@@ -77,7 +67,7 @@ def test_changing_settings_re_evaluates_every_shot_in_a_background_job(
     body = response.json()
     assert body["campaign"]["settings_version"] == 2
     assert response.headers["location"] == f"/api/v1/jobs/{body['job']['id']}"
-    job = _wait_for_job(client, viewer_headers, body["job"]["id"])
+    job = wait_for_job(client, body["job"]["id"], viewer_headers, timeout_s=20)
     assert job["state"] == "succeeded", job
     assert (job["done"], job["total"], job["result"]["reevaluated"]) == (40, 40, 40)
 
@@ -142,7 +132,7 @@ def test_a_re_evaluation_interrupted_by_a_restart_finishes_when_the_service_star
         _campaign, job = change_settings(session, campaign, {"noise_floor": 0.002}, "test")
     assert job.state == "queued"
     with TestClient(restarted) as again:  # start-up resumes unfinished jobs
-        finished = _wait_for_job(again, viewer_headers, job.id)
+        finished = wait_for_job(again, job.id, viewer_headers, timeout_s=20)
     restarted.state.engine.dispose()
     assert finished["state"] == "succeeded"
     assert finished["result"]["reevaluated"] == 5

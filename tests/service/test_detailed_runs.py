@@ -9,7 +9,8 @@ from pathlib import Path
 import pytest
 
 from app.services import detailed_runs as run_service
-from tests.detailed_runs_support import post_quick_shot, run_quick_detailed_run, wait_for_job
+from tests.detailed_runs_support import post_quick_shot, run_quick_detailed_run
+from tests.jobs_support import wait_for_job
 
 RUNS = "/api/v1/campaigns/{campaign}/shots/{shot}/detailed-runs"
 

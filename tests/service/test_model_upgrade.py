@@ -3,13 +3,13 @@ at server start-up in a background job, or now with ``wakeledger reevaluate``.""
 
 from __future__ import annotations
 
-import time
 
 from sqlalchemy import select, update
 
 import model
 from app.cli import main
 from app.tables import AuditEntry, Campaign, Evaluation, Job
+from tests.jobs_support import wait_for_job
 
 OLD_VERSION = "2000.1.0"  # a model version no release carries
 
@@ -45,15 +45,6 @@ def _reevaluation_jobs(factory, slug: str) -> list[Job]:
             .where(Campaign.slug == slug, Job.kind == "reevaluate").order_by(Job.created_at)))
 
 
-def _wait_for_job(client, headers, job_id: str) -> dict:
-    for _ in range(400):  # bounded: 20 s
-        job = client.get(f"/api/v1/jobs/{job_id}", headers=headers).json()
-        if job["state"] in ("succeeded", "failed"):
-            return job
-        time.sleep(0.05)
-    raise AssertionError(f"job {job_id} did not finish: {job}")
-
-
 def _start_again(settings):
     """A new process of the same service (its lifespan runs on entering the TestClient)."""
     from starlette.testclient import TestClient
@@ -75,7 +66,7 @@ def test_a_campaign_evaluated_by_an_older_model_is_re_evaluated_when_the_service
     try:
         with test_client(restarted) as again:
             [job] = _reevaluation_jobs(factory, campaign)
-            finished = _wait_for_job(again, viewer_headers, job.id)
+            finished = wait_for_job(again, job.id, viewer_headers, timeout_s=20)
     finally:
         restarted.state.jobs.join(timeout=10)
         restarted.state.engine.dispose()
@@ -101,7 +92,7 @@ def test_a_campaign_already_on_the_current_model_gets_no_job_at_start_up(
     try:
         with test_client(restarted) as again:
             [job] = _reevaluation_jobs(factory, campaign)
-            _wait_for_job(again, viewer_headers, job.id)
+            wait_for_job(again, job.id, viewer_headers, timeout_s=20)
     finally:
         restarted.state.jobs.join(timeout=10)
         restarted.state.engine.dispose()
@@ -124,7 +115,7 @@ def test_start_up_queues_no_second_job_when_a_re_evaluation_is_already_queued(
     restarted, test_client = _start_again(settings)
     try:
         with test_client(restarted) as again:
-            finished = _wait_for_job(again, viewer_headers, queued.id)
+            finished = wait_for_job(again, queued.id, viewer_headers, timeout_s=20)
     finally:
         restarted.state.jobs.join(timeout=10)
         restarted.state.engine.dispose()
