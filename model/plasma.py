@@ -88,16 +88,3 @@ def waist_beta_function(sigma_r: ArrayLike, geometric_emittance_m: ArrayLike) ->
     eps = np.asarray(geometric_emittance_m, dtype=float)
     with np.errstate(divide="ignore"):
         return np.divide(sigma_r * sigma_r, eps)
-
-
-def beam_plasma_coupling(
-    local_density: ArrayLike, plasma_density: ArrayLike, charge_number: ArrayLike, gamma: ArrayLike, mass: ArrayLike
-) -> np.ndarray:
-    """Coupling nu(n) = (n / n_0) Z^2 m_e / (gamma M) of a slice of local peak density n (MODEL.md section 2)."""
-    z = np.asarray(charge_number, dtype=float)
-    return (
-        np.asarray(local_density, dtype=float)
-        / np.asarray(plasma_density, dtype=float)
-        * (z * z * ELECTRON_MASS)
-        / (np.asarray(gamma, dtype=float) * np.asarray(mass, dtype=float))
-    )
