@@ -1,8 +1,10 @@
 """wakeledger closed-form model of beam self-modulation (MODEL.md sections 1-9).
 
 Pure numpy/scipy, SI inside. Public interface: evaluate_shot, evaluate_table,
-DEFAULT_SETTINGS, MODEL_VERSION, OUTPUT_NAMES, OUTPUT_UNITS, FLAG_CODES, INPUT_FIELDS,
-ShotInputError, validate_shot (plus SettingsError, resolve_settings, flag_message),
+DEFAULT_SETTINGS, MODEL_VERSION, OUTPUT_FIELDS (OUTPUT_NAMES, OUTPUTS_BY_NAME), FLAG_CODES,
+INPUT_FIELDS, ShotInputError, validate_shot (plus SettingsError, resolve_settings, flag_message),
+the vocabulary of model.vocabulary (STATUSES, SEVERITIES, SEVERITY_BY_RANK, SPECIES,
+SEED_METHODS, SECTIONS, column_name),
 and the growth curves of one shot: growth_along_plasma (N(z), delta(z)) and
 efolds_along_bunch (N(L, xi)). The physics, section by section: model.plasma,
 model.form_factors (section 2), model.seed (3), model.growth (4), model.phase (5),
@@ -11,8 +13,6 @@ model.competing (6). The detailed envelope solver (section 10) lives in model.en
 
 from model.evaluate import (
     MODEL_VERSION,
-    OUTPUT_NAMES,
-    OUTPUT_UNITS,
     efolds_along_bunch,
     evaluate_shot,
     evaluate_table,
@@ -21,14 +21,38 @@ from model.evaluate import (
 from model.inputs import INPUT_FIELDS, ShotInputError, validate_columns, validate_shot
 from model.rules import DEFAULT_SETTINGS, FLAG_CODES, SettingsError, flag_message, resolve_settings
 from model.envelope import simulate_envelope
+from model.vocabulary import (
+    OUTPUT_FIELDS,
+    OUTPUT_NAMES,
+    OUTPUTS_BY_NAME,
+    SECTIONS,
+    SEED_METHODS,
+    SEEDED_METHODS,
+    SEVERITIES,
+    SEVERITY_BY_RANK,
+    SPECIES,
+    STATUSES,
+    OutputField,
+    column_name,
+)
 
 __all__ = [
     "DEFAULT_SETTINGS",
     "FLAG_CODES",
     "INPUT_FIELDS",
     "MODEL_VERSION",
+    "OUTPUTS_BY_NAME",
+    "OUTPUT_FIELDS",
     "OUTPUT_NAMES",
-    "OUTPUT_UNITS",
+    "OutputField",
+    "SECTIONS",
+    "SEEDED_METHODS",
+    "SEED_METHODS",
+    "SEVERITIES",
+    "SEVERITY_BY_RANK",
+    "SPECIES",
+    "STATUSES",
+    "column_name",
     "SettingsError",
     "ShotInputError",
     "efolds_along_bunch",

@@ -23,61 +23,14 @@ from model import competing, growth, phase, plasma, seed
 from model import form_factors as ff
 from model import units as U
 from model.inputs import clean_shot_columns, validate_columns
-from model.rules import ABS_METRIC_CODES, FLAG_CODES, RULES, SEVERITIES, flag_message, resolve_settings
+from model.rules import ABS_METRIC_CODES, FLAG_CODES, RULES, flag_message, resolve_settings
+from model.vocabulary import OUTPUT_NAMES, SEVERITY_BY_RANK, STATUSES
 
 MODEL_VERSION = "2026.12.1"
 
-OUTPUT_NAMES: tuple[str, ...] = (
-    "plasma_frequency_ghz", "plasma_wavelength_mm", "skin_depth_mm", "wavebreaking_field_gv_m",
-    "lorentz_gamma", "peak_beam_density_cm3", "density_ratio", "kp_sigma_r",
-    "bunch_length_over_plasma_wavelength", "geometric_emittance_nm", "waist_beta_m",
-    "seed_density_cm3", "seed_field_mv_m", "seed_to_noise_efolds", "efolds_exit", "modulation_exit",
-    "growth_margin_efolds", "saturation_length_m", "wakefield_estimate_mv_m", "hosing_efolds_exit",
-    "asymptotic_validity", "phase_slip_rad", "phase_velocity_deficit", "phase_per_pct_density_rad",
-    "density_tolerance_pct", "compensating_gradient_pct_per_m", "gradient_phase_error_rad",
-    "hosing_ratio", "ion_motion_index", "divergence_ratio", "frequency_mismatch_pct", "implied_density_cm3",
-)
-
-# Unit of each output in the API and the exports (MODEL.md section 8); "" is dimensionless,
-# as in INPUT_FIELDS.
-OUTPUT_UNITS: dict[str, str] = {
-    "plasma_frequency_ghz": "GHz",
-    "plasma_wavelength_mm": "mm",
-    "skin_depth_mm": "mm",
-    "wavebreaking_field_gv_m": "GV/m",
-    "lorentz_gamma": "",
-    "peak_beam_density_cm3": "cm^-3",
-    "density_ratio": "",
-    "kp_sigma_r": "",
-    "bunch_length_over_plasma_wavelength": "",
-    "geometric_emittance_nm": "nm",
-    "waist_beta_m": "m",
-    "seed_density_cm3": "cm^-3",
-    "seed_field_mv_m": "MV/m",
-    "seed_to_noise_efolds": "e-folds",
-    "efolds_exit": "e-folds",
-    "modulation_exit": "",
-    "growth_margin_efolds": "e-folds",
-    "saturation_length_m": "m",
-    "wakefield_estimate_mv_m": "MV/m",
-    "hosing_efolds_exit": "e-folds",
-    "asymptotic_validity": "",
-    "phase_slip_rad": "rad",
-    "phase_velocity_deficit": "",
-    "phase_per_pct_density_rad": "rad/%",
-    "density_tolerance_pct": "%",
-    "compensating_gradient_pct_per_m": "%/m",
-    "gradient_phase_error_rad": "rad",
-    "hosing_ratio": "",
-    "ion_motion_index": "",
-    "divergence_ratio": "",
-    "frequency_mismatch_pct": "%",
-    "implied_density_cm3": "cm^-3",
-}
-
 _CHUNK = 32768  # rows per pass: keeps the temporaries in cache
-_STATUS_NAMES = np.array(["nominal", "marginal", "outside"])
-_SEVERITY_NAMES = np.array(SEVERITIES)
+_STATUS_NAMES = np.array(STATUSES)
+_SEVERITY_NAMES = np.array(SEVERITY_BY_RANK)
 _STATUS_OF_RANK = np.array([0, 0, 1, 2], dtype=np.int8)  # severity rank -> status rank (info counts as nominal)
 
 
@@ -329,6 +282,6 @@ def efolds_along_bunch(columns: Mapping[str, Any], xi_m: Any, settings: Mapping[
 
 
 __all__ = [
-    "MODEL_VERSION", "OUTPUT_NAMES", "OUTPUT_UNITS", "efolds_along_bunch", "evaluate_shot", "evaluate_table",
+    "MODEL_VERSION", "OUTPUT_NAMES", "efolds_along_bunch", "evaluate_shot", "evaluate_table",
     "growth_along_plasma",
 ]

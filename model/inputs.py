@@ -22,9 +22,8 @@ from typing import Any
 
 import numpy as np
 
-SPECIES = ("proton", "electron", "positron", "ion")
-SEED_METHODS = ("ionization_front", "electron_bunch", "none")
-SEEDED_METHODS = ("ionization_front", "electron_bunch")
+from model.vocabulary import SECTIONS, SEED_METHODS, SEEDED_METHODS, SPECIES
+
 SEED_POSITION_LIMIT_SIGMA_Z = 10.0
 
 
@@ -95,7 +94,6 @@ INPUT_FIELDS: tuple[InputField, ...] = (
 )
 
 FIELDS_BY_PATH: dict[str, InputField] = {f.path: f for f in INPUT_FIELDS}
-SECTIONS = ("driver", "plasma", "seed", "measured")
 
 _NEEDED_TEXT = {
     "species=ion": "missing (needed for species ion)",

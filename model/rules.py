@@ -72,7 +72,6 @@ RULES: tuple[Rule, ...] = (
 RULES_BY_CODE: dict[str, Rule] = {r.code: r for r in RULES}
 FLAG_CODES: tuple[str, ...] = tuple(r.code for r in RULES)
 ABS_METRIC_CODES = frozenset({"PHASE_DRIFT", "DENSITY_MISMATCH"})
-SEVERITIES = ("", "info", "marginal", "outside")  # index = severity rank
 
 DEFAULT_SETTINGS: dict[str, Any] = {
     "reference_slice_sigma": 1.0,

@@ -28,7 +28,9 @@ from app.services.phase_spread import phase_jitter
 from app.store import summary as summary_store
 from app.store.summary import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS, FlagRow
 from app.tables import Campaign, Shot
-from model import OUTPUT_UNITS  # unit of each output name, beside model.OUTPUT_NAMES
+from model import OUTPUT_FIELDS
+
+OUTPUT_UNITS = {f.name: f.unit for f in OUTPUT_FIELDS}  # unit of each output name
 
 STATUSES = ("nominal", "marginal", "outside")
 NOT_EVALUATED = "not_evaluated"

@@ -14,8 +14,9 @@ from scipy import constants
 from model import (
     DEFAULT_SETTINGS,
     INPUT_FIELDS,
+    OUTPUT_FIELDS,
     OUTPUT_NAMES,
-    OUTPUT_UNITS,
+    OUTPUTS_BY_NAME,
     competing,
     efolds_along_bunch,
     evaluate_shot,
@@ -35,9 +36,9 @@ def one_row(shot):
 
 
 def test_every_output_name_has_a_unit_and_nothing_else_does():
-    assert list(OUTPUT_UNITS) == list(OUTPUT_NAMES)
-    assert all(isinstance(unit, str) for unit in OUTPUT_UNITS.values())
-    assert OUTPUT_UNITS["efolds_exit"] == "e-folds" and OUTPUT_UNITS["modulation_exit"] == ""
+    assert [f.name for f in OUTPUT_FIELDS] == list(OUTPUT_NAMES) == list(OUTPUTS_BY_NAME)
+    assert all(isinstance(f.unit, str) and f.description for f in OUTPUT_FIELDS)
+    assert OUTPUTS_BY_NAME["efolds_exit"].unit == "e-folds" and OUTPUTS_BY_NAME["modulation_exit"].unit == ""
 
 
 def test_driver_mass_and_charge_per_species_for_one_shot_and_for_an_array():
