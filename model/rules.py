@@ -23,13 +23,23 @@ from __future__ import annotations
 
 import copy
 import math
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
 
 class SettingsError(ValueError):
-    """Campaign settings that the model cannot use (unknown key or bad value)."""
+    """Campaign settings that the model cannot use; `.problems` lists (setting path, reason) for every one.
+
+    A setting path is a key (`noise_floor`) or a limit (`limits.WEAK_SEED.marginal`);
+    `limits.WEAK_SEED` names a pair of limits that are out of order, `settings` the whole.
+    """
+
+    def __init__(self, problems: Sequence[tuple[str, str]] | str):
+        if isinstance(problems, str):
+            problems = [("settings", problems)]
+        self.problems: list[tuple[str, str]] = list(problems)
+        super().__init__("; ".join(f"{path}: {reason}" for path, reason in self.problems))
 
 
 @dataclass(frozen=True)
@@ -96,52 +106,63 @@ DEFAULT_SETTINGS: dict[str, Any] = {
 _POSITIVE_SETTINGS = ("reference_slice_sigma", "phase_tolerance_rad", "saturation_modulation")
 
 
-def _number(value: Any, where: str) -> float:
+def _number(value: Any, path: str, problems: list[tuple[str, str]]) -> float | None:
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-        raise SettingsError(f"{where} must be a finite number, got {value!r}")
+        problems.append((path, f"must be a finite number, got {value!r}"))
+        return None
     return float(value)
 
 
 def resolve_settings(overrides: Mapping[str, Any] | None = None) -> dict[str, Any]:
-    """Merge campaign overrides over DEFAULT_SETTINGS and validate them; raise SettingsError when bad."""
+    """Merge campaign overrides over DEFAULT_SETTINGS and validate them; raise SettingsError listing every problem."""
     settings = copy.deepcopy(DEFAULT_SETTINGS)
     if not overrides:
         return settings
     if not isinstance(overrides, Mapping):
-        raise SettingsError("settings must be a mapping")
+        raise SettingsError([("settings", "must be a mapping")])
+    problems: list[tuple[str, str]] = []
     for key, value in overrides.items():
         if key == "limits":
             if not isinstance(value, Mapping):
-                raise SettingsError("settings 'limits' must be a mapping of rule code to limits")
+                problems.append(("limits", "must be a mapping of rule code to limits"))
+                continue
             for code, limits in value.items():
                 if code not in settings["limits"]:
                     known = ", ".join(settings["limits"])
-                    raise SettingsError(f"unknown rule code {code!r} in settings 'limits' (rules with limits: {known})")
+                    problems.append((f"limits.{code}", f"unknown rule code {code!r} (rules with limits: {known})"))
+                    continue
                 if not isinstance(limits, Mapping):
-                    raise SettingsError(f"limits of {code} must be a mapping like {DEFAULT_SETTINGS['limits'][code]}")
+                    problems.append((f"limits.{code}", f"must be a mapping like {DEFAULT_SETTINGS['limits'][code]}"))
+                    continue
                 for name, limit in limits.items():
                     if name not in settings["limits"][code]:
-                        raise SettingsError(f"unknown limit {name!r} for {code} (expected {', '.join(settings['limits'][code])})")
-                    settings["limits"][code][name] = _number(limit, f"limit {code}.{name}")
+                        expected = ", ".join(settings["limits"][code])
+                        problems.append((f"limits.{code}.{name}", f"unknown limit {name!r} for {code} (expected {expected})"))
+                    elif (number := _number(limit, f"limits.{code}.{name}", problems)) is not None:
+                        settings["limits"][code][name] = number
         elif key in DEFAULT_SETTINGS:
-            settings[key] = _number(value, f"setting {key!r}")
+            if (number := _number(value, key, problems)) is not None:
+                settings[key] = number
         else:
-            raise SettingsError(f"unknown setting {key!r} (known: {', '.join(DEFAULT_SETTINGS)})")
+            problems.append((str(key), f"unknown setting {key!r} (known: {', '.join(DEFAULT_SETTINGS)})"))
     for key in _POSITIVE_SETTINGS:
         if settings[key] <= 0:
-            raise SettingsError(f"setting {key!r} must be > 0, got {settings[key]!r}")
+            problems.append((key, f"must be > 0, got {settings[key]!r}"))
     if settings["noise_floor"] < 0:
-        raise SettingsError(f"setting 'noise_floor' must be >= 0, got {settings['noise_floor']!r}")
+        problems.append(("noise_floor", f"must be >= 0, got {settings['noise_floor']!r}"))
     for code, limits in settings["limits"].items():
         if "marginal" in limits:
             above = RULES_BY_CODE[code].bad_when == "above"
             m, o = limits["marginal"], limits["outside"]
             if (above and m > o) or (not above and m < o):
                 side = "above" if above else "below"
-                raise SettingsError(
+                problems.append((
+                    f"limits.{code}",
                     f"limits of {code} are out of order: the rule fires {side} its limits, "
-                    f"so the outside limit {o!r} must lie past the marginal limit {m!r}"
-                )
+                    f"so the outside limit {o!r} must lie past the marginal limit {m!r}",
+                ))
+    if problems:
+        raise SettingsError(problems)
     return settings
 
 

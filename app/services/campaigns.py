@@ -71,7 +71,7 @@ def check_overrides(overrides: Mapping[str, Any], prefix: str = "settings") -> N
         try:
             model.resolve_settings(overrides)
         except model.SettingsError as exc:
-            problems = [(prefix, str(exc))]
+            problems = [(f"{prefix}.{path}" if path != "settings" else prefix, reason) for path, reason in exc.problems]
     if problems:
         raise invalid_input(problems)
 

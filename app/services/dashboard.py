@@ -1225,11 +1225,11 @@ def save_settings(app: Any, session: Session, campaign: Campaign, submitted: Map
         try:
             resolve_settings(new)
         except SettingsError as exc:
-            message = str(exc)
-            target = next((n for n in submitted if n.startswith("limit.") and n.split(".")[1] in message), None)
-            if target is None:
-                target = next((n for n in submitted if n.startswith("setting.") and f"'{n.split('.', 1)[1]}'" in message), "_form")
-            errors[target] = message
+            for path, reason in exc.problems:
+                target = _form_name("settings." + path)
+                if target.count(".") == 1 and target.startswith("limit."):  # a pair out of order: the marginal box
+                    target = _limit_field_name(path.split(".")[1], "marginal")
+                errors[target if target in submitted else "_form"] = reason
     if errors:
         return SettingsOutcome(settings_form(session, campaign, submitted), errors)
     old = campaign.model_settings or {}

@@ -163,3 +163,10 @@ def test_bad_settings_raise_a_settings_error_that_says_what_is_wrong(settings, w
     with pytest.raises(SettingsError) as caught:
         evaluate_shot(EXAMPLE, settings)
     assert words in str(caught.value)
+
+
+def test_a_settings_error_names_each_bad_setting_by_its_path():
+    with pytest.raises(SettingsError) as caught:
+        resolve_settings({"noise_floor": "x", "limits": {"WEAK_SEED": {"outside": 5.0}, "ION_MOTION": {"marginal": math.inf}}})
+    paths = [path for path, _ in caught.value.problems]
+    assert paths == ["noise_floor", "limits.ION_MOTION.marginal", "limits.WEAK_SEED"]

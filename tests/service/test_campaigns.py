@@ -43,7 +43,7 @@ def test_limits_out_of_order_are_refused_by_the_model_check(client, admin_header
     response = client.patch(f"/api/v1/campaigns/{campaign}/settings", headers=admin_headers,
                             json={"limits": {"BEAM_TOO_WIDE": {"marginal": 5.0, "outside": 2.0}}})
     assert response.status_code == 422
-    assert response.json()["errors"][0]["field"] == "settings"
+    assert response.json()["errors"][0]["field"] == "settings.limits.BEAM_TOO_WIDE"
     assert "BEAM_TOO_WIDE" in response.json()["errors"][0]["reason"]
 
 
