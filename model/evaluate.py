@@ -2,10 +2,12 @@
 
 evaluate_table(columns, settings) -> dict of numpy arrays:
 - every name of OUTPUT_NAMES (MODEL.md section 8 order) as a float array, NaN for null;
-- "status": array of str ('nominal' | 'marginal' | 'outside');
-- for each code of FLAG_CODES: "flag.<CODE>" (severity str, '' where not fired),
+- "status": int8 status ranks, indices into model.STATUSES (0 nominal, 1 marginal, 2 outside);
+- for each code of FLAG_CODES: "flag.<CODE>" (int8 severity ranks, indices into
+  model.SEVERITY_BY_RANK: 0 not fired, 1 info, 2 marginal, 3 outside),
   "flag_value.<CODE>" and "flag_limit.<CODE>" (float arrays, NaN where not fired or
   where the flag has no metric/limit, i.e. UNSEEDED).
+Ranks stay numbers inside; they become text only at the edge (evaluate_shot, the store).
 evaluate_shot(shot, settings) builds a 1-row table, runs the same core and unpacks it
 (NaN -> None, flags as a list of {code, severity, value, limit, message}).
 """
@@ -29,21 +31,7 @@ from model.vocabulary import OUTPUT_NAMES, SEVERITY_BY_RANK, STATUSES
 MODEL_VERSION = "2026.12.1"
 
 _CHUNK = 32768  # rows per pass: keeps the temporaries in cache
-_STATUS_NAMES = np.array(STATUSES)
-_SEVERITY_NAMES = np.array(SEVERITY_BY_RANK)
 _STATUS_OF_RANK = np.array([0, 0, 1, 2], dtype=np.int8)  # severity rank -> status rank (info counts as nominal)
-
-
-def _names_of(names: np.ndarray, index: np.ndarray) -> np.ndarray:
-    """names[index] as a str array.
-
-    Gathers the UCS-4 code units as uint32 rows (many times faster than indexing a str
-    array); when nothing fired, np.zeros returns lazily mapped pages of ''.
-    """
-    if names[0] == "" and not index.any():
-        return np.zeros(index.shape, dtype=names.dtype)
-    rows = names.view(np.uint32).reshape(names.size, names.dtype.itemsize // 4)
-    return np.take(rows, index.astype(np.intp), axis=0).view(names.dtype).reshape(index.shape)
 
 
 def _core(cols: Mapping[str, np.ndarray], s: Mapping[str, Any]) -> dict[str, np.ndarray]:
@@ -207,9 +195,9 @@ def _evaluate_clean(clean: Mapping[str, np.ndarray], s: Mapping[str, Any]) -> di
             arr[start:stop] = out[name]
     flags = _apply_rules(result, s, n)
     table: dict[str, np.ndarray] = {name: result[name] for name in OUTPUT_NAMES}
-    table["status"] = _names_of(_STATUS_NAMES, flags["status_rank"])
+    table["status"] = flags["status_rank"]
     for code in FLAG_CODES:
-        table["flag." + code] = _names_of(_SEVERITY_NAMES, flags["rank." + code])
+        table["flag." + code] = flags["rank." + code]
         table["flag_value." + code] = flags["flag_value." + code]
         table["flag_limit." + code] = flags["flag_limit." + code]
     return table
@@ -230,10 +218,10 @@ def evaluate_shot(shot: Mapping[str, Any], settings: Mapping[str, Any] | None = 
     s = resolve_settings(settings)
     table = _evaluate_clean(clean_shot_columns(shot), s)
     result: dict[str, Any] = {name: _none_if_nan(table[name][0]) for name in OUTPUT_NAMES}
-    result["status"] = str(table["status"][0])
+    result["status"] = STATUSES[table["status"][0]]
     flags = []
     for code in FLAG_CODES:
-        severity = str(table["flag." + code][0])
+        severity = SEVERITY_BY_RANK[table["flag." + code][0]]
         if severity:
             value = _none_if_nan(table["flag_value." + code][0])
             limit = _none_if_nan(table["flag_limit." + code][0])

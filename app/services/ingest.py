@@ -391,19 +391,19 @@ def evaluation_columns(
     evals.update(
         shot_pk=list(shot_pks), campaign_id=[campaign_id] * n, model_version=[model.MODEL_VERSION] * n,
         settings_version=[settings_version] * n, evaluated_at=[now] * n,
-        status=[str(s) for s in table["status"].tolist()],
+        status=[model.STATUSES[rank] for rank in table["status"].tolist()],
     )
     flags: dict[str, list[Any]] = {k: [] for k in ("shot_pk", "campaign_id", "code", "severity", "value",
                                                    "limit_value", "message")}
     for code in model.FLAG_CODES:
-        severities = np.asarray(table[f"flag.{code}"])
-        fired = np.flatnonzero(severities != "")
+        ranks = table[f"flag.{code}"]
+        fired = np.flatnonzero(ranks)
         if fired.size == 0:
             continue
         values = _nan_to_none(table[f"flag_value.{code}"][fired])
         limits = _nan_to_none(table[f"flag_limit.{code}"][fired])
         for i, value, limit in zip(fired.tolist(), values, limits):
-            severity = str(severities[i])
+            severity = model.SEVERITY_BY_RANK[ranks[i]]
             flags["shot_pk"].append(shot_pks[i])
             flags["code"].append(code)
             flags["severity"].append(severity)

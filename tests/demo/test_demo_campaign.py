@@ -75,7 +75,7 @@ def test_payloads_are_plain_json_with_utc_times_in_order(shots):
 
 
 def test_status_shares_look_like_a_real_campaign(evaluated):
-    status = Counter(evaluated["status"].tolist())
+    status = Counter(model.STATUSES[rank] for rank in evaluated["status"].tolist())
     n = sum(status.values())
     assert 0.70 <= status["nominal"] / n <= 0.80, status
     assert 0.10 <= status["marginal"] / n <= 0.20, status
@@ -83,7 +83,7 @@ def test_status_shares_look_like_a_real_campaign(evaluated):
 
 
 def test_every_flag_code_fires_at_least_once(evaluated):
-    silent = [code for code in model.FLAG_CODES if not np.any(evaluated[f"flag.{code}"] != "")]
+    silent = [code for code in model.FLAG_CODES if not np.any(evaluated[f"flag.{code}"])]
     assert silent == []
 
 
@@ -114,7 +114,7 @@ def test_the_density_calibration_drift_shows_as_a_growing_frequency_mismatch(sho
     last_day = (days == "2026-11-28") & np.isfinite(mismatch)
     assert np.nanmedian(np.abs(mismatch[first_week])) < 0.5
     assert np.nanmedian(mismatch[last_day]) > 2.0
-    assert np.any(evaluated["flag.DENSITY_MISMATCH"][last_day] == "outside")
+    assert np.any(evaluated["flag.DENSITY_MISMATCH"][last_day] == model.SEVERITY_BY_RANK.index("outside"))
 
 
 def test_phase_jitter_follows_the_density_jitter(shots, evaluated):

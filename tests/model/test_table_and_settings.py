@@ -12,6 +12,8 @@ from model import (
     FLAG_CODES,
     MODEL_VERSION,
     OUTPUT_NAMES,
+    SEVERITY_BY_RANK,
+    STATUSES,
     SettingsError,
     evaluate_shot,
     evaluate_table,
@@ -82,10 +84,10 @@ def assert_table_row_equals_shot(table, i, one):
     for name in OUTPUT_NAMES:
         got = table[name][i]
         assert (one[name] is None and np.isnan(got)) or got == one[name], (i, name, got, one[name])
-    assert table["status"][i] == one["status"]
+    assert STATUSES[table["status"][i]] == one["status"]
     fired = {f["code"]: f for f in one["flags"]}
     for code in FLAG_CODES:
-        assert table[f"flag.{code}"][i] == fired.get(code, {}).get("severity", "")
+        assert SEVERITY_BY_RANK[table[f"flag.{code}"][i]] == fired.get(code, {}).get("severity", "")
 
 
 def test_vectorised_table_with_mixed_species_and_seed_methods_equals_a_loop_of_evaluate_shot():
@@ -109,7 +111,9 @@ def test_table_outputs_have_the_promised_keys_and_types():
     expected = set(OUTPUT_NAMES) | {"status"}
     expected |= {f"{kind}.{code}" for kind in ("flag", "flag_value", "flag_limit") for code in FLAG_CODES}
     assert set(table) == expected
-    assert table["status"].dtype.kind == "U" and table["flag.UNSEEDED"].dtype.kind == "U"
+    # Statuses and severities are small integer ranks (text only at the edge).
+    assert table["status"].dtype == np.int8 and table["flag.UNSEEDED"].dtype == np.int8
+    assert set(np.unique(table["status"])) <= {0, 1, 2} and set(np.unique(table["flag.UNSEEDED"])) <= {0, 2}
     assert table["efolds_exit"].dtype == np.float64
 
 

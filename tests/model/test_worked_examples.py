@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from model import FLAG_CODES, OUTPUT_NAMES, evaluate_shot, evaluate_table
+from model import FLAG_CODES, OUTPUT_NAMES, SEVERITY_BY_RANK, STATUSES, evaluate_shot, evaluate_table
 # The worked examples of MODEL.md section 9, kept in the repository as tests/data/reference_cases.json.
 CASES = json.loads((Path(__file__).resolve().parents[1] / "data" / "reference_cases.json").read_text())
 IDS = [c["input"]["shot_id"] for c in CASES]
@@ -72,10 +72,10 @@ def test_evaluate_table_on_the_three_examples_at_once_equals_evaluate_shot():
         for name in OUTPUT_NAMES:
             value = table[name][i]
             assert (one[name] is None and np.isnan(value)) or one[name] == value, name
-        assert table["status"][i] == one["status"]
+        assert STATUSES[table["status"][i]] == one["status"]
         fired = {f["code"]: f for f in one["flags"]}
         for code in FLAG_CODES:
-            assert table[f"flag.{code}"][i] == (fired[code]["severity"] if code in fired else "")
+            assert SEVERITY_BY_RANK[table[f"flag.{code}"][i]] == (fired[code]["severity"] if code in fired else "")
             for key in ("value", "limit"):
                 got = table[f"flag_{key}.{code}"][i]
                 want = fired[code][key] if code in fired else None
