@@ -2,8 +2,9 @@
 
 Body: ``type``, ``title``, ``status``, ``detail`` and, for input errors, ``errors``:
 a list of ``{"field": "<dotted path>", "reason": "..."}`` naming every failing field.
-FastAPI/pydantic validation errors and ``model.ShotInputError`` are converted the
-same way, so a client parses one format.
+Services raise domain errors (``app.errors``); ``install_problem_handlers`` maps each
+kind to its status here, once. FastAPI/pydantic validation errors and
+``model.ShotInputError`` are converted the same way, so a client parses one format.
 """
 
 from __future__ import annotations
@@ -17,6 +18,8 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
+from app.errors import AlreadyExists, DomainError, FieldProblem, Forbidden, InvalidInput, NotFound, ShotConflict, Unauthorized, Unavailable
+from app.schemas import pydantic_problems
 from model import ShotInputError
 
 PROBLEM_JSON = "application/problem+json"
@@ -32,7 +35,6 @@ BODY_TOO_LARGE = "/problems/body-too-large"
 ALREADY_EXISTS = "/problems/already-exists"
 INTERNAL = "/problems/internal-error"
 
-FieldProblem = tuple[str, str]
 
 
 class ProblemError(HTTPException):
@@ -70,39 +72,33 @@ class ProblemError(HTTPException):
 
 def invalid_input(problems: Sequence[FieldProblem], detail: str | None = None) -> ProblemError:
     """422 naming every failing field."""
-    if detail is None:
-        fields = ", ".join(f for f, _ in problems[:5])
-        more = f" and {len(problems) - 5} more" if len(problems) > 5 else ""
-        detail = f"{len(problems)} invalid field(s): {fields}{more}"
-    return ProblemError(422, "Invalid input", detail, type_=INVALID_INPUT, errors=problems)
-
-
-def not_found(what: str) -> ProblemError:
-    return ProblemError(404, "Not found", f"{what} does not exist", type_=NOT_FOUND)
+    error = InvalidInput(problems, detail)
+    return ProblemError(422, "Invalid input", error.detail, type_=INVALID_INPUT, errors=error.problems)
 
 
 def problem_response(exc: ProblemError) -> JSONResponse:
-    return JSONResponse(
-        exc.body(), status_code=exc.status_code, headers=exc.headers, media_type=PROBLEM_JSON
-    )
+    return JSONResponse(exc.body(), status_code=exc.status_code, headers=exc.headers, media_type=PROBLEM_JSON)
 
 
-def dotted(loc: Sequence[Any]) -> str:
-    """('body', 'shots', 3, 'taken_at') -> 'shots.3.taken_at'; other locations keep their prefix."""
-    parts = list(loc)
-    if parts and parts[0] == "body":
-        parts = parts[1:]
-    return ".".join(str(p) for p in parts) or "body"
+_BEARER = {"WWW-Authenticate": 'Bearer realm="wakeledger"'}
+# Domain error -> (status, title, problem type, headers).
+_DOMAIN: list[tuple[type[DomainError], int, str, str, dict[str, str] | None]] = [
+    (InvalidInput, 422, "Invalid input", INVALID_INPUT, None),
+    (NotFound, 404, "Not found", NOT_FOUND, None),
+    (ShotConflict, 409, "Shot conflict", SHOT_CONFLICT, None),
+    (AlreadyExists, 409, "Already exists", ALREADY_EXISTS, None),
+    (Unauthorized, 401, "Unauthorized", UNAUTHORIZED, _BEARER),
+    (Forbidden, 403, "Forbidden", FORBIDDEN, None),
+    (Unavailable, 503, "Service unavailable", "about:blank", None),
+]
 
 
-def pydantic_problems(errors: Iterable[dict[str, Any]], prefix: str = "") -> list[FieldProblem]:
-    out = []
-    for err in errors:
-        path = dotted(err.get("loc", ()))
-        if prefix:
-            path = f"{prefix}.{path}" if path != "body" else prefix
-        out.append((path, err.get("msg", "invalid")))
-    return out
+def problem_of(error: DomainError) -> ProblemError:
+    """The problem document of a domain error."""
+    for kind, status, title, type_, headers in _DOMAIN:
+        if isinstance(error, kind):
+            return ProblemError(status, title, error.detail, type_=type_, errors=error.problems, headers=headers)
+    return ProblemError(500, "Internal server error", "the error was logged", type_=INTERNAL)
 
 
 _STATUS_TITLES = {
@@ -139,7 +135,11 @@ def install_problem_handlers(app: FastAPI) -> None:
             ProblemError(500, "Internal server error", "the error was logged", type_=INTERNAL)
         )
 
+    async def on_domain(_request: Request, exc: DomainError) -> JSONResponse:
+        return problem_response(problem_of(exc))
+
     app.add_exception_handler(ProblemError, on_problem)
+    app.add_exception_handler(DomainError, on_domain)
     app.add_exception_handler(StarletteHTTPException, on_http)
     app.add_exception_handler(RequestValidationError, on_validation)
     app.add_exception_handler(Exception, on_unexpected)

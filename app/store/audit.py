@@ -5,7 +5,6 @@ from __future__ import annotations
 from datetime import datetime, timezone
 from typing import Any
 
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.tables import AuditEntry
@@ -31,9 +30,3 @@ def record(
         )
     )
 
-
-def list_entries(session: Session, campaign_slug: str | None = None, limit: int = 100) -> list[AuditEntry]:
-    stmt = select(AuditEntry).order_by(AuditEntry.id.desc()).limit(limit)
-    if campaign_slug is not None:
-        stmt = stmt.where(AuditEntry.campaign_slug == campaign_slug)
-    return list(session.scalars(stmt))

@@ -17,12 +17,13 @@ from pathlib import Path
 from zoneinfo import ZoneInfo
 
 ROOT = Path(__file__).resolve().parents[2]
-sys.path[:0] = [str(ROOT), str(ROOT / "tests" / "summary")]
+sys.path.insert(0, str(ROOT))
 
 from app.database import make_engine, make_session_factory, upgrade_database  # noqa: E402
-from app.services.export_formats import EXPORT_FORMATS, write_export_file  # noqa: E402
-from app.services.summary import IsoWeek, build_weekly_summary  # noqa: E402
-from week_data import add_campaign, insert_shots, spread_over_week  # noqa: E402
+from app.services.weekly.summary import build_weekly_summary  # noqa: E402
+from app.services.weekly.table import EXPORT_FORMATS, write_export_file  # noqa: E402
+from app.times import IsoWeek  # noqa: E402
+from tests.support.week_data import add_campaign, insert_shots, spread_over_week  # noqa: E402
 
 TARGET_S = 2.0
 

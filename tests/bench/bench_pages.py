@@ -2,7 +2,7 @@
 
 Builds an invented campaign in a temp SQLite database (inputs generated with numpy,
 evaluated by model.evaluate_table in one call, rows bulk-inserted with SQLAlchemy Core
-using the ingest service's evaluation_rows), then times the overview, its regime-map
+using the ingest service's evaluation_rows (app.services.ingest.evaluation)), then times the overview, its regime-map
 feed, the live feed and the shot table (several filters and sorts) through an
 in-process TestClient. Targets: under 1 s server time and under 3 MB per response.
 
@@ -68,7 +68,7 @@ def invented_columns(n: int, rng: np.random.Generator) -> dict[str, np.ndarray]:
 def build_campaign(url: str, n: int) -> float:
     import model
     from app.database import make_engine
-    from app.services.ingest import evaluation_rows
+    from app.services.ingest.evaluation import evaluation_rows
 
     start = time.perf_counter()
     rng = np.random.default_rng(20261201)
@@ -132,7 +132,8 @@ def main() -> None:
     from starlette.testclient import TestClient
 
     from app.main import create_app
-    from app.services.auth import SESSION_COOKIE, create_token
+    from app.routers.deps import SESSION_COOKIE
+    from app.services.auth import create_token
 
     with tempfile.TemporaryDirectory() as tmp:
         path = args.db or Path(tmp) / "bench.db"

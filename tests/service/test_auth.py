@@ -5,7 +5,8 @@ from __future__ import annotations
 from sqlalchemy import select
 
 from app.cli import main
-from app.services.auth import SESSION_COOKIE, hash_token
+from app.routers.deps import SESSION_COOKIE
+from app.services.auth import hash_token
 from app.tables import ApiToken
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 from sqlalchemy import select
 
 from app.tables import AuditEntry, Evaluation
-from tests.jobs_support import wait_for_job
+from tests.support.jobs import wait_for_job
 
 
 def test_an_admin_creates_a_campaign_and_everyone_can_read_it(client, admin_headers, viewer_headers):
@@ -122,8 +122,8 @@ def test_a_re_evaluation_interrupted_by_a_restart_finishes_when_the_service_star
     from starlette.testclient import TestClient
 
     from app.main import create_app
-    from app.services import jobs as job_service
-    from app.services.campaigns import change_settings
+    from app.services.campaign_settings import change_settings
+    from app.services.job_kinds import KINDS
 
     shots = [make_shot(0, shot_id=f"r-{i}", taken_at=f"2026-11-17T10:00:{i:02d}Z") for i in range(5)]
     client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": shots}, headers=ingest_headers)
@@ -136,4 +136,4 @@ def test_a_re_evaluation_interrupted_by_a_restart_finishes_when_the_service_star
     restarted.state.engine.dispose()
     assert finished["state"] == "succeeded"
     assert finished["result"]["reevaluated"] == 5
-    assert job_service.JOB_KINDS["reevaluate"]
+    assert KINDS["reevaluate"]

@@ -8,9 +8,10 @@ from pathlib import Path
 
 import pytest
 
-from app.services import detailed_runs as run_service
-from tests.detailed_runs_support import post_quick_shot, run_quick_detailed_run
-from tests.jobs_support import wait_for_job
+from app.services.detailed_runs import figures as run_figures
+from app.services.detailed_runs import lifecycle as run_service
+from tests.support.detailed_runs import post_quick_shot, run_quick_detailed_run
+from tests.support.jobs import wait_for_job
 
 RUNS = "/api/v1/campaigns/{campaign}/shots/{shot}/detailed-runs"
 

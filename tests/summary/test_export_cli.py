@@ -14,9 +14,9 @@ import pyarrow.parquet as pq
 import pytest
 
 from app.cli import main
-from app.services import export_formats
-from app.services.summary import IsoWeek
-from week_data import add_campaign, insert_shots, spread_over_week
+from app.services.weekly import table as export_table
+from app.times import IsoWeek
+from tests.support.week_data import add_campaign, insert_shots, spread_over_week
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -96,7 +96,7 @@ def test_a_failure_while_writing_leaves_the_previous_file_untouched_and_no_parti
         stream.write(b'{"half": ')
         raise RuntimeError("disk gone")
 
-    monkeypatch.setitem(export_formats.WRITERS, "json", broken)
+    monkeypatch.setitem(export_table.WRITERS, "json", broken)
     with pytest.raises(RuntimeError):
         export(database_url, "--campaign", "cli-week", "--week", "2026-W47", "--out", str(out))
     assert out.read_text() == "previous export"

@@ -12,15 +12,12 @@ from zoneinfo import ZoneInfo
 import pytest
 from sqlalchemy import select
 
-from app.services.summary import (
-    IsoWeek,
-    WeekFormatError,
-    build_weekly_summary,
-    input_column,
-)
+import model
+from app.services.weekly.summary import build_weekly_summary
+from app.times import IsoWeek, WeekFormatError
 from app.tables import Evaluation, Flag, Shot
-from tests import shot_to_shot_reference as reference
-from week_data import add_campaign, insert_shots, spread_over_week
+from tests.support import shot_to_shot_reference as reference
+from tests.support.week_data import add_campaign, insert_shots, spread_over_week
 
 WEEK = IsoWeek(2026, 47)
 
@@ -40,7 +37,7 @@ def stored_week(session, campaign, week: IsoWeek):
 
 def value_of(shot, evaluation, key: str):
     if "." in key:  # inputs are dotted paths, outputs plain names
-        return getattr(shot, input_column(key))
+        return getattr(shot, model.column_name(key))
     return getattr(evaluation, key)
 
 

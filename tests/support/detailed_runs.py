@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from tests.jobs_support import wait_for_job
+from tests.support.jobs import wait_for_job
 
 # Worked example ex-1 with a 0.5 m plasma: about 2,400 slices x 200 steps, well under a second.
 QUICK_CHANGES = {"plasma.length_m": 0.5}

@@ -17,7 +17,7 @@ import numpy as np
 from sqlalchemy import insert
 from sqlalchemy.orm import Session
 
-from app.store.summary import EVALUATION_OUTPUT_COLUMNS
+from app.store.exports import EVALUATION_OUTPUT_COLUMNS
 from app.tables import Campaign, Evaluation, Flag, Shot
 
 FLAG_RULES = (
