@@ -13,7 +13,7 @@ from app.config import Settings
 from app.services import auth
 from app.services.campaigns import require_campaign
 from app.services.auth import TokenInfo
-from app.tables import Campaign
+from app.services.campaigns import Campaign
 
 # The dashboard keeps the raw token in this HttpOnly, SameSite=Lax cookie.
 SESSION_COOKIE = "wakeledger_token"

@@ -38,7 +38,7 @@ from app.services.campaigns import find_campaign
 from app.services.dashboard import figures, overview, settings_form, shot_page, table
 from app.services.detailed_runs import lifecycle as detailed_runs
 from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
-from app.tables import Campaign
+from app.services.campaigns import Campaign
 
 APP_DIR = Path(__file__).resolve().parent.parent
 STATIC_DIR = APP_DIR / "static"

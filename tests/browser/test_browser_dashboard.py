@@ -5,6 +5,8 @@ from __future__ import annotations
 import httpx
 import pytest
 
+from app.presentation.numbers import format_number
+
 pytestmark = pytest.mark.browser
 
 
@@ -108,7 +110,15 @@ def test_a_new_shot_appears_on_the_open_overview_and_table_without_a_reload(brow
         "() => document.getElementById('chart-timeline').data.filter(t => t.meta && t.meta.status === 'outside')"
         ".map(t => Array.from(t.customdata))")
     assert all("pg-live-1" in ids for ids in traces)
+    # The live row's text comes from the server's formatters: the same as the row the server renders.
+    live_cells = table.locator("#shot-rows tr:first-child td").all_inner_texts()
     table.screenshot(path=str(artifacts / "dashboard-shots-live.png"))
+    table.reload()
+    table.wait_for_selector("#shot-rows tr:first-child a:text('pg-live-1')")
+    served_cells = table.locator("#shot-rows tr:first-child td").all_inner_texts()
+    assert [c.strip() for c in live_cells[1:-1]] == [c.strip() for c in served_cells[1:-1]]
+    counts = table.evaluate("() => [0, 7, 9999, 10000, 1234567].map(window.wakeledgerFormatCount)")
+    assert counts == [format_number(n) for n in (0, 7, 9999, 10000, 1234567)]
     assert not problems, problems
     context.close()
 
