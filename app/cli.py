@@ -50,8 +50,9 @@ def command(name: str, help: str, configure: Callable[[argparse.ArgumentParser],
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="wakeledger",
-                                     description=f"Shot ledger and self-modulation model check. {ADVISORY_CAUTION}")
+    parser = argparse.ArgumentParser(
+        prog="wakeledger", description=f"Shot ledger and self-modulation model check. {ADVISORY_CAUTION}"
+    )
     parser.add_argument("--version", action="version", version=f"wakeledger {VERSION}")
     parser.add_argument("--database-url", help="overrides DATABASE_URL")
     top = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
@@ -133,13 +134,17 @@ def token_create(args: argparse.Namespace, settings: Settings) -> int:
 
 def _demo_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--port", type=int, default=8000)
-    p.add_argument("--db", default="./wakeledger-demo.db",
-                   help="SQLite file of the demo (created if missing; DATABASE_URL is not used)")
+    p.add_argument(
+        "--db",
+        default="./wakeledger-demo.db",
+        help="SQLite file of the demo (created if missing; DATABASE_URL is not used)",
+    )
     p.add_argument("--log-level", default="warning")
 
 
-@command("demo", help="serve an invented demo campaign on 127.0.0.1; visitors read without signing in",
-         configure=_demo_args)
+@command(
+    "demo", help="serve an invented demo campaign on 127.0.0.1; visitors read without signing in", configure=_demo_args
+)
 def demo(args: argparse.Namespace, settings: Settings) -> int:
     import uvicorn
 
@@ -161,8 +166,9 @@ def demo(args: argparse.Namespace, settings: Settings) -> int:
 class TextProgressBar:
     """A plain-text progress bar on stderr, redrawn in place; silent for small totals."""
 
-    def __init__(self, label: str, minimum_total: int = 1000, width: int = 30, stream=None,
-                 unit: str = "shots") -> None:
+    def __init__(
+        self, label: str, minimum_total: int = 1000, width: int = 30, stream=None, unit: str = "shots"
+    ) -> None:
         self.label, self.minimum_total, self.width, self.unit = label, minimum_total, width, unit
         self.stream = stream or sys.stderr
         self.shown = False
@@ -187,11 +193,18 @@ def _export_args(p: argparse.ArgumentParser) -> None:
     from app.services.weekly.table import EXPORT_FORMATS
 
     p.add_argument("--campaign", required=True, metavar="SLUG")
-    p.add_argument("--week", metavar="YYYY-Www", help="ISO week in the campaign's timezone, e.g. 2026-W47 "
-                   "(default: the current week)")
+    p.add_argument(
+        "--week",
+        metavar="YYYY-Www",
+        help="ISO week in the campaign's timezone, e.g. 2026-W47 (default: the current week)",
+    )
     p.add_argument("--format", choices=EXPORT_FORMATS, help="default: from the --out file extension")
-    p.add_argument("--out", metavar="PATH", help="file to write, or a directory for the default name "
-                   "wakeledger-SLUG-WEEK.FORMAT (default: that name in the current directory)")
+    p.add_argument(
+        "--out",
+        metavar="PATH",
+        help="file to write, or a directory for the default name "
+        "wakeledger-SLUG-WEEK.FORMAT (default: that name in the current directory)",
+    )
 
 
 @command("export", help="write a campaign's weekly summary as csv, json, html or parquet", configure=_export_args)
@@ -248,8 +261,12 @@ def _reevaluate_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--campaign", required=True, metavar="SLUG")
 
 
-@command("reevaluate", help="re-evaluate now, in the foreground, a campaign's shots evaluated with older "
-         "settings or an older model version", configure=_reevaluate_args)
+@command(
+    "reevaluate",
+    help="re-evaluate now, in the foreground, a campaign's shots evaluated with older "
+    "settings or an older model version",
+    configure=_reevaluate_args,
+)
 def reevaluate(args: argparse.Namespace, settings: Settings) -> int:
     from app.database import make_engine, make_session_factory
     from app.services.campaigns import find_campaign
@@ -278,14 +295,27 @@ def reevaluate(args: argparse.Namespace, settings: Settings) -> int:
 def _simulate_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("shot", metavar="SHOT.json", help="one shot in the API JSON shape")
     p.add_argument("--out", required=True, metavar="PATH", help="HTML file to write (self-contained, opens offline)")
-    p.add_argument("--slices-per-wavelength", type=int, default=16, metavar="N",
-                   help="slices per plasma wavelength (at least 16; default 16)")
-    p.add_argument("--dz-m", type=float, default=None, metavar="DZ",
-                   help="integration step along the plasma in metres (default: the solver's choice)")
+    p.add_argument(
+        "--slices-per-wavelength",
+        type=int,
+        default=16,
+        metavar="N",
+        help="slices per plasma wavelength (at least 16; default 16)",
+    )
+    p.add_argument(
+        "--dz-m",
+        type=float,
+        default=None,
+        metavar="DZ",
+        help="integration step along the plasma in metres (default: the solver's choice)",
+    )
 
 
-@command("simulate", help="run the detailed envelope solver on one shot file and write an HTML report",
-         configure=_simulate_args)
+@command(
+    "simulate",
+    help="run the detailed envelope solver on one shot file and write an HTML report",
+    configure=_simulate_args,
+)
 def simulate(args: argparse.Namespace, settings: Settings) -> int:
     import json
     from pathlib import Path
@@ -312,8 +342,11 @@ def simulate(args: argparse.Namespace, settings: Settings) -> int:
         return fail([f"{str(source)!r} is not a JSON shot: {exc}"])
     if not out.parent.is_dir():
         return fail([f"directory {str(out.parent)!r} does not exist"])
-    bar = TextProgressBar(f"{shot.get('shot_id', source.stem) if isinstance(shot, dict) else source.stem} envelope",
-                          minimum_total=0, unit="")
+    bar = TextProgressBar(
+        f"{shot.get('shot_id', source.stem) if isinstance(shot, dict) else source.stem} envelope",
+        minimum_total=0,
+        unit="",
+    )
     try:
         params = parse_parameters({"slices_per_wavelength": args.slices_per_wavelength, "dz_m": args.dz_m})
         doc = simulate_to_html(shot, params, out, progress=lambda fraction: bar(round(1000 * fraction), 1000))

@@ -31,8 +31,9 @@ class BodySizeLimit:
         self.app, self.limit = app, limit
 
     def _too_large(self) -> ProblemError:
-        return ProblemError(413, "Content too large", f"the request body exceeds {self.limit} bytes",
-                            type_=BODY_TOO_LARGE)
+        return ProblemError(
+            413, "Content too large", f"the request body exceeds {self.limit} bytes", type_=BODY_TOO_LARGE
+        )
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http":

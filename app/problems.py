@@ -18,7 +18,17 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from app.errors import AlreadyExists, DomainError, FieldProblem, Forbidden, InvalidInput, NotFound, ShotConflict, Unauthorized, Unavailable
+from app.errors import (
+    AlreadyExists,
+    DomainError,
+    FieldProblem,
+    Forbidden,
+    InvalidInput,
+    NotFound,
+    ShotConflict,
+    Unauthorized,
+    Unavailable,
+)
 from app.schemas import pydantic_problems
 from model import ShotInputError
 
@@ -34,7 +44,6 @@ FORBIDDEN = "/problems/forbidden"
 BODY_TOO_LARGE = "/problems/body-too-large"
 ALREADY_EXISTS = "/problems/already-exists"
 INTERNAL = "/problems/internal-error"
-
 
 
 class ProblemError(HTTPException):
@@ -115,36 +124,30 @@ _STATUS_TITLES = {
 }
 
 
-def install_problem_handlers(app: FastAPI) -> None:
-    async def on_problem(_request: Request, exc: ProblemError) -> JSONResponse:
-        return problem_response(exc)
-
-    async def on_http(_request: Request, exc: StarletteHTTPException) -> JSONResponse:
+def _as_problem(exc: Exception) -> ProblemError:
+    """The problem document of anything a handler below receives."""
+    if isinstance(exc, ProblemError):
+        return exc
+    if isinstance(exc, DomainError):
+        return problem_of(exc)
+    if isinstance(exc, RequestValidationError):
+        return invalid_input(pydantic_problems(exc.errors()))
+    if isinstance(exc, ShotInputError):
+        return invalid_input([(str(f), str(r)) for f, r in exc.problems])
+    if isinstance(exc, StarletteHTTPException):
         title = _STATUS_TITLES.get(exc.status_code, "Error")
         detail = exc.detail if isinstance(exc.detail, str) else title
-        return problem_response(
-            ProblemError(exc.status_code, title, detail, headers=getattr(exc, "headers", None))
-        )
+        return ProblemError(exc.status_code, title, detail, headers=getattr(exc, "headers", None))
+    log.exception("unhandled error", exc_info=exc)
+    return ProblemError(500, "Internal server error", "the error was logged", type_=INTERNAL)
 
-    async def on_validation(_request: Request, exc: RequestValidationError) -> JSONResponse:
-        return problem_response(invalid_input(pydantic_problems(exc.errors())))
 
-    async def on_unexpected(_request: Request, exc: Exception) -> JSONResponse:
-        log.exception("unhandled error", exc_info=exc)
-        return problem_response(
-            ProblemError(500, "Internal server error", "the error was logged", type_=INTERNAL)
-        )
+def install_problem_handlers(app: FastAPI) -> None:
+    """Every error the app raises answers as a problem document (HTTP errors, pydantic and
+    model input errors, domain errors, and anything unexpected as a logged 500)."""
 
-    async def on_domain(_request: Request, exc: DomainError) -> JSONResponse:
-        return problem_response(problem_of(exc))
+    async def on_error(_request: Request, exc: Exception) -> JSONResponse:
+        return problem_response(_as_problem(exc))
 
-    app.add_exception_handler(ProblemError, on_problem)
-    app.add_exception_handler(DomainError, on_domain)
-    app.add_exception_handler(StarletteHTTPException, on_http)
-    app.add_exception_handler(RequestValidationError, on_validation)
-    app.add_exception_handler(Exception, on_unexpected)
-
-    async def on_shot_input(_request: Request, exc: ShotInputError) -> JSONResponse:
-        return problem_response(invalid_input([(str(f), str(r)) for f, r in exc.problems]))
-
-    app.add_exception_handler(ShotInputError, on_shot_input)
+    for kind in (ProblemError, DomainError, StarletteHTTPException, RequestValidationError, ShotInputError, Exception):
+        app.add_exception_handler(kind, on_error)

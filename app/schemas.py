@@ -15,6 +15,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator
 
+
 def dotted(loc: Sequence[Any]) -> str:
     """('body', 'shots', 3, 'taken_at') -> 'shots.3.taken_at'; other locations keep their prefix."""
     parts = list(loc)

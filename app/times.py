@@ -15,13 +15,14 @@ from __future__ import annotations
 import logging
 import re
 from dataclasses import dataclass
-from datetime import date, datetime, time, timedelta, timezone
+from datetime import UTC, date, datetime, time, timedelta
 from functools import lru_cache
+from typing import overload
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 log = logging.getLogger(__name__)
 
-UTC = ZoneInfo("UTC")
+UTC_ZONE = ZoneInfo("UTC")
 LOCAL_FORMAT = "%Y-%m-%d %H:%M:%S"
 
 
@@ -32,16 +33,20 @@ def campaign_zone(name: str | None) -> ZoneInfo:
         return ZoneInfo(name or "UTC")
     except (ZoneInfoNotFoundError, ValueError):
         log.warning("unknown time zone %r: using UTC", name)
-        return UTC
+        return UTC_ZONE
 
 
+@overload
+def as_utc(moment: datetime) -> datetime: ...
+@overload
+def as_utc(moment: None) -> None: ...
 def as_utc(moment: datetime | None) -> datetime | None:
     """Aware datetimes to UTC; naive ones (an SQLite round trip) are already UTC."""
     if moment is None:
         return None
     if moment.tzinfo is None:
-        return moment.replace(tzinfo=timezone.utc)
-    return moment.astimezone(timezone.utc)
+        return moment.replace(tzinfo=UTC)
+    return moment.astimezone(UTC)
 
 
 def format_utc(moment: datetime) -> str:
@@ -132,9 +137,9 @@ class IsoWeek:
 
     def bounds_utc(self, zone: ZoneInfo) -> tuple[datetime, datetime]:
         start, end = self.bounds_local(zone)
-        return start.astimezone(timezone.utc), end.astimezone(timezone.utc)
+        return start.astimezone(UTC), end.astimezone(UTC)
 
 
 def current_week(zone: ZoneInfo, now: datetime | None = None) -> IsoWeek:
     """The ISO week that ``now`` (default: this moment) falls in, in ``zone``."""
-    return IsoWeek.containing(now or datetime.now(timezone.utc), zone)
+    return IsoWeek.containing(now or datetime.now(UTC), zone)

@@ -60,7 +60,7 @@ def _pieces(chunks: Iterable[Sequence[CsvColumn]], chunk_rows: int = 1000) -> It
         if not header_written:
             writer.writerow([c.header for c in columns])
             header_written = True
-        rows = list(zip(*(_cells(c) for c in columns)))
+        rows = list(zip(*(_cells(c) for c in columns), strict=False))
         for start in range(0, len(rows), chunk_rows):
             part = rows[start : start + chunk_rows]
             writer.writerows(part)

@@ -42,12 +42,15 @@ class StatusStyle:
 
 
 STATUS_STYLES: dict[str, StatusStyle] = {
-    "nominal": StatusStyle("nominal", OKABE_ITO["blue"], "#0072B2", "#e5f1f8", "circle", "\u25cf",
-                           "inside every limit"),
-    "marginal": StatusStyle("marginal", OKABE_ITO["orange"], "#8a6500", "#fdf4df", "diamond", "\u25c6",
-                            "past a first limit"),
-    "outside": StatusStyle("outside", OKABE_ITO["vermillion"], "#a34400", "#fdeee4", "x", "\u2716",
-                           "past a second limit"),
+    "nominal": StatusStyle(
+        "nominal", OKABE_ITO["blue"], "#0072B2", "#e5f1f8", "circle", "\u25cf", "inside every limit"
+    ),
+    "marginal": StatusStyle(
+        "marginal", OKABE_ITO["orange"], "#8a6500", "#fdf4df", "diamond", "\u25c6", "past a first limit"
+    ),
+    "outside": StatusStyle(
+        "outside", OKABE_ITO["vermillion"], "#a34400", "#fdeee4", "x", "\u2716", "past a second limit"
+    ),
 }
 
 
@@ -86,8 +89,14 @@ def css_variables() -> str:
     lines = [f"--ink: {INK};", f"--grid: {GRID};", f"--muted: {MUTED};", f"--series: {SERIES};"]
     lines += [f"--okabe-{name.replace('_', '-')}: {colour};" for name, colour in OKABE_ITO.items()]
     for style in STATUS_STYLES.values():
-        lines += [f"--{style.name}: {style.colour};", f"--{style.name}-text: {style.text};",
-                  f"--{style.name}-tint: {style.tint};"]
-    lines += [f"--info: {SEVERITY_STYLES['info'].colour};", f"--info-text: {SEVERITY_STYLES['info'].text};",
-              f"--info-tint: {SEVERITY_STYLES['info'].tint};"]
+        lines += [
+            f"--{style.name}: {style.colour};",
+            f"--{style.name}-text: {style.text};",
+            f"--{style.name}-tint: {style.tint};",
+        ]
+    lines += [
+        f"--info: {SEVERITY_STYLES['info'].colour};",
+        f"--info-text: {SEVERITY_STYLES['info'].text};",
+        f"--info-tint: {SEVERITY_STYLES['info'].tint};",
+    ]
     return ":root { " + " ".join(lines) + " }"

@@ -70,8 +70,9 @@ def patch_settings(
 ) -> SettingsChangeOut:
     campaign, job = change_settings(session, slug, patch, who.actor)
     response.headers["Location"] = f"/api/v1/jobs/{job.id}"
-    return SettingsChangeOut(campaign=campaign_service.campaign_out(campaign),
-                             job=job_service.job_out(job, campaign.slug))
+    return SettingsChangeOut(
+        campaign=campaign_service.campaign_out(campaign), job=job_service.job_out(job, campaign.slug)
+    )
 
 
 @router.get("/jobs/{job_id}", response_model=JobOut)
@@ -95,8 +96,14 @@ def post_shot(slug: str, payload: ShotBody, session: DB, who: Ingester, response
 
 
 @router.post("/campaigns/{slug}/shots/batch", status_code=201, response_model=BatchOut)
-def post_batch(slug: str, batch: BatchIn, session: DB, who: Ingester, response: Response,
-               settings: Annotated[Settings, Depends(get_settings)]) -> BatchOut:
+def post_batch(
+    slug: str,
+    batch: BatchIn,
+    session: DB,
+    who: Ingester,
+    response: Response,
+    settings: Annotated[Settings, Depends(get_settings)],
+) -> BatchOut:
     """All or nothing: 422 lists every failing shot index and field; 409 on a conflicting replay."""
     if len(batch.shots) > settings.max_batch_shots:
         raise InvalidInput([("shots", f"at most {settings.max_batch_shots} shots per batch, got {len(batch.shots)}")])
@@ -108,8 +115,10 @@ def post_batch(slug: str, batch: BatchIn, session: DB, who: Ingester, response: 
         created=created,
         unchanged=result.count("unchanged"),
         duplicates_in_batch=result.count("duplicate_in_batch"),
-        items=[BatchItemOut(index=i.index, shot_id=i.shot_id, outcome=i.outcome, status=i.status)  # type: ignore[arg-type]
-               for i in result.items],
+        items=[
+            BatchItemOut(index=i.index, shot_id=i.shot_id, outcome=i.outcome, status=i.status)  # type: ignore[arg-type]
+            for i in result.items
+        ],
     )
 
 
@@ -122,7 +131,9 @@ def list_shots(
     slug: str,
     session: DB,
     _who: Viewer,
-    status: Annotated[list[str] | None, Query(description="nominal, marginal, outside (repeat or comma-separate)")] = None,
+    status: Annotated[
+        list[str] | None, Query(description="nominal, marginal, outside (repeat or comma-separate)")
+    ] = None,
     flag: Annotated[list[str] | None, Query(description="flag code(s); a shot matches if any fired")] = None,
     taken_from: Annotated[AwareDatetime | None, Query(alias="from", description="taken_at >= from")] = None,
     taken_to: Annotated[AwareDatetime | None, Query(alias="to", description="taken_at < to")] = None,
@@ -132,8 +143,16 @@ def list_shots(
     limit: Annotated[int, Query(ge=1, le=1000)] = 100,
 ) -> dict[str, Any]:
     return shot_service.shot_page(
-        session, slug, status=_split(status), flag=_split(flag), taken_from=taken_from, taken_to=taken_to,
-        seed_method=_split(seed_method), descending=order == "desc", cursor=cursor, limit=limit,
+        session,
+        slug,
+        status=_split(status),
+        flag=_split(flag),
+        taken_from=taken_from,
+        taken_to=taken_to,
+        seed_method=_split(seed_method),
+        descending=order == "desc",
+        cursor=cursor,
+        limit=limit,
     )
 
 
@@ -185,5 +204,4 @@ def metrics_text(_who: Viewer) -> PlainTextResponse:
 
 for _r in (router, ops_router):
     _r.add_api_route("/healthz", healthz, methods=["GET"], tags=["operations"])
-    _r.add_api_route("/metrics", metrics_text, methods=["GET"], tags=["operations"],
-                     response_class=PlainTextResponse)
+    _r.add_api_route("/metrics", metrics_text, methods=["GET"], tags=["operations"], response_class=PlainTextResponse)

@@ -11,9 +11,8 @@ from sqlalchemy.orm import Session
 
 from app.config import Settings
 from app.services import auth
-from app.services.campaigns import require_campaign
 from app.services.auth import TokenInfo
-from app.services.campaigns import Campaign
+from app.services.campaigns import Campaign, require_campaign
 
 # The dashboard keeps the raw token in this HttpOnly, SameSite=Lax cookie.
 SESSION_COOKIE = "wakeledger_token"
@@ -79,8 +78,9 @@ PathCampaign = Annotated[Campaign, Depends(path_campaign)]
 
 def set_session_cookie(response: Response, raw_token: str, settings: Settings) -> None:
     """Keep a dashboard login: HttpOnly so scripts cannot read it, SameSite=Lax against CSRF."""
-    response.set_cookie(SESSION_COOKIE, raw_token, httponly=True, samesite="lax", secure=settings.secure_cookies,
-                        path="/")
+    response.set_cookie(
+        SESSION_COOKIE, raw_token, httponly=True, samesite="lax", secure=settings.secure_cookies, path="/"
+    )
 
 
 def clear_session_cookie(response: Response) -> None:

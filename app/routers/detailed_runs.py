@@ -28,8 +28,11 @@ def start_detailed_run(
     """Queue an envelope solver run of the shot's current revision; follow it at the Location (the job)."""
     job = runs.start_run(session, slug, shot_id, params or runs.RunParameters(), who.actor)
     response.headers["Location"] = f"/api/v1/jobs/{job.id}"
-    return {"job_id": job.id, "job": job_service.job_out(job, slug).model_dump(mode="json"),
-            "runs_url": runs.runs_url(slug, shot_id)}
+    return {
+        "job_id": job.id,
+        "job": job_service.job_out(job, slug).model_dump(mode="json"),
+        "runs_url": runs.runs_url(slug, shot_id),
+    }
 
 
 @router.get(RUNS)

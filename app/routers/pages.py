@@ -20,6 +20,7 @@ from fastapi import APIRouter, Depends, Form, Request
 from fastapi.responses import FileResponse, HTMLResponse, RedirectResponse, Response
 
 from app.errors import DomainError, InvalidInput, NotFound
+from app.presentation.csv_writer import csv_lines
 from app.presentation.palette import GLYPHS, css_variables
 from app.presentation.templates import environment
 from app.routers.deps import (
@@ -31,14 +32,12 @@ from app.routers.deps import (
     set_session_cookie,
 )
 from app.routers.responses import json_response, streamed_file
-from app.presentation.csv_writer import csv_lines
 from app.services import auth
 from app.services.auth import TokenInfo
-from app.services.campaigns import find_campaign
-from app.services.dashboard import figures, overview, settings_form, shot_page, table
+from app.services.campaigns import Campaign, find_campaign
+from app.services.dashboard import overview, settings_form, shot_page, table
 from app.services.detailed_runs import lifecycle as detailed_runs
 from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
-from app.services.campaigns import Campaign
 
 APP_DIR = Path(__file__).resolve().parent.parent
 STATIC_DIR = APP_DIR / "static"
@@ -75,8 +74,14 @@ router = APIRouter(include_in_schema=False)
 
 
 def render(request: Request, name: str, context: dict[str, Any], status_code: int = 200) -> Response:
-    context = {"principal": getattr(request.state, "principal", None), "campaign": None, "active": "",
-               "phase_window_shots": NEIGHBOUR_WINDOW_SHOTS, "presentation": {"glyphs": GLYPHS}, **context}
+    context = {
+        "principal": getattr(request.state, "principal", None),
+        "campaign": None,
+        "active": "",
+        "phase_window_shots": NEIGHBOUR_WINDOW_SHOTS,
+        "presentation": {"glyphs": GLYPHS},
+        **context,
+    }
     campaign: Campaign | None = context["campaign"]
     if campaign is not None and "summary" not in context:
         with request.app.state.session_factory() as session:
@@ -153,8 +158,12 @@ def _cross_site(request: Request) -> bool:
 
 
 def _refuse_cross_site(request: Request) -> Response:
-    return render(request, "error.html", {"title": "Refused",
-                  "message": "This form was sent from another site, so nothing was changed."}, 403)
+    return render(
+        request,
+        "error.html",
+        {"title": "Refused", "message": "This form was sent from another site, so nothing was changed."},
+        403,
+    )
 
 
 def install_page_handlers(app: Any) -> None:
@@ -182,8 +191,11 @@ def plotly_js() -> FileResponse:
 @router.get("/assets/palette.css")
 def palette_css() -> Response:
     """The one palette as CSS custom properties (app.presentation.palette)."""
-    return Response(css_variables() + "\n", media_type="text/css",
-                    headers={"Cache-Control": "public, max-age=3600", "X-Content-Type-Options": "nosniff"})
+    return Response(
+        css_variables() + "\n",
+        media_type="text/css",
+        headers={"Cache-Control": "public, max-age=3600", "X-Content-Type-Options": "nosniff"},
+    )
 
 
 # ----------------------------------------------------------------------- sign-in
@@ -203,8 +215,9 @@ def sign_in_form(request: Request, next: str = "/campaigns") -> Response:
 def sign_in(request: Request, session: DB, token: str = Form(""), next: str = Form("/campaigns")) -> Response:
     info = auth.resolve_token(session, token.strip())
     if info is None:
-        return render(request, "sign_in.html",
-                      {"next": _safe_next(next), "error": "That token is unknown or revoked."}, 401)
+        return render(
+            request, "sign_in.html", {"next": _safe_next(next), "error": "That token is unknown or revoked."}, 401
+        )
     response = RedirectResponse(_safe_next(next), status_code=303)
     set_session_cookie(response, token.strip(), request.app.state.settings)
     return response
@@ -228,8 +241,13 @@ def campaign_list(request: Request, _who: Reader, session: DB) -> Response:
 
 
 def _live(slug: str, cursor: int, page: str, **extra: Any) -> dict[str, Any]:
-    return {"url": f"/campaigns/{quote(slug)}/live", "cursor": cursor, "interval_ms": LIVE_INTERVAL_MS,
-            "page": page, **extra}
+    return {
+        "url": f"/campaigns/{quote(slug)}/live",
+        "cursor": cursor,
+        "interval_ms": LIVE_INTERVAL_MS,
+        "page": page,
+        **extra,
+    }
 
 
 @router.get("/campaigns/{slug}")
@@ -237,9 +255,17 @@ def campaign_overview(request: Request, campaign: PageCampaign, session: DB) -> 
     data = overview.overview(session, campaign)
     slug = campaign.slug
     regime = {"url": f"/campaigns/{quote(slug)}/regime.json", "x": data.regime_axes[0], "y": data.regime_axes[1]}
-    return render(request, "overview.html", {"campaign": campaign, "data": data,
-                                             "live": _live(slug, data.live_cursor, "overview"),
-                                             "regime": regime, "active": "overview"})
+    return render(
+        request,
+        "overview.html",
+        {
+            "campaign": campaign,
+            "data": data,
+            "live": _live(slug, data.live_cursor, "overview"),
+            "regime": regime,
+            "active": "overview",
+        },
+    )
 
 
 @router.get("/campaigns/{slug}/regime.json")
@@ -275,21 +301,39 @@ def shot_table(request: Request, campaign: PageCampaign, session: DB) -> Respons
     slug = campaign.slug
     query, problems = _table_query(request, campaign)
     page = table.table_page(session, campaign, query) if not problems else None
-    live = _live(slug, page.live_cursor if page else 0, "table",
-                 # New rows only belong at the top of the default view (newest first, no filter).
-                 prepend=bool(page) and page is not None and page.page == 1 and query.sort == "taken_at"
-                 and query.descending,
-                 filter={"status": query.filter.status, "flag": query.filter.flag_code,
-                         "seed": query.filter.seed_method, "text": query.filter.text,
-                         "bounded": bool(query.filter.taken_to or query.filter.taken_from)})
-    return render(request, "shots.html", {
-        "campaign": campaign, "page": page, "query": query, "problems": problems, "live": live,
-        "flag_codes": table.FLAG_CODES, "statuses": table.STATUSES,
-        "seed_methods": table.SEED_METHODS, "columns": table.table_columns(),
-        "link": lambda **changes: _table_link(slug, query.params, changes),
-        "csv_link": f"/campaigns/{quote(slug)}/shots.csv" + (f"?{urlencode(query.params)}" if query.params else ""),
-        "active": "shots",
-    }, 422 if problems else 200)
+    live = _live(
+        slug,
+        page.live_cursor if page else 0,
+        "table",
+        # New rows only belong at the top of the default view (newest first, no filter).
+        prepend=bool(page) and page is not None and page.page == 1 and query.sort == "taken_at" and query.descending,
+        filter={
+            "status": query.filter.status,
+            "flag": query.filter.flag_code,
+            "seed": query.filter.seed_method,
+            "text": query.filter.text,
+            "bounded": bool(query.filter.taken_to or query.filter.taken_from),
+        },
+    )
+    return render(
+        request,
+        "shots.html",
+        {
+            "campaign": campaign,
+            "page": page,
+            "query": query,
+            "problems": problems,
+            "live": live,
+            "flag_codes": table.FLAG_CODES,
+            "statuses": table.STATUSES,
+            "seed_methods": table.SEED_METHODS,
+            "columns": table.table_columns(),
+            "link": lambda **changes: _table_link(slug, query.params, changes),
+            "csv_link": f"/campaigns/{quote(slug)}/shots.csv" + (f"?{urlencode(query.params)}" if query.params else ""),
+            "active": "shots",
+        },
+        422 if problems else 200,
+    )
 
 
 def _table_link(slug: str, params: dict[str, str], changes: dict[str, Any]) -> str:
@@ -324,8 +368,16 @@ def shot_detail(shot_id: str, request: Request, campaign: PageCampaign, session:
     detail = shot_page.shot_detail(session, campaign, shot_id)
     if detail is None:
         raise PageNotFound(f"Shot {shot_id!r} in campaign {campaign.slug!r}")
-    return render(request, "shot.html", {"campaign": campaign, "d": detail, "active": "shots",
-                                         "detailed": detailed_runs.shot_panel(session, campaign, detail.shot)})
+    return render(
+        request,
+        "shot.html",
+        {
+            "campaign": campaign,
+            "d": detail,
+            "active": "shots",
+            "detailed": detailed_runs.shot_panel(session, campaign, detail.shot),
+        },
+    )
 
 
 # ------------------------------------------------------------------------ settings
@@ -336,9 +388,15 @@ def _admins_only(request: Request) -> Response | None:
     who: TokenInfo = request.state.principal
     if who.can("admin"):
         return None
-    return render(request, "error.html", {"title": "Admins only",
-                  "message": "Changing the limits and model settings needs the admin role; "
-                             f"you are signed in as {who.role}."}, 403)
+    return render(
+        request,
+        "error.html",
+        {
+            "title": "Admins only",
+            "message": f"Changing the limits and model settings needs the admin role; you are signed in as {who.role}.",
+        },
+        403,
+    )
 
 
 _JOB_ID = re.compile(r"[0-9a-fA-F-]{1,64}")
@@ -351,8 +409,11 @@ def settings_page(request: Request, campaign: PageCampaign, session: DB, job: st
         return refused
     form = settings_form.settings_form(session, campaign)
     job_id = job if job and _JOB_ID.fullmatch(job) else form.latest_job_id
-    return render(request, "settings.html", {"campaign": campaign, "form": form, "errors": {}, "saved": False,
-                                             "job_id": job_id, "active": "settings"})
+    return render(
+        request,
+        "settings.html",
+        {"campaign": campaign, "form": form, "errors": {}, "saved": False, "job_id": job_id, "active": "settings"},
+    )
 
 
 @router.post("/campaigns/{slug}/settings")
@@ -365,7 +426,19 @@ async def settings_save(request: Request, campaign: PageCampaign, session: DB) -
     submitted = {k: v for k, v in (await request.form()).items() if isinstance(v, str)}
     outcome = settings_form.save_settings(session, campaign, submitted, request.state.principal.actor)
     if outcome.errors:
-        return render(request, "settings.html", {"campaign": campaign, "form": outcome.form, "errors": outcome.errors,
-                                                 "saved": False, "job_id": None, "active": "settings"}, 422)
-    return RedirectResponse(f"/campaigns/{quote(campaign.slug)}/settings?job={quote(outcome.job_id or '')}",
-                            status_code=303)
+        return render(
+            request,
+            "settings.html",
+            {
+                "campaign": campaign,
+                "form": outcome.form,
+                "errors": outcome.errors,
+                "saved": False,
+                "job_id": None,
+                "active": "settings",
+            },
+            422,
+        )
+    return RedirectResponse(
+        f"/campaigns/{quote(campaign.slug)}/settings?job={quote(outcome.job_id or '')}", status_code=303
+    )

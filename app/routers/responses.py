@@ -14,8 +14,9 @@ NO_STORE = {"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"}
 
 
 def json_response(value: Any, status_code: int = 200) -> Response:
-    return Response(json_text(value).encode("utf-8"), status_code=status_code, media_type="application/json",
-                    headers=NO_STORE)
+    return Response(
+        json_text(value).encode("utf-8"), status_code=status_code, media_type="application/json", headers=NO_STORE
+    )
 
 
 def _disposition(filename: str, inline: bool) -> dict[str, str]:

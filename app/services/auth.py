@@ -11,7 +11,7 @@ from __future__ import annotations
 import hashlib
 import secrets
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 from sqlalchemy.orm import Session
 
@@ -63,14 +63,15 @@ def create_token(session: Session, role: str, name: str, actor: str = "cli", *, 
     """
     check_role(role)
     raw = TOKEN_PREFIX + secrets.token_urlsafe(32)
-    now = datetime.now(timezone.utc)
+    now = datetime.now(UTC)
     begin_write(session)
     row = tokens.add_token(session, name, role, hash_token(raw), now)
     audit.record(session, actor, "token.create", target=f"token:{row.id}", detail={"name": name, "role": role})
     if replace_named:
         for revoked in tokens.revoke_tokens_named(session, name, now, keep_id=row.id):
-            audit.record(session, actor, "token.revoke", target=f"token:{revoked}",
-                         detail={"name": name, "replaced_by": row.id})
+            audit.record(
+                session, actor, "token.revoke", target=f"token:{revoked}", detail={"name": name, "replaced_by": row.id}
+            )
     session.commit()
     return raw
 

@@ -37,8 +37,14 @@ def change_settings(session: Session, slug: str, patch: Mapping[str, Any], actor
         new = merge_patch(campaign.model_settings or {}, patch)
         check_overrides(new)
         version = campaign_store.set_model_settings(session, campaign.id, new)
-        audit.record(session, actor, "campaign.settings", campaign_slug=slug, target=slug,
-                     detail={"patch": dict(patch), "settings_version": version})
+        audit.record(
+            session,
+            actor,
+            "campaign.settings",
+            campaign_slug=slug,
+            target=slug,
+            detail={"patch": dict(patch), "settings_version": version},
+        )
         job = reevaluation.queue(session, campaign.id, version)
         session.flush()
         session.refresh(campaign)

@@ -6,7 +6,7 @@ from __future__ import annotations
 import copy
 import math
 from collections.abc import Mapping
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy.orm import Session
@@ -172,11 +172,17 @@ def create_campaign(session: Session, data: CampaignCreate, actor: str) -> Campa
                 description=data.description,
                 model_settings=merge_patch({}, data.settings),
                 settings_version=1,
-                created_at=datetime.now(timezone.utc),
+                created_at=datetime.now(UTC),
             ),
         )
-        audit.record(session, actor, "campaign.create", campaign_slug=data.slug, target=data.slug,
-                     detail={"name": data.name, "settings": campaign.model_settings})
+        audit.record(
+            session,
+            actor,
+            "campaign.create",
+            campaign_slug=data.slug,
+            target=data.slug,
+            detail={"name": data.name, "settings": campaign.model_settings},
+        )
         return campaign
 
     return run_write(session, work)

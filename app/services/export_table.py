@@ -95,8 +95,9 @@ class ShotTable:
         for path, column in zip(INPUT_PATHS, SHOT_INPUT_COLUMNS, strict=True):
             if column in columns:
                 values = [np.nan if v is None else v for v in columns[column]] if path not in TEXT_INPUTS else None
-                inputs[path] = (np.array(columns[column], dtype=object) if values is None
-                                else np.array(values, dtype=float)).reshape(n)
+                inputs[path] = (
+                    np.array(columns[column], dtype=object) if values is None else np.array(values, dtype=float)
+                ).reshape(n)
         outputs = {
             name: np.array([np.nan if v is None else v for v in columns[name]], dtype=float).reshape(n)
             for name in EVALUATION_OUTPUT_COLUMNS
@@ -188,10 +189,12 @@ def csv_columns(table: ShotTable, zone: ZoneInfo, extra: Sequence[str] | None = 
         CsvColumn("model_version", list(table.model_version)),
         CsvColumn("settings_version", list(table.settings_version)),
     ]
-    columns += [CsvColumn(with_unit(name, unit_of(name)), float_list(table.outputs[name]))
-                for name in EVALUATION_OUTPUT_COLUMNS]
-    columns += [CsvColumn(name, [_extra_cell(v) for v in cells], text=True)
-                for name, cells in table.extra_cells(extra).items()]
+    columns += [
+        CsvColumn(with_unit(name, unit_of(name)), float_list(table.outputs[name])) for name in EVALUATION_OUTPUT_COLUMNS
+    ]
+    columns += [
+        CsvColumn(name, [_extra_cell(v) for v in cells], text=True) for name, cells in table.extra_cells(extra).items()
+    ]
     return columns
 
 
@@ -205,8 +208,10 @@ def records(table: ShotTable) -> Iterator[dict[str, Any]]:
     n = len(table)
     # Per group: its field names and one tuple of values per shot (dict(zip()) is the
     # fastest way to build 10,000 small dicts).
-    groups = [(group, [name for name, _ in fields], list(zip(*(cells for _, cells in fields), strict=True)) or [()] * n)
-              for group, fields in sections.items()]
+    groups = [
+        (group, [name for name, _ in fields], list(zip(*(cells for _, cells in fields), strict=True)) or [()] * n)
+        for group, fields in sections.items()
+    ]
     output_names = list(EVALUATION_OUTPUT_COLUMNS)
     output_rows = list(zip(*(float_list(table.outputs[name]) for name in output_names), strict=True)) or [()] * n
     status = table.status.tolist()
@@ -263,8 +268,17 @@ def arrow_table(table: ShotTable, metadata: Mapping[str, str]) -> Any:
         else:
             add(column, pa.array(values, type=pa.float64(), from_pandas=True), unit_of(path))
     add("status", pa.array(table.status.tolist(), type=pa.string()))
-    flag_type = pa.list_(pa.struct([("code", pa.string()), ("severity", pa.string()), ("value", pa.float64()),
-                                    ("limit", pa.float64()), ("message", pa.string())]))
+    flag_type = pa.list_(
+        pa.struct(
+            [
+                ("code", pa.string()),
+                ("severity", pa.string()),
+                ("value", pa.float64()),
+                ("limit", pa.float64()),
+                ("message", pa.string()),
+            ]
+        )
+    )
     add("flag_codes", pa.array([[flag_dict(f) for f in per] for per in table.flags], type=flag_type))
     add("model_version", pa.array(table.model_version, type=pa.string()))
     add("settings_version", pa.array(table.settings_version, type=pa.int32()))

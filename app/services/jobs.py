@@ -182,7 +182,12 @@ class ThreadRunner:
             result = run(self._factory, job_id, progress)
         except Exception as exc:  # the job fails, the process carries on
             log.exception("job %s failed", job_id)
-            self._update(job_id, merge_result={"error": type(exc).__name__}, state="failed",
-                         finished_at=job_store.now(), message=f"{type(exc).__name__}: {exc}"[:2000])
+            self._update(
+                job_id,
+                merge_result={"error": type(exc).__name__},
+                state="failed",
+                finished_at=job_store.now(),
+                message=f"{type(exc).__name__}: {exc}"[:2000],
+            )
             return
         self._update(job_id, merge_result=result, state="succeeded", finished_at=job_store.now(), message="done")

@@ -9,7 +9,7 @@ lock, so ingest carries on between chunks and a restarted job picks up where it 
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy.orm import Session, sessionmaker
@@ -53,8 +53,14 @@ def queue_model_upgrades(session: Session, actor: str = MODEL_UPGRADE_ACTOR) -> 
             if current is None:
                 return None
             job = queue(session, campaign_id, current.settings_version)
-            audit.record(session, actor, "campaign.reevaluate", campaign_slug=slug, target=slug,
-                         detail={"reason": "model upgrade", "model_version": model.MODEL_VERSION, "job": job.id})
+            audit.record(
+                session,
+                actor,
+                "campaign.reevaluate",
+                campaign_slug=slug,
+                target=slug,
+                detail={"reason": "model upgrade", "model_version": model.MODEL_VERSION, "job": job.id},
+            )
             return job
 
         job = run_write(session, work)
@@ -75,13 +81,13 @@ def reevaluate_stale_chunk(session: Session, campaign_slug: str, chunk: int = CH
     def work() -> int:
         begin_write(session, campaign_lock(campaign_slug))
         campaign = require_campaign(session, campaign_slug)
-        pks, stored = shot_store.stale_inputs(session, campaign.id, campaign.settings_version,
-                                              model.MODEL_VERSION, chunk)
+        pks, stored = shot_store.stale_inputs(
+            session, campaign.id, campaign.settings_version, model.MODEL_VERSION, chunk
+        )
         if not pks:
             return 0
         table = evaluate_inputs(model_columns(stored), campaign.model_settings or {}, "reevaluate")
-        evals, flags = evaluation_rows(table, pks, campaign.id, campaign.settings_version,
-                                       datetime.now(timezone.utc))
+        evals, flags = evaluation_rows(table, pks, campaign.id, campaign.settings_version, datetime.now(UTC))
         shot_store.replace_evaluations(session, evals, flags)
         return len(pks)
 
@@ -125,8 +131,14 @@ def run_now(factory: sessionmaker[Session], slug: str, actor: str, progress: job
 
         def work() -> None:
             begin_write(session)
-            audit.record(session, actor, "campaign.reevaluate", campaign_slug=slug, target=slug,
-                         detail={"reevaluated": done, "model_version": model.MODEL_VERSION})
+            audit.record(
+                session,
+                actor,
+                "campaign.reevaluate",
+                campaign_slug=slug,
+                target=slug,
+                detail={"reevaluated": done, "model_version": model.MODEL_VERSION},
+            )
 
         run_write(session, work)
     return done

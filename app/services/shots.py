@@ -20,8 +20,13 @@ from app.times import format_utc
 
 
 def flag_out(flag: Flag) -> dict[str, Any]:
-    return {"code": flag.code, "severity": flag.severity, "value": flag.value, "limit": flag.limit,
-            "message": flag.message}
+    return {
+        "code": flag.code,
+        "severity": flag.severity,
+        "value": flag.value,
+        "limit": flag.limit,
+        "message": flag.message,
+    }
 
 
 def evaluation_out(evaluation: Evaluation | None, flags: Sequence[Flag]) -> dict[str, Any] | None:
@@ -95,8 +100,14 @@ def shot_page(
     problems += [("flag", f"unknown flag code {c!r}") for c in flag if c not in model.FLAG_CODES]
     if problems:
         raise InvalidInput(problems)
-    f = shot_store.ShotFilter(status=tuple(status), flag_code=tuple(flag), taken_from=taken_from, taken_to=taken_to,
-                              seed_method=tuple(seed_method), descending=descending)
+    f = shot_store.ShotFilter(
+        status=tuple(status),
+        flag_code=tuple(flag),
+        taken_from=taken_from,
+        taken_to=taken_to,
+        seed_method=tuple(seed_method),
+        descending=descending,
+    )
     campaign = require_campaign(session, campaign_slug)
     after = None
     if cursor:
@@ -116,8 +127,13 @@ def shot_page(
 
 
 def revision_out(rev: ShotRevision) -> dict[str, Any]:
-    return {"revision": rev.revision, "payload": rev.raw_payload, "reason": rev.reason, "author": rev.author,
-            "created_at": format_utc(rev.created_at)}
+    return {
+        "revision": rev.revision,
+        "payload": rev.raw_payload,
+        "reason": rev.reason,
+        "author": rev.author,
+        "created_at": format_utc(rev.created_at),
+    }
 
 
 def revision_list(session: Session, campaign_slug: str, shot_id: str) -> list[dict[str, Any]]:

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy.orm import Session
@@ -21,7 +21,7 @@ def record(
 ) -> None:
     session.add(
         AuditEntry(
-            at=datetime.now(timezone.utc),
+            at=datetime.now(UTC),
             actor=actor,
             action=action,
             campaign_slug=campaign_slug,
@@ -29,4 +29,3 @@ def record(
             detail=detail or {},
         )
     )
-

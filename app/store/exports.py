@@ -43,7 +43,7 @@ def in_window(campaign_id: int, start_utc: datetime, end_utc: datetime) -> list[
 
 def shot_rows_query(
     conditions: Sequence[ColumnElement[bool]],
-    order_by: Sequence[ColumnElement[Any]] = (Shot.taken_at, Shot.id),
+    order_by: Sequence[Any] = (Shot.taken_at, Shot.id),
     input_columns: Sequence[str] = SHOT_INPUT_COLUMNS,
     output_columns: Sequence[str] = EVALUATION_OUTPUT_COLUMNS,
     *,
@@ -159,10 +159,16 @@ def count_flags(session: Session, conditions: Sequence[ColumnElement[bool]]) -> 
     return [(code, severity, int(n)) for code, severity, n in session.connection().execute(stmt)]
 
 
-def iter_payloads(session: Session, conditions: Sequence[ColumnElement[bool]], chunk: int = 2000) -> Iterator[dict[str, Any]]:
+def iter_payloads(
+    session: Session, conditions: Sequence[ColumnElement[bool]], chunk: int = 2000
+) -> Iterator[dict[str, Any]]:
     """The raw payloads of the shots matching ``conditions`` (any order), one at a time."""
-    stmt = select(type_coerce(Shot.raw_payload, Text)).select_from(Shot).outerjoin(
-        Evaluation, Evaluation.shot_pk == Shot.id).where(*conditions)
+    stmt = (
+        select(type_coerce(Shot.raw_payload, Text))
+        .select_from(Shot)
+        .outerjoin(Evaluation, Evaluation.shot_pk == Shot.id)
+        .where(*conditions)
+    )
     result = session.connection().execution_options(yield_per=chunk).execute(stmt)
     for part in result.partitions():
         for (raw,) in part:

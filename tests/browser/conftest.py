@@ -19,8 +19,15 @@ from tests.support.page_shots import page_shots
 
 CHROMIUM = Path("/usr/bin/chromium")
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
-CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-                 "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+CHROMIUM_ARGS = [
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+]
 
 
 @pytest.fixture
@@ -55,11 +62,18 @@ def backend() -> str:
 def page_server(live_server: str, admin_token: str, make_shot) -> dict[str, Any]:
     headers = {"Authorization": f"Bearer {admin_token}"}
     with httpx.Client(base_url=live_server, headers=headers, timeout=30) as api:
-        r = api.post("/api/v1/campaigns", json={"slug": "browser-run", "name": "Browser run campaign",
-                                                "timezone": "Europe/Berlin"})
+        r = api.post(
+            "/api/v1/campaigns",
+            json={"slug": "browser-run", "name": "Browser run campaign", "timezone": "Europe/Berlin"},
+        )
         assert r.status_code == 201, r.text
         shots = page_shots(make_shot)
         r = api.post("/api/v1/campaigns/browser-run/shots/batch", json={"shots": shots})
         assert r.status_code == 201, r.text
-    return {"base": live_server, "token": admin_token, "slug": "browser-run", "headers": headers,
-            "make_shot": make_shot}
+    return {
+        "base": live_server,
+        "token": admin_token,
+        "slug": "browser-run",
+        "headers": headers,
+        "make_shot": make_shot,
+    }

@@ -18,8 +18,9 @@ def page_shots(make_shot) -> list[dict[str, Any]]:
 @pytest.fixture
 def seeded(client, campaign, admin_headers, page_shots) -> str:
     """The test campaign with 36 shots: 27 nominal, 3 marginal, 6 outside."""
-    response = client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": page_shots},
-                           headers=admin_headers)
+    response = client.post(
+        f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": page_shots}, headers=admin_headers
+    )
     assert response.status_code == 201, response.text
     return campaign
 

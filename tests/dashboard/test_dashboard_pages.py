@@ -7,6 +7,7 @@ import io
 import json
 import math
 import re
+from datetime import UTC
 
 import numpy as np
 import pytest
@@ -40,8 +41,11 @@ def test_signed_out_visitor_is_sent_to_sign_in_and_back_to_the_page_afterwards(c
     response = client.get(f"/campaigns/{SLUG}/shots?status=outside", follow_redirects=False)
     assert response.status_code == 303
     assert response.headers["location"].startswith("/sign-in?next=")
-    response = client.post("/sign-in", data={"token": viewer_token, "next": f"/campaigns/{SLUG}/shots?status=outside"},
-                           follow_redirects=False)
+    response = client.post(
+        "/sign-in",
+        data={"token": viewer_token, "next": f"/campaigns/{SLUG}/shots?status=outside"},
+        follow_redirects=False,
+    )
     assert response.status_code == 303
     assert response.headers["location"] == f"/campaigns/{SLUG}/shots?status=outside"
 
@@ -54,7 +58,7 @@ def test_sign_in_sets_an_httponly_samesite_lax_cookie_and_sign_out_clears_it(cli
     assert client.get("/campaigns").status_code == 200
     response = client.post("/sign-out", follow_redirects=False)
     assert response.status_code == 303
-    assert 'Max-Age=0' in response.headers["set-cookie"] or "expires=" in response.headers["set-cookie"].lower()
+    assert "Max-Age=0" in response.headers["set-cookie"] or "expires=" in response.headers["set-cookie"].lower()
 
 
 def test_sign_in_cookie_is_secure_when_the_settings_ask_for_it(settings, viewer_token, app):
@@ -77,8 +81,9 @@ def test_sign_in_with_an_unknown_token_is_refused_with_a_clear_message(client):
 
 
 def test_sign_in_never_redirects_to_another_site(client, viewer_token):
-    response = client.post("/sign-in", data={"token": viewer_token, "next": "//elsewhere.invalid/x"},
-                           follow_redirects=False)
+    response = client.post(
+        "/sign-in", data={"token": viewer_token, "next": "//elsewhere.invalid/x"}, follow_redirects=False
+    )
     assert response.headers["location"] == "/campaigns"
 
 
@@ -91,8 +96,16 @@ def test_a_revoked_or_stale_cookie_counts_as_signed_out(client):
 # --------------------------------------------------------------- every page
 
 
-@pytest.mark.parametrize("path", ["/campaigns", f"/campaigns/{SLUG}", f"/campaigns/{SLUG}/shots",
-                                  f"/campaigns/{SLUG}/shots/pg-0000", f"/campaigns/{SLUG}/settings"])
+@pytest.mark.parametrize(
+    "path",
+    [
+        "/campaigns",
+        f"/campaigns/{SLUG}",
+        f"/campaigns/{SLUG}/shots",
+        f"/campaigns/{SLUG}/shots/pg-0000",
+        f"/campaigns/{SLUG}/settings",
+    ],
+)
 def test_every_page_carries_the_caution_the_weekly_summary_link_and_a_strict_csp(admin_client, seeded, path, db):
     response = admin_client.get(path)
     assert response.status_code == 200
@@ -122,7 +135,7 @@ def test_plotly_js_is_served_by_wakeledger_from_the_installed_package(client):
     response = client.get("/assets/plotly.min.js")
     assert response.status_code == 200
     assert response.headers["content-type"].startswith("text/javascript")
-    bundled = (plotly.__path__[0] + "/package_data/plotly.min.js")
+    bundled = plotly.__path__[0] + "/package_data/plotly.min.js"
     assert len(response.content) == len(open(bundled, "rb").read())
 
 
@@ -168,7 +181,10 @@ def test_timeline_marks_flagged_shots_with_their_own_colour_shape_and_name(seede
     for trace in points:
         by_status.setdefault(trace["meta"]["status"], trace)
     assert {s: (t["marker"]["color"], t["marker"]["symbol"]) for s, t in by_status.items()} == {
-        "nominal": ("#0072B2", "circle"), "marginal": ("#E69F00", "diamond"), "outside": ("#D55E00", "x")}
+        "nominal": ("#0072B2", "circle"),
+        "marginal": ("#E69F00", "diamond"),
+        "outside": ("#D55E00", "x"),
+    }
     assert by_status["outside"]["name"].startswith("outside (6)")
     assert len(by_status["outside"]["x"]) == 6 and len(by_status["nominal"]["x"]) == 27
 
@@ -192,15 +208,20 @@ def test_flagged_shots_beyond_the_cap_are_thinned_over_the_whole_range(seeded, d
 
 def test_no_chart_needs_webgl_which_the_csp_would_block(seeded, db):
     campaign = _campaign(db)
-    drawn = [figures.timeline_figure(db, campaign), figures.phase_figure(db, campaign),
-             figures.calibration_figure(db, campaign),
-             figures.regime_figure(db, campaign, "plasma_density_cm3", "efolds_exit")]
+    drawn = [
+        figures.timeline_figure(db, campaign),
+        figures.phase_figure(db, campaign),
+        figures.calibration_figure(db, campaign),
+        figures.regime_figure(db, campaign, "plasma_density_cm3", "efolds_exit"),
+    ]
     assert {t["type"] for f in drawn for t in f["data"]} == {"scatter"}
     assert "unsafe-eval" not in CONTENT_SECURITY_POLICY
 
 
 def test_regime_map_plots_any_two_numeric_fields_and_refuses_others(viewer_client, seeded):
-    response = viewer_client.get(f"/campaigns/{SLUG}/regime.json", params={"x": "driver_sigma_r_mm", "y": "hosing_ratio"})
+    response = viewer_client.get(
+        f"/campaigns/{SLUG}/regime.json", params={"x": "driver_sigma_r_mm", "y": "hosing_ratio"}
+    )
     assert response.status_code == 200
     feed = response.json()
     figure = feed["figure"]
@@ -218,8 +239,10 @@ def test_regime_feed_needs_a_signed_in_viewer(client, seeded):
 
 def test_expected_phase_jitter_is_phase_per_percent_density_times_shot_to_shot_density_jitter(seeded, db, page_shots):
     summary = figures.phase_summary(db, _campaign(db))
-    with_phase = sorted((s for s in page_shots if s.get("measured", {}).get("modulation_phase_rad") is not None),
-                        key=lambda s: s["taken_at"])
+    with_phase = sorted(
+        (s for s in page_shots if s.get("measured", {}).get("modulation_phase_rad") is not None),
+        key=lambda s: s["taken_at"],
+    )
     density = [s["plasma"]["density_cm3"] for s in with_phase]
     phase = [s["measured"]["modulation_phase_rad"] for s in with_phase]
     jitter_pct = reference.density_jitter_pct(density)
@@ -234,17 +257,25 @@ def test_expected_phase_jitter_is_phase_per_percent_density_times_shot_to_shot_d
 
 
 def test_a_density_scan_posted_out_of_time_order_shows_the_shot_to_shot_jitter_not_the_scan(
-        client, campaign, admin_headers, make_shot, db):
+    client, campaign, admin_headers, make_shot, db
+):
     # Two set points 10 % apart with 0.1 % shot-to-shot noise, posted in a shuffled order:
     # the overview compares neighbours in time, so the scan drops out.
     rng = np.random.default_rng(3)
     density = [4.0e14 * (1.0 if i < 30 else 1.1) * (1 + 0.001 * rng.standard_normal()) for i in range(60)]
-    shots = [make_shot(0, shot_id=f"scan-{i:03d}", taken_at=f"2026-11-17T{8 + i // 6:02d}:{(i % 6) * 7:02d}:00Z",
-                       changes={"plasma.density_cm3": d, "measured.modulation_phase_rad": 0.1})
-             for i, d in enumerate(density)]
+    shots = [
+        make_shot(
+            0,
+            shot_id=f"scan-{i:03d}",
+            taken_at=f"2026-11-17T{8 + i // 6:02d}:{(i % 6) * 7:02d}:00Z",
+            changes={"plasma.density_cm3": d, "measured.modulation_phase_rad": 0.1},
+        )
+        for i, d in enumerate(density)
+    ]
     order = rng.permutation(len(shots))
-    response = client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": [shots[i] for i in order]},
-                           headers=admin_headers)
+    response = client.post(
+        f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": [shots[i] for i in order]}, headers=admin_headers
+    )
     assert response.status_code == 201, response.text
     summary = figures.phase_summary(db, _campaign(db))
     assert summary.density_spread_pct == pytest.approx(reference.density_jitter_pct(density), rel=1e-9)
@@ -255,8 +286,12 @@ def test_a_density_scan_posted_out_of_time_order_shows_the_shot_to_shot_jitter_n
 def test_density_offset_is_the_median_of_implied_over_set_density_minus_one(seeded, db, client, admin_headers):
     from app.tables import Evaluation, Shot
 
-    rows = db.query(Evaluation.implied_density_cm3, Shot.plasma_density_cm3).join(Shot, Shot.id == Evaluation.shot_pk) \
-        .filter(Evaluation.implied_density_cm3.isnot(None)).all()
+    rows = (
+        db.query(Evaluation.implied_density_cm3, Shot.plasma_density_cm3)
+        .join(Shot, Shot.id == Evaluation.shot_pk)
+        .filter(Evaluation.implied_density_cm3.isnot(None))
+        .all()
+    )
     expected = float(np.median([i / n - 1 for i, n in rows]))
     summary = figures.calibration_summary(db, _campaign(db))
     assert summary.shots_with_frequency == len(rows) == 30
@@ -332,7 +367,9 @@ def test_table_sorts_by_any_column_and_pages_by_one_hundred(viewer_client, seede
 
 
 def test_table_reports_bad_filters_instead_of_ignoring_them(viewer_client, seeded):
-    response = viewer_client.get(f"/campaigns/{SLUG}/shots", params={"status": "fine", "from": "yesterday", "sort": "notes"})
+    response = viewer_client.get(
+        f"/campaigns/{SLUG}/shots", params={"status": "fine", "from": "yesterday", "sort": "notes"}
+    )
     assert response.status_code == 422
     for text in ("choose one of nominal, marginal, outside", "write a date and time", "cannot sort by"):
         assert text in response.text.replace("&#39;", "'")
@@ -363,12 +400,18 @@ def test_csv_cells_cannot_start_a_spreadsheet_formula():
 # ------------------------------------------------------------------------- one shot
 
 
-def test_shot_page_shows_inputs_with_units_outputs_flags_and_history(admin_client, seeded, admin_headers, make_shot, db):
+def test_shot_page_shows_inputs_with_units_outputs_flags_and_history(
+    admin_client, seeded, admin_headers, make_shot, db
+):
     corrected = make_shot(2, shot_id="pg-0010", taken_at="2026-11-16T09:10:00Z", changes={"plasma.length_m": 10.0})
     corrected["notes"] = "no seed this time"
     corrected["tags"] = ["unseeded"]
-    response = admin_client.put(f"/api/v1/campaigns/{SLUG}/shots/pg-0010", params={"reason": "length was wrong"},
-                                json=corrected, headers=admin_headers)
+    response = admin_client.put(
+        f"/api/v1/campaigns/{SLUG}/shots/pg-0010",
+        params={"reason": "length was wrong"},
+        json=corrected,
+        headers=admin_headers,
+    )
     assert response.status_code == 200, response.text
     detail = shot_page.shot_detail(db, _campaign(db), "pg-0010")
     units = {row.path: row.unit for row in detail.inputs}
@@ -399,7 +442,9 @@ def test_growth_curves_are_the_models_own_numbers_and_end_at_the_exit_values(see
     assert np.all(np.diff(curves["efolds"]) > 0) and np.all(np.diff(curves["modulation"]) > 0)
     # N(L, xi) at the reference slice (xi_ref = r_ref sigma_z) is the shot's exit e-folds.
     xi_ref = settings["reference_slice_sigma"] * shot.driver_sigma_z_mm
-    assert np.interp(xi_ref, curves["xi_mm"], curves["efolds_exit_xi"]) == pytest.approx(evaluation.efolds_exit, rel=2e-3)
+    assert np.interp(xi_ref, curves["xi_mm"], curves["efolds_exit_xi"]) == pytest.approx(
+        evaluation.efolds_exit, rel=2e-3
+    )
     figure = shot_page.growth_figure(curves, shot, evaluation, settings["saturation_modulation"])
     star = [t for t in figure["data"] if t.get("marker", {}).get("symbol") == "star"]
     assert star and star[0]["x"][0] == pytest.approx(evaluation.saturation_length_m, rel=1e-5)
@@ -408,7 +453,9 @@ def test_growth_curves_are_the_models_own_numbers_and_end_at_the_exit_values(see
 # ---------------------------------------------------------------------- live feed
 
 
-def test_live_feed_returns_only_shots_after_the_cursor_with_current_counts(viewer_client, seeded, admin_headers, make_shot):
+def test_live_feed_returns_only_shots_after_the_cursor_with_current_counts(
+    viewer_client, seeded, admin_headers, make_shot
+):
     first = viewer_client.get(f"/campaigns/{SLUG}/live", params={"since": 0}).json()
     assert len(first["shots"]) == 36 and first["counts"]["outside"] == 6
     cursor = first["cursor"]
@@ -470,7 +517,9 @@ def test_settings_form_rejects_bad_values_with_clear_errors_and_saves_nothing(ad
 def test_settings_posted_from_another_site_are_refused(admin_client, seeded, db):
     form = {f.name: f.text for f in settings_form.settings_form(db, _campaign(db)).model_fields}
     form["limit.HOSING_RISK.outside"] = "1000"
-    response = admin_client.post(f"/campaigns/{SLUG}/settings", data=form, headers={"Origin": "http://elsewhere.invalid"})
+    response = admin_client.post(
+        f"/campaigns/{SLUG}/settings", data=form, headers={"Origin": "http://elsewhere.invalid"}
+    )
     assert response.status_code == 403
     db.rollback()
     assert _campaign(db).settings_version == 1
@@ -495,10 +544,16 @@ def test_saving_settings_starts_the_reevaluation_and_shows_its_progress(admin_cl
 
 
 def test_a_campaign_without_shots_still_has_every_page(viewer_client, campaign):
-    for path in (f"/campaigns/{SLUG}", f"/campaigns/{SLUG}/shots", f"/campaigns/{SLUG}/shots.csv",
-                 f"/campaigns/{SLUG}/charts/timeline.json", f"/campaigns/{SLUG}/charts/phase.json",
-                 f"/campaigns/{SLUG}/charts/calibration.json", f"/campaigns/{SLUG}/live?since=0",
-                 f"/campaigns/{SLUG}/regime.json?x=plasma_density_cm3&y=plasma_density_cm3"):
+    for path in (
+        f"/campaigns/{SLUG}",
+        f"/campaigns/{SLUG}/shots",
+        f"/campaigns/{SLUG}/shots.csv",
+        f"/campaigns/{SLUG}/charts/timeline.json",
+        f"/campaigns/{SLUG}/charts/phase.json",
+        f"/campaigns/{SLUG}/charts/calibration.json",
+        f"/campaigns/{SLUG}/live?since=0",
+        f"/campaigns/{SLUG}/regime.json?x=plasma_density_cm3&y=plasma_density_cm3",
+    ):
         assert viewer_client.get(path).status_code == 200, path
     assert "No shots match this filter." in viewer_client.get(f"/campaigns/{SLUG}/shots").text
 
@@ -506,7 +561,9 @@ def test_a_campaign_without_shots_still_has_every_page(viewer_client, campaign):
 # ------------------------------------------------------------ weekly-summary link
 
 
-def test_the_weekly_summary_link_points_at_the_latest_week_with_shots_and_keeps_a_this_week_link(admin_client, seeded, db):
+def test_the_weekly_summary_link_points_at_the_latest_week_with_shots_and_keeps_a_this_week_link(
+    admin_client, seeded, db
+):
     campaign = _campaign(db)
     this_week = overview.campaign_week(campaign)
     if this_week == "2026-W47":  # the page shots are all taken in 2026-W47
@@ -514,7 +571,9 @@ def test_the_weekly_summary_link_points_at_the_latest_week_with_shots_and_keeps_
     for path in (f"/campaigns/{SLUG}", "/campaigns"):
         page = admin_client.get(path).text
         assert f'href="/api/v1/campaigns/{SLUG}/summary?week=2026-W47&amp;format=html">Weekly summary 2026-W47' in page
-        assert f'href="/api/v1/campaigns/{SLUG}/summary?week={this_week}&amp;format=html">this week ({this_week})' in page
+        assert (
+            f'href="/api/v1/campaigns/{SLUG}/summary?week={this_week}&amp;format=html">this week ({this_week})' in page
+        )
 
 
 def test_the_weekly_summary_link_of_an_empty_campaign_is_the_current_week_alone(admin_client, campaign, db):
@@ -527,18 +586,27 @@ def test_the_weekly_summary_link_of_an_empty_campaign_is_the_current_week_alone(
 
 
 def test_when_the_latest_shot_is_this_week_there_is_one_weekly_summary_link(seeded, db):
-    from datetime import datetime, timezone
+    from datetime import datetime
 
-    links = overview.campaign_summary_links(db, _campaign(db), now=datetime(2026, 11, 20, 12, tzinfo=timezone.utc))
+    links = overview.campaign_summary_links(db, _campaign(db), now=datetime(2026, 11, 20, 12, tzinfo=UTC))
     assert links.week == "2026-W47" and links.this_week is None
     assert links.url == f"/api/v1/campaigns/{SLUG}/summary?week=2026-W47&format=html"
 
 
-def test_phases_either_side_of_plus_minus_pi_get_a_small_spread_on_the_overview(client, campaign, admin_headers, make_shot, db):
+def test_phases_either_side_of_plus_minus_pi_get_a_small_spread_on_the_overview(
+    client, campaign, admin_headers, make_shot, db
+):
     # Phases within 0.05 rad of +-pi, alternating sides: 0.1 rad apart at most, not 2 pi.
     phases = [(math.pi - 0.05 * ((i // 2) % 5) / 4) * (1 if i % 2 else -1) for i in range(30)]
-    shots = [make_shot(0, shot_id=f"wrap-{i:03d}", taken_at=f"2026-11-17T{8 + i // 6:02d}:{(i % 6) * 7:02d}:00Z",
-                       changes={"measured.modulation_phase_rad": p}) for i, p in enumerate(phases)]
+    shots = [
+        make_shot(
+            0,
+            shot_id=f"wrap-{i:03d}",
+            taken_at=f"2026-11-17T{8 + i // 6:02d}:{(i % 6) * 7:02d}:00Z",
+            changes={"measured.modulation_phase_rad": p},
+        )
+        for i, p in enumerate(phases)
+    ]
     response = client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": shots}, headers=admin_headers)
     assert response.status_code == 201, response.text
     summary = figures.phase_summary(db, _campaign(db))

@@ -6,7 +6,6 @@ import json
 import re
 
 from app.services.detailed_runs import figures as run_figures
-from app.services.detailed_runs import lifecycle as run_service
 from tests.support.detailed_runs import post_quick_shot, run_quick_detailed_run
 
 

@@ -30,21 +30,24 @@ STATIC = Path(__file__).resolve().parents[2] / "app" / "static"
 # ------------------------------------------------------------------------ numbers
 
 
-@pytest.mark.parametrize(("value", "text"), [
-    (5.8e14, "5.8e+14"),
-    (1.2346e-4, "1.235e-4"),
-    (0.0, "0"),
-    (-0.5, "-0.5"),
-    (2.5, "2.5"),
-    (12.3456, "12.35"),
-    (99999.0, "99999"),
-    (100000.0, "1e+5"),
-    (12345, "12,345"),
-    (999, "999"),
-    (None, MISSING),
-    (float("nan"), MISSING),
-    (float("inf"), MISSING),
-])
+@pytest.mark.parametrize(
+    ("value", "text"),
+    [
+        (5.8e14, "5.8e+14"),
+        (1.2346e-4, "1.235e-4"),
+        (0.0, "0"),
+        (-0.5, "-0.5"),
+        (2.5, "2.5"),
+        (12.3456, "12.35"),
+        (99999.0, "99999"),
+        (100000.0, "1e+5"),
+        (12345, "12,345"),
+        (999, "999"),
+        (None, MISSING),
+        (float("nan"), MISSING),
+        (float("inf"), MISSING),
+    ],
+)
 def test_one_rule_writes_every_number_shown(value, text):
     assert format_number(value) == text
 
@@ -66,8 +69,14 @@ def _post(client, headers, make_shot, shot_id, minute, changes, **extra):
 def odd_numbers(client, campaign, admin_headers, make_shot):
     """One shot at 5.8e14 cm^-3 with its seed 1.2346e-4 mm behind the front, one unseeded."""
     _post(client, admin_headers, make_shot, "odd-1", 0, {"plasma.density_cm3": 5.8e14, "seed.position_mm": 1.2346e-4})
-    _post(client, admin_headers, make_shot, "odd-2", 5, {"plasma.density_cm3": 5.8e14, "seed.method": "none",
-                                                          "seed.position_mm": None})
+    _post(
+        client,
+        admin_headers,
+        make_shot,
+        "odd-2",
+        5,
+        {"plasma.density_cm3": 5.8e14, "seed.method": "none", "seed.position_mm": None},
+    )
     return SLUG
 
 
@@ -99,8 +108,11 @@ def test_a_number_reads_the_same_in_a_served_row_a_live_row_and_the_report(clien
 def test_the_csv_files_carry_the_stored_number_unrounded_and_identically(client, odd_numbers, admin_token):
     client.cookies.set(SESSION_COOKIE, admin_token)
     table = list(csv.DictReader(io.StringIO(client.get(f"/campaigns/{SLUG}/shots.csv").text)))
-    weekly = list(csv.DictReader(io.StringIO(
-        client.get(f"/api/v1/campaigns/{SLUG}/summary", params={"week": WEEK, "format": "csv"}).text)))
+    weekly = list(
+        csv.DictReader(
+            io.StringIO(client.get(f"/api/v1/campaigns/{SLUG}/summary", params={"week": WEEK, "format": "csv"}).text)
+        )
+    )
     by_id = {r["shot_id"]: r for r in weekly}
     for row in table:
         assert row == by_id[row["shot_id"]]  # the same table: same headers, same cells
@@ -118,9 +130,14 @@ def test_one_palette_feeds_the_page_css_the_page_script_and_the_report(client, o
     assert served.status_code == 200 and served.headers["content-type"].startswith("text/css")
     assert served.text.strip() == palette.css_variables()
     for style in palette.STATUS_STYLES.values():
-        assert f"--{style.name}: {style.colour};" in served.text and f"--{style.name}-text: {style.text};" in served.text
-    report = client.get(f"/api/v1/campaigns/{SLUG}/summary", params={"week": WEEK, "format": "html"},
-                        headers={"Authorization": f"Bearer {admin_token}"}).text
+        assert (
+            f"--{style.name}: {style.colour};" in served.text and f"--{style.name}-text: {style.text};" in served.text
+        )
+    report = client.get(
+        f"/api/v1/campaigns/{SLUG}/summary",
+        params={"week": WEEK, "format": "html"},
+        headers={"Authorization": f"Bearer {admin_token}"},
+    ).text
     assert palette.css_variables() in report
     css = (STATIC / "css" / "wakeledger.css").read_text().lower()
     script = (STATIC / "js" / "wakeledger.js").read_text()
@@ -142,13 +159,19 @@ def test_one_palette_feeds_the_page_css_the_page_script_and_the_report(client, o
 
 
 def test_a_campaign_with_an_unknown_time_zone_reads_in_utc_on_the_dashboard_and_in_the_summary(
-        app, client, odd_numbers, admin_token):
+    app, client, odd_numbers, admin_token
+):
     # Measured before: the dashboard fell back to UTC while the summary raised (a 500).
     with app.state.session_factory() as session, session.begin():
         session.execute(update(Campaign).where(Campaign.slug == SLUG).values(timezone="Mars/Olympus_Mons"))
     client.cookies.set(SESSION_COOKIE, admin_token)
-    for path in (f"/campaigns/{SLUG}", f"/campaigns/{SLUG}/shots", f"/campaigns/{SLUG}/shots/odd-1",
-                 f"/campaigns/{SLUG}/charts/timeline.json", f"/campaigns/{SLUG}/shots.csv"):
+    for path in (
+        f"/campaigns/{SLUG}",
+        f"/campaigns/{SLUG}/shots",
+        f"/campaigns/{SLUG}/shots/odd-1",
+        f"/campaigns/{SLUG}/charts/timeline.json",
+        f"/campaigns/{SLUG}/shots.csv",
+    ):
         assert client.get(path).status_code == 200, path
     assert "taken at (UTC)" in json.dumps(client.get(f"/campaigns/{SLUG}/charts/timeline.json").json())
     for fmt in ("json", "csv", "html", "parquet"):
@@ -167,8 +190,11 @@ def test_the_table_download_and_the_weekly_csv_follow_one_convention(client, odd
     # headers; the weekly CSV joined them with '; ' and had units.
     client.cookies.set(SESSION_COOKIE, admin_token)
     table = list(csv.reader(io.StringIO(client.get(f"/campaigns/{SLUG}/shots.csv").text)))
-    weekly = list(csv.reader(io.StringIO(
-        client.get(f"/api/v1/campaigns/{SLUG}/summary", params={"week": WEEK, "format": "csv"}).text)))
+    weekly = list(
+        csv.reader(
+            io.StringIO(client.get(f"/api/v1/campaigns/{SLUG}/summary", params={"week": WEEK, "format": "csv"}).text)
+        )
+    )
     assert table[0] == weekly[0]
     header = table[0]
     assert "plasma_density_cm3 [cm^-3]" in header and "efolds_exit [e-folds]" in header and "flag_codes" in header
@@ -184,19 +210,28 @@ def test_the_table_download_and_the_weekly_csv_follow_one_convention(client, odd
 
 @pytest.fixture
 def hostile_notes(client, campaign, admin_headers, make_shot):
-    _post(client, admin_headers, make_shot, "hostile-1", 0, {},
-          notes='=HYPERLINK("http://example.invalid/?x=1","open me")', tags=["=1+1", "plain"])
+    _post(
+        client,
+        admin_headers,
+        make_shot,
+        "hostile-1",
+        0,
+        {},
+        notes='=HYPERLINK("http://example.invalid/?x=1","open me")',
+        tags=["=1+1", "plain"],
+    )
     return SLUG
 
 
 def _assert_defused(rows: list[dict[str, str]]) -> None:
     [row] = [r for r in rows if r["shot_id"] == "hostile-1"]
-    assert row["notes"] == "'=HYPERLINK(\"http://example.invalid/?x=1\",\"open me\")"
+    assert row["notes"] == '\'=HYPERLINK("http://example.invalid/?x=1","open me")'
     assert row["tags"] == "'=1+1;plain"
 
 
 def test_no_csv_export_lets_a_spreadsheet_run_a_note_or_a_tag_as_a_formula(
-        client, hostile_notes, admin_token, database_url, tmp_path):
+    client, hostile_notes, admin_token, database_url, tmp_path
+):
     client.cookies.set(SESSION_COOKIE, admin_token)
     _assert_defused(list(csv.DictReader(io.StringIO(client.get(f"/campaigns/{SLUG}/shots.csv").text))))
     api = client.get(f"/api/v1/campaigns/{SLUG}/summary", params={"week": WEEK, "format": "csv"})
@@ -211,20 +246,26 @@ def test_no_csv_export_lets_a_spreadsheet_run_a_note_or_a_tag_as_a_formula(
 # ----------------------------------------------- other sections kept (issue 15, item 9)
 
 
-def test_the_sections_a_daq_adds_stay_with_the_shot_in_every_export(client, campaign, admin_headers, make_shot,
-                                                                     admin_token):
+def test_the_sections_a_daq_adds_stay_with_the_shot_in_every_export(
+    client, campaign, admin_headers, make_shot, admin_token
+):
     _post(client, admin_headers, make_shot, "daq-1", 0, {}, daq={"run": 4711, "crate": "B2", "ok": True})
     _post(client, admin_headers, make_shot, "daq-2", 5, {}, operator="night shift")
     client.cookies.set(SESSION_COOKIE, admin_token)
     params = {"week": WEEK}
-    rows = {r["shot_id"]: r for r in csv.DictReader(io.StringIO(
-        client.get(f"/api/v1/campaigns/{SLUG}/summary", params={**params, "format": "csv"}).text))}
+    rows = {
+        r["shot_id"]: r
+        for r in csv.DictReader(
+            io.StringIO(client.get(f"/api/v1/campaigns/{SLUG}/summary", params={**params, "format": "csv"}).text)
+        )
+    }
     assert (rows["daq-1"]["daq.run"], rows["daq-1"]["daq.crate"], rows["daq-1"]["daq.ok"]) == ("4711", "B2", "true")
     assert rows["daq-2"]["daq.run"] == "" and rows["daq-2"]["operator"] == "night shift"
     table = {r["shot_id"]: r for r in csv.DictReader(io.StringIO(client.get(f"/campaigns/{SLUG}/shots.csv").text))}
     assert table["daq-1"]["daq.run"] == "4711" and table["daq-2"]["operator"] == "night shift"
-    parquet = pq.read_table(io.BytesIO(client.get(f"/api/v1/campaigns/{SLUG}/summary",
-                                                  params={**params, "format": "parquet"}).content))
+    parquet = pq.read_table(
+        io.BytesIO(client.get(f"/api/v1/campaigns/{SLUG}/summary", params={**params, "format": "parquet"}).content)
+    )
     assert str(parquet.schema.field("daq.run").type) == "int64" and "flag_codes" in parquet.column_names
     columns = parquet.to_pydict()
     at = columns["shot_id"].index("daq-1")

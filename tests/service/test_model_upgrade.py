@@ -3,7 +3,6 @@ at server start-up in a background job, or now with ``wakeledger reevaluate``.""
 
 from __future__ import annotations
 
-
 from sqlalchemy import select, update
 
 import model
@@ -41,9 +40,14 @@ def _model_versions(factory, slug: str) -> set[str]:
 
 def _reevaluation_jobs(factory, slug: str) -> list[Job]:
     with factory() as session:
-        return list(session.scalars(
-            select(Job).join(Campaign, Campaign.id == Job.campaign_id)
-            .where(Campaign.slug == slug, Job.kind == "reevaluate").order_by(Job.created_at)))
+        return list(
+            session.scalars(
+                select(Job)
+                .join(Campaign, Campaign.id == Job.campaign_id)
+                .where(Campaign.slug == slug, Job.kind == "reevaluate")
+                .order_by(Job.created_at)
+            )
+        )
 
 
 def _start_again(settings):
@@ -77,7 +81,8 @@ def test_a_campaign_evaluated_by_an_older_model_is_re_evaluated_when_the_service
     with factory() as session:
         entries = list(session.scalars(select(AuditEntry).where(AuditEntry.action == "campaign.reevaluate")))
     assert [(e.actor, e.campaign_slug, e.detail["job"]) for e in entries] == [
-        ("wakeledger (model upgrade)", campaign, job.id)]
+        ("wakeledger (model upgrade)", campaign, job.id)
+    ]
 
 
 def test_a_campaign_already_on_the_current_model_gets_no_job_at_start_up(

@@ -14,13 +14,13 @@ import pyarrow.parquet as pq
 import pytest
 from sqlalchemy import select
 
-from app.advisory import ADVISORY_CAUTION
 import model
+from app.advisory import ADVISORY_CAUTION
 from app.services.export_table import INPUT_PATHS
 from app.services.weekly.summary import build_weekly_summary
 from app.services.weekly.table import render_export, summary_document
-from app.times import IsoWeek
 from app.tables import Evaluation, Flag, Shot
+from app.times import IsoWeek
 from tests.support.week_data import add_campaign, insert_shots, spread_over_week
 
 WEEK = IsoWeek(2026, 47)
@@ -65,9 +65,19 @@ def test_csv_has_one_row_per_shot_with_units_in_the_headers_and_the_stored_value
     rows = list(csv.DictReader(io.StringIO(render_export(summary, "csv").decode("utf-8"))))
     assert len(rows) == len(stored) == 150
     header = rows[0].keys()
-    for expected in ("plasma_density_cm3 [cm^-3]", "driver_sigma_z_mm [mm]", "driver_species", "seed_method",
-                     "efolds_exit [e-folds]", "wakefield_estimate_mv_m [MV/m]", "frequency_mismatch_pct [%]",
-                     "density_ratio", "status", "flag_codes", "taken_at"):
+    for expected in (
+        "plasma_density_cm3 [cm^-3]",
+        "driver_sigma_z_mm [mm]",
+        "driver_species",
+        "seed_method",
+        "efolds_exit [e-folds]",
+        "wakefield_estimate_mv_m [MV/m]",
+        "frequency_mismatch_pct [%]",
+        "density_ratio",
+        "status",
+        "flag_codes",
+        "taken_at",
+    ):
         assert expected in header
     assert "flags" not in header  # pandas' DataFrame.flags would shadow it
     units = {h.split(" [")[0]: h for h in header}

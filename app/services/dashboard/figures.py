@@ -38,7 +38,11 @@ PHASE_MIN_SHOTS_PER_BIN = 5
 PHASE_MAX_ROWS = 20000  # shots the phase figures are computed from; past it, 1 in k
 
 TIMELINE_FIELDS = (
-    "plasma_density_cm3", "driver_population", "seed_position_mm", "driver_sigma_z_mm", "driver_sigma_r_mm",
+    "plasma_density_cm3",
+    "driver_population",
+    "seed_position_mm",
+    "driver_sigma_z_mm",
+    "driver_sigma_r_mm",
 )
 PHASE_FIELD = "measured_modulation_phase_rad"
 CALIBRATION_FIELDS = ("plasma_frequency_ghz", "measured_modulation_freq_ghz")
@@ -99,7 +103,7 @@ def _series_by_status(
     upto_pk: int | None = None,
 ) -> list[_StatusSeries]:
     """Nominal shots thinned to ``nominal_points``; flagged shots all kept up to a cap."""
-    wanted = {"shot_id": Shot.shot_id, "taken_at": Shot.taken_at}
+    wanted: dict[str, Any] = {"shot_id": Shot.shot_id, "taken_at": Shot.taken_at}
     wanted.update({name: store.NUMERIC_COLUMNS[name] for name in columns})
     needed = [store.NUMERIC_COLUMNS[name] for name in required]
     totals = store.counts_with_values(session, campaign.id, needed, upto_pk=upto_pk)
@@ -126,8 +130,9 @@ def _series_note(item: _StatusSeries) -> str:
 def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, Any]:
     """Key conditions against time, one panel each, flagged shots marked by shape and colour."""
     zone = campaign_zone(campaign.timezone)
-    by_status = _series_by_status(session, campaign, TIMELINE_FIELDS, nominal_points=TIMELINE_NOMINAL_POINTS,
-                                  upto_pk=upto_pk)
+    by_status = _series_by_status(
+        session, campaign, TIMELINE_FIELDS, nominal_points=TIMELINE_NOMINAL_POINTS, upto_pk=upto_pk
+    )
     panels = len(TIMELINE_FIELDS)
     gap = 0.04
     height = (1 - gap * (panels - 1)) / panels
@@ -139,8 +144,7 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
     for i, name in enumerate(TIMELINE_FIELDS):
         axis_id = "" if i == 0 else str(i + 1)
         top = 1 - i * (height + gap)
-        figure_layout[f"yaxis{axis_id}"] = axis(short_label(name),
-                                                domain=[top - height, top], exponentformat="power")
+        figure_layout[f"yaxis{axis_id}"] = axis(short_label(name), domain=[top - height, top], exponentformat="power")
         figure_layout[f"xaxis{axis_id}"] = axis(
             f"taken at ({zone.key})" if i == panels - 1 else "",
             type="date",
@@ -173,7 +177,11 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
 def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk: int | None = None) -> dict[str, Any]:
     """Any two conditions or outputs against each other, coloured and shaped by status."""
     by_status = _series_by_status(
-        session, campaign, tuple(dict.fromkeys((x, y))), nominal_points=SCATTER_NOMINAL_POINTS, required=(x, y),
+        session,
+        campaign,
+        tuple(dict.fromkeys((x, y))),
+        nominal_points=SCATTER_NOMINAL_POINTS,
+        required=(x, y),
         upto_pk=upto_pk,
     )
     traces = [
@@ -217,8 +225,9 @@ def _jitter(rows: store.PhaseRows, part: slice = slice(None)) -> PhaseJitter:
     return phase_jitter(as_array(rows.phase), as_array(rows.density), as_array(rows.phase_per_pct_density))
 
 
-def phase_summary(session: Session, campaign: Campaign, upto_pk: int | None = None,
-                  rows: store.PhaseRows | None = None) -> PhaseSummary:
+def phase_summary(
+    session: Session, campaign: Campaign, upto_pk: int | None = None, rows: store.PhaseRows | None = None
+) -> PhaseSummary:
     rows = rows if rows is not None else phase_rows(session, campaign, upto_pk)
     jitter = _jitter(rows)
     return PhaseSummary(
@@ -247,19 +256,21 @@ def phase_groups(session: Session, rows: store.PhaseRows) -> list[PhaseGroup]:
         return []
     count = max(1, min(PHASE_MAX_BINS, n // PHASE_MIN_SHOTS_PER_BIN))
     edges = np.linspace(0, n, count + 1).round().astype(int).tolist()
-    parts = [(lo, hi) for lo, hi in zip(edges[:-1], edges[1:]) if hi > lo]
+    parts = [(lo, hi) for lo, hi in zip(edges[:-1], edges[1:], strict=False) if hi > lo]
     # Only the groups' first and last shots need their times (a few hundred, not every row).
     times = store.taken_at_of(session, [rows.pk[i] for lo, hi in parts for i in (lo, hi - 1)])
     phases = np.array(rows.phase, dtype=float)
     return [
-        PhaseGroup(times[rows.pk[lo]], times[rows.pk[hi - 1]], circular_mean_rad(phases[lo:hi]),
-                   _jitter(rows, slice(lo, hi)))
+        PhaseGroup(
+            times[rows.pk[lo]], times[rows.pk[hi - 1]], circular_mean_rad(phases[lo:hi]), _jitter(rows, slice(lo, hi))
+        )
         for lo, hi in parts
     ]
 
 
-def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = None,
-                 rows: store.PhaseRows | None = None) -> dict[str, Any]:
+def phase_figure(
+    session: Session, campaign: Campaign, upto_pk: int | None = None, rows: store.PhaseRows | None = None
+) -> dict[str, Any]:
     """Measured modulation phase against shot time, beside the jitter the density jitter predicts.
 
     Top: each shot's phase with, per group of consecutive shots, the group's circular mean ±
@@ -269,7 +280,11 @@ def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = Non
     """
     zone = campaign_zone(campaign.timezone)
     by_status = _series_by_status(
-        session, campaign, (PHASE_FIELD,), nominal_points=TIMELINE_NOMINAL_POINTS, required=(PHASE_FIELD,),
+        session,
+        campaign,
+        (PHASE_FIELD,),
+        nominal_points=TIMELINE_NOMINAL_POINTS,
+        required=(PHASE_FIELD,),
         upto_pk=upto_pk,
     )
     groups = phase_groups(session, rows if rows is not None else phase_rows(session, campaign, upto_pk))
@@ -278,20 +293,44 @@ def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = Non
     for g in groups:
         mid = g.first_taken_at + (g.last_taken_at - g.first_taken_at) / 2
         jitter = g.jitter.expected_phase_jitter_rad
-        banded = jitter is not None and g.phase_mean_rad is not None
+        mean = g.phase_mean_rad
         centres.append(chart_time(mid, zone))
-        upper.append(rounded(g.phase_mean_rad + jitter) if banded else None)
-        lower.append(rounded(g.phase_mean_rad - jitter) if banded else None)
+        upper.append(rounded(mean + jitter) if jitter is not None and mean is not None else None)
+        lower.append(rounded(mean - jitter) if jitter is not None and mean is not None else None)
         measured_rms.append(rounded(g.jitter.measured_phase_std_rad))
         expected.append(rounded(jitter))
     band = {"color": rgba(OKABE_ITO["bluish_green"], 0.55), "width": 1, "shape": "hv"}
-    traces.append({"type": "scatter", "mode": "lines", "x": centres, "y": lower, "line": band,
-                   "name": "expected jitter band", "legendgroup": "band", "showlegend": False,
-                   "hoverinfo": "skip", "xaxis": "x", "yaxis": "y"})
-    traces.append({"type": "scatter", "mode": "lines", "x": centres, "y": upper, "line": band,
-                   "fill": "tonexty", "fillcolor": rgba(OKABE_ITO["bluish_green"], 0.15),
-                   "name": "group mean \u00b1 jitter expected from shot-to-shot density jitter", "legendgroup": "band",
-                   "hoverinfo": "skip", "xaxis": "x", "yaxis": "y"})
+    traces.append(
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": centres,
+            "y": lower,
+            "line": band,
+            "name": "expected jitter band",
+            "legendgroup": "band",
+            "showlegend": False,
+            "hoverinfo": "skip",
+            "xaxis": "x",
+            "yaxis": "y",
+        }
+    )
+    traces.append(
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": centres,
+            "y": upper,
+            "line": band,
+            "fill": "tonexty",
+            "fillcolor": rgba(OKABE_ITO["bluish_green"], 0.15),
+            "name": "group mean \u00b1 jitter expected from shot-to-shot density jitter",
+            "legendgroup": "band",
+            "hoverinfo": "skip",
+            "xaxis": "x",
+            "yaxis": "y",
+        }
+    )
     for item in by_status:
         cols = item.series.columns
         traces.append(
@@ -306,12 +345,31 @@ def phase_figure(session: Session, campaign: Campaign, upto_pk: int | None = Non
                 note=_series_note(item),
             )
         )
-    traces.append({"type": "scatter", "mode": "lines+markers", "x": centres, "y": measured_rms,
-                   "name": "measured shot-to-shot phase jitter (per group)", "xaxis": "x2", "yaxis": "y2",
-                   "line": {"color": INK, "width": 2}, "marker": {"symbol": "square", "size": 6}})
-    traces.append({"type": "scatter", "mode": "lines", "x": centres, "y": expected,
-                   "name": "expected shot-to-shot jitter (per group)", "xaxis": "x2", "yaxis": "y2",
-                   "line": {"color": OKABE_ITO["bluish_green"], "width": 2, "dash": "dash"}})
+    traces.append(
+        {
+            "type": "scatter",
+            "mode": "lines+markers",
+            "x": centres,
+            "y": measured_rms,
+            "name": "measured shot-to-shot phase jitter (per group)",
+            "xaxis": "x2",
+            "yaxis": "y2",
+            "line": {"color": INK, "width": 2},
+            "marker": {"symbol": "square", "size": 6},
+        }
+    )
+    traces.append(
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": centres,
+            "y": expected,
+            "name": "expected shot-to-shot jitter (per group)",
+            "xaxis": "x2",
+            "yaxis": "y2",
+            "line": {"color": OKABE_ITO["bluish_green"], "width": 2, "dash": "dash"},
+        }
+    )
     figure_layout = layout(
         height=560,
         xaxis=axis("", type="date", anchor="y", showticklabels=False),
@@ -337,7 +395,11 @@ def calibration_figure(session: Session, campaign: Campaign, upto_pk: int | None
     """Measured modulation frequency against the plasma frequency the set density predicts."""
     predicted, measured = CALIBRATION_FIELDS
     by_status = _series_by_status(
-        session, campaign, CALIBRATION_FIELDS, nominal_points=SCATTER_NOMINAL_POINTS, required=CALIBRATION_FIELDS,
+        session,
+        campaign,
+        CALIBRATION_FIELDS,
+        nominal_points=SCATTER_NOMINAL_POINTS,
+        required=CALIBRATION_FIELDS,
         upto_pk=upto_pk,
     )
     traces = []
@@ -348,16 +410,30 @@ def calibration_figure(session: Session, campaign: Campaign, upto_pk: int | None
         values.extend(v for v in (*xs, *ys) if v is not None)
         traces.append(
             _point_trace(
-                item.status, xs, ys, [text_for_chart(s) for s in item.series.columns["shot_id"]],
-                x_field=predicted, y_field=measured, total=item.series.total,
+                item.status,
+                xs,
+                ys,
+                [text_for_chart(s) for s in item.series.columns["shot_id"]],
+                x_field=predicted,
+                y_field=measured,
+                total=item.series.total,
                 note=_series_note(item),
             )
         )
     if values:
         lo, hi = min(values), max(values)
-        traces.insert(0, {"type": "scatter", "mode": "lines", "x": [lo, hi], "y": [lo, hi],
-                          "name": "measured = predicted", "hoverinfo": "skip",
-                          "line": {"color": OKABE_ITO["sky_blue"], "dash": "dot", "width": 2}})
+        traces.insert(
+            0,
+            {
+                "type": "scatter",
+                "mode": "lines",
+                "x": [lo, hi],
+                "y": [lo, hi],
+                "name": "measured = predicted",
+                "hoverinfo": "skip",
+                "line": {"color": OKABE_ITO["sky_blue"], "dash": "dot", "width": 2},
+            },
+        )
     figure_layout = layout(
         height=460,
         xaxis=axis("predicted plasma frequency [GHz]"),
@@ -391,13 +467,21 @@ def flag_figure(counts: Sequence[FlagCodeCount]) -> dict[str, Any]:
         values = [c.by_severity.get(severity, 0) for c in reversed(counts)]
         if not any(values):
             continue
-        traces.append({
-            "type": "bar", "orientation": "h", "name": severity, "y": codes, "x": values,
-            "marker": {"color": style.colour, "line": {"color": INK, "width": 0.5},
-                       "pattern": {"shape": style.pattern, "fgcolor": "#ffffff", "fillmode": "overlay",
-                                   "solidity": 0.25}},
-            "hovertemplate": "%{y}: %{x} shots<extra>" + severity + "</extra>",
-        })
+        traces.append(
+            {
+                "type": "bar",
+                "orientation": "h",
+                "name": severity,
+                "y": codes,
+                "x": values,
+                "marker": {
+                    "color": style.colour,
+                    "line": {"color": INK, "width": 0.5},
+                    "pattern": {"shape": style.pattern, "fgcolor": "#ffffff", "fillmode": "overlay", "solidity": 0.25},
+                },
+                "hovertemplate": "%{y}: %{x} shots<extra>" + severity + "</extra>",
+            }
+        )
     figure_layout = layout(
         height=max(180, 34 * len(codes) + 90),
         barmode="stack",

@@ -12,9 +12,9 @@ from typing import Any
 
 from sqlalchemy.orm import Session
 
-from app.presentation.fields import field_label
-from app.plain import rounded
 from app.errors import InvalidInput
+from app.plain import rounded
+from app.presentation.fields import field_label
 from app.presentation.numbers import MISSING, format_number
 from app.services.dashboard.figures import (
     CALIBRATION_FIELDS,
@@ -130,10 +130,16 @@ def phase_facts(summary: PhaseSummary) -> list[tuple[str, str]]:
     window = NEIGHBOUR_WINDOW_SHOTS
     return [
         ("shots with a measured phase", format_number(summary.shots_with_phase)),
-        (f"measured shot-to-shot phase jitter (robust spread about a running circular mean of {window} neighbouring shots)",
-         f"{format_number(summary.measured_phase_std_rad)} rad{sample}"),
-        (f"shot-to-shot density jitter of those shots (robust spread about a running median of {window} neighbouring shots)",
-         f"{format_number(summary.density_spread_pct)} %{sample}"),
+        (
+            "measured shot-to-shot phase jitter (robust spread about a running circular mean "
+            f"of {window} neighbouring shots)",
+            f"{format_number(summary.measured_phase_std_rad)} rad{sample}",
+        ),
+        (
+            "shot-to-shot density jitter of those shots (robust spread about a running median "
+            f"of {window} neighbouring shots)",
+            f"{format_number(summary.density_spread_pct)} %{sample}",
+        ),
         ("phase change per 1 % density (median)", f"{format_number(summary.phase_per_pct_density_rad)} rad/%"),
         ("expected phase jitter (shot-to-shot)", f"{format_number(summary.expected_phase_jitter_rad)} rad"),
     ]
@@ -160,8 +166,11 @@ def chart_feed(session: Session, campaign: Campaign, name: str, **params: Any) -
     cursor = store.latest_shot_pk(session, campaign.id)
     if name == "phase":  # the chart and its figures from one read of the phases
         rows = phase_rows(session, campaign, cursor)
-        return {"figure": phase_figure(session, campaign, upto_pk=cursor, rows=rows), "cursor": cursor,
-                "facts": phase_facts(phase_summary(session, campaign, rows=rows))}
+        return {
+            "figure": phase_figure(session, campaign, upto_pk=cursor, rows=rows),
+            "cursor": cursor,
+            "facts": phase_facts(phase_summary(session, campaign, rows=rows)),
+        }
     builder = regime_figure if name == "regime" else CHART_FEEDS[name]
     feed: dict[str, Any] = {"figure": builder(session, campaign, upto_pk=cursor, **params), "cursor": cursor}
     if name in CHART_FACTS:
@@ -171,8 +180,11 @@ def chart_feed(session: Session, campaign: Campaign, name: str, **params: Any) -
 
 def regime_feed(session: Session, campaign: Campaign, x: str, y: str) -> dict[str, Any]:
     """The regime map of any two numeric columns; InvalidInput names an axis that is not one."""
-    problems = [(axis, "not a numeric input or output") for axis, name in (("x", x), ("y", y))
-                if name not in store.NUMERIC_COLUMNS]
+    problems = [
+        (axis, "not a numeric input or output")
+        for axis, name in (("x", x), ("y", y))
+        if name not in store.NUMERIC_COLUMNS
+    ]
     if problems:
         raise InvalidInput(problems, f"cannot plot {', '.join(n for n in (x, y) if n not in store.NUMERIC_COLUMNS)}")
     return chart_feed(session, campaign, "regime", x=x, y=y)
@@ -213,26 +225,30 @@ def live_rows(rows: Sequence[ShotRow], campaign: Campaign, shot_url: str) -> lis
     zone = campaign_zone(campaign.timezone)
     out = []
     for row in rows:
-        out.append({
-            "pk": row.pk,
-            "shot_id": row.shot_id,
-            "url": shot_url.format(shot_id=row.shot_id),
-            "taken_at": format_utc(row.taken_at),
-            "t": chart_time(row.taken_at, zone),
-            "taken_local": local_text(row.taken_at, zone),
-            "revision": row.revision,
-            "status": row.status,
-            "seed_method": row.seed_method,
-            "flags": [{"code": c, "severity": s} for c, s in row.flags],
-            "notes": row.notes[:200],
-            "tags": row.tags,
-            "values": {k: rounded(v) for k, v in row.values.items()},
-            "text": {k: format_number(v) for k, v in row.values.items()},
-        })
+        out.append(
+            {
+                "pk": row.pk,
+                "shot_id": row.shot_id,
+                "url": shot_url.format(shot_id=row.shot_id),
+                "taken_at": format_utc(row.taken_at),
+                "t": chart_time(row.taken_at, zone),
+                "taken_local": local_text(row.taken_at, zone),
+                "revision": row.revision,
+                "status": row.status,
+                "seed_method": row.seed_method,
+                "flags": [{"code": c, "severity": s} for c, s in row.flags],
+                "notes": row.notes[:200],
+                "tags": row.tags,
+                "values": {k: rounded(v) for k, v in row.values.items()},
+                "text": {k: format_number(v) for k, v in row.values.items()},
+            }
+        )
     return out
 
 
-def live_update(session: Session, campaign: Campaign, since: int, shot_url: str, extra_columns: Sequence[str] = ()) -> dict[str, Any]:
+def live_update(
+    session: Session, campaign: Campaign, since: int, shot_url: str, extra_columns: Sequence[str] = ()
+) -> dict[str, Any]:
     """Counts now, and the shots stored after the cursor ``since`` (oldest first, bounded)."""
     columns = tuple(dict.fromkeys((*LIVE_VALUE_COLUMNS, *extra_columns)))
     rows = store.shots_after(session, campaign.id, since, limit=LIVE_MAX_ROWS, value_columns=columns)
@@ -246,8 +262,10 @@ def live_update(session: Session, campaign: Campaign, since: int, shot_url: str,
         "cursor": cursor,
         "more": cursor < latest,
         "counts": counts,
-        "counts_text": {**{k: format_number(v) for k, v in counts.items()}, "total": format_number(sum(counts.values()))},
+        "counts_text": {
+            **{k: format_number(v) for k, v in counts.items()},
+            "total": format_number(sum(counts.values())),
+        },
         "flag_counts": {f.code: f.by_severity for f in flags},
         "shots": live_rows(rows, campaign, shot_url),
     }
-

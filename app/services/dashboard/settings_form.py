@@ -69,11 +69,18 @@ def settings_form(session: Session, campaign: Campaign, submitted: Mapping[str, 
     for code, levels in model.DEFAULT_SETTINGS["limits"].items():
         rule = RULES_BY_CODE.get(code)
         side = {"above": "fires above", "below": "fires below", "info_above": "info above"}.get(
-            rule.bad_when if rule else "", "")
+            rule.bad_when if rule else "", ""
+        )
         help_text = f"{rule.symbol}: {side} the limit" if rule else ""
         fields = [
-            make(_limit_field_name(code, level), level, "", default, current["limits"][code][level],
-                 level in (overrides.get("limits", {}).get(code, {}) or {}))
+            make(
+                _limit_field_name(code, level),
+                level,
+                "",
+                default,
+                current["limits"][code][level],
+                level in (overrides.get("limits", {}).get(code, {}) or {}),
+            )
             for level, default in levels.items()
         ]
         limit_rows.append((code, help_text, fields))

@@ -22,6 +22,7 @@ from app.store import dashboard as store
 from app.tables import Campaign, Evaluation, Shot
 from app.times import campaign_zone, local_text
 
+
 @dataclass(frozen=True)
 class InputRow:
     path: str
@@ -105,10 +106,24 @@ def revision_rows(revisions: Sequence[Any], campaign: Campaign) -> list[Revision
     before: dict[str, Any] = {}
     for rev in revisions:
         after = _flatten(rev.raw_payload or {})
-        changes = [(k, before.get(k), after.get(k)) for k in sorted(set(before) | set(after))
-                   if before.get(k) != after.get(k)] if before else []
-        rows.append(RevisionRow(rev.revision, local_text(rev.created_at, campaign_zone(campaign.timezone)), rev.author or "",
-                                rev.reason or "", changes))
+        changes = (
+            [
+                (k, before.get(k), after.get(k))
+                for k in sorted(set(before) | set(after))
+                if before.get(k) != after.get(k)
+            ]
+            if before
+            else []
+        )
+        rows.append(
+            RevisionRow(
+                rev.revision,
+                local_text(rev.created_at, campaign_zone(campaign.timezone)),
+                rev.author or "",
+                rev.reason or "",
+                changes,
+            )
+        )
         before = after
     return list(reversed(rows))
 
@@ -149,35 +164,78 @@ def growth_curves(shot: Shot, settings: Mapping[str, Any]) -> dict[str, list[flo
     }
 
 
-def growth_figure(curves: Mapping[str, list[Any]], shot: Shot, evaluation: Evaluation | None, delta_sat: float) -> dict[str, Any]:
+def growth_figure(
+    curves: Mapping[str, list[Any]], shot: Shot, evaluation: Evaluation | None, delta_sat: float
+) -> dict[str, Any]:
     z = rounded_list(curves["z_m"])
     modulation = rounded_list(curves["modulation"])
     efolds = rounded_list(curves["efolds"])
     z_sat = evaluation.saturation_length_m if evaluation is not None else None
-    before = [m if z_sat is None or (zz is not None and zz <= z_sat) else None for zz, m in zip(z, modulation)]
-    after = [m if z_sat is not None and zz is not None and zz >= z_sat else None for zz, m in zip(z, modulation)]
+    pairs = list(zip(z, modulation, strict=True))
+    before = [m if z_sat is None or (zz is not None and zz <= z_sat) else None for zz, m in pairs]
+    after = [m if z_sat is not None and zz is not None and zz >= z_sat else None for zz, m in pairs]
     traces: list[dict[str, Any]] = [
-        {"type": "scatter", "mode": "lines", "x": z, "y": before, "name": "\u03b4(z) relative radius modulation",
-         "line": {"color": OKABE_ITO["blue"], "width": 3}, "hovertemplate": "z %{x:.3g} m<br>\u03b4 %{y:.3g}<extra></extra>"},
-        {"type": "scatter", "mode": "lines", "x": z, "y": after, "name": "\u03b4(z) linear, past saturation (not valid)",
-         "line": {"color": OKABE_ITO["blue"], "width": 2, "dash": "dot"}, "hovertemplate": "z %{x:.3g} m<br>\u03b4 %{y:.3g}<extra></extra>"},
-        {"type": "scatter", "mode": "lines", "x": [z[0], z[-1]], "y": [delta_sat, delta_sat],
-         "name": f"saturation level \u03b4_sat = {delta_sat:g}", "line": {"color": OKABE_ITO["grey"], "dash": "dash"},
-         "hoverinfo": "skip"},
-        {"type": "scatter", "mode": "lines", "x": z, "y": efolds, "name": "N(z) e-folds (right axis)", "yaxis": "y2",
-         "line": {"color": OKABE_ITO["bluish_green"], "width": 2, "dash": "dashdot"}, "hovertemplate": "z %{x:.3g} m<br>N %{y:.3g}<extra></extra>"},
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": z,
+            "y": before,
+            "name": "\u03b4(z) relative radius modulation",
+            "line": {"color": OKABE_ITO["blue"], "width": 3},
+            "hovertemplate": "z %{x:.3g} m<br>\u03b4 %{y:.3g}<extra></extra>",
+        },
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": z,
+            "y": after,
+            "name": "\u03b4(z) linear, past saturation (not valid)",
+            "line": {"color": OKABE_ITO["blue"], "width": 2, "dash": "dot"},
+            "hovertemplate": "z %{x:.3g} m<br>\u03b4 %{y:.3g}<extra></extra>",
+        },
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": [z[0], z[-1]],
+            "y": [delta_sat, delta_sat],
+            "name": f"saturation level \u03b4_sat = {delta_sat:g}",
+            "line": {"color": OKABE_ITO["grey"], "dash": "dash"},
+            "hoverinfo": "skip",
+        },
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": z,
+            "y": efolds,
+            "name": "N(z) e-folds (right axis)",
+            "yaxis": "y2",
+            "line": {"color": OKABE_ITO["bluish_green"], "width": 2, "dash": "dashdot"},
+            "hovertemplate": "z %{x:.3g} m<br>N %{y:.3g}<extra></extra>",
+        },
     ]
     if z_sat is not None:
-        traces.append({"type": "scatter", "mode": "markers+text", "x": [rounded(z_sat)], "y": [delta_sat],
-                       "name": f"saturation at z = {z_sat:.3g} m", "text": [f"saturation {z_sat:.3g} m"],
-                       "textposition": "top left",
-                       "marker": {"symbol": "star", "size": 14, "color": OKABE_ITO["vermillion"], "line": {"color": INK, "width": 1}}})
+        traces.append(
+            {
+                "type": "scatter",
+                "mode": "markers+text",
+                "x": [rounded(z_sat)],
+                "y": [delta_sat],
+                "name": f"saturation at z = {z_sat:.3g} m",
+                "text": [f"saturation {z_sat:.3g} m"],
+                "textposition": "top left",
+                "marker": {
+                    "symbol": "star",
+                    "size": 14,
+                    "color": OKABE_ITO["vermillion"],
+                    "line": {"color": INK, "width": 1},
+                },
+            }
+        )
     figure_layout = layout(
         height=400,
         xaxis=axis("z along the plasma [m]"),
         yaxis=axis("\u03b4 (relative radius modulation)", type="log", exponentformat="power"),
-        yaxis2=axis("N (e-folds)", overlaying="y", side="right", rangemode="tozero", showgrid=False,
-                     tickmode="auto"),
+        yaxis2=axis("N (e-folds)", overlaying="y", side="right", rangemode="tozero", showgrid=False, tickmode="auto"),
         margin={"l": 70, "r": 70, "t": 30, "b": 50},
     )
     return {"data": traces, "layout": figure_layout}
@@ -187,12 +245,24 @@ def efold_profile_figure(curves: Mapping[str, list[Any]], shot: Shot, settings: 
     xi_ref = float(settings["reference_slice_sigma"]) * float(shot.driver_sigma_z_mm)
     ys = rounded_list(curves["efolds_exit_xi"])
     traces = [
-        {"type": "scatter", "mode": "lines", "x": rounded_list(curves["xi_mm"]), "y": ys,
-         "name": "N(L, \u03be) e-folds at the exit", "line": {"color": OKABE_ITO["reddish_purple"], "width": 3},
-         "hovertemplate": "\u03be %{x:.3g} mm<br>N %{y:.3g}<extra></extra>"},
-        {"type": "scatter", "mode": "lines", "x": [xi_ref, xi_ref], "y": [0, max([v for v in ys if v is not None] or [1])],
-         "name": f"reference slice \u03be_ref = {xi_ref:.3g} mm", "line": {"color": OKABE_ITO["grey"], "dash": "dash"},
-         "hoverinfo": "skip"},
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": rounded_list(curves["xi_mm"]),
+            "y": ys,
+            "name": "N(L, \u03be) e-folds at the exit",
+            "line": {"color": OKABE_ITO["reddish_purple"], "width": 3},
+            "hovertemplate": "\u03be %{x:.3g} mm<br>N %{y:.3g}<extra></extra>",
+        },
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": [xi_ref, xi_ref],
+            "y": [0, max([v for v in ys if v is not None] or [1])],
+            "name": f"reference slice \u03be_ref = {xi_ref:.3g} mm",
+            "line": {"color": OKABE_ITO["grey"], "dash": "dash"},
+            "hoverinfo": "skip",
+        },
     ]
     figure_layout = layout(
         height=360,
@@ -209,8 +279,9 @@ def shot_detail(session: Session, campaign: Campaign, shot_id: str) -> ShotDetai
     shot, evaluation = found
     known = {spec.path for spec in model.INPUT_FIELDS}
     inputs = [
-        InputRow(spec.path, getattr(shot, model.column_name(spec.path), None), spec.unit, spec.description,
-                 spec.range_text)
+        InputRow(
+            spec.path, getattr(shot, model.column_name(spec.path), None), spec.unit, spec.description, spec.range_text
+        )
         for spec in model.INPUT_FIELDS
     ]
     outputs = [
@@ -248,4 +319,3 @@ def shot_detail(session: Session, campaign: Campaign, shot_id: str) -> ShotDetai
         previous_shot_id=previous_id,
         next_shot_id=next_id,
     )
-

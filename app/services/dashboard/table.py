@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 from zoneinfo import ZoneInfo
 
@@ -51,7 +51,7 @@ def _parse_local_datetime(text: str, zone: ZoneInfo) -> datetime:
     moment = datetime.fromisoformat(text.strip().replace("Z", "+00:00"))
     if moment.tzinfo is None:
         moment = moment.replace(tzinfo=zone)
-    return moment.astimezone(timezone.utc)
+    return moment.astimezone(UTC)
 
 
 def parse_table_query(params: Mapping[str, str], campaign: Campaign) -> TableQuery:
@@ -145,8 +145,16 @@ def table_page(session: Session, campaign: Campaign, query: TableQuery) -> Table
         limit=TABLE_PAGE_SIZE,
         value_columns=TABLE_VALUE_COLUMNS,
     )
-    return TablePage(query, rows, total, page, pages, TABLE_PAGE_SIZE, TABLE_VALUE_COLUMNS,
-                     store.latest_shot_pk(session, campaign.id))
+    return TablePage(
+        query,
+        rows,
+        total,
+        page,
+        pages,
+        TABLE_PAGE_SIZE,
+        TABLE_VALUE_COLUMNS,
+        store.latest_shot_pk(session, campaign.id),
+    )
 
 
 # --------------------------------------------------------------------------- CSV

@@ -46,20 +46,28 @@ def run_facts(doc: Mapping[str, Any], run: DetailedRun | None = None) -> list[li
     if run is not None:
         facts += [["run", f"#{run.id}, shot revision {run.shot_revision}, model {run.model_version}"]]
     facts += [
-        ["grid", f"{_text(n.get('slices'))} slices ({_text(n.get('slices_per_wavelength'))} per plasma wavelength) "
-                 f"\u00d7 {_text(n.get('steps'))} steps of {_text(n.get('dz_m'), 'm')}"
-                 f"{' (default step)' if n.get('dz_default') else ''}"],
+        [
+            "grid",
+            f"{_text(n.get('slices'))} slices ({_text(n.get('slices_per_wavelength'))} per plasma wavelength) "
+            f"\u00d7 {_text(n.get('steps'))} steps of {_text(n.get('dz_m'), 'm')}"
+            f"{' (default step)' if n.get('dz_default') else ''}",
+        ],
         ["seed", str(n.get("seed") or "\u2014")],
         ["valid until", _text(doc.get("valid_until_m"), "m")],
-        ["saturation (solver)", _text(doc.get("saturation_z_m"), "m")
-         + (f" \u2014 {doc['saturation_reason']}" if doc.get("saturation_reason") else "")],
+        [
+            "saturation (solver)",
+            _text(doc.get("saturation_z_m"), "m")
+            + (f" \u2014 {doc['saturation_reason']}" if doc.get("saturation_reason") else ""),
+        ],
         ["saturation (closed form)", _text(doc.get("closed_form_saturation_z_m"), "m")],
-        ["fitted e-folds", f"{_text(doc.get('fitted_efolds'))} against {_text(doc.get('closed_form_efolds_at_fit'))} "
-                           f"closed form (difference {_text(doc.get('efolds_difference'))})"],
+        [
+            "fitted e-folds",
+            f"{_text(doc.get('fitted_efolds'))} against {_text(doc.get('closed_form_efolds_at_fit'))} "
+            f"closed form (difference {_text(doc.get('efolds_difference'))})",
+        ],
         ["wall time", _text(n.get("wall_time_s"), "s")],
     ]
     return facts
-
 
 
 # ------------------------------------------------------------------------------ charts
@@ -107,15 +115,43 @@ def _validity_marks(doc: Mapping[str, Any]) -> tuple[list[dict[str, Any]], list[
     if valid is None:
         return [], []
     shapes = [
-        {"type": "rect", "xref": "x", "yref": "paper", "x0": valid, "x1": length, "y0": 0, "y1": 1,
-         "fillcolor": "#7f7f7f", "opacity": 0.22, "line": {"width": 0}, "layer": "above"},
-        {"type": "line", "xref": "x", "yref": "paper", "x0": valid, "x1": valid, "y0": 0, "y1": 1,
-         "line": {"color": LIMIT_COLOUR, "width": 2, "dash": "dash"}, "layer": "above"},
+        {
+            "type": "rect",
+            "xref": "x",
+            "yref": "paper",
+            "x0": valid,
+            "x1": length,
+            "y0": 0,
+            "y1": 1,
+            "fillcolor": "#7f7f7f",
+            "opacity": 0.22,
+            "line": {"width": 0},
+            "layer": "above",
+        },
+        {
+            "type": "line",
+            "xref": "x",
+            "yref": "paper",
+            "x0": valid,
+            "x1": valid,
+            "y0": 0,
+            "y1": 1,
+            "line": {"color": LIMIT_COLOUR, "width": 2, "dash": "dash"},
+            "layer": "above",
+        },
     ]
     annotations = [
-        {"xref": "x", "yref": "paper", "x": valid, "y": 1.0, "yanchor": "bottom", "xanchor": "left",
-         "showarrow": False, "font": {"color": LIMIT_COLOUR, "size": 11},
-         "text": f"valid until saturation, z = {valid:.3g} m (shaded: qualitative)"},
+        {
+            "xref": "x",
+            "yref": "paper",
+            "x": valid,
+            "y": 1.0,
+            "yanchor": "bottom",
+            "xanchor": "left",
+            "showarrow": False,
+            "font": {"color": LIMIT_COLOUR, "size": 11},
+            "text": f"valid until saturation, z = {valid:.3g} m (shaded: qualitative)",
+        },
     ]
     return shapes, annotations
 
@@ -135,16 +171,30 @@ def sigma_map_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
         log_sigma = np.log10(np.where(sigma > 0, sigma, np.nan))
     finite = log_sigma[np.isfinite(log_sigma)]
     lo, hi = (float(finite.min()), float(finite.max())) if finite.size else (-2.0, 1.0)
-    tick_values = [math.log10(v) for v in (0.001, 0.002, 0.005, 0.01, 0.02, 0.05, 0.1, 0.2, 0.5, 1, 2, 5, 10, 20, 50, 100)
-                   if lo <= math.log10(v) <= hi]
+    tick_values = [
+        math.log10(v)
+        for v in (0.001, 0.002, 0.005, 0.01, 0.02, 0.05, 0.1, 0.2, 0.5, 1, 2, 5, 10, 20, 50, 100)
+        if lo <= math.log10(v) <= hi
+    ]
     tick_digits = 3
     if len(tick_values) < 3:  # a narrow range: evenly spaced ticks instead of round numbers
         tick_values, tick_digits = np.linspace(lo, hi, 5).tolist(), 4
     grouped = f"; maximum over groups of {bin_size} slices" if bin_size > 1 else ""
     shapes, annotations = _validity_marks(doc)
     zeta_ref = float(doc["reference_zeta_m"]) * 1e3
-    shapes.append({"type": "line", "xref": "paper", "yref": "y", "x0": 0, "x1": 1, "y0": zeta_ref, "y1": zeta_ref,
-                   "line": {"color": "#ffffff", "width": 1, "dash": "dot"}, "layer": "above"})
+    shapes.append(
+        {
+            "type": "line",
+            "xref": "paper",
+            "yref": "y",
+            "x0": 0,
+            "x1": 1,
+            "y0": zeta_ref,
+            "y1": zeta_ref,
+            "line": {"color": "#ffffff", "width": 1, "dash": "dot"},
+            "layer": "above",
+        }
+    )
     trace = {
         "type": "heatmap",
         "x": _plain(z_m[columns]),
@@ -153,8 +203,11 @@ def sigma_map_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
         "colorscale": "Viridis",
         "zmin": lo,
         "zmax": hi,
-        "colorbar": {"title": {"text": "σ_r [mm]", "side": "right"},
-                     "tickvals": tick_values, "ticktext": [f"{10 ** v:.{tick_digits}g}" for v in tick_values]},
+        "colorbar": {
+            "title": {"text": "σ_r [mm]", "side": "right"},
+            "tickvals": tick_values,
+            "ticktext": [f"{10**v:.{tick_digits}g}" for v in tick_values],
+        },
         "hovertemplate": "z %{x:.3g} m<br>ζ %{y:.4g} mm<br>log₁₀(σ_r / mm) %{z:.3f}<extra></extra>",
         "name": "σ_r(ζ, z)",
     }
@@ -163,10 +216,20 @@ def sigma_map_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
         xaxis=axis("z along the plasma [m]"),
         yaxis=axis("ζ along the bunch [mm]"),
         shapes=shapes,
-        annotations=[*annotations, {
-            "xref": "paper", "yref": "paper", "x": 0, "y": -0.2, "xanchor": "left", "yanchor": "top",
-            "showarrow": False, "font": {"size": 11},
-            "text": f"head up; dotted line: reference slice{grouped}"}],
+        annotations=[
+            *annotations,
+            {
+                "xref": "paper",
+                "yref": "paper",
+                "x": 0,
+                "y": -0.2,
+                "xanchor": "left",
+                "yanchor": "top",
+                "showarrow": False,
+                "font": {"size": 11},
+                "text": f"head up; dotted line: reference slice{grouped}",
+            },
+        ],
         margin={"l": 70, "r": 20, "t": 40, "b": 80},
     )
     return {"data": [trace], "layout": figure_layout}
@@ -186,25 +249,50 @@ def modulation_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
     shapes, annotations = _validity_marks(doc)
     xs = _plain(z)
     # The solver starts from an unmodulated beam (δ ~ 0 at z = 0): start the axis where growth is visible.
-    shown = [v for v in (positive("reference_modulation_steps")[1:] + positive("closed_form_modulation_steps"))
-             if v is not None]
+    shown = [
+        v
+        for v in (positive("reference_modulation_steps")[1:] + positive("closed_form_modulation_steps"))
+        if v is not None
+    ]
     y_range = [math.log10(min(shown) / 3.0), math.log10(sat * 3.0)] if shown and min(shown) < sat else None
     traces = [
-        {"type": "scatter", "mode": "lines", "x": xs, "y": positive("reference_modulation_steps"),
-         "name": "δ(z) envelope solver", "line": {"color": SOLVER_COLOUR, "width": 3},
-         "hovertemplate": "z %{x:.3g} m<br>δ %{y:.3g}<extra>solver</extra>"},
-        {"type": "scatter", "mode": "lines", "x": xs, "y": positive("closed_form_modulation_steps"),
-         "name": "δ(z) closed form", "line": {"color": CLOSED_FORM_COLOUR, "width": 2, "dash": "dash"},
-         "hovertemplate": "z %{x:.3g} m<br>δ %{y:.3g}<extra>closed form</extra>"},
-        {"type": "scatter", "mode": "lines", "x": [xs[0], xs[-1]] if xs else [], "y": [sat, sat],
-         "name": f"saturation level δ_sat = {sat:g}", "line": {"color": REFERENCE_COLOUR, "dash": "dot"},
-         "hoverinfo": "skip"},
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": xs,
+            "y": positive("reference_modulation_steps"),
+            "name": "δ(z) envelope solver",
+            "line": {"color": SOLVER_COLOUR, "width": 3},
+            "hovertemplate": "z %{x:.3g} m<br>δ %{y:.3g}<extra>solver</extra>",
+        },
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": xs,
+            "y": positive("closed_form_modulation_steps"),
+            "name": "δ(z) closed form",
+            "line": {"color": CLOSED_FORM_COLOUR, "width": 2, "dash": "dash"},
+            "hovertemplate": "z %{x:.3g} m<br>δ %{y:.3g}<extra>closed form</extra>",
+        },
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": [xs[0], xs[-1]] if xs else [],
+            "y": [sat, sat],
+            "name": f"saturation level δ_sat = {sat:g}",
+            "line": {"color": REFERENCE_COLOUR, "dash": "dot"},
+            "hoverinfo": "skip",
+        },
     ]
     figure_layout = layout(
         height=380,
         xaxis=axis("z along the plasma [m]"),
-        yaxis=axis(f"δ at the reference slice ζ = {float(doc['reference_zeta_m']) * 1e3:.4g} mm",
-                    type="log", exponentformat="power", **({"range": y_range} if y_range else {})),
+        yaxis=axis(
+            f"δ at the reference slice ζ = {float(doc['reference_zeta_m']) * 1e3:.4g} mm",
+            type="log",
+            exponentformat="power",
+            **({"range": y_range} if y_range else {}),
+        ),
         shapes=shapes,
         annotations=annotations,
         margin={"l": 70, "r": 20, "t": 40, "b": 50},
@@ -223,34 +311,77 @@ def exit_field_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
         centre = _plain(_binned(zeta, size, np.nanmean))
         # The field oscillates once per plasma wavelength: draw its band, not an aliased line.
         traces += [
-            {"type": "scatter", "mode": "lines", "x": centre, "y": _plain(_binned(field, size, np.nanmin)),
-             "line": {"color": SOLVER_COLOUR, "width": 0.5}, "name": "E_z minimum", "showlegend": False,
-             "hovertemplate": "ζ %{x:.4g} mm<br>min E_z %{y:.3g} MV/m<extra></extra>"},
-            {"type": "scatter", "mode": "lines", "x": centre, "y": _plain(_binned(field, size, np.nanmax)),
-             "fill": "tonexty", "line": {"color": SOLVER_COLOUR, "width": 0.5},
-             "name": f"E_z(ζ) band (minimum to maximum over groups of {size} slices)",
-             "hovertemplate": "ζ %{x:.4g} mm<br>max E_z %{y:.3g} MV/m<extra></extra>"},
+            {
+                "type": "scatter",
+                "mode": "lines",
+                "x": centre,
+                "y": _plain(_binned(field, size, np.nanmin)),
+                "line": {"color": SOLVER_COLOUR, "width": 0.5},
+                "name": "E_z minimum",
+                "showlegend": False,
+                "hovertemplate": "ζ %{x:.4g} mm<br>min E_z %{y:.3g} MV/m<extra></extra>",
+            },
+            {
+                "type": "scatter",
+                "mode": "lines",
+                "x": centre,
+                "y": _plain(_binned(field, size, np.nanmax)),
+                "fill": "tonexty",
+                "line": {"color": SOLVER_COLOUR, "width": 0.5},
+                "name": f"E_z(ζ) band (minimum to maximum over groups of {size} slices)",
+                "hovertemplate": "ζ %{x:.4g} mm<br>max E_z %{y:.3g} MV/m<extra></extra>",
+            },
         ]
     else:
-        traces.append({"type": "scatter", "mode": "lines", "x": _plain(zeta), "y": _plain(field),
-                       "name": "E_z(ζ) on axis", "line": {"color": SOLVER_COLOUR, "width": 1.5},
-                       "hovertemplate": "ζ %{x:.4g} mm<br>E_z %{y:.3g} MV/m<extra></extra>"})
+        traces.append(
+            {
+                "type": "scatter",
+                "mode": "lines",
+                "x": _plain(zeta),
+                "y": _plain(field),
+                "name": "E_z(ζ) on axis",
+                "line": {"color": SOLVER_COLOUR, "width": 1.5},
+                "hovertemplate": "ζ %{x:.4g} mm<br>E_z %{y:.3g} MV/m<extra></extra>",
+            }
+        )
     zeta_ref = float(doc["reference_zeta_m"]) * 1e3
-    shapes = [{"type": "line", "xref": "x", "yref": "paper", "x0": zeta_ref, "x1": zeta_ref, "y0": 0, "y1": 1,
-               "line": {"color": REFERENCE_COLOUR, "dash": "dash"}}]
+    shapes = [
+        {
+            "type": "line",
+            "xref": "x",
+            "yref": "paper",
+            "x0": zeta_ref,
+            "x1": zeta_ref,
+            "y0": 0,
+            "y1": 1,
+            "line": {"color": REFERENCE_COLOUR, "dash": "dash"},
+        }
+    ]
     if valid is None:
         note, colour = f"at the plasma exit, z = {length:.3g} m: inside the model's validity", INK
     else:
-        note = (f"at the plasma exit, z = {length:.3g} m, past saturation (valid until z = {valid:.3g} m): "
-                "qualitative only")
+        note = (
+            f"at the plasma exit, z = {length:.3g} m, past saturation (valid until z = {valid:.3g} m): qualitative only"
+        )
         colour = LIMIT_COLOUR
     figure_layout = layout(
         height=360,
         xaxis=axis("ζ along the bunch [mm] (head right; dashed: reference slice)"),
         yaxis=axis("on-axis E_z [MV/m]"),
         shapes=shapes,
-        annotations=[{"xref": "paper", "yref": "paper", "x": 0, "y": 1.0, "xanchor": "left", "yanchor": "bottom",
-                      "showarrow": False, "text": note, "font": {"color": colour, "size": 11}}],
+        annotations=[
+            {
+                "xref": "paper",
+                "yref": "paper",
+                "x": 0,
+                "y": 1.0,
+                "xanchor": "left",
+                "yanchor": "bottom",
+                "showarrow": False,
+                "text": note,
+                "font": {"color": colour, "size": 11},
+            }
+        ],
         margin={"l": 70, "r": 20, "t": 40, "b": 50},
     )
     return {"data": traces, "layout": figure_layout}
@@ -266,4 +397,3 @@ CHART_TITLES = {
 def run_figures(doc: Mapping[str, Any]) -> dict[str, dict[str, Any]]:
     """The three charts of a run, keyed like CHART_TITLES."""
     return {"map": sigma_map_figure(doc), "growth": modulation_figure(doc), "field": exit_field_figure(doc)}
-

@@ -4,20 +4,20 @@ charts with Plotly's JavaScript inlined, so the file opens offline."""
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping, Sequence
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import Any, BinaryIO
 
 import plotly.io as pio
 from markupsafe import Markup
 
 import model
 from app.errors import InvalidInput
+from app.presentation.templates import render
 from app.services.detailed_runs.figures import CHART_TITLES, run_facts, run_figures
 from app.services.detailed_runs.lifecycle import RunParameters, step_problems
 from app.services.files import write_atomically
 from app.services.ingest import physics_problems
-from app.presentation.templates import render
 from model import envelope
 
 
@@ -26,9 +26,15 @@ def render_run_html(shot: Mapping[str, Any], doc: Mapping[str, Any]) -> str:
     figures = run_figures(doc)
     charts = []
     for i, (key, figure) in enumerate(figures.items()):
-        div = pio.to_html(figure, include_plotlyjs=i == 0, full_html=False, validate=False,
-                          div_id=f"chart-{key}", default_height=f"{figure['layout'].get('height', 400)}px",
-                          config={"displaylogo": False, "responsive": True})
+        div = pio.to_html(
+            figure,
+            include_plotlyjs=i == 0,
+            full_html=False,
+            validate=False,
+            div_id=f"chart-{key}",
+            default_height=f"{figure['layout'].get('height', 400)}px",
+            config={"displaylogo": False, "responsive": True},
+        )
         charts.append({"key": key, "title": CHART_TITLES[key], "html": Markup(div)})
     return render(
         "detailed_run_file.html",
@@ -37,7 +43,7 @@ def render_run_html(shot: Mapping[str, Any], doc: Mapping[str, Any]) -> str:
         facts=run_facts(doc),
         validity_note=doc.get("validity_note") or "",
         model_version=model.MODEL_VERSION,
-        created=datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC"),
+        created=datetime.now(UTC).strftime("%Y-%m-%d %H:%M:%S UTC"),
     )
 
 
@@ -64,7 +70,11 @@ def simulate_to_html(
     result = envelope.simulate_envelope(shot, settings, params.slices_per_wavelength, params.dz_m, progress=progress)
     doc = envelope.envelope_result_to_json(result)
     html = render_run_html(shot, doc).encode("utf-8")
-    write_atomically(out, lambda stream: stream.write(html))
+
+    def write(stream: BinaryIO) -> None:
+        stream.write(html)
+
+    write_atomically(out, write)
     return doc
 
 

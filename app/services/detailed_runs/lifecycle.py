@@ -12,7 +12,7 @@ import math
 import threading
 import time
 from collections.abc import Callable, Mapping
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 from urllib.parse import quote
 
@@ -47,10 +47,19 @@ class RunParameters(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     slices_per_wavelength: int = Field(
-        16, ge=16, le=MAX_SLICES_PER_WAVELENGTH, strict=True, description="slices per plasma wavelength (at least 16)")
+        default=16,
+        ge=16,
+        le=MAX_SLICES_PER_WAVELENGTH,
+        strict=True,
+        description="slices per plasma wavelength (at least 16)",
+    )
     dz_m: float | None = Field(
-        None, gt=0, allow_inf_nan=False, strict=True,
-        description="integration step along the plasma [m]; default: the solver's choice")
+        default=None,
+        gt=0,
+        allow_inf_nan=False,
+        strict=True,
+        description="integration step along the plasma [m]; default: the solver's choice",
+    )
 
 
 def parse_parameters(raw: Mapping[str, Any] | None) -> RunParameters:
@@ -67,8 +76,14 @@ def step_problems(params: RunParameters, plasma_length_m: float) -> list[FieldPr
         return []
     steps = math.ceil(plasma_length_m / params.dz_m - 1e-9)
     if steps > envelope.MAX_STEPS:
-        return [("dz_m", f"{plasma_length_m:g} m of plasma in steps of {params.dz_m:g} m is {steps} steps; "
-                         f"the solver takes at most {envelope.MAX_STEPS} (use dz_m >= {plasma_length_m / envelope.MAX_STEPS:.3g})")]
+        return [
+            (
+                "dz_m",
+                f"{plasma_length_m:g} m of plasma in steps of {params.dz_m:g} m is {steps} steps; "
+                f"the solver takes at most {envelope.MAX_STEPS} "
+                f"(use dz_m >= {plasma_length_m / envelope.MAX_STEPS:.3g})",
+            )
+        ]
     return []
 
 
@@ -111,8 +126,14 @@ def start_run(session: Session, slug: str, shot_id: str, params: RunParameters, 
             if _same_request(jobs.job_params(job), wanted):
                 return job
         job = jobs.queue_job(session, RUN_KIND, campaign.id, wanted)
-        audit.record(session, actor, "detailed_run.start", campaign_slug=slug, target=shot.shot_id,
-                     detail={"job_id": job.id, **{k: v for k, v in wanted.items() if k != "settings"}})
+        audit.record(
+            session,
+            actor,
+            "detailed_run.start",
+            campaign_slug=slug,
+            target=shot.shot_id,
+            detail={"job_id": job.id, **{k: v for k, v in wanted.items() if k != "settings"}},
+        )
         return job
 
     return run_write(session, work)
@@ -124,8 +145,12 @@ def start_run(session: Session, slug: str, shot_id: str, params: RunParameters, 
 class JobProgress:
     """The solver's progress fraction as the job's done/total in percent, written at most every interval."""
 
-    def __init__(self, report: jobs.Progress, interval_s: float = PROGRESS_INTERVAL_S,
-                 clock: Callable[[], float] = time.monotonic) -> None:
+    def __init__(
+        self,
+        report: jobs.Progress,
+        interval_s: float = PROGRESS_INTERVAL_S,
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
         self.report, self.interval_s, self.clock = report, interval_s, clock
         self.last_percent, self.last_at = -1, -math.inf
 
@@ -142,6 +167,8 @@ def run_detailed_job(factory: sessionmaker[Session], job_id: str, progress: jobs
     """Solve, then store the result in one transaction. Safe to restart: a stored run is not stored twice."""
     with factory() as session:
         job = job_store.get_job(session, job_id)
+        if job is None:
+            raise LookupError(f"job {job_id} does not exist")
         p = jobs.job_params(job)
         stored = run_store.run_id_for_job(session, job_id)
         payload = run_store.revision_payload(session, p["shot_pk"], p["shot_revision"]) if stored is None else None
@@ -153,20 +180,24 @@ def run_detailed_job(factory: sessionmaker[Session], job_id: str, progress: jobs
     with _SOLVER_SLOT:
         progress(0, 100, "setting up the slices")
         result = envelope.simulate_envelope(
-            payload, p["settings"], p["slices_per_wavelength"], p["dz_m"], progress=JobProgress(progress))
+            payload, p["settings"], p["slices_per_wavelength"], p["dz_m"], progress=JobProgress(progress)
+        )
     progress(100, 100, "storing the result")
     document = envelope.envelope_result_to_json(result)
     with factory() as session:
         begin_write(session)
-        run = run_store.add_run(session, DetailedRun(
-            shot_pk=p["shot_pk"],
-            job_id=job_id,
-            shot_revision=p["shot_revision"],
-            model_version=model.MODEL_VERSION,
-            parameters={k: p[k] for k in ("slices_per_wavelength", "dz_m", "settings_version", "settings")},
-            result=document,
-            created_at=datetime.now(timezone.utc),
-        ))
+        run = run_store.add_run(
+            session,
+            DetailedRun(
+                shot_pk=p["shot_pk"],
+                job_id=job_id,
+                shot_revision=p["shot_revision"],
+                model_version=model.MODEL_VERSION,
+                parameters={k: p[k] for k in ("slices_per_wavelength", "dz_m", "settings_version", "settings")},
+                result=document,
+                created_at=datetime.now(UTC),
+            ),
+        )
         run_id = run.id
         session.commit()
     return {"run_id": run_id, "shot_id": p["shot_id"], "valid_until_m": document["valid_until_m"]}
@@ -231,8 +262,11 @@ def panel_view(run: DetailedRun, shot: Shot, slug: str) -> dict[str, Any]:
     stale = run.shot_revision != shot.revision
     return {
         "run": meta,
-        "stale_note": (f"This run solved revision {run.shot_revision}; the shot is now at revision {shot.revision}."
-                       if stale else ""),
+        "stale_note": (
+            f"This run solved revision {run.shot_revision}; the shot is now at revision {shot.revision}."
+            if stale
+            else ""
+        ),
         "validity_note": doc.get("validity_note") or "",
         "facts": run_facts(doc, run),
         "figures": run_figures(doc),
@@ -248,8 +282,14 @@ def shot_panel(session: Session, campaign: Campaign, shot: Shot) -> dict[str, An
             view = panel_view(latest, shot, campaign.slug)
         except Exception as exc:  # noqa: BLE001 - an unreadable stored run must not break the shot page
             problem = f"The latest detailed run could not be drawn ({type(exc).__name__}: {exc})."
-    pending = next((j.id for j in run_store.unfinished_jobs(session, RUN_KIND, campaign.id)
-                    if jobs.job_params(j).get("shot_pk") == shot.id), None)
+    pending = next(
+        (
+            j.id
+            for j in run_store.unfinished_jobs(session, RUN_KIND, campaign.id)
+            if jobs.job_params(j).get("shot_pk") == shot.id
+        ),
+        None,
+    )
     return {
         "latest": view,
         "problem": problem,
@@ -260,5 +300,3 @@ def shot_panel(session: Session, campaign: Campaign, shot: Shot) -> dict[str, An
             "latest": view,
         },
     }
-
-

@@ -13,7 +13,7 @@ import json
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 import numpy as np
@@ -288,7 +288,7 @@ def prepare_all(payloads: Sequence[Any], batch: bool) -> PreparedBatch:
                 index=i,
                 payload=payloads[i],
                 shot_id=envelope.shot_id,
-                taken_at=envelope.taken_at.astimezone(timezone.utc),
+                taken_at=envelope.taken_at.astimezone(UTC),
                 notes=envelope.notes,
                 tags=list(envelope.tags),
                 position=position,

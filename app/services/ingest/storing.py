@@ -17,7 +17,7 @@ import threading
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 import numpy as np
@@ -202,11 +202,12 @@ def _ingest(session: Session, campaign_slug: str, payloads: Sequence[Any], actor
         result = IngestResult(campaign=campaign)
         new = [s for s in unique if s.shot_id not in stored]
         if new:
-            now = datetime.now(timezone.utc)
+            now = datetime.now(UTC)
             pks = shot_store.insert_shots(session, shot_columns(prepared, new, campaign.id, now))
             shot_store.insert_revisions(session, revision_columns(pks, new, 1, "first version", actor, now))
-            table = evaluate_inputs(prepared.inputs_of(new), campaign.model_settings or {},
-                                    "batch" if batch else "single")
+            table = evaluate_inputs(
+                prepared.inputs_of(new), campaign.model_settings or {}, "batch" if batch else "single"
+            )
             evals, flags = evaluation_columns(table, pks, campaign.id, campaign.settings_version, now)
             shot_store.insert_evaluations(session, evals)
             shot_store.insert_flags(session, flags)
@@ -214,10 +215,18 @@ def _ingest(session: Session, campaign_slug: str, payloads: Sequence[Any], actor
                 ItemOutcome(s.index, s.shot_id, "created", pk, status)
                 for s, pk, status in zip(new, pks, evals["status"], strict=True)
             ]
-            audit.record(session, actor, "shots.ingest", campaign_slug=campaign.slug,
-                         target=f"{len(new)} shot(s)", detail={"created": [s.shot_id for s in new]})
+            audit.record(
+                session,
+                actor,
+                "shots.ingest",
+                campaign_slug=campaign.slug,
+                target=f"{len(new)} shot(s)",
+                detail={"created": [s.shot_id for s in new]},
+            )
         result.items += [
-            ItemOutcome(s.index, s.shot_id, "unchanged", stored[s.shot_id].shot_pk) for s in unique if s.shot_id in stored
+            ItemOutcome(s.index, s.shot_id, "unchanged", stored[s.shot_id].shot_pk)
+            for s in unique
+            if s.shot_id in stored
         ]
         result.items += [ItemOutcome(s.index, s.shot_id, "duplicate_in_batch") for s in duplicates]
         return result
@@ -254,11 +263,14 @@ def correct_shot(
         current = shot_store.get_shot(session, campaign.id, shot_id)
         if current is None:
             raise NotFound(f"shot {shot_id!r} in campaign {campaign_slug!r}")
-        changed = [] if current.payload_sha256 == shot.sha256 else differing_paths(
-            stored_comparable(current.raw_payload), shot.comparable)
+        changed = (
+            []
+            if current.payload_sha256 == shot.sha256
+            else differing_paths(stored_comparable(current.raw_payload), shot.comparable)
+        )
         if not changed:
             return current, False
-        now = datetime.now(timezone.utc)
+        now = datetime.now(UTC)
         revision = current.revision + 1
         columns = shot_columns(prepared, [shot], campaign.id, now, revision)
         [values] = as_rows({k: v for k, v in columns.items() if k not in ("campaign_id", "shot_id", "created_at")})
@@ -267,8 +279,14 @@ def correct_shot(
         table = evaluate_inputs(prepared.inputs, campaign.model_settings or {}, "single")
         evals, flags = evaluation_rows(table, [current.id], campaign.id, campaign.settings_version, now)
         shot_store.replace_evaluations(session, evals, flags)
-        audit.record(session, actor, "shot.correct", campaign_slug=campaign.slug, target=shot_id,
-                     detail={"revision": revision, "reason": reason, "changed": changed})
+        audit.record(
+            session,
+            actor,
+            "shot.correct",
+            campaign_slug=campaign.slug,
+            target=shot_id,
+            detail={"revision": revision, "reason": reason, "changed": changed},
+        )
         session.expire(current)
         return current, True
 

@@ -26,24 +26,18 @@ def _charts(summary: WeeklySummary) -> dict[str, Any]:
     days = [(start + timedelta(days=d)) for d in range(7)]
     day_labels = [d.strftime("%a %d %b") for d in days]
     local_day = np.array([(t.astimezone(tz).date() - start.date()).days for t in shots.taken_at], dtype=int)
-    hours = np.array(
-        [(t - summary.start_utc).total_seconds() / 3600.0 for t in shots.taken_at], dtype=float
-    )
+    hours = np.array([(t - summary.start_utc).total_seconds() / 3600.0 for t in shots.taken_at], dtype=float)
     week_hours = (summary.end_utc - summary.start_utc).total_seconds() / 3600.0
     day_ticks = [
         ((datetime.combine(d.date(), datetime.min.time(), tzinfo=tz) - start).total_seconds() / 3600.0, label)
         for d, label in zip(days, day_labels, strict=True)
     ]
     groups = [*STATUSES, NOT_EVALUATED]
-    per_day = {
-        g: [int(np.count_nonzero((local_day == d) & (shots.status == g))) for d in range(7)] for g in groups
-    }
+    per_day = {g: [int(np.count_nonzero((local_day == d) & (shots.status == g))) for d in range(7)] for g in groups}
     per_day = {g: v for g, v in per_day.items() if g in STATUSES or any(v)}
     density = shots.inputs["plasma.density_cm3"]
     finite_density = density[np.isfinite(density)]
-    density_offset_pct = (
-        100.0 * (density / np.mean(finite_density) - 1.0) if finite_density.size else density
-    )
+    density_offset_pct = 100.0 * (density / np.mean(finite_density) - 1.0) if finite_density.size else density
     return {
         "per_day": charts.stacked_bars_svg(
             day_labels, per_day, title="Shots per day by status", x_label=f"day ({summary.timezone})", y_label="shots"
@@ -75,9 +69,7 @@ def _charts(summary: WeeklySummary) -> dict[str, Any]:
 
 
 def render_html(summary: WeeklySummary) -> str:
-    flagged = {
-        status: [s for s in summary.flagged_shots if s.status == status] for status in ("outside", "marginal")
-    }
+    flagged = {status: [s for s in summary.flagged_shots if s.status == status] for status in ("outside", "marginal")}
     zone = campaign_zone(summary.timezone)
     return render(
         "summary_report.html",

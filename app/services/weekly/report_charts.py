@@ -73,9 +73,7 @@ class _Scale:
         return self.a + (np.asarray(v, dtype=float) - self.lo) * (self.b - self.a) / (self.hi - self.lo)
 
 
-def _axes(
-    xs: _Scale, ys: _Scale, x_ticks: Sequence[tuple[float, str]], y_ticks: Sequence[float]
-) -> list[str]:
+def _axes(xs: _Scale, ys: _Scale, x_ticks: Sequence[tuple[float, str]], y_ticks: Sequence[float]) -> list[str]:
     x0, x1 = _M["left"], _W - _M["right"]
     y0, y1 = _H - _M["bottom"], _M["top"]
     out = [f'<rect x="{x0}" y="{y1}" width="{x1 - x0}" height="{y0 - y1}" class="plot-area"/>']
@@ -101,7 +99,9 @@ def _marker_path(symbol: str, px: Sequence[float], py: Sequence[float]) -> str:
     if symbol == "diamond":
         return "".join(f"M{a:.1f} {b - r:.1f}l{r} {r}l{-r} {r}l{-r} {-r}z" for a, b in zip(px, py, strict=True))
     if symbol == "x":
-        return "".join(f"M{a - r:.1f} {b - r:.1f}l{2 * r} {2 * r}m0 {-2 * r}l{-2 * r} {2 * r}" for a, b in zip(px, py, strict=True))
+        return "".join(
+            f"M{a - r:.1f} {b - r:.1f}l{2 * r} {2 * r}m0 {-2 * r}l{-2 * r} {2 * r}" for a, b in zip(px, py, strict=True)
+        )
     return "".join(f"M{a:.1f} {b:.1f}h0" for a, b in zip(px, py, strict=True))
 
 
@@ -115,8 +115,9 @@ def _legend(groups: Sequence[str], counts: Mapping[str, int] | None = None, shap
         colour = GROUP_COLOURS.get(g, MUTED)
         if shapes:
             symbol = _symbol(g)
-            swatch = (f'<path d="{_marker_path(symbol, [x + 5], [14])}" stroke="{colour}" '
-                      f'class="points marker-{symbol}"/>')
+            swatch = (
+                f'<path d="{_marker_path(symbol, [x + 5], [14])}" stroke="{colour}" class="points marker-{symbol}"/>'
+            )
         else:
             swatch = f'<rect x="{x}" y="9" width="10" height="10" fill="{colour}"/>'
         out.append(swatch + f'<text x="{x + 14}" y="18" class="legend">{escape(label)}</text>')
@@ -161,12 +162,10 @@ def scatter_svg(
     present = [g for g in group_order if np.any(ok & (groups == g))]
     for g in present:
         m = ok & (groups == g)
-        px, py = xs(x[m]), ys(y[m])
+        px, py = np.asarray(xs(x[m])), np.asarray(ys(y[m]))
         symbol = _symbol(g)
         d = _marker_path(symbol, px.tolist(), py.tolist())
-        out.append(
-            f'<path d="{d}" stroke="{GROUP_COLOURS.get(g, MUTED)}" class="points marker-{symbol}"/>'
-        )
+        out.append(f'<path d="{d}" stroke="{GROUP_COLOURS.get(g, MUTED)}" class="points marker-{symbol}"/>')
     out += _legend(present, {g: int(np.count_nonzero(ok & (groups == g))) for g in present}, shapes=True)
     out.append("</svg>")
     return Markup("".join(out))
@@ -188,11 +187,11 @@ def stacked_bars_svg(
     n = len(categories)
     slot = (_W - _M["left"] - _M["right"]) / n
     xs = _Scale(-0.5, n - 0.5, _M["left"], _W - _M["right"])
-    out = _frame(title, x_label, y_label) + _axes(xs, ys, list(zip(range(n), categories)), yt)
+    out = _frame(title, x_label, y_label) + _axes(xs, ys, list(zip(range(n), categories, strict=False)), yt)
     base = np.zeros(n)
     for g, values in series.items():
         v = np.asarray(values, dtype=float)
-        for i in np.flatnonzero(v):
+        for i in np.flatnonzero(v).tolist():
             top, bottom = float(ys(base[i] + v[i])), float(ys(base[i]))
             out.append(
                 f'<rect x="{_M["left"] + i * slot + slot * 0.15:.1f}" y="{top:.1f}" '
@@ -206,9 +205,7 @@ def stacked_bars_svg(
     return Markup("".join(out))
 
 
-def histogram_svg(
-    values: np.ndarray, *, title: str, x_label: str, bins: int = 30, group: str = "shots"
-) -> Markup:
+def histogram_svg(values: np.ndarray, *, title: str, x_label: str, bins: int = 30, group: str = "shots") -> Markup:
     v = np.asarray(values, dtype=float)
     v = v[np.isfinite(v)]
     if not v.size:

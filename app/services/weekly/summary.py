@@ -13,8 +13,7 @@ import gc
 from collections.abc import Iterable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
-from typing import Any
+from datetime import UTC, datetime
 
 import numpy as np
 from sqlalchemy.orm import Session
@@ -26,11 +25,13 @@ from app.presentation.fields import unit_of
 from app.services.export_table import NOT_EVALUATED, ShotTable
 from app.services.phase_spread import phase_jitter
 from app.store import exports as export_store
+from app.store.exports import FlagRow
 from app.tables import Campaign
 from app.times import IsoWeek, campaign_zone
 
 STATUSES = model.STATUSES
 SEVERITIES = model.SEVERITIES
+
 
 def export_file_name(campaign_slug: str, week_label: str, fmt: str) -> str:
     """``wakeledger-SLUG-2026-W47.csv``: the file name of a week's export in any format."""
@@ -285,9 +286,7 @@ class _WeekFigures:
     ranges: list[QuantityRange]
 
 
-def _previous_week(
-    session: Session, campaign: Campaign, week: IsoWeek, current: _WeekFigures
-) -> WeekComparison:
+def _previous_week(session: Session, campaign: Campaign, week: IsoWeek, current: _WeekFigures) -> WeekComparison:
     prev = week.previous()
     start, end = prev.bounds_utc(campaign_zone(campaign.timezone))
     window = export_store.in_window(campaign.id, start, end)
@@ -311,12 +310,8 @@ def _previous_week(
         flag_shot_counts=flags,
         medians=medians,
         delta_shot_count=current.shot_count - len(shots),
-        delta_status_counts={
-            s: current.status_counts.get(s, 0) - counts.get(s, 0) for s in status_keys
-        },
-        delta_flag_shot_counts={
-            c: cur_flags.get(c, 0) - flags.get(c, 0) for c in dict.fromkeys([*cur_flags, *flags])
-        },
+        delta_status_counts={s: current.status_counts.get(s, 0) - counts.get(s, 0) for s in status_keys},
+        delta_flag_shot_counts={c: cur_flags.get(c, 0) - flags.get(c, 0) for c in dict.fromkeys([*cur_flags, *flags])},
         delta_medians={r.key: _delta(r.median, medians.get(r.key)) for r in current.ranges},
     )
 
@@ -349,9 +344,9 @@ def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, n
         week=week,
         start_local=start_local,
         end_local=end_local,
-        start_utc=start_local.astimezone(timezone.utc),
-        end_utc=end_local.astimezone(timezone.utc),
-        generated_at=(now or datetime.now(timezone.utc)).astimezone(timezone.utc),
+        start_utc=start_local.astimezone(UTC),
+        end_utc=end_local.astimezone(UTC),
+        generated_at=(now or datetime.now(UTC)).astimezone(UTC),
         shot_count=figures.shot_count,
         status_counts=figures.status_counts,
         flag_counts=figures.flag_counts,

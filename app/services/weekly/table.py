@@ -22,7 +22,7 @@ from app.presentation.csv_writer import write_csv
 from app.services.export_table import arrow_table, csv_columns, flag_dict, records, units_document
 from app.services.files import write_atomically
 from app.services.weekly.report import render_html
-from app.services.weekly.summary import WeeklySummary, collector_paused, export_file_name
+from app.services.weekly.summary import WeeklySummary, collector_paused
 from app.times import campaign_zone, iso_text
 
 Progress = Callable[[int, int], None]
@@ -50,41 +50,53 @@ def _dated(value: Any) -> Any:
 def summary_document(summary: WeeklySummary) -> dict[str, Any]:
     """The summary part of the JSON export (everything but the per-shot rows)."""
     prev = summary.previous
-    document = plain(_dated({
-        "campaign": {"slug": summary.campaign_slug, "name": summary.campaign_name, "timezone": summary.timezone},
-        "week": summary.week.label,
-        "start_local": summary.start_local,
-        "end_local": summary.end_local,
-        "start_utc": summary.start_utc,
-        "end_utc": summary.end_utc,
-        "generated_at": summary.generated_at,
-        "model_versions": summary.model_versions,
-        "empty": summary.is_empty,
-        "shot_count": summary.shot_count,
-        "status_counts": summary.status_counts,
-        "flag_counts": summary.flag_counts,
-        "ranges": [asdict(r) for r in summary.ranges],
-        "phase_stability": asdict(summary.phase_stability),
-        "density_calibration": asdict(summary.density_calibration),
-        "previous_week": {
-            "week": prev.week.label,
-            "shot_count": prev.shot_count,
-            "status_counts": prev.status_counts,
-            "flag_shot_counts": prev.flag_shot_counts,
-            "medians": prev.medians,
-            "delta": {
-                "shot_count": prev.delta_shot_count,
-                "status_counts": prev.delta_status_counts,
-                "flag_shot_counts": prev.delta_flag_shot_counts,
-                "medians": prev.delta_medians,
-            },
-        },
-        "caution": ADVISORY_CAUTION,
-    }))
+    document = plain(
+        _dated(
+            {
+                "campaign": {
+                    "slug": summary.campaign_slug,
+                    "name": summary.campaign_name,
+                    "timezone": summary.timezone,
+                },
+                "week": summary.week.label,
+                "start_local": summary.start_local,
+                "end_local": summary.end_local,
+                "start_utc": summary.start_utc,
+                "end_utc": summary.end_utc,
+                "generated_at": summary.generated_at,
+                "model_versions": summary.model_versions,
+                "empty": summary.is_empty,
+                "shot_count": summary.shot_count,
+                "status_counts": summary.status_counts,
+                "flag_counts": summary.flag_counts,
+                "ranges": [asdict(r) for r in summary.ranges],
+                "phase_stability": asdict(summary.phase_stability),
+                "density_calibration": asdict(summary.density_calibration),
+                "previous_week": {
+                    "week": prev.week.label,
+                    "shot_count": prev.shot_count,
+                    "status_counts": prev.status_counts,
+                    "flag_shot_counts": prev.flag_shot_counts,
+                    "medians": prev.medians,
+                    "delta": {
+                        "shot_count": prev.delta_shot_count,
+                        "status_counts": prev.delta_status_counts,
+                        "flag_shot_counts": prev.delta_flag_shot_counts,
+                        "medians": prev.delta_medians,
+                    },
+                },
+                "caution": ADVISORY_CAUTION,
+            }
+        )
+    )
     # Built directly: thousands of entries, already plain values.
     document["flagged_shots"] = [
-        {"shot_id": s.shot_id, "taken_at": iso_text(s.taken_at), "status": s.status,
-         "reasons": [flag_dict(f) for f in s.reasons]}
+        {
+            "shot_id": s.shot_id,
+            "taken_at": iso_text(s.taken_at),
+            "status": s.status,
+            "reasons": [flag_dict(f) for f in s.reasons],
+        }
         for s in summary.flagged_shots
     ]
     return document
@@ -114,8 +126,10 @@ def write_json(summary: WeeklySummary, out: BinaryIO, progress: Progress | None 
 def write_parquet(summary: WeeklySummary, out: BinaryIO, progress: Progress | None = None) -> None:
     import pyarrow.parquet as pq
 
-    metadata = {"wakeledger.kind": DOCUMENT_KIND,
-                "wakeledger.summary": json.dumps(summary_document(summary), allow_nan=False)}
+    metadata = {
+        "wakeledger.kind": DOCUMENT_KIND,
+        "wakeledger.summary": json.dumps(summary_document(summary), allow_nan=False),
+    }
     table = arrow_table(summary.shots, metadata)
     if progress:
         progress(summary.shot_count // 2, summary.shot_count)
