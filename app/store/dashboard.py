@@ -7,7 +7,7 @@ All datetimes bound here are UTC (SQLite stores them without an offset).
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
 from typing import Any
@@ -409,31 +409,6 @@ def shots_after(
     rows = [_to_row(r, value_columns) for r in session.execute(stmt)]
     _attach_flags(session, rows)
     return rows
-
-
-def iter_filtered_shots(
-    session: Session,
-    campaign_id: int,
-    flt: ShotFilter,
-    *,
-    value_columns: Sequence[str],
-    sort: str,
-    descending: bool,
-    chunk: int = 2000,
-) -> Iterator[ShotRow]:
-    """Every shot of the filter, in chunks (keyset on the shot key keeps memory flat)."""
-    key = SORT_COLUMNS[sort]
-    stmt = (
-        _table_query(campaign_id, flt)
-        .with_only_columns(*_row_columns(value_columns))
-        .order_by(key.desc() if descending else key.asc(), Shot.id.desc() if descending else Shot.id.asc())
-        .execution_options(yield_per=chunk)
-    )
-    result = session.execute(stmt)
-    for part in result.partitions():
-        rows = [_to_row(r, value_columns) for r in part]
-        _attach_flags(session, rows)
-        yield from rows
 
 
 # ------------------------------------------------------------------------- one shot

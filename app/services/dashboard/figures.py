@@ -221,7 +221,10 @@ def phase_rows(session: Session, campaign: Campaign, upto_pk: int | None = None)
 
 def _jitter(rows: store.PhaseRows, part: slice = slice(None)) -> PhaseJitter:
     """The shared definition (app.services.phase_spread) over the shots with a measured phase."""
-    as_array = lambda values: np.array(values[part], dtype=float)  # noqa: E731 - None becomes NaN
+
+    def as_array(values: list[Any]) -> np.ndarray:
+        return np.array(values[part], dtype=float)  # None becomes NaN
+
     return phase_jitter(as_array(rows.phase), as_array(rows.density), as_array(rows.phase_per_pct_density))
 
 

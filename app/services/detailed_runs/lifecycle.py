@@ -280,7 +280,7 @@ def shot_panel(session: Session, campaign: Campaign, shot: Shot) -> dict[str, An
     if latest is not None:
         try:
             view = panel_view(latest, shot, campaign.slug)
-        except Exception as exc:  # noqa: BLE001 - an unreadable stored run must not break the shot page
+        except Exception as exc:  # an unreadable stored run must not break the shot page
             problem = f"The latest detailed run could not be drawn ({type(exc).__name__}: {exc})."
     pending = next(
         (
