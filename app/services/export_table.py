@@ -93,13 +93,10 @@ class ShotTable:
         n = len(columns["shot_pk"])
         inputs: dict[str, np.ndarray] = {}
         for path, column in zip(INPUT_PATHS, SHOT_INPUT_COLUMNS, strict=True):
-            if column in columns:
-                values = [np.nan if v is None else v for v in columns[column]] if path not in TEXT_INPUTS else None
-                inputs[path] = (
-                    np.array(columns[column], dtype=object) if values is None else np.array(values, dtype=float)
-                ).reshape(n)
+            if column in columns:  # numpy reads None as NaN in a float array
+                inputs[path] = np.array(columns[column], dtype=object if path in TEXT_INPUTS else float).reshape(n)
         outputs = {
-            name: np.array([np.nan if v is None else v for v in columns[name]], dtype=float).reshape(n)
+            name: np.array(columns[name], dtype=float).reshape(n)
             for name in EVALUATION_OUTPUT_COLUMNS
             if name in columns
         }
