@@ -15,6 +15,7 @@ from urllib.parse import quote
 
 import jinja2
 
+import model
 from app.advisory import ADVISORY_CAUTION
 from app.presentation.fields import unit_of
 from app.presentation.json_text import json_for_html
@@ -58,6 +59,7 @@ def environment() -> jinja2.Environment:
     )
     env.globals.update(
         caution=ADVISORY_CAUTION,
+        statuses=model.STATUSES,
         status_styles=STATUS_STYLES,
         glyphs=GLYPHS,
         palette_css=css_variables(),

@@ -325,7 +325,6 @@ def shot_table(request: Request, campaign: PageCampaign, session: DB) -> Respons
             "problems": problems,
             "live": live,
             "flag_codes": table.FLAG_CODES,
-            "statuses": table.STATUSES,
             "seed_methods": table.SEED_METHODS,
             "columns": table.table_columns(),
             "link": lambda **changes: _table_link(slug, query.params, changes),

@@ -25,18 +25,19 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import Session
 
+import model
 from app.tables import Campaign, Evaluation, Flag, Job, Shot, ShotRevision
 from app.times import as_utc
 
-STATUSES = ("nominal", "marginal", "outside")
-# Sorting by status means sorting by severity, not alphabetically.
-STATUS_RANK = case((Evaluation.status == "outside", 2), (Evaluation.status == "marginal", 1), else_=0)
+STATUSES = model.STATUSES
+# Sorting by status means sorting by severity (the status rank), not alphabetically.
+STATUS_RANK = case(*((Evaluation.status == name, rank) for rank, name in enumerate(STATUSES) if rank), else_=0)
 
 # Numeric columns a user may put on a regime-map axis or sort the table by.
 INPUT_COLUMNS: dict[str, ColumnElement[Any]] = {
     c.name: c
     for c in Shot.__table__.columns
-    if c.name.split("_", 1)[0] in ("driver", "plasma", "seed", "measured") and c.type.python_type in (float, int)
+    if c.name.split("_", 1)[0] in model.SECTIONS and c.type.python_type in (float, int)
 }
 OUTPUT_COLUMNS: dict[str, ColumnElement[Any]] = {
     c.name: c

@@ -16,6 +16,7 @@ from typing import Any, cast
 from sqlalchemy import ColumnElement, Select, Table, and_, bindparam, delete, exists, func, or_, select, text, update
 from sqlalchemy.orm import Session
 
+import model
 from app.tables import Evaluation, Flag, Shot, ShotRevision
 
 SHOTS = cast(Table, Shot.__table__)
@@ -252,7 +253,7 @@ def count_shots(session: Session, campaign_id: int) -> int:
 
 
 def input_columns() -> list[str]:
-    return [c.name for c in SHOTS.columns if c.name.split("_", 1)[0] in ("driver", "plasma", "seed", "measured")]
+    return [model.column_name(f.path) for f in model.INPUT_FIELDS]
 
 
 def _is_stale(campaign_id: int, settings_version: int, model_version: str) -> ColumnElement[bool]:

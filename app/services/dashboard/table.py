@@ -22,7 +22,6 @@ from app.store.dashboard import ShotFilter, ShotRow
 from app.tables import Campaign, Shot
 from app.times import campaign_zone
 
-STATUSES = model.STATUSES
 SEED_METHODS = model.SEED_METHODS
 FLAG_CODES = model.FLAG_CODES
 

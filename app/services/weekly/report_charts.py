@@ -15,6 +15,7 @@ from html import escape
 import numpy as np
 from markupsafe import Markup
 
+import model
 from app.presentation.numbers import format_number
 from app.presentation.palette import GROUP_COLOURS, MUTED, STATUS_STYLES
 
@@ -143,7 +144,7 @@ def scatter_svg(
     y_label: str,
     x_range: tuple[float, float] | None = None,
     x_ticks: Sequence[tuple[float, str]] | None = None,
-    group_order: Sequence[str] = ("nominal", "marginal", "outside", "not_evaluated"),
+    group_order: Sequence[str] = (*model.STATUSES, "not_evaluated"),
 ) -> Markup:
     x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
     ok = np.isfinite(x) & np.isfinite(y)
