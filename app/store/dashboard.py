@@ -50,10 +50,6 @@ NUMERIC_COLUMNS: dict[str, ColumnElement[Any]] = {**INPUT_COLUMNS, **OUTPUT_COLU
 # --------------------------------------------------------------------------- campaigns
 
 
-def campaign_by_slug(session: Session, slug: str) -> Campaign | None:
-    return session.scalar(select(Campaign).where(Campaign.slug == slug))
-
-
 def campaigns_with_status_counts(session: Session) -> list[tuple[Campaign, dict[str, int], datetime | None]]:
     """Every campaign, its shot counts by status and the time of its latest shot."""
     campaigns = list(session.scalars(select(Campaign).order_by(Campaign.name, Campaign.slug)))

@@ -17,6 +17,7 @@ from app.presentation.csv_writer import defuse
 from app.presentation.json_text import json_for_html
 from app.routers.deps import SESSION_COOKIE
 from app.routers.pages import CONTENT_SECURITY_POLICY
+from app.services.campaigns import find_campaign
 from app.services.dashboard import figures, overview, settings_form, shot_page, table
 from app.store import dashboard as store
 from tests.support import shot_to_shot_reference as reference
@@ -25,7 +26,7 @@ SLUG = "test-campaign"
 
 
 def _campaign(db):
-    return store.campaign_by_slug(db, SLUG)
+    return find_campaign(db, SLUG)
 
 
 def _chart(html: str, chart_id: str) -> dict:
