@@ -16,7 +16,7 @@ import numpy as np
 
 from app.plain import rounded_list
 from app.presentation.charts import axis, layout
-from app.presentation.numbers import format_number
+from app.presentation.numbers import MISSING, format_number
 from app.presentation.palette import INK, OKABE_ITO
 from app.tables import DetailedRun
 
@@ -52,7 +52,7 @@ def run_facts(doc: Mapping[str, Any], run: DetailedRun | None = None) -> list[li
             f"\u00d7 {_text(n.get('steps'))} steps of {_text(n.get('dz_m'), 'm')}"
             f"{' (default step)' if n.get('dz_default') else ''}",
         ],
-        ["seed", str(n.get("seed") or "\u2014")],
+        ["seed", str(n.get("seed") or MISSING)],
         ["valid until", _text(doc.get("valid_until_m"), "m")],
         [
             "saturation (solver)",
