@@ -466,7 +466,7 @@ class Windows:
     windows: tuple[Window, ...]
 
 
-@dataclass
+@dataclass(frozen=True)
 class _Search:
     """One field's window search: parameter t = ln x (log) or x (linear)."""
 
@@ -598,24 +598,27 @@ def nominal_windows(
         x = np.empty_like(flat)
         for k in np.unique(k_rows):
             x[k_rows == k] = searches[k].x(flat[k_rows == k])
-        _, t = _evaluate_one_field_changes(b, searches, k_rows, x, settings)
-        return (t["status"] == _NOMINAL).reshape(points.shape)
+        _, table = _evaluate_one_field_changes(b, searches, k_rows, x, settings)
+        return (table["status"] == _NOMINAL).reshape(points.shape)
 
-    edges: dict[tuple[int, int], tuple[float, tuple[str, ...], tuple[tuple[str, str], ...]]] = {}
+    # Per (field, side): the edge value (nominal), the rules firing just beyond it, validation problems there.
+    edges: dict[tuple[int, int], tuple[float | None, tuple[str, ...], tuple[tuple[str, str], ...]]] = {}
     if bracket_field:
         tolerance = np.array([searches[k].tolerance for k in bracket_field])
         edge_in, edge_out = _refine(np.array(t_in), np.array(t_out), tolerance, inside)
-        x_in = np.array([searches[k].x(t) for k, t in zip(bracket_field, edge_in, strict=True)])
+        x_in = [float(searches[k].x(t)) for k, t in zip(bracket_field, edge_in, strict=True)]
         x_out = np.array([searches[k].x(t) for k, t in zip(bracket_field, edge_out, strict=True)])
         valid_beyond, beyond = _evaluate_one_field_changes(b, searches, fields_of, x_out, settings)
-    for j, (k, side) in enumerate(zip(bracket_field, bracket_side, strict=True)):
-        problems = () if valid_beyond[j] else tuple(_problems_at(b, {searches[k].path: float(x_out[j])}))
-        edges[(k, side)] = (float(x_in[j]), _fired(beyond, j) if valid_beyond[j] else (), problems)
+        for j, (k, side) in enumerate(zip(bracket_field, bracket_side, strict=True)):
+            if valid_beyond[j]:
+                edges[(k, side)] = (x_in[j], _fired(beyond, j), ())
+            else:
+                edges[(k, side)] = (x_in[j], (), tuple(_problems_at(b, {searches[k].path: float(x_out[j])})))
+    no_edge: tuple[float | None, tuple[str, ...], tuple[tuple[str, str], ...]] = (None, (), ())
     windows = []
     for k, s in enumerate(searches):
         run = runs[k]
-        low = edges.get((k, 0), (None, (), ()))
-        high = edges.get((k, 1), (None, (), ()))
+        low, high = edges.get((k, 0), no_edge), edges.get((k, 1), no_edge)
         contains = run is not None and base_status == _NOMINAL  # the base value is a grid point
         windows.append(
             Window(
