@@ -210,3 +210,19 @@ def test_the_feeds_name_the_failing_field(viewer_client, seeded, make_shot):
     ]
     missing = viewer_client.post(f"{PAGE}/panels", json={"base": {"shot_id": "pg-9999"}})
     assert missing.status_code == 404
+
+
+def test_every_first_range_the_page_offers_is_one_the_model_scans(viewer_client, seeded, admin_headers, make_shot):
+    ion = make_shot(
+        "ex-1", shot_id="ion-1", changes={"driver.species": "ion", "driver.mass_amu": 207.2, "driver.charge_state": 1}
+    )
+    assert viewer_client.post(f"/api/v1/campaigns/{SLUG}/shots", json=ion, headers=admin_headers).status_code == 201
+    for shot_id in ("pg-0000", "ion-1"):
+        defaults = _config(viewer_client.get(PAGE, params={"shot": shot_id}).text)["defaults"]
+        assert "driver.charge_state" in defaults or shot_id == "pg-0000"
+        for field, d in defaults.items():
+            axis = {"field": field, "start": float(d["start"]), "stop": float(d["stop"]), "steps": int(d["steps"])}
+            axis["spacing"] = "log" if d["log"] else "linear"
+            body = {"base": {"shot_id": shot_id}, "axes": [axis], "curves": ["efolds_exit"]}
+            response = viewer_client.post(f"{PAGE}/map", json=body)
+            assert response.status_code == 200, (shot_id, field, response.text)

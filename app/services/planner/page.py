@@ -92,8 +92,10 @@ def axis_start(base: plan.PlanBase, path: str, steps: int) -> AxisStart | None:
     low = -math.inf if spec.minimum is None or spec.exclusive_minimum else spec.minimum
     high = math.inf if spec.maximum is None else spec.maximum
     if spec.kind == "integer":
-        start, stop = max(low, math.floor(x0 / 2)), min(high, math.ceil(2 * x0))
-        steps = int(stop - start) + 1
+        # halve and double, never crossing zero (an integer input here is a charge state: non-zero)
+        start = max(low, math.floor(x0 / 2) if x0 < 0 else max(1, math.floor(x0 / 2)))
+        stop = min(high, math.ceil(2 * x0)) if x0 > 0 else min(high, -1, math.ceil(2 * x0))
+        steps = int(abs(stop - start)) + 1
         return AxisStart(path, editable_number(int(start)), editable_number(int(stop)), str(steps), False)
     if path in plan.LINEAR_SPANS:
         half_width, scale_of = plan.LINEAR_SPANS[path]
