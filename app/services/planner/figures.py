@@ -87,11 +87,11 @@ def _region_labels(status: np.ndarray, x: np.ndarray, y: np.ndarray, logs: tuple
     """A glyph-and-name label at the deepest point of each status region of the map (status[row=y, col=x])."""
     labels = []
     for rank, name in enumerate(model.STATUSES):
-        regions, count = ndimage.label(status == rank)
-        for region in range(1, count + 1):
+        regions, _ = ndimage.label(status == rank)
+        sizes = np.bincount(regions.ravel())
+        sizes[0] = 0  # label 0: the other statuses
+        for region in np.nonzero(sizes >= REGION_LABEL_SHARE * status.size)[0].tolist():
             inside = regions == region
-            if inside.sum() < REGION_LABEL_SHARE * status.size:
-                continue
             depth = ndimage.distance_transform_edt(np.pad(inside, 1))[1:-1, 1:-1]
             row, col = np.unravel_index(int(np.argmax(depth)), depth.shape)
             style = STATUS_STYLES[name]
@@ -345,7 +345,7 @@ def curves(
     annotations.append(_annotation(_position(base_value, log), 1.0, "base", yref="paper", yanchor="top"))
     figure_layout = layout(
         height=max(380, 220 * len(names)),
-        xaxis=_scan_axis(label_x, log, anchor=f"y{len(names)}"),
+        xaxis=_scan_axis(label_x, log, anchor=f"y{len(names) if len(names) > 1 else ''}"),
         margin={"l": 80, "r": 30, "t": 40, "b": 100},
         legend={"orientation": "h", "y": -0.2, "yanchor": "top", "x": 0, "xanchor": "left"},
         shapes=shapes,
