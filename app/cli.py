@@ -365,5 +365,79 @@ def simulate(args: argparse.Namespace, settings: Settings) -> int:
     return 0
 
 
+def _plan_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "shot",
+        metavar="SHOT.json",
+        help='a shot in the API JSON shape, or a stored shot {"campaign": SLUG, "shot_id": ID}',
+    )
+    p.add_argument(
+        "--vary",
+        action="append",
+        required=True,
+        metavar="FIELD=START:STOP:STEPS[:log]",
+        help="an axis of the scan (give one or two), e.g. plasma.density_cm3=1e14:1e15:200:log",
+    )
+    p.add_argument("--campaign", metavar="SLUG", help="use this campaign's settings (reads the configured database)")
+    p.add_argument("--out", required=True, metavar="FILE", help="its suffix picks csv, parquet, json or html")
+
+
+@command(
+    "plan",
+    help="scan the closed-form model around a shot over one or two fields and write csv, parquet, json or html",
+    configure=_plan_args,
+)
+def plan(args: argparse.Namespace, settings: Settings) -> int:
+    import json
+    from pathlib import Path
+
+    from app.errors import InvalidInput, NotFound
+    from app.services.planner import answers
+    from app.services.planner.files import PLAN_FORMATS, axis_from_text, option_lines, write_plan_file
+    from app.services.planner.page import status_counts_text
+
+    def fail(lines: list[str], code: int = 2) -> int:
+        for line in lines:
+            print(f"wakeledger plan: error: {line}", file=sys.stderr)
+        return code
+
+    source, out = Path(args.shot), Path(args.out)
+    fmt = out.suffix.lower().lstrip(".")
+    if fmt not in PLAN_FORMATS:
+        return fail([f"--out {str(out)!r}: give a file ending in .{', .'.join(PLAN_FORMATS)}"])
+    if not out.parent.is_dir():
+        return fail([f"directory {str(out.parent)!r} does not exist"], 1)
+    try:
+        shot = json.loads(source.read_text(encoding="utf-8"))
+    except OSError as exc:
+        return fail([f"cannot read {str(source)!r}: {exc.strerror or exc}"])
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        return fail([f"{str(source)!r} is not a JSON shot: {exc}"])
+    try:
+        axes = [axis_from_text(text, i) for i, text in enumerate(args.vary)]
+        if answers.needs_database(shot, args.campaign):
+            from app.database import make_engine, make_session_factory
+
+            engine = make_engine(settings.database_url)
+            try:
+                with make_session_factory(engine)() as session:
+                    base = answers.resolve_base(session, shot, args.campaign)
+            finally:
+                engine.dispose()
+        else:
+            base = answers.given_base(shot)
+        result = answers.scan(base, axes)
+        title = base.shot_id or str(shot.get("shot_id") or source.stem)
+        write_plan_file(base, axes, result, fmt, out, title)
+    except InvalidInput as exc:
+        return fail(option_lines(exc.problems, args.vary, str(source)) or [exc.detail])
+    except NotFound as exc:
+        return fail([exc.detail], 1)
+    except OSError as exc:
+        return fail([f"could not write {str(out)!r}: {exc.strerror or exc}"], 1)
+    print(f"wrote {out}: {status_counts_text(result)}", file=sys.stderr)
+    return 0
+
+
 if __name__ == "__main__":  # pragma: no cover
     raise SystemExit(main())

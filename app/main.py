@@ -17,7 +17,7 @@ from app.advisory import ADVISORY_CAUTION
 from app.config import Settings, get_settings
 from app.database import make_engine, make_session_factory, upgrade_database
 from app.problems import BODY_TOO_LARGE, ProblemError, install_problem_handlers, problem_response
-from app.routers import api, detailed_runs, pages, summary
+from app.routers import api, detailed_runs, pages, plan_pages, plans, summary
 from app.services import reevaluation
 from app.services.job_kinds import KINDS
 from app.services.jobs import ThreadRunner, attach_runner
@@ -72,6 +72,8 @@ def _include_routers(app: FastAPI) -> None:
     app.mount("/static", StaticFiles(directory=pages.STATIC_DIR), name="static")
     app.include_router(summary.router)
     app.include_router(detailed_runs.router)
+    app.include_router(plans.router)
+    app.include_router(plan_pages.router)
 
 
 def create_app(settings: Settings | None = None) -> FastAPI:

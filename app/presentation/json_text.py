@@ -1,10 +1,11 @@
-"""JSON for pages and feeds: compact, strict (NaN becomes null) and safe inside HTML."""
+"""JSON for pages and feeds: compact, strict (NaN becomes null) and safe inside HTML; bytes for large answers."""
 
 from __future__ import annotations
 
 import json
 from typing import Any
 
+import orjson
 from markupsafe import Markup
 
 from app.plain import plain
@@ -26,3 +27,9 @@ def json_for_html(value: Any) -> Markup:
     for char, escaped in _HTML_UNSAFE.items():
         text = text.replace(chr(char), escaped)
     return Markup(text)
+
+
+def json_bytes(value: Any) -> bytes:
+    """Compact JSON bytes for large numeric answers (plans): numpy arrays written natively, NaN and
+    infinity as null (orjson's own rule, the same as ``app.plain``), anything else through ``plain``."""
+    return orjson.dumps(value, option=orjson.OPT_SERIALIZE_NUMPY, default=plain)

@@ -7,7 +7,9 @@ Rule (the live table gets its text from the server, so there is no second copy):
   in scientific notation when the magnitude is at least 1e5 or below 1e-3, written
   ``5.8e+14`` / ``1.235e-4`` (the exponent without leading zeros);
 - a unit, when given, follows after a space.
-CSV and JSON files never use this: they carry every number unrounded.
+CSV and JSON files never use this: they carry every number unrounded. A box the user edits
+(``editable_number``) holds the same layout with as many digits as the number needs to read
+back exactly, and is empty for no value.
 """
 
 from __future__ import annotations
@@ -52,6 +54,23 @@ def format_number(value: Any, unit: str = "", digits: int = 4) -> str:
     else:
         return str(value)
     return f"{text} {unit}" if unit else text
+
+
+def editable_number(value: Any) -> str:
+    """The text of a number in a box the user edits: the layout of ``format_number`` with the fewest
+    significant digits that read back as exactly the same number; '' for none, NaN and infinity."""
+    if value is None or isinstance(value, bool):
+        return "" if value is None else str(value).lower()
+    if isinstance(value, int):
+        return str(value)
+    number = float(value)
+    if not math.isfinite(number):
+        return ""
+    for digits in range(1, 18):
+        text = _significant(number, digits)
+        if float(text) == number:
+            return text
+    return repr(number)
 
 
 def format_delta(value: Any, unit: str = "") -> str:

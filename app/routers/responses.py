@@ -8,7 +8,7 @@ from typing import Any
 
 from fastapi.responses import Response, StreamingResponse
 
-from app.presentation.json_text import json_text
+from app.presentation.json_text import json_bytes, json_text
 
 NO_STORE = {"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"}
 
@@ -17,6 +17,11 @@ def json_response(value: Any, status_code: int = 200) -> Response:
     return Response(
         json_text(value).encode("utf-8"), status_code=status_code, media_type="application/json", headers=NO_STORE
     )
+
+
+def numeric_json_response(value: Any, status_code: int = 200) -> Response:
+    """JSON of large numeric answers (numpy arrays, NaN as null), written by orjson."""
+    return Response(json_bytes(value), status_code=status_code, media_type="application/json", headers=NO_STORE)
 
 
 def _disposition(filename: str, inline: bool) -> dict[str, str]:

@@ -49,6 +49,9 @@ def queue_model_upgrades(session: Session, actor: str = MODEL_UPGRADE_ACTOR) -> 
             begin_write(session, campaign_lock(slug))
             if job_store.has_unfinished_job(session, KIND, campaign_id):
                 return None
+            # Read again under the lock: a job resumed at start-up may have finished since the read above.
+            if campaign_id not in shot_store.campaign_ids_evaluated_by_other_model(session, model.MODEL_VERSION):
+                return None
             current = campaign_store.get_campaign_by_id(session, campaign_id)
             if current is None:
                 return None

@@ -150,6 +150,13 @@ def what_if(session: Session, payload: Any, campaign_slug: str | None = None) ->
         campaign = require_campaign(session, campaign_slug)
         settings, version = effective_settings(campaign), campaign.settings_version
     check_shot_body(payload)
+    return evaluation_answer(payload, settings, version)
+
+
+def evaluation_answer(
+    payload: Mapping[str, Any], settings: Mapping[str, Any] | None, settings_version: int | None
+) -> dict[str, Any]:
+    """``POST /evaluate``'s answer for a valid shot body: ``model.evaluate_shot`` (NaN as null) and the versions."""
     result = plain(model.evaluate_shot(payload, settings))
-    result.update(model_version=model.MODEL_VERSION, settings_version=version)
+    result.update(model_version=model.MODEL_VERSION, settings_version=settings_version)
     return result

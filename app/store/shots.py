@@ -162,6 +162,13 @@ def get_shot(session: Session, campaign_id: int, shot_id: str) -> Shot | None:
     return session.scalar(select(Shot).where(Shot.campaign_id == campaign_id, Shot.shot_id == shot_id))
 
 
+def latest_shot(session: Session, campaign_id: int) -> Shot | None:
+    """The campaign's shot taken last (the highest id among equal times), None for an empty campaign."""
+    return session.scalar(
+        select(Shot).where(Shot.campaign_id == campaign_id).order_by(Shot.taken_at.desc(), Shot.id.desc()).limit(1)
+    )
+
+
 def get_evaluation(session: Session, shot_pk: int) -> Evaluation | None:
     return session.get(Evaluation, shot_pk)
 

@@ -6,8 +6,8 @@ Figures (targets of issue 13):
   invented shot: saturated and unsaturated, strong and weak seeds, every status) against the floor,
   evaluate_table on the same 40,000 shots given as ready-made columns (results checked equal);
   target: the scan within 4x of the floor;
-- the scan answer encoded as the API's JSON (ranks turned into text, NaN as null, orjson), the part of the
-  later HTTP answer (target < 1 s) that the model does not do;
+- the scan answer encoded as the API's JSON by the service (ranks turned into text, NaN as null, orjson), the
+  part of the HTTP answer that the model does not do (over HTTP: tests/bench/bench_plan_http.py);
 - windows for every field of a base (target < 1 s): the default set (positive inputs) and every field with a
   window (positive and linear), on ex-1 and ex-2;
 - the nearest nominal shot varying 1-4 fields, the sensitivity table, and the per-shot phase derivatives of
@@ -28,13 +28,13 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import orjson
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
+from app.presentation.json_text import json_bytes  # noqa: E402
+from app.services.planner.answers import given_base, scan_answer  # noqa: E402
 from model import (  # noqa: E402
     FLAG_CODES,
-    SEVERITY_BY_RANK,
     STATUSES,
     evaluate_table,
     nearest_nominal,
@@ -66,17 +66,8 @@ def show(label: str, wall: float, cpu: float, extra: str = "") -> None:
 
 
 def scan_answer_json(result: Any) -> bytes:
-    """The POST /plans/scan body as the service will build it (issue 13 shape)."""
-    status_text = np.array(STATUSES, dtype=object)
-    severity_text = np.array([s or None for s in SEVERITY_BY_RANK], dtype=object)
-    body = {
-        "axes": [{"field": a.field, "unit": a.unit, "values": a.values} for a in result.axes],
-        "shape": list(result.shape),
-        "status": status_text[result.status].tolist(),
-        "outputs": result.outputs,
-        "flags": {code: severity_text[ranks].tolist() for code, ranks in result.flags.items()},
-    }
-    return orjson.dumps(body, option=orjson.OPT_SERIALIZE_NUMPY)
+    """The POST /plans/scan body as the service builds and writes it (app.services.planner.answers, orjson)."""
+    return json_bytes(scan_answer(given_base(EX1), result))
 
 
 def main() -> None:

@@ -105,6 +105,7 @@ def test_a_revoked_or_stale_cookie_counts_as_signed_out(client):
         f"/campaigns/{SLUG}/shots",
         f"/campaigns/{SLUG}/shots/pg-0000",
         f"/campaigns/{SLUG}/settings",
+        f"/campaigns/{SLUG}/plan",
     ],
 )
 def test_every_page_carries_the_caution_the_weekly_summary_link_and_a_strict_csp(admin_client, seeded, path, db):
@@ -554,6 +555,7 @@ def test_a_campaign_without_shots_still_has_every_page(viewer_client, campaign):
         f"/campaigns/{SLUG}/charts/calibration.json",
         f"/campaigns/{SLUG}/live?since=0",
         f"/campaigns/{SLUG}/regime.json?x=plasma_density_cm3&y=plasma_density_cm3",
+        f"/campaigns/{SLUG}/plan",
     ):
         assert viewer_client.get(path).status_code == 200, path
     assert "No shots match this filter." in viewer_client.get(f"/campaigns/{SLUG}/shots").text

@@ -1,0 +1,236 @@
+"""Benchmark of the planner over HTTP: prints figures, asserts nothing (not collected by pytest).
+
+Run:  .venv/bin/python tests/bench/bench_plan_http.py [--repeats 5]
+
+The server is a real uvicorn in its own process (bench_ingest.start_server) on a temporary SQLite
+database holding one campaign and worked example 1 as a stored shot. Figures (targets of issue 13):
+- a 200 x 200 scan, POST /api/v1/plans/scan (density on a log axis x seed position on a linear axis around
+  example 1, an invented shot: saturated and unsaturated, strong and weak seeds): with every output (the
+  default, ~25 MB of JSON), with the one output a map draws, and with none (statuses and flags only), the
+  base given inline and as the stored shot; time from sending the request to the whole answer received,
+  and the server's CPU time (read from /proc in clock ticks: 10 ms steps); the answers decoded and
+  checked against the floor;
+- the floor: evaluate_table on the same 40,000 shots given as ready-made columns, in this process, measured
+  again beside each case (the load of a shared machine changes); target: the scan over HTTP within 1 s and
+  within 4x the floor; and, in this process, where the time of the answer with every output goes (the
+  model, the answer, writing the JSON);
+- the planner page's map feed at the page's 80 x 80 and at 200 x 200 (figure built, text labels);
+- windows for every field of a base, POST /api/v1/plans/window (target < 1 s): the default set (positive
+  inputs) and every field with a window (positive and linear), on examples 1 and 2, checked against
+  model.plan.nominal_windows.
+Wall and CPU time are both printed: on a shared 2-core machine other work inflates wall time.
+"""
+
+from __future__ import annotations
+
+import argparse
+import copy
+import json
+import math
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import orjson
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+import httpx  # noqa: E402
+from bench_ingest import process_cpu_seconds, start_server  # noqa: E402
+
+from app.database import make_engine, make_session_factory, upgrade_database  # noqa: E402
+from app.presentation.json_text import json_bytes  # noqa: E402
+from app.schemas import CampaignCreate  # noqa: E402
+from app.services.auth import create_token  # noqa: E402
+from app.services.campaigns import create_campaign  # noqa: E402
+from app.services.ingest import ingest_shots  # noqa: E402
+from app.services.planner import answers  # noqa: E402
+from model import STATUSES, evaluate_table, nominal_windows  # noqa: E402
+from model.plan import LINEAR_SPANS, plan_base, positive_fields_set  # noqa: E402
+
+CASES = json.loads((ROOT / "tests" / "data" / "reference_cases.json").read_text())
+EX1, EX2 = CASES[0]["input"], CASES[1]["input"]
+SLUG = "bench-plan"
+TARGET_S = 1.0
+TARGET_RATIO = 4.0
+
+
+def timed(repeats: int, pid: int, fn: Callable[[], Any]) -> tuple[float, float, Any]:
+    """(best wall s, server CPU s of that run, result)."""
+    best, cpu, result = float("inf"), 0.0, None
+    for _ in range(repeats):
+        cpu0 = process_cpu_seconds(pid)
+        wall0 = time.perf_counter()
+        result = fn()
+        wall = time.perf_counter() - wall0
+        if wall < best:
+            best, cpu = wall, process_cpu_seconds(pid) - cpu0
+    return best, cpu, result
+
+
+def show(label: str, wall: float, cpu: float, extra: str = "") -> None:
+    print(f"{label:<64s} {wall * 1e3:8.1f} ms wall {cpu * 1e3:8.1f} ms server CPU  {extra}")
+
+
+def floor_columns(axes: list[dict[str, Any]]) -> dict[str, np.ndarray]:
+    base = plan_base(EX1)
+    density = np.geomspace(axes[0]["start"], axes[0]["stop"], axes[0]["steps"])
+    position = np.linspace(axes[1]["start"], axes[1]["stop"], axes[1]["steps"])
+    n = density.size * position.size
+    columns = {path: np.repeat(values, n) for path, values in base.columns.items()}
+    columns["plasma.density_cm3"] = np.repeat(density, position.size)
+    columns["seed.position_mm"] = np.tile(position, density.size)
+    return columns
+
+
+def check_scan(answer: dict[str, Any], floor: dict[str, np.ndarray]) -> bool:
+    status = np.array(STATUSES, dtype=object)[floor["status"]].tolist()
+    if answer["status"] != status or answer["shape"] != [200, 200]:
+        return False
+    for name, values in answer["outputs"].items():
+        got = np.array([np.nan if v is None else v for v in values])
+        if not np.array_equal(got, floor[name], equal_nan=True):
+            return False
+    return True
+
+
+def check_windows(answer: dict[str, Any], shot: dict[str, Any], fields: list[str] | None) -> bool:
+    expected = nominal_windows(shot, fields)
+    return [(w["field"], w["low"], w["high"]) for w in answer["windows"]] == [
+        (w.field, w.low, w.high) for w in expected.windows
+    ]
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--repeats", type=int, default=5)
+    args = parser.parse_args()
+    r = args.repeats
+    print(f"load average at start: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores (best of {r})")
+
+    sigma_z = EX1["driver"]["sigma_z_mm"]
+    axes = [
+        {"field": "plasma.density_cm3", "start": 1e14, "stop": 3e15, "steps": 200, "spacing": "log"},
+        {"field": "seed.position_mm", "start": -2 * sigma_z, "stop": 2 * sigma_z, "steps": 200, "spacing": "linear"},
+    ]
+    columns = floor_columns(axes)
+    evaluate_table(columns)  # warm-up
+    floor_box: dict[str, Any] = {}
+
+    def floor() -> tuple[float, float]:
+        """The floor, measured again beside each case (the load of a shared machine changes): best wall, its CPU."""
+        best, cpu = float("inf"), 0.0
+        for _ in range(r):
+            wall0, cpu0 = time.perf_counter(), time.process_time()
+            floor_box["table"] = evaluate_table(columns)
+            wall = time.perf_counter() - wall0
+            if wall < best:
+                best, cpu = wall, time.process_time() - cpu0
+        return best, cpu
+
+    # Where the time of the answer with every output goes, in this process: the model, the answer, the JSON.
+    planned = answers.given_base(EX1)
+    parts = dict.fromkeys(("model.plan.scan", "the answer (ranks to text)", "json_bytes (orjson)"), math.inf)
+    for _ in range(r):
+        t0 = time.perf_counter()
+        result = answers.scan(planned, axes)
+        t1 = time.perf_counter()
+        answer = answers.scan_answer(planned, result)
+        t2 = time.perf_counter()
+        size = len(json_bytes(answer))
+        t3 = time.perf_counter()
+        for key, seconds in zip(parts, (t1 - t0, t2 - t1, t3 - t2), strict=True):
+            parts[key] = min(parts[key], seconds)
+    floor_wall, floor_cpu = floor()
+    print(
+        f"in-process, every output: floor {floor_wall * 1e3:.1f} ms; "
+        + "; ".join(f"{k} {v * 1e3:.1f} ms" for k, v in parts.items())
+        + f" ({size / 1e6:.1f} MB)"
+    )
+
+    with tempfile.TemporaryDirectory(prefix="wakeledger-bench-plan-") as tmp:
+        url = f"sqlite:///{tmp}/bench.db"
+        upgrade_database(url)
+        engine = make_engine(url)
+        factory = make_session_factory(engine)
+        with factory() as session:
+            token = create_token(session, "viewer", "bench", actor="bench")
+            create_campaign(session, CampaignCreate(slug=SLUG, name="Planner bench"), "bench")
+            stored = copy.deepcopy(EX1) | {"taken_at": "2026-11-17T09:00:00Z"}
+            ingest_shots(session, SLUG, [stored], "bench", batch=False)
+        engine.dispose()
+
+        proc, base_url = start_server(url)
+        try:
+            headers = {"Authorization": f"Bearer {token}", "Content-Type": "application/json"}
+            with httpx.Client(base_url=base_url, headers=headers, timeout=120) as http:
+
+                def post(path: str, body: dict[str, Any]) -> bytes:
+                    response = http.post(path, content=orjson.dumps(body))
+                    if response.status_code != 200:
+                        raise SystemExit(f"{path}: {response.status_code} {response.text[:400]}")
+                    return response.content
+
+                stored_ref = {"campaign": SLUG, "shot_id": EX1["shot_id"]}
+                post("/api/v1/plans/scan", {"base": EX1, "axes": axes})  # warm-up
+                for label, base, outputs in (
+                    ("every output (default), base inline", EX1, None),
+                    ("every output (default), base a stored shot", stored_ref, None),
+                    ("one output (efolds_exit, as a map draws it)", EX1, ["efolds_exit"]),
+                    ("statuses and flags only (outputs [])", EX1, []),
+                ):
+                    body = {"base": base, "axes": axes} | ({} if outputs is None else {"outputs": outputs})
+                    floor_wall, floor_cpu = floor()
+                    wall, cpu, content = timed(r, proc.pid, lambda body=body: post("/api/v1/plans/scan", body))
+                    ok = check_scan(orjson.loads(content), floor_box["table"])
+                    print(
+                        f"scan 200 x 200 over HTTP, {label}: {wall * 1e3:.1f} ms wall, {cpu * 1e3:.0f} ms server CPU, "
+                        f"{len(content) / 1e6:.2f} MB; floor beside it {floor_wall * 1e3:.1f} ms wall, "
+                        f"{floor_cpu * 1e3:.1f} ms CPU; ratio {wall / floor_wall:.1f}x wall, "
+                        f"{cpu / floor_cpu:.1f}x CPU; equal to the floor: {ok}"
+                    )
+                print(f"targets: within {TARGET_S:g} s and within {TARGET_RATIO:g}x the floor")
+
+                for steps in (80, 200):
+                    page_axes = [dict(axes[0], steps=steps), dict(axes[1], steps=steps)]
+                    body = {"base": {"shot_id": EX1["shot_id"]}, "axes": page_axes, "contour": "efolds_exit"}
+                    path = f"/campaigns/{SLUG}/plan/map"
+                    wall, cpu, content = timed(r, proc.pid, lambda body=body, path=path: post(path, body))
+                    show(
+                        f"page map feed {steps} x {steps} (figure, labels, contours)",
+                        wall,
+                        cpu,
+                        f"{len(content) / 1e6:.2f} MB",
+                    )
+
+                for name, shot in (("ex-1", EX1), ("ex-2", EX2)):
+                    planned = plan_base(shot)
+                    default = positive_fields_set(shot)
+                    every = default + [p for p in LINEAR_SPANS if planned.value(p) == planned.value(p)]
+                    for label, fields in (("positive fields (default)", None), ("every field with a window", every)):
+                        body = {"base": shot} | ({} if fields is None else {"fields": fields})
+                        wall, cpu, content = timed(r, proc.pid, lambda body=body: post("/api/v1/plans/window", body))
+                        answer = orjson.loads(content)
+                        count = len(answer["windows"])
+                        ok = check_windows(answer, shot, fields)
+                        show(f"windows {name} over HTTP: {label} ({count})", wall, cpu, f"equal to the model: {ok}")
+                print(f"target: windows within {TARGET_S:g} s")
+        finally:
+            proc.terminate()
+            try:
+                proc.wait(timeout=15)
+            except subprocess.TimeoutExpired:
+                proc.kill()
+    print(f"load average at the end: {os.getloadavg()[0]:.2f}")
+
+
+if __name__ == "__main__":
+    main()
