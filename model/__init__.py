@@ -11,6 +11,7 @@ model.form_factors (section 2), model.seed (3), model.growth (4), model.phase (5
 model.competing (6). The detailed envelope solver (section 10) lives in model.envelope.
 """
 
+from model.envelope import simulate_envelope
 from model.evaluate import (
     MODEL_VERSION,
     efolds_along_bunch,
@@ -20,7 +21,6 @@ from model.evaluate import (
 )
 from model.inputs import INPUT_FIELDS, ShotInputError, validate_columns, validate_shot
 from model.rules import DEFAULT_SETTINGS, FLAG_CODES, SettingsError, flag_message, resolve_settings
-from model.envelope import simulate_envelope
 from model.vocabulary import (
     OUTPUT_FIELDS,
     OUTPUT_NAMES,

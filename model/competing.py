@@ -28,17 +28,29 @@ def hosing_ratio(
     seed_level = np.maximum(np.asarray(seed_density, dtype=float) / reference_density, relative_noise)
     with np.errstate(over="ignore"):
         return (
-            (np.asarray(effective_offset, dtype=float) / sigma_r) / seed_level
+            (np.asarray(effective_offset, dtype=float) / sigma_r)
+            / seed_level
             * np.exp(np.asarray(efolds, dtype=float) * (np.asarray(hosing_efolds_ratio, dtype=float) - 1.0))
         )
 
 
 def ion_motion_index(
-    ion_charge: ArrayLike, ion_mass: ArrayLike, wakefield: ArrayLike, wavebreaking_field: ArrayLike, kp: ArrayLike, xi: ArrayLike
+    ion_charge: ArrayLike,
+    ion_mass: ArrayLike,
+    wakefield: ArrayLike,
+    wavebreaking_field: ArrayLike,
+    kp: ArrayLike,
+    xi: ArrayLike,
 ) -> np.ndarray:
     """(Z_i m_e/M_i)(E_wake/E_0)(k_p xi)^2/2: plasma ions move by about a skin depth over xi when it is >~ 1 (MODEL.md section 6, order-of-magnitude estimate)."""
     kp_xi = np.asarray(kp, dtype=float) * xi
-    return (np.asarray(ion_charge, dtype=float) * _c.m_e / ion_mass) * (np.asarray(wakefield, dtype=float) / wavebreaking_field) * kp_xi * kp_xi / 2.0
+    return (
+        (np.asarray(ion_charge, dtype=float) * _c.m_e / ion_mass)
+        * (np.asarray(wakefield, dtype=float) / wavebreaking_field)
+        * kp_xi
+        * kp_xi
+        / 2.0
+    )
 
 
 def divergence_ratio(z: ArrayLike, geometric_emittance: ArrayLike, sigma_r: ArrayLike) -> np.ndarray:
@@ -52,7 +64,9 @@ def frequency_mismatch(measured_frequency: ArrayLike, plasma_frequency: ArrayLik
     return np.asarray(measured_frequency, dtype=float) / plasma_frequency - 1.0
 
 
-def implied_density(plasma_density: ArrayLike, measured_frequency: ArrayLike, plasma_frequency: ArrayLike) -> np.ndarray:
+def implied_density(
+    plasma_density: ArrayLike, measured_frequency: ArrayLike, plasma_frequency: ArrayLike
+) -> np.ndarray:
     """n_0 (f_meas/f_p)^2, in the unit of n_0: the density whose f_p is the measured frequency, since f_p ~ sqrt(n) (MODEL.md section 6; NRL Plasma Formulary)."""
     ratio = np.asarray(measured_frequency, dtype=float) / plasma_frequency
     return np.asarray(plasma_density, dtype=float) * ratio * ratio

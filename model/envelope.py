@@ -39,11 +39,9 @@ import numpy as np
 from scipy.optimize import minimize_scalar
 
 from model import quadrature
-from model.form_factors import gaussian_on_axis_factor, wake_kernel_h
 from model.evaluate import evaluate_shot, growth_along_plasma
+from model.form_factors import gaussian_on_axis_factor, wake_kernel_h
 from model.inputs import SEEDED_METHODS, ShotInputError, clean_shot_columns, validate_shot
-from model.rules import resolve_settings
-from model.seed import driver_mass_and_charge, relative_noise
 from model.plasma import (
     ELEMENTARY_CHARGE,
     SPEED_OF_LIGHT,
@@ -53,6 +51,8 @@ from model.plasma import (
     lorentz_factor,
     plasma_wavenumber,
 )
+from model.rules import resolve_settings
+from model.seed import driver_mass_and_charge, relative_noise
 from model.units import GEV_PER_C, MM, MM_MRAD, MV_PER_M, PC, PCT, PER_CM3
 
 GRID_HEAD_SIGMA_Z = 5.0  # head of the slice grid for seeds other than the ionization front
@@ -195,8 +195,10 @@ class EnvelopeSetup:
     def coupling(self, kp: float) -> float:
         """Z^2 e^2 k_p^3 / (8 pi eps0 gamma M c^2) [1/m^2] (MODEL.md section 10)."""
         e = ELEMENTARY_CHARGE
-        return (self.charge_number * e) ** 2 * kp**3 / (
-            8.0 * np.pi * VACUUM_PERMITTIVITY * self.gamma * self.mass_kg * SPEED_OF_LIGHT**2
+        return (
+            (self.charge_number * e) ** 2
+            * kp**3
+            / (8.0 * np.pi * VACUUM_PERMITTIVITY * self.gamma * self.mass_kg * SPEED_OF_LIGHT**2)
         )
 
 
@@ -293,7 +295,9 @@ def envelope_setup(
 ) -> EnvelopeSetup:
     """Slice grid, seed sources and SI constants of a validated shot (MODEL.md sections 1-3, 10)."""
     d, p, s = shot["driver"], shot["plasma"], shot["seed"]
-    mass_kg, charge_number = driver_mass_and_charge(d["species"], d.get("mass_amu", np.nan), d.get("charge_state", np.nan))
+    mass_kg, charge_number = driver_mass_and_charge(
+        d["species"], d.get("mass_amu", np.nan), d.get("charge_state", np.nan)
+    )
     mass, charge = float(mass_kg), float(charge_number)
     momentum = d["momentum_gev"] * GEV_PER_C
     sigma_z = d["sigma_z_mm"] * MM
@@ -307,7 +311,9 @@ def envelope_setup(
     zeta_ref = zeta_s - settings["reference_slice_sigma"] * sigma_z
     lowest = 1.0 + min(0.0, gradient * length)
     if lowest <= 0.0:
-        raise ShotInputError([("plasma.gradient_pct_per_m", "the density gradient makes the density vanish inside the plasma")])
+        raise ShotInputError(
+            [("plasma.gradient_pct_per_m", "the density gradient makes the density vanish inside the plasma")]
+        )
     kp_max = float(plasma_wavenumber(density * max(1.0, 1.0 + gradient * length)))
     spacing = 2.0 * np.pi / (kp_max * slices_per_wavelength)
     if method == "ionization_front":
@@ -330,22 +336,32 @@ def envelope_setup(
     else:
         raise ValueError(f"unknown line_profile {line_profile!r} (gaussian or uniform)")
     sources: list[RigidSource] = []
-    described = {"ionization_front": f"bunch cut at the ionization front {zeta_s:.6g} m",
-                 "electron_bunch": f"rigid electron bunch at {zeta_s:.6g} m in a preformed plasma",
-                 "none": "no seed"}[method]
+    described = {
+        "ionization_front": f"bunch cut at the ionization front {zeta_s:.6g} m",
+        "electron_bunch": f"rigid electron bunch at {zeta_s:.6g} m in a preformed plasma",
+        "none": "no seed",
+    }[method]
     if method == "electron_bunch":
-        sources.append(RigidSource(
-            zeta_m=zeta_s,
-            particles=-(s["electron_charge_pc"] * PC / ELEMENTARY_CHARGE) / charge,
-            sigma_r_m=s["electron_sigma_r_mm"] * MM,
-            sigma_z_m=s["electron_sigma_z_mm"] * MM,
-            label="electron seed bunch",
-        ))
+        sources.append(
+            RigidSource(
+                zeta_m=zeta_s,
+                particles=-(s["electron_charge_pc"] * PC / ELEMENTARY_CHARGE) / charge,
+                sigma_r_m=s["electron_sigma_r_mm"] * MM,
+                sigma_z_m=s["electron_sigma_z_mm"] * MM,
+                label="electron seed bunch",
+            )
+        )
     if noise_wanted and noise_eta is not None:
         lam_ref = line_density(zeta_ref, population, sigma_z) if line_profile == "gaussian" else lam[0]
         kp0 = float(plasma_wavenumber(density))
-        sources.append(RigidSource(
-            zeta_m=head, particles=float(noise_eta * lam_ref / kp0), sigma_r_m=sigma_r, label="noise-equivalent slice"))
+        sources.append(
+            RigidSource(
+                zeta_m=head,
+                particles=float(noise_eta * lam_ref / kp0),
+                sigma_r_m=sigma_r,
+                label="noise-equivalent slice",
+            )
+        )
         described += f"; noise-equivalent slice (eta = {noise_eta:.3g}) at the grid head {head:.6g} m"
     return EnvelopeSetup(
         charge_number=charge,
@@ -425,7 +441,9 @@ def saturation_point(z: np.ndarray, delta: np.ndarray, level: float) -> tuple[fl
     return None, None
 
 
-def closed_form_curves(shot: Mapping[str, Any], settings: Mapping[str, Any], z_m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def closed_form_curves(
+    shot: Mapping[str, Any], settings: Mapping[str, Any], z_m: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
     """Closed-form N(z) and linear delta(z) (MODEL.md section 4), from the closed-form model's own curve function."""
     curves = growth_along_plasma(clean_shot_columns(shot), z_m, settings)
     return curves["efolds"], curves["modulation"]
@@ -482,8 +500,13 @@ def simulate_envelope(
     kp0 = float(plasma_wavenumber(clean["plasma"]["density_cm3"] * PER_CM3))
     eta = float(relative_noise(line_density(zeta_ref, d["population"], sigma_z), kp0, s["noise_floor"]))
     setup = envelope_setup(
-        clean, s, int(slices_per_wavelength), line_profile=line_profile, zeta_tail_m=zeta_tail_m,
-        noise_eta=eta, noise_wanted=noise_wanted,
+        clean,
+        s,
+        int(slices_per_wavelength),
+        line_profile=line_profile,
+        zeta_tail_m=zeta_tail_m,
+        noise_eta=eta,
+        noise_wanted=noise_wanted,
     )
     step = default_step(setup, closed) if dz_m is None else float(dz_m)
     n_slices = setup.grid.zeta_m.size
@@ -505,12 +528,18 @@ def simulate_envelope(
     stored_index = np.searchsorted(z_all, run.z_stored_m - 1e-12)
     kp_exit = setup.wavenumber(setup.length_m)
     ez = on_axis_field(
-        setup.grid.zeta_m, setup.grid.particles, (kp_exit * run.final_sigma_m) ** 2, kp_exit,
-        setup.charge_number * ELEMENTARY_CHARGE, setup.grid.sources,
+        setup.grid.zeta_m,
+        setup.grid.particles,
+        (kp_exit * run.final_sigma_m) ** 2,
+        kp_exit,
+        setup.charge_number * ELEMENTARY_CHARGE,
+        setup.grid.sources,
     )
     if saturation_reason == "growth stopped":
-        note = (f"valid until saturation: the modulation stops growing at z = {saturation_z:.3g} m "
-                f"(delta = {float(np.interp(saturation_z, z_all, delta_all)):.2g}); beyond it the envelope model is qualitative")
+        note = (
+            f"valid until saturation: the modulation stops growing at z = {saturation_z:.3g} m "
+            f"(delta = {float(np.interp(saturation_z, z_all, delta_all)):.2g}); beyond it the envelope model is qualitative"
+        )
     elif saturation_z is not None:
         note = f"valid until saturation: delta reaches {sat:g} at z = {saturation_z:.3g} m; beyond it the envelope model is qualitative"
     else:

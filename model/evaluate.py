@@ -43,7 +43,9 @@ def _core(cols: Mapping[str, np.ndarray], s: Mapping[str, Any]) -> dict[str, np.
     kp = omega_p / _c.c
     e0 = plasma.wavebreaking_field(n0)
     f_p = omega_p / (2.0 * np.pi)
-    mass, charge = seed.driver_mass_and_charge(cols["driver.species"], cols["driver.mass_amu"], cols["driver.charge_state"])
+    mass, charge = seed.driver_mass_and_charge(
+        cols["driver.species"], cols["driver.mass_amu"], cols["driver.charge_state"]
+    )
     momentum = cols["driver.momentum_gev"] * U.GEV_PER_C
     gamma = plasma.lorentz_factor(momentum, mass)
     population = cols["driver.population"]
@@ -137,7 +139,9 @@ def _core(cols: Mapping[str, np.ndarray], s: Mapping[str, Any]) -> dict[str, np.
     out["hosing_ratio"] = competing.hosing_ratio(x_eff, sigma_r, n_seed, n_ref, eta, n_ref_efolds, hosing_scale)
     ion_mass = cols["plasma.ion_mass_amu"] * plasma.ATOMIC_MASS
     reported_wakefield = out["wakefield_estimate_mv_m"] * U.MV_PER_M  # E_wake is the reported estimate
-    out["ion_motion_index"] = competing.ion_motion_index(cols["plasma.ion_charge"], ion_mass, reported_wakefield, e0, kp, xi_ref)
+    out["ion_motion_index"] = competing.ion_motion_index(
+        cols["plasma.ion_charge"], ion_mass, reported_wakefield, e0, kp, xi_ref
+    )
     out["divergence_ratio"] = competing.divergence_ratio(z_ref, eps_g, sigma_r)
     f_meas = cols["measured.modulation_freq_ghz"] * U.GHZ  # NaN where not measured
     out["frequency_mismatch_pct"] = 100.0 * competing.frequency_mismatch(f_meas, f_p)
@@ -226,8 +230,13 @@ def evaluate_shot(shot: Mapping[str, Any], settings: Mapping[str, Any] | None = 
             value = _none_if_nan(table["flag_value." + code][0])
             limit = _none_if_nan(table["flag_limit." + code][0])
             flags.append(
-                {"code": code, "severity": severity, "value": value, "limit": limit,
-                 "message": flag_message(code, severity, value, limit)}
+                {
+                    "code": code,
+                    "severity": severity,
+                    "value": value,
+                    "limit": limit,
+                    "message": flag_message(code, severity, value, limit),
+                }
             )
     result["flags"] = flags
     return result
@@ -248,7 +257,9 @@ def _distances(values: Any, what: str) -> np.ndarray:
     return x
 
 
-def growth_along_plasma(columns: Mapping[str, Any], z_m: Any, settings: Mapping[str, Any] | None = None) -> dict[str, np.ndarray]:
+def growth_along_plasma(
+    columns: Mapping[str, Any], z_m: Any, settings: Mapping[str, Any] | None = None
+) -> dict[str, np.ndarray]:
     """N(z) and the linear delta(z) (not clipped at delta_sat) at the reference slice, z in metres along the plasma, for the one shot in `columns` (MODEL.md section 4)."""
     s = resolve_settings(settings)
     z = _distances(z_m, "z_m")
@@ -270,6 +281,10 @@ def efolds_along_bunch(columns: Mapping[str, Any], xi_m: Any, settings: Mapping[
 
 
 __all__ = [
-    "MODEL_VERSION", "OUTPUT_NAMES", "efolds_along_bunch", "evaluate_shot", "evaluate_table",
+    "MODEL_VERSION",
+    "OUTPUT_NAMES",
+    "efolds_along_bunch",
+    "evaluate_shot",
+    "evaluate_table",
     "growth_along_plasma",
 ]

@@ -30,16 +30,26 @@ def gaussian_profile_integral(upper: ArrayLike, lower: ArrayLike, sigma_z: Array
     return sigma_z * np.sqrt(np.pi / 2.0) * t * (special.erfc(t * b) - special.erfc(t * a))
 
 
-def coupling_per_density(charge_number: ArrayLike, gamma: ArrayLike, mass: ArrayLike, plasma_density: ArrayLike) -> np.ndarray:
+def coupling_per_density(
+    charge_number: ArrayLike, gamma: ArrayLike, mass: ArrayLike, plasma_density: ArrayLike
+) -> np.ndarray:
     """nu(n) / n = Z^2 m_e / (gamma M n_0) [m^3]: the beam-plasma coupling of a slice per unit local peak density (MODEL.md section 2)."""
     z = np.asarray(charge_number, dtype=float)
-    return z * z * _c.m_e / (np.asarray(gamma, dtype=float) * np.asarray(mass, dtype=float) * np.asarray(plasma_density, dtype=float))
+    return (
+        z
+        * z
+        * _c.m_e
+        / (np.asarray(gamma, dtype=float) * np.asarray(mass, dtype=float) * np.asarray(plasma_density, dtype=float))
+    )
 
 
-def profile_integral_from_start(zeta_ref: ArrayLike, sigma_z: ArrayLike, front: ArrayLike, zeta_front: ArrayLike) -> np.ndarray:
+def profile_integral_from_start(
+    zeta_ref: ArrayLike, sigma_z: ArrayLike, front: ArrayLike, zeta_front: ArrayLike
+) -> np.ndarray:
     """int exp(-zeta^2/2 sigma_z^2) dzeta from the start point down to zeta_ref; the start is the front zeta_s where it cuts the bunch, else +inf (MODEL.md section 4)."""
     zeta_ref, sigma_z, front, zeta_front = np.broadcast_arrays(
-        np.asarray(zeta_ref, dtype=float), np.asarray(sigma_z, dtype=float), front, np.asarray(zeta_front, dtype=float))
+        np.asarray(zeta_ref, dtype=float), np.asarray(sigma_z, dtype=float), front, np.asarray(zeta_front, dtype=float)
+    )
     shape = zeta_ref.shape
     zeta_ref, sigma_z, front, zeta_front = (x.reshape(-1) for x in (zeta_ref, sigma_z, front, zeta_front))
     integral = gaussian_profile_integral(np.inf, zeta_ref, sigma_z)
@@ -50,7 +60,11 @@ def profile_integral_from_start(zeta_ref: ArrayLike, sigma_z: ArrayLike, front: 
 
 
 def integrated_coupling(
-    kp: ArrayLike, coupling_per_density: ArrayLike, peak_density: ArrayLike, profile_integral: ArrayLike, growth_factor: ArrayLike
+    kp: ArrayLike,
+    coupling_per_density: ArrayLike,
+    peak_density: ArrayLike,
+    profile_integral: ArrayLike,
+    growth_factor: ArrayLike,
 ) -> np.ndarray:
     """I = (k_p^3/4) F(u) (Z^2 m_e/(gamma M)) (n_b0/n_0) int exp(-zeta^2/2 sigma_z^2) dzeta [1/m^2] (MODEL.md section 4)."""
     kp = np.asarray(kp, dtype=float)
@@ -78,8 +92,12 @@ def saturation_reference(
     log_scale: ArrayLike, efolds_exit: ArrayLike, length: ArrayLike, log_saturation: float
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """(saturated, ln delta(L), N(z_ref), z_ref) with z_ref solving delta(z_ref) = delta_sat where delta(L) >= delta_sat, else z_ref = L (MODEL.md section 4)."""
-    log_scale, n_exit, length = (np.atleast_1d(x) for x in np.broadcast_arrays(
-        np.asarray(log_scale, dtype=float), np.asarray(efolds_exit, dtype=float), np.asarray(length, dtype=float)))
+    log_scale, n_exit, length = (
+        np.atleast_1d(x)
+        for x in np.broadcast_arrays(
+            np.asarray(log_scale, dtype=float), np.asarray(efolds_exit, dtype=float), np.asarray(length, dtype=float)
+        )
+    )
     log_delta_exit = log_modulation(log_scale, n_exit)
     saturated = log_delta_exit >= log_saturation
     n_ref = n_exit.copy()
@@ -113,8 +131,12 @@ def wakefield_estimate(
     kp_xi = kp * np.asarray(xi, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         return (
-            wavebreaking_field * (reference_density / np.asarray(plasma_density, dtype=float)) * (kp_sigma_r * kp_sigma_r)
-            * seed_factor_a * (1.5 * kp_xi / efolds_ref) * modulation
+            wavebreaking_field
+            * (reference_density / np.asarray(plasma_density, dtype=float))
+            * (kp_sigma_r * kp_sigma_r)
+            * seed_factor_a
+            * (1.5 * kp_xi / efolds_ref)
+            * modulation
         )
 
 
@@ -122,7 +144,11 @@ def efolds_at_modulation(log_target: ArrayLike) -> np.ndarray:
     """Solve N + (1/2) ln N = y for N > 0 (y = ln(delta_sat/K)): vectorised Newton in x = ln N on the convex e^x + x/2 - y."""
     y = np.asarray(log_target, dtype=float)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        x = np.where(y > 1.0, np.log(np.maximum(y - 0.5 * np.log(np.maximum(y, 1.0)), 1.0)), 2.0 * y - 2.0 * np.exp(np.minimum(2.0 * y, 0.0)))
+        x = np.where(
+            y > 1.0,
+            np.log(np.maximum(y - 0.5 * np.log(np.maximum(y, 1.0)), 1.0)),
+            2.0 * y - 2.0 * np.exp(np.minimum(2.0 * y, 0.0)),
+        )
         # Each element stops once its own step is below rounding, so a shot gets the same
         # N whether it is solved alone or in a table (the loop count depends on the batch).
         active = np.ones(y.shape, bool)

@@ -42,7 +42,9 @@ def compensating_gradient_pct_per_m(efolds: ArrayLike, kp: ArrayLike, xi: ArrayL
     return 400.0 * phase_slip(efolds) / (3.0 * (np.asarray(kp, dtype=float) * xi) * z)
 
 
-def gradient_phase_error(kp: ArrayLike, xi: ArrayLike, gradient: ArrayLike, length: ArrayLike, efolds: ArrayLike) -> np.ndarray:
+def gradient_phase_error(
+    kp: ArrayLike, xi: ArrayLike, gradient: ArrayLike, length: ArrayLike, efolds: ArrayLike
+) -> np.ndarray:
     """Phase error k_p xi g L/2 - N/sqrt(3) left by a gradient g [1/m] over the plasma length L [rad] (MODEL.md section 5, project heuristic)."""
     return np.asarray(kp, dtype=float) * xi * gradient * length / 2.0 - phase_slip(efolds)
 

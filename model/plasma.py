@@ -65,7 +65,9 @@ def relativistic_beta(momentum: ArrayLike, mass: ArrayLike) -> np.ndarray:
 def peak_beam_density(population: ArrayLike, sigma_r: ArrayLike, sigma_z: ArrayLike) -> np.ndarray:
     """Peak density of a tri-Gaussian bunch n_b0 = N_b / ((2 pi)^{3/2} sigma_r^2 sigma_z) [1/m^3] (Gaussian normalisation)."""
     sigma_r = np.asarray(sigma_r, dtype=float)
-    return np.asarray(population, dtype=float) / ((2.0 * np.pi) ** 1.5 * sigma_r * sigma_r * np.asarray(sigma_z, dtype=float))
+    return np.asarray(population, dtype=float) / (
+        (2.0 * np.pi) ** 1.5 * sigma_r * sigma_r * np.asarray(sigma_z, dtype=float)
+    )
 
 
 def line_density(zeta: ArrayLike, population: ArrayLike, sigma_z: ArrayLike) -> np.ndarray:

@@ -77,13 +77,20 @@ def test_long_cold_narrow_uniform_beam_cut_by_a_front_follows_the_closed_form_wi
     sigma_r, sigma_z, xi_ref = 0.2 / kp, 10.0, 2000.0 / kp
     population = 0.01 * n0_cm3 * 1e6 * (2.0 * np.pi) ** 1.5 * sigma_r**2 * sigma_z  # n_b0 = 0.01 n_0
     shot = {
-        "driver": {"species": "proton", "momentum_gev": 400.0, "population": population,
-                   "sigma_z_mm": sigma_z * 1e3, "sigma_r_mm": sigma_r * 1e3, "emittance_n_mm_mrad": 0.0},
+        "driver": {
+            "species": "proton",
+            "momentum_gev": 400.0,
+            "population": population,
+            "sigma_z_mm": sigma_z * 1e3,
+            "sigma_r_mm": sigma_r * 1e3,
+            "emittance_n_mm_mrad": 0.0,
+        },
         "plasma": {"density_cm3": n0_cm3, "length_m": 1.2, "ion_mass_amu": 1.008},
         "seed": {"method": "ionization_front", "position_mm": 0.0},
     }
-    result = simulate_envelope(shot, {"reference_slice_sigma": xi_ref / sigma_z},
-                               line_profile="uniform", zeta_tail_m=-xi_ref)
+    result = simulate_envelope(
+        shot, {"reference_slice_sigma": xi_ref / sigma_z}, line_profile="uniform", zeta_tail_m=-xi_ref
+    )
     solver, closed = _in_linear_range(result)
     np.testing.assert_allclose(solver, closed, rtol=0.25)
 
@@ -128,9 +135,13 @@ def test_separable_wake_sum_matches_the_direct_double_sum_on_a_small_grid_within
     direct = np.zeros(n)
     for i in range(n):
         ahead = slice(0, i)
-        direct[i] = np.sum(np.sin(kp * (zeta[ahead] - zeta[i])) * particles[ahead] * wake_kernel_h(0.5 * (u[i] + u[ahead])))
+        direct[i] = np.sum(
+            np.sin(kp * (zeta[ahead] - zeta[i])) * particles[ahead] * wake_kernel_h(0.5 * (u[i] + u[ahead]))
+        )
         if zeta[i] < seed.zeta_m:
-            direct[i] += seed.weight(kp) * np.sin(kp * (seed.zeta_m - zeta[i])) * wake_kernel_h(0.5 * (u[i] + (kp * 0.3) ** 2))
+            direct[i] += (
+                seed.weight(kp) * np.sin(kp * (seed.zeta_m - zeta[i])) * wake_kernel_h(0.5 * (u[i] + (kp * 0.3) ** 2))
+            )
     np.testing.assert_allclose(separable, direct, rtol=1e-6, atol=1e-6 * np.abs(direct).max())
 
 

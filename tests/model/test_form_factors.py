@@ -27,10 +27,13 @@ def test_on_axis_factor_equals_direct_integral_of_the_k0_greens_function():
     # With r = sigma x: R(a) = int_0^inf K_0(k_p sigma x) exp(-x^2/2) x dx.
     k_p = 1.0
     for sigma in (0.01, 0.1, 0.3, 1.0, 2.0, 5.0):
+
         def integrand(x):
             return special.k0(k_p * sigma * x) * np.exp(-x * x / 2) * x
 
-        value = sum(integrate.quad(integrand, lo, hi, epsabs=0, epsrel=1e-12, limit=400)[0] for lo, hi in ((0, 1), (1, 40)))
+        value = sum(
+            integrate.quad(integrand, lo, hi, epsabs=0, epsrel=1e-12, limit=400)[0] for lo, hi in ((0, 1), (1, 40))
+        )
         assert gaussian_on_axis_factor((k_p * sigma) ** 2 / 2) == pytest.approx(value, rel=1e-10)
 
 
@@ -61,12 +64,17 @@ def test_wake_kernel_h_equals_its_integral_form_for_small_and_large_u():
     # MODEL.md section 10: h(u) = 1/u - e^u E1(u) = int_0^inf e^{-ut} t/(1+t) dt
     # = (1/u) int_0^inf e^{-s} s/(u+s) ds with t = s/u (so quad sees an O(1) scale).
     for u in (1e-6, 1e-3, 0.1, 1.0, 3.0, 7.9, 8.1, 30.0, 300.0, 1e4):
+
         def integrand(s):
             return np.exp(-s) * s / (u + s)
 
-        value = sum(
-            integrate.quad(integrand, lo, hi, epsabs=0, epsrel=1e-13, limit=400)[0] for lo, hi in ((0, min(u, 1.0)), (min(u, 1.0), 60))
-        ) / u
+        value = (
+            sum(
+                integrate.quad(integrand, lo, hi, epsabs=0, epsrel=1e-13, limit=400)[0]
+                for lo, hi in ((0, min(u, 1.0)), (min(u, 1.0), 60))
+            )
+            / u
+        )
         assert wake_kernel_h(u) == pytest.approx(value, rel=1e-11)
 
 

@@ -26,8 +26,12 @@ def series_delta(xi, z, A=1.0, s=1.0, terms=160):
     xi = np.asarray(xi, dtype=float)[..., None]
     m = np.arange(1, terms + 1)
     log_magnitude = (
-        (m - 1) * np.log(A) + 2 * m * np.log(z) + 0.5 * np.log(np.pi) + (m - 0.5) * np.log(xi / 2)
-        - special.gammaln(2 * m + 1) - special.gammaln(m)
+        (m - 1) * np.log(A)
+        + 2 * m * np.log(z)
+        + 0.5 * np.log(np.pi)
+        + (m - 0.5) * np.log(xi / 2)
+        - special.gammaln(2 * m + 1)
+        - special.gammaln(m)
     )
     return s * np.sum(np.exp(log_magnitude) * special.jv(m - 0.5, xi), axis=-1)
 
@@ -103,6 +107,7 @@ def test_growing_mode_phase_slips_back_by_n_over_root_3():
 
 def _fitted_power(x, log_amp):
     """Fit ln delta = alpha + beta ln x + C x^p (the algebraic prefactor absorbed in beta) and return p."""
+
     def model(x, alpha, beta, c, p):
         return alpha + beta * np.log(x) + c * x**p
 

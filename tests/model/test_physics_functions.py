@@ -43,8 +43,9 @@ def test_every_output_name_has_a_unit_and_nothing_else_does():
 
 def test_driver_mass_and_charge_per_species_for_one_shot_and_for_an_array():
     # MODEL.md section 2: proton (m_p, +1), electron (m_e, -1), positron (m_e, +1), ion (A u, q)
-    mass, charge = seed.driver_mass_and_charge(["proton", "electron", "positron", "ion"],
-                                               [np.nan, np.nan, np.nan, 207.2], [np.nan, np.nan, np.nan, 30])
+    mass, charge = seed.driver_mass_and_charge(
+        ["proton", "electron", "positron", "ion"], [np.nan, np.nan, np.nan, 207.2], [np.nan, np.nan, np.nan, 30]
+    )
     u = constants.physical_constants["atomic mass constant"][0]
     np.testing.assert_array_equal(mass, [constants.m_p, constants.m_e, constants.m_e, 207.2 * u])
     np.testing.assert_array_equal(charge, [1.0, -1.0, 1.0, 30.0])

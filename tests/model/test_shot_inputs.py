@@ -59,7 +59,9 @@ def test_missing_required_field_is_named_as_missing():
 
 def test_negative_density_is_out_of_range_and_the_reason_gives_the_range():
     problems, _ = problems_of(shot_with({"plasma.density_cm3": -1.0}))
-    assert problems["plasma.density_cm3"].startswith("out of range") and "1e+10 to 1e+20" in problems["plasma.density_cm3"]
+    assert (
+        problems["plasma.density_cm3"].startswith("out of range") and "1e+10 to 1e+20" in problems["plasma.density_cm3"]
+    )
 
 
 @pytest.mark.parametrize("huge", [10**400, -(10**400)])
@@ -111,7 +113,9 @@ def test_ion_driver_needs_mass_and_charge_state():
     problems, _ = problems_of(shot_with({"driver.species": "ion"}))
     assert set(problems) == {"driver.mass_amu", "driver.charge_state"}
     assert all("needed for species ion" in r for r in problems.values())
-    problems, _ = problems_of(shot_with({"driver.species": "ion", "driver.mass_amu": 207.2, "driver.charge_state": 0.5}))
+    problems, _ = problems_of(
+        shot_with({"driver.species": "ion", "driver.mass_amu": 207.2, "driver.charge_state": 0.5})
+    )
     assert problems == {"driver.charge_state": "out of range (must be a non-zero integer)"}
 
 
@@ -122,12 +126,25 @@ def test_electron_bunch_seed_needs_its_bunch_fields():
 
 
 def test_every_failing_field_is_listed_at_once_in_table_order():
-    shot = shot_with({"driver.species": "muon", "driver.momentum_gev": 0.0, "plasma.length_m": math.nan,
-                      "plasma.ion_charge": 0, "measured.modulation_freq_ghz": -3})
+    shot = shot_with(
+        {
+            "driver.species": "muon",
+            "driver.momentum_gev": 0.0,
+            "plasma.length_m": math.nan,
+            "plasma.ion_charge": 0,
+            "measured.modulation_freq_ghz": -3,
+        }
+    )
     del shot["driver"]["population"]
     problems, message = problems_of(shot)
-    expected = ["driver.species", "driver.momentum_gev", "driver.population", "plasma.length_m",
-                "plasma.ion_charge", "measured.modulation_freq_ghz"]
+    expected = [
+        "driver.species",
+        "driver.momentum_gev",
+        "driver.population",
+        "plasma.length_m",
+        "plasma.ion_charge",
+        "measured.modulation_freq_ghz",
+    ]
     assert list(problems) == expected
     assert all(path in message for path in expected)
 
@@ -183,7 +200,10 @@ def test_input_fields_table_describes_every_section_one_field():
 def test_columns_built_from_api_payloads_can_refuse_nan_instead_of_reading_it_as_absent():
     from model import validate_columns
 
-    columns = {"driver.species": np.array(["proton"], dtype=object), "driver.offset_x_mm": np.array([math.nan], dtype=object)}
+    columns = {
+        "driver.species": np.array(["proton"], dtype=object),
+        "driver.offset_x_mm": np.array([math.nan], dtype=object),
+    }
     for path, value in GOOD["driver"].items():
         columns.setdefault(f"driver.{path}", np.array([value], dtype=object))
     for path, value in GOOD["plasma"].items():

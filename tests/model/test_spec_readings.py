@@ -25,14 +25,26 @@ def _rebuild_wakefield(result, shot, factor_argument):
     zeta_s = shot["seed"].get("position_mm", 0.0) * 1e-3 if shot["seed"]["method"] != "none" else 0.0
     n_ref_over_n0 = result["density_ratio"] * math.exp(-((zeta_s - sigma_z) ** 2) / (2 * sigma_z**2))
     n_ref_efolds = result["phase_slip_rad"] * math.sqrt(3)
-    return (wavebreaking_field(n0) * n_ref_over_n0 * u * envelope_seed_factor(factor_argument(u))
-            * 1.5 * kp * sigma_z / n_ref_efolds * result["modulation_exit"] / 1e6)
+    return (
+        wavebreaking_field(n0)
+        * n_ref_over_n0
+        * u
+        * envelope_seed_factor(factor_argument(u))
+        * 1.5
+        * kp
+        * sigma_z
+        / n_ref_efolds
+        * result["modulation_exit"]
+        / 1e6
+    )
 
 
 @pytest.mark.parametrize("shot", [EX1, EX2, EX3], ids=["ex-1", "ex-2", "ex-3"])
 def test_wakefield_estimate_uses_h_of_a_as_written_not_h_of_u(shot):
     result = evaluate_shot(shot)
-    assert result["wakefield_estimate_mv_m"] == pytest.approx(_rebuild_wakefield(result, shot, lambda u: u / 2), rel=1e-12)
+    assert result["wakefield_estimate_mv_m"] == pytest.approx(
+        _rebuild_wakefield(result, shot, lambda u: u / 2), rel=1e-12
+    )
     assert result["wakefield_estimate_mv_m"] != pytest.approx(_rebuild_wakefield(result, shot, lambda u: u), rel=1e-3)
 
 
@@ -78,9 +90,12 @@ def test_unsaturated_shot_reports_its_exit_modulation_and_a_negative_margin():
 def test_saturated_shot_sets_z_ref_to_the_saturation_length():
     result = evaluate_shot(EX1)
     assert result["modulation_exit"] == 1.0
-    assert result["divergence_ratio"] == pytest.approx(result["saturation_length_m"] / result["waist_beta_m"], rel=1e-12)
+    assert result["divergence_ratio"] == pytest.approx(
+        result["saturation_length_m"] / result["waist_beta_m"], rel=1e-12
+    )
     assert result["efolds_exit"] * (result["saturation_length_m"] / 8.0) ** (2 / 3) == pytest.approx(
-        result["phase_slip_rad"] * math.sqrt(3), rel=1e-12)
+        result["phase_slip_rad"] * math.sqrt(3), rel=1e-12
+    )
 
 
 def test_flags_report_the_metric_value_and_the_limit_that_was_crossed():
