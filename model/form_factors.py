@@ -19,6 +19,8 @@ All functions take u > 0 (scalars or arrays) and return NaN for NaN input.
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 from numpy.polynomial import chebyshev as _cheb
 from numpy.typing import ArrayLike
@@ -40,7 +42,7 @@ def _octave_coefficients() -> np.ndarray:
     for j in range(_OCTAVES):
         low = 2.0**j
 
-        def g_on_octave(x: np.ndarray, low: float = low) -> np.ndarray:
+        def g_on_octave(x: np.ndarray, low: float = low) -> Any:
             u = low * (x + 3.0) / 2.0
             return np.exp(u) * special.exp1(u)
 
@@ -133,7 +135,7 @@ def scaled_exponential_integral(u: ArrayLike) -> np.ndarray:
 
 
 def gaussian_on_axis_factor(a: ArrayLike) -> np.ndarray:
-    """On-axis wake factor of a Gaussian slice R(a) = (1/2) e^a E1(a), a = (k_p sigma_r)^2 / 2 (Keinigs & Jones, Phys. Fluids 30, 252 (1987) kernel)."""
+    """On-axis factor R(a) = (1/2) e^a E1(a), a = (k_p sigma_r)^2/2 (Keinigs & Jones, Phys. Fluids 30, 252 (1987))."""
     return 0.5 * scaled_exponential_integral(a)
 
 

@@ -7,6 +7,7 @@ Settings shape (every key optional in an override; overrides merge over the defa
       "noise_floor": 1e-3,              # floor of the relative noise eta
       "phase_tolerance_rad": pi/10,     # allowed phase jitter for density_tolerance_pct
       "saturation_modulation": 1.0,     # delta_sat
+      "density_scale": 1.0,             # n_0 = density_scale x plasma.density_cm3 (the density calibration)
       "limits": {
         "WEAK_SEED": {"marginal": 4.0, "outside": 2.0},   # one entry per rule with limits
         ...,
@@ -68,7 +69,7 @@ RULES: tuple[Rule, ...] = (
         "k_p sigma_r",
         "The beam is too wide compared with the plasma skin depth",
     ),
-    Rule("NONLINEAR_DRIVE", "density_ratio", "above", "n_b0/n_0", "The beam is too dense for the linear model"),
+    Rule("NONLINEAR_DRIVE", "density_ratio", "above", "|Z| n_b0/n_0", "The beam is too dense for the linear model"),
     Rule(
         "WEAK_GROWTH",
         "growth_margin_efolds",
@@ -113,6 +114,13 @@ RULES: tuple[Rule, ...] = (
         "Plasma ions may move enough to spoil the wake, by an order-of-magnitude estimate",
     ),
     Rule(
+        "SLOW_DRIVER",
+        "lorentz_gamma",
+        "below",
+        "gamma",
+        "The driver is too slow for the model, which takes it at the speed of light",
+    ),
+    Rule(
         "UNSEEDED",
         "",
         "always",
@@ -136,6 +144,7 @@ DEFAULT_SETTINGS: dict[str, Any] = {
     "noise_floor": 1e-3,
     "phase_tolerance_rad": math.pi / 10,
     "saturation_modulation": 1.0,
+    "density_scale": 1.0,
     "limits": {
         "BUNCH_NOT_LONG": {"marginal": 10.0, "outside": 3.0},
         "BEAM_TOO_WIDE": {"marginal": 1.5, "outside": 3.0},
@@ -147,11 +156,12 @@ DEFAULT_SETTINGS: dict[str, Any] = {
         "DENSITY_MISMATCH": {"marginal": 2.0, "outside": 5.0},
         "HOSING_RISK": {"marginal": 0.3, "outside": 1.0},
         "ION_MOTION": {"marginal": 0.3, "outside": 1.0},
+        "SLOW_DRIVER": {"marginal": 10.0, "outside": 3.0},
         "ASYMPTOTIC_LIMIT": {"info": 0.1},
     },
 }
 
-_POSITIVE_SETTINGS = ("reference_slice_sigma", "phase_tolerance_rad", "saturation_modulation")
+_POSITIVE_SETTINGS = ("reference_slice_sigma", "phase_tolerance_rad", "saturation_modulation", "density_scale")
 
 
 def _number(value: Any, path: str, problems: list[tuple[str, str]]) -> float | None:

@@ -28,7 +28,7 @@ def test_on_axis_factor_equals_direct_integral_of_the_k0_greens_function():
     k_p = 1.0
     for sigma in (0.01, 0.1, 0.3, 1.0, 2.0, 5.0):
 
-        def integrand(x):
+        def integrand(x, sigma=sigma):
             return special.k0(k_p * sigma * x) * np.exp(-x * x / 2) * x
 
         value = sum(
@@ -65,7 +65,7 @@ def test_wake_kernel_h_equals_its_integral_form_for_small_and_large_u():
     # = (1/u) int_0^inf e^{-s} s/(u+s) ds with t = s/u (so quad sees an O(1) scale).
     for u in (1e-6, 1e-3, 0.1, 1.0, 3.0, 7.9, 8.1, 30.0, 300.0, 1e4):
 
-        def integrand(s):
+        def integrand(s, u=u):
             return np.exp(-s) * s / (u + s)
 
         value = (

@@ -18,6 +18,7 @@ from model import (
     evaluate_shot,
     evaluate_table,
     resolve_settings,
+    validate_columns,
 )
 
 EXAMPLE = {
@@ -194,3 +195,28 @@ def test_a_settings_error_names_each_bad_setting_by_its_path():
         )
     paths = [path for path, _ in caught.value.problems]
     assert paths == ["noise_floor", "limits.ION_MOTION.marginal", "limits.WEAK_SEED"]
+
+
+def test_validated_columns_pass_through_evaluate_table_unchecked_and_cannot_be_changed():
+    # validate once: the ingest path validates, then evaluates the same validated columns
+    columns = to_columns(mixed_shots(n=50, seed=11))
+    clean = validate_columns(columns)
+    assert validate_columns(clean) is clean
+    with pytest.raises(ValueError):
+        clean["plasma.density_cm3"][0] = -1.0
+    table, again = evaluate_table(clean), evaluate_table(columns)
+    for name, values in table.items():
+        np.testing.assert_array_equal(values, again[name])
+
+
+def test_density_scale_is_a_model_setting_shown_with_the_others():
+    # the settings form and the API list DEFAULT_SETTINGS; density_scale calibrates the logged density (MODEL.md 2)
+    assert DEFAULT_SETTINGS["density_scale"] == 1.0
+    assert [k for k in DEFAULT_SETTINGS if k != "limits"] == [
+        "reference_slice_sigma",
+        "noise_floor",
+        "phase_tolerance_rad",
+        "saturation_modulation",
+        "density_scale",
+    ]
+    assert DEFAULT_SETTINGS["limits"]["SLOW_DRIVER"] == {"marginal": 10.0, "outside": 3.0}

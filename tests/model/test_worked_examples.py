@@ -1,4 +1,4 @@
-"""The three worked examples of MODEL.md section 9 (invented shots): every output to 1e-6."""
+"""The five worked examples of MODEL.md section 9 (invented shots): every output to 1e-6."""
 
 from __future__ import annotations
 
@@ -63,7 +63,7 @@ def _columns(shots):
     return {path: [shot.get(path.split(".")[0], {}).get(path.split(".")[1]) for shot in shots] for path in paths}
 
 
-def test_evaluate_table_on_the_three_examples_at_once_equals_evaluate_shot():
+def test_evaluate_table_on_the_five_examples_at_once_equals_evaluate_shot():
     shots = [c["input"] for c in CASES]
     table = evaluate_table(_columns(shots))
     for i, shot in enumerate(shots):
