@@ -203,8 +203,6 @@ INPUT_FIELDS: tuple[InputField, ...] = (
     _f("measured.witness_energy_mev", "MeV", "float", "witness energy"),
 )
 
-FIELDS_BY_PATH: dict[str, InputField] = {f.path: f for f in INPUT_FIELDS}
-
 _NEEDED_TEXT = {
     "species=ion": "missing (needed for species ion)",
     "seeded": "missing (needed for seed methods ionization_front and electron_bunch)",

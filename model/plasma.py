@@ -16,7 +16,6 @@ from scipy import constants as _c
 from model.units import PER_CM3
 
 ELECTRON_MASS = _c.m_e
-PROTON_MASS = _c.m_p
 ATOMIC_MASS = _c.physical_constants["atomic mass constant"][0]
 ELEMENTARY_CHARGE = _c.e
 VACUUM_PERMITTIVITY = _c.epsilon_0
@@ -64,12 +63,6 @@ def lorentz_factor(momentum: ArrayLike, mass: ArrayLike) -> np.ndarray:
     """Lorentz factor gamma = sqrt(1 + (p / M c)^2) for momentum p [kg m/s], mass M [kg] (special relativity)."""
     beta_gamma = np.asarray(momentum, dtype=float) / (np.asarray(mass, dtype=float) * SPEED_OF_LIGHT)
     return np.sqrt(1.0 + beta_gamma * beta_gamma)
-
-
-def relativistic_beta(momentum: ArrayLike, mass: ArrayLike) -> np.ndarray:
-    """Velocity over c, beta = p / (gamma M c) (special relativity)."""
-    beta_gamma = np.asarray(momentum, dtype=float) / (np.asarray(mass, dtype=float) * SPEED_OF_LIGHT)
-    return beta_gamma / np.sqrt(1.0 + beta_gamma * beta_gamma)
 
 
 def peak_beam_density(population: ArrayLike, sigma_r: ArrayLike, sigma_z: ArrayLike) -> np.ndarray:

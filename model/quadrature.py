@@ -23,7 +23,6 @@ from numpy.typing import ArrayLike
 KERNEL_STEP = 0.38
 KERNEL_LOG_T_MIN = -14.5
 KERNEL_LOG_T_MAX = 12.0
-KERNEL_U_RANGE = (1e-4, 1e2)  # u range of the fixed rule KERNEL_NODES, checked to 1e-8 relative
 
 
 @functools.lru_cache(maxsize=256)
