@@ -73,14 +73,7 @@ def _core(
     nb0 = plasma.peak_beam_density(population, sigma_r, sigma_z)
     kp_sigma_r = kp * sigma_r
     u = kp_sigma_r * kp_sigma_r
-    bunch = np.flatnonzero(method == _ELECTRON_BUNCH)
-    kp_sigma_r_seed = kp[bunch] * (cols["seed.electron_sigma_r_mm"][bunch] * U.MM)
-    # One pass over the form factors for every argument at once: H(u), F(u); R(a) of the driver and of a seed bunch.
-    m = u.size
-    g, _, seed_factor, growth_factor = ff.slice_form_factors(np.concatenate([u, 0.5 * u, 0.5 * kp_sigma_r_seed**2]))
-    seed_factor, growth_factor = seed_factor[:m], growth_factor[:m]  # H(u), F(u)
-    on_axis = u * (0.5 * g[m : 2 * m])  # (k_p sigma_r)^2 R(a)
-    seed_on_axis = 0.5 * g[2 * m :]  # R((k_p sigma_rs)^2/2)
+    on_axis, seed_factor, growth_factor = ff.driver_slice_factors(u)  # (k_p sigma_r)^2 R(a), H(u), F(u)
     eps_g = plasma.geometric_emittance(cols["driver.emittance_n_mm_mrad"] * U.MM_MRAD, momentum, mass)
 
     put("plasma_frequency_ghz", f_p * (1.0 / U.GHZ))
@@ -103,7 +96,11 @@ def _core(
     zeta_s[unseeded] = 0.0  # unseeded: the reference slice is placed behind the centre
     field_per_density = seed.cut_field_per_density(kp, charge, on_axis)
     log_n_seed = seed.log_ionization_front_seed_density(nb0, zeta_s, sigma_z)
+    bunch = np.flatnonzero(method == _ELECTRON_BUNCH)
     if bunch.size:
+        kp_sigma_r_seed = kp[bunch] * (cols["seed.electron_sigma_r_mm"][bunch] * U.MM)
+        u_seed = kp_sigma_r_seed * kp_sigma_r_seed
+        seed_on_axis = ff.driver_slice_factors(u_seed)[0] / u_seed  # R((k_p sigma_rs)^2/2)
         log_field = seed.log_electron_bunch_seed_field(
             cols["seed.electron_charge_pc"][bunch] * U.PC,
             cols["seed.electron_sigma_z_mm"][bunch] * U.MM,
@@ -138,7 +135,7 @@ def _core(
         log_force_reported, coupling_reported, log_force_noise, coupling_noise, length, log_sat
     )
     modulation = np.exp(np.minimum(log_delta_exit, log_sat))
-    modulation[saturated] = s["saturation_modulation"]
+    np.copyto(modulation, s["saturation_modulation"], where=saturated)
     kp_xi = kp * xi_ref
     wakefield = growth.wakefield_estimate(e0, abs_charge * n_ref / n0, on_axis, kp_xi, n_ref_efolds, modulation)
     hosing_scale = growth.hosing_efolds_ratio(seed_factor, growth_factor)

@@ -23,6 +23,8 @@ from numpy.typing import ArrayLike
 from scipy import constants as _c
 from scipy import special
 
+from model.tables import cubic_value_and_slope, cubic_values, hermite_rows
+
 GROWTH_PREFACTOR = 3.0**1.5 / 4.0  # b in N = b (I z^2)^{1/3}
 SERIES_EFOLDS_LIMIT = 60.0  # the series below (and at) this N, its asymptotic form above (MODEL.md section 4)
 
@@ -111,39 +113,6 @@ def _series_and_derivative(x: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
             return total, derivative
 
 
-def _hermite_rows(values: np.ndarray, slopes: np.ndarray, step: float) -> np.ndarray:
-    """Cubic coefficients (c0, c1, c2, c3) in t in [0, 1) per interval of a uniform Hermite table, and the end node."""
-    y0, y1, d0, d1 = values[:-1], values[1:], step * slopes[:-1], step * slopes[1:]
-    rows = np.column_stack([y0, d0, 3.0 * (y1 - y0) - 2.0 * d0 - d1, 2.0 * (y0 - y1) + d0 + d1])
-    last = np.array([[values[-1], step * slopes[-1], 0.0, 0.0]])
-    return np.ascontiguousarray(np.vstack([rows, last]))
-
-
-def _cubic_value(rows: np.ndarray, scaled: np.ndarray) -> np.ndarray:
-    """The cubic table at positions `scaled` (in units of the table step, >= 0)."""
-    return _cubic(rows, scaled, False)[0]
-
-
-def _cubic(rows: np.ndarray, scaled: np.ndarray, with_slope: bool = True) -> tuple[np.ndarray, np.ndarray]:
-    """(value, d value / d scaled) of the cubic table at positions `scaled` (the slope is empty unless asked for)."""
-    j = scaled.astype(np.intp)
-    t = scaled - j
-    c0, c1, c2, c3 = rows.take(j, axis=0, mode="clip").T  # in-place Horner below: few temporaries
-    value = c3 * t
-    value += c2
-    value *= t
-    value += c1
-    value *= t
-    value += c0
-    if not with_slope:
-        return value, value[:0]
-    slope = c3 * (3.0 * t)
-    slope += 2.0 * c2
-    slope *= t
-    slope += c1
-    return value, slope
-
-
 _TABLE_INTERVALS = 8192
 _TABLE_STEP = SERIES_EFOLDS_LIMIT / _TABLE_INTERVALS
 _INVERSE_INTERVALS = 8192
@@ -157,14 +126,14 @@ def _series_tables() -> tuple[np.ndarray, np.ndarray, float, float, float]:
     s, ds = _series_and_derivative(x)
     log_s = np.log(np.abs(s))
     dlog_s_dn = (ds / s).real * 3.0 * n * n / _B**3
-    forward = _hermite_rows(log_s, dlog_s_dn, _TABLE_STEP)
+    forward = hermite_rows(log_s, dlog_s_dn, _TABLE_STEP)
     # y(N) is increasing (delta grows with z): checked here, relied on by the inversion.
     y_nodes = 3.0 * np.log(np.maximum(n[1:], 1e-300) / _B) + log_s[1:]
     if not np.all(np.diff(y_nodes) > 0.0):
         raise RuntimeError("ln(x|S(x)|) is not increasing on the table: the inversion would be ambiguous")
 
     def y_and_slope(roots: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        value, slope = _cubic(forward, roots / _TABLE_STEP)
+        value, slope = cubic_value_and_slope(forward, roots / _TABLE_STEP)
         return 3.0 * np.log(roots / _B) + value, 3.0 / roots + slope / _TABLE_STEP
 
     y_low = float(y_and_slope(np.array([_INVERSE_LOW_EFOLDS]))[0][0])
@@ -176,7 +145,7 @@ def _series_tables() -> tuple[np.ndarray, np.ndarray, float, float, float]:
         value, slope = y_and_slope(roots)
         roots = roots - (value - y) / slope
     step = (y_high - y_low) / _INVERSE_INTERVALS
-    return forward, _hermite_rows(roots, 1.0 / y_and_slope(roots)[1], step), y_low, y_high, step
+    return forward, hermite_rows(roots, 1.0 / y_and_slope(roots)[1], step), y_low, y_high, step
 
 
 def _asymptotic_log_series(n: np.ndarray) -> np.ndarray:
@@ -196,7 +165,7 @@ def log_series_magnitude(efolds: ArrayLike) -> np.ndarray:
     """ln|S(x)| at x = (N/b)^3: the series for N <= 60 (its table, to 3e-12), the asymptotic form above (MODEL.md 4)."""
     n = np.asarray(efolds, dtype=float)
     flat = n.reshape(-1)
-    value = _cubic_value(_FORWARD, flat * (1.0 / _TABLE_STEP))
+    (value,) = cubic_values(_FORWARD, flat * (1.0 / _TABLE_STEP))
     large = np.flatnonzero(flat > SERIES_EFOLDS_LIMIT)
     if large.size:
         value[large] = _asymptotic_log_series(flat[large])
@@ -217,7 +186,7 @@ def efolds_at_log_target(log_target: ArrayLike) -> np.ndarray:
     """N solving ln(x|S(x)|) = y, x = (N/b)^3: where D(s, I, z) = e^y s/I, to 1e-11 (MODEL.md section 4)."""
     y = np.asarray(log_target, dtype=float)
     flat = y.reshape(-1)
-    root = _cubic_value(_INVERSE, np.maximum(flat - _Y_LOW, 0.0) * (1.0 / _Y_STEP))
+    (root,) = cubic_values(_INVERSE, np.maximum(flat - _Y_LOW, 0.0) * (1.0 / _Y_STEP))
     np.minimum(root, SERIES_EFOLDS_LIMIT, out=root)
     low = np.flatnonzero(flat < _Y_LOW)
     if low.size:  # below the table: |S| = 1/2, x/2 = e^y

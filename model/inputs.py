@@ -296,10 +296,19 @@ def _enum_column(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return out.astype(str), absent
 
 
-def _all_in_range(f: InputField, floats: np.ndarray, nan_free: bool) -> bool:
-    """Whether every present cell of a float column is finite and in the field's range, by two reductions."""
+def _present_range(floats: np.ndarray) -> tuple[float, float, bool]:
+    """(lowest, highest) of the cells that are not NaN, and whether there is no NaN: two passes where there is none."""
+    if floats.size == 0:
+        return math.nan, math.nan, True
     with np.errstate(invalid="ignore"):
-        low, high = (floats.min(), floats.max()) if nan_free else (np.fmin.reduce(floats), np.fmax.reduce(floats))
+        low, high = float(floats.min()), float(floats.max())  # NaN if any cell is NaN
+        if math.isnan(low) or math.isnan(high):
+            return float(np.fmin.reduce(floats)), float(np.fmax.reduce(floats)), False
+    return low, high, True
+
+
+def _all_in_range(f: InputField, floats: np.ndarray, low: float, high: float) -> bool:
+    """Whether every present cell of a float column, lowest and highest given, is finite and in the field's range."""
     if math.isnan(low):  # nothing present
         return True
     if not (-math.inf < low and high < math.inf):
@@ -371,15 +380,16 @@ def _check_columns(
             continue
         if values.dtype.kind == "f":
             floats = values.astype(float, copy=False)
-            nan_free = not math.isnan(floats.sum())  # one pass; a false alarm (inf - inf) only takes the slow way
+            low, high, nan_free = _present_range(floats)
             absent = np.zeros(n, bool) if nan_free or not blank_nan else np.isnan(floats)
             bad_type = None
         else:
             floats, absent, bad_type = _numeric_column(values, blank_nan)
-            nan_free = not absent.any() and not math.isnan(floats.sum())
+            low, high, nan_free = _present_range(floats)
             if not bad_type.any():
                 bad_type = None
-        if bad_type is not None or not _all_in_range(f, floats, nan_free) or (not blank_nan and not nan_free):
+        in_range = _all_in_range(f, floats, low, high)
+        if bad_type is not None or not in_range or (not blank_nan and not nan_free):
             bad_type = np.zeros(n, bool) if bad_type is None else bad_type
             with np.errstate(invalid="ignore"):
                 good = np.abs(floats) < np.inf

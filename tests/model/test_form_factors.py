@@ -7,6 +7,7 @@ import pytest
 from scipy import integrate, special
 
 from model.form_factors import (
+    driver_slice_factors,
     envelope_growth_factor,
     envelope_seed_factor,
     gaussian_on_axis_factor,
@@ -100,3 +101,14 @@ def test_form_factors_work_on_scalars_and_any_array_shape():
     g, h, big_h, f = slice_form_factors(grid)
     assert g.shape == h.shape == big_h.shape == f.shape == (2, 2)
     assert h[1, 0] == wake_kernel_h(9.0)
+
+
+def test_the_cores_tabulated_driver_factors_equal_the_exact_forms_to_1e_12():
+    # driver_slice_factors (a cubic table in ln u, model.tables) against the exact forms it was built from, inside
+    # the table (1e-6 <= u <= 1e4) and beyond it, where it falls back to them; no outside reference beyond those above
+    u = np.concatenate([np.logspace(-9, 7, 20001), [1e-6, 1e4, 1e-6 * (1 + 1e-15), 1e4 * (1 - 1e-15)]])
+    on_axis, seed_factor, growth_factor = driver_slice_factors(u)
+    np.testing.assert_allclose(on_axis, u * gaussian_on_axis_factor(u / 2), rtol=1e-12)
+    np.testing.assert_allclose(seed_factor, envelope_seed_factor(u), rtol=1e-12)
+    np.testing.assert_allclose(growth_factor, envelope_growth_factor(u), rtol=1e-12)
+    assert driver_slice_factors(2.0)[1] == pytest.approx(float(envelope_seed_factor(2.0)), rel=1e-12)

@@ -69,7 +69,9 @@ def valid_shots(draw: st.DrawFn) -> dict:
     return shot
 
 
-@settings(derandomize=True, max_examples=400, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(
+    derandomize=True, database=None, max_examples=400, deadline=None, suppress_health_check=[HealthCheck.too_slow]
+)
 @given(valid_shots())
 def test_every_valid_random_shot_has_finite_outputs_and_a_status_that_follows_from_its_flags(shot):
     out = evaluate_shot(shot)
