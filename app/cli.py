@@ -25,6 +25,7 @@ from dataclasses import dataclass
 
 from app.advisory import ADVISORY_CAUTION
 from app.config import Settings
+from app.version import VERSION
 
 Handler = Callable[[argparse.Namespace, Settings], int]
 
@@ -49,8 +50,10 @@ def command(name: str, help: str, configure: Callable[[argparse.ArgumentParser],
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="wakeledger",
-                                     description=f"Shot ledger and self-modulation model check. {ADVISORY_CAUTION}")
+    parser = argparse.ArgumentParser(
+        prog="wakeledger", description=f"Shot ledger and self-modulation model check. {ADVISORY_CAUTION}"
+    )
+    parser.add_argument("--version", action="version", version=f"wakeledger {VERSION}")
     parser.add_argument("--database-url", help="overrides DATABASE_URL")
     top = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     groups: dict[str, argparse._SubParsersAction] = {}
@@ -131,13 +134,17 @@ def token_create(args: argparse.Namespace, settings: Settings) -> int:
 
 def _demo_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--port", type=int, default=8000)
-    p.add_argument("--db", default="./wakeledger-demo.db",
-                   help="SQLite file of the demo (created if missing; DATABASE_URL is not used)")
+    p.add_argument(
+        "--db",
+        default="./wakeledger-demo.db",
+        help="SQLite file of the demo (created if missing; DATABASE_URL is not used)",
+    )
     p.add_argument("--log-level", default="warning")
 
 
-@command("demo", help="serve an invented demo campaign on 127.0.0.1; visitors read without signing in",
-         configure=_demo_args)
+@command(
+    "demo", help="serve an invented demo campaign on 127.0.0.1; visitors read without signing in", configure=_demo_args
+)
 def demo(args: argparse.Namespace, settings: Settings) -> int:
     import uvicorn
 
@@ -159,8 +166,9 @@ def demo(args: argparse.Namespace, settings: Settings) -> int:
 class TextProgressBar:
     """A plain-text progress bar on stderr, redrawn in place; silent for small totals."""
 
-    def __init__(self, label: str, minimum_total: int = 1000, width: int = 30, stream=None,
-                 unit: str = "shots") -> None:
+    def __init__(
+        self, label: str, minimum_total: int = 1000, width: int = 30, stream=None, unit: str = "shots"
+    ) -> None:
         self.label, self.minimum_total, self.width, self.unit = label, minimum_total, width, unit
         self.stream = stream or sys.stderr
         self.shown = False
@@ -182,35 +190,40 @@ class TextProgressBar:
 
 
 def _export_args(p: argparse.ArgumentParser) -> None:
-    from app.services.export_formats import EXPORT_FORMATS
+    from app.services.weekly.table import EXPORT_FORMATS
 
     p.add_argument("--campaign", required=True, metavar="SLUG")
-    p.add_argument("--week", metavar="YYYY-Www", help="ISO week in the campaign's timezone, e.g. 2026-W47 "
-                   "(default: the current week)")
+    p.add_argument(
+        "--week",
+        metavar="YYYY-Www",
+        help="ISO week in the campaign's timezone, e.g. 2026-W47 (default: the current week)",
+    )
     p.add_argument("--format", choices=EXPORT_FORMATS, help="default: from the --out file extension")
-    p.add_argument("--out", metavar="PATH", help="file to write, or a directory for the default name "
-                   "wakeledger-SLUG-WEEK.FORMAT (default: that name in the current directory)")
+    p.add_argument(
+        "--out",
+        metavar="PATH",
+        help="file to write, or a directory for the default name "
+        "wakeledger-SLUG-WEEK.FORMAT (default: that name in the current directory)",
+    )
 
 
 @command("export", help="write a campaign's weekly summary as csv, json, html or parquet", configure=_export_args)
 def export(args: argparse.Namespace, settings: Settings) -> int:
-    from datetime import datetime, timezone
     from pathlib import Path
-    from zoneinfo import ZoneInfo
 
     from app.database import make_engine, make_session_factory
-    from app.services.export_formats import EXPORT_FORMATS, export_file_name, write_export_file
-    from app.services.summary import IsoWeek, WeekFormatError, build_weekly_summary
-    from app.store.campaigns import get_campaign
+    from app.errors import NotFound
+    from app.services.weekly.exports import campaign_week_summary, week_problems
+    from app.services.weekly.summary import export_file_name
+    from app.services.weekly.table import EXPORT_FORMATS, write_export_file
 
     def fail(message: str, code: int = 2) -> int:
         print(f"wakeledger export: error: {message}", file=sys.stderr)
         return code
 
-    try:
-        week = IsoWeek.parse(args.week) if args.week is not None else None
-    except WeekFormatError as exc:
-        return fail(str(exc))
+    week, problems = week_problems(args.week, None)
+    if problems:
+        return fail(problems[0][1])
     out = Path(args.out) if args.out else None
     fmt = args.format
     if fmt is None:
@@ -221,18 +234,18 @@ def export(args: argparse.Namespace, settings: Settings) -> int:
     engine = make_engine(settings.database_url)
     try:
         with make_session_factory(engine)() as session:
-            campaign = get_campaign(session, args.campaign)
-            if campaign is None:
-                return fail(f"campaign {args.campaign!r} does not exist", 1)
-            week = week or IsoWeek.containing(datetime.now(timezone.utc), ZoneInfo(campaign.timezone))
-            name = export_file_name(campaign.slug, week.label, fmt)
-            target = out / name if out is not None and out.is_dir() else out or Path(name)
-            if not target.parent.is_dir():
-                return fail(f"directory {str(target.parent)!r} does not exist", 1)
-            summary = build_weekly_summary(session, campaign, week)
+            try:
+                summary = campaign_week_summary(session, args.campaign, week)
+            except NotFound as exc:
+                return fail(exc.detail, 1)
     finally:
         engine.dispose()
-    bar = TextProgressBar(f"{campaign.slug} {week.label} {fmt}")
+    name = export_file_name(summary.campaign_slug, summary.week.label, fmt)
+    target = out / name if out is not None and out.is_dir() else out or Path(name)
+    if not target.parent.is_dir():
+        return fail(f"directory {str(target.parent)!r} does not exist", 1)
+    label = f"{summary.campaign_slug} {summary.week.label}"
+    bar = TextProgressBar(f"{label} {fmt}")
     try:
         write_export_file(summary, fmt, target, progress=bar)
     except OSError as exc:
@@ -240,8 +253,7 @@ def export(args: argparse.Namespace, settings: Settings) -> int:
         return fail(f"could not write {str(target)!r}: {exc.strerror or exc}", 1)
     bar.close()
     empty = " (no shots in this week)" if summary.is_empty else ""
-    print(f"wrote {target}: {summary.shot_count} shots, {campaign.slug} {week.label} ({campaign.timezone}){empty}",
-          file=sys.stderr)
+    print(f"wrote {target}: {summary.shot_count} shots, {label} ({summary.timezone}){empty}", file=sys.stderr)
     return 0
 
 
@@ -249,25 +261,29 @@ def _reevaluate_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--campaign", required=True, metavar="SLUG")
 
 
-@command("reevaluate", help="re-evaluate now, in the foreground, a campaign's shots evaluated with older "
-         "settings or an older model version", configure=_reevaluate_args)
+@command(
+    "reevaluate",
+    help="re-evaluate now, in the foreground, a campaign's shots evaluated with older "
+    "settings or an older model version",
+    configure=_reevaluate_args,
+)
 def reevaluate(args: argparse.Namespace, settings: Settings) -> int:
     from app.database import make_engine, make_session_factory
-    from app.services.campaigns import reevaluate_now
-    from app.store.campaigns import get_campaign
+    from app.services.campaigns import find_campaign
+    from app.services.reevaluation import run_now
     from model import MODEL_VERSION
 
     engine = make_engine(settings.database_url)
     try:
         factory = make_session_factory(engine)
         with factory() as session:
-            known = get_campaign(session, args.campaign) is not None
+            known = find_campaign(session, args.campaign) is not None
         if not known:
             print(f"wakeledger reevaluate: error: campaign {args.campaign!r} does not exist", file=sys.stderr)
             return 1
         bar = TextProgressBar(f"{args.campaign} re-evaluation")
         try:
-            done = reevaluate_now(factory, args.campaign, "cli", lambda d, t, _message: bar(d, t))
+            done = run_now(factory, args.campaign, "cli", lambda d, t, _message: bar(d, t))
         finally:
             bar.close()
     finally:
@@ -279,20 +295,34 @@ def reevaluate(args: argparse.Namespace, settings: Settings) -> int:
 def _simulate_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("shot", metavar="SHOT.json", help="one shot in the API JSON shape")
     p.add_argument("--out", required=True, metavar="PATH", help="HTML file to write (self-contained, opens offline)")
-    p.add_argument("--slices-per-wavelength", type=int, default=16, metavar="N",
-                   help="slices per plasma wavelength (at least 16; default 16)")
-    p.add_argument("--dz-m", type=float, default=None, metavar="DZ",
-                   help="integration step along the plasma in metres (default: the solver's choice)")
+    p.add_argument(
+        "--slices-per-wavelength",
+        type=int,
+        default=16,
+        metavar="N",
+        help="slices per plasma wavelength (at least 16; default 16)",
+    )
+    p.add_argument(
+        "--dz-m",
+        type=float,
+        default=None,
+        metavar="DZ",
+        help="integration step along the plasma in metres (default: the solver's choice)",
+    )
 
 
-@command("simulate", help="run the detailed envelope solver on one shot file and write an HTML report",
-         configure=_simulate_args)
+@command(
+    "simulate",
+    help="run the detailed envelope solver on one shot file and write an HTML report",
+    configure=_simulate_args,
+)
 def simulate(args: argparse.Namespace, settings: Settings) -> int:
     import json
     from pathlib import Path
 
-    from app.problems import ProblemError
-    from app.services.detailed_runs import parse_parameters, problem_lines, simulate_to_html
+    from app.errors import InvalidInput
+    from app.services.detailed_runs.file import problem_lines, simulate_to_html
+    from app.services.detailed_runs.lifecycle import parse_parameters
     from model import ShotInputError
     from model.envelope import EnvelopeSizeError
 
@@ -312,14 +342,17 @@ def simulate(args: argparse.Namespace, settings: Settings) -> int:
         return fail([f"{str(source)!r} is not a JSON shot: {exc}"])
     if not out.parent.is_dir():
         return fail([f"directory {str(out.parent)!r} does not exist"])
-    bar = TextProgressBar(f"{shot.get('shot_id', source.stem) if isinstance(shot, dict) else source.stem} envelope",
-                          minimum_total=0, unit="")
+    bar = TextProgressBar(
+        f"{shot.get('shot_id', source.stem) if isinstance(shot, dict) else source.stem} envelope",
+        minimum_total=0,
+        unit="",
+    )
     try:
         params = parse_parameters({"slices_per_wavelength": args.slices_per_wavelength, "dz_m": args.dz_m})
         doc = simulate_to_html(shot, params, out, progress=lambda fraction: bar(round(1000 * fraction), 1000))
-    except ProblemError as exc:
+    except InvalidInput as exc:
         bar.close()
-        return fail([f"{options.get(e['field'], e['field'])}: {e['reason']}" for e in exc.errors] or [str(exc.detail)])
+        return fail([f"{options.get(field, field)}: {reason}" for field, reason in exc.problems] or [exc.detail])
     except ShotInputError as exc:
         bar.close()
         return fail([f"{str(source)!r} is not a valid shot:"] + problem_lines(exc.problems))

@@ -32,7 +32,7 @@ def normalise_url(url: str) -> str:
     """Accept plain postgres URLs and route them to psycopg 3."""
     for prefix in ("postgres://", "postgresql://"):
         if url.startswith(prefix):
-            return "postgresql+psycopg://" + url[len(prefix):]
+            return "postgresql+psycopg://" + url[len(prefix) :]
     return url
 
 

@@ -1,6 +1,7 @@
 """The FastAPI application: ``create_app(settings=None)``.
 
-Routers are listed once in ``_include_routers``; add yours there.
+Routers are listed once in ``_include_routers``; add yours there. The job runner is
+attached to the session factory while the app runs (``app.services.jobs``).
 """
 
 from __future__ import annotations
@@ -9,14 +10,18 @@ from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
+from fastapi.staticfiles import StaticFiles
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from app.advisory import ADVISORY_CAUTION
 from app.config import Settings, get_settings
 from app.database import make_engine, make_session_factory, upgrade_database
 from app.problems import BODY_TOO_LARGE, ProblemError, install_problem_handlers, problem_response
-from app.services.campaigns import queue_model_upgrade_reevaluations
-from app.services.jobs import JobRunner
+from app.routers import api, detailed_runs, pages, summary
+from app.services import reevaluation
+from app.services.job_kinds import KINDS
+from app.services.jobs import ThreadRunner, attach_runner
+from app.version import VERSION
 
 
 class BodySizeLimit:
@@ -26,8 +31,9 @@ class BodySizeLimit:
         self.app, self.limit = app, limit
 
     def _too_large(self) -> ProblemError:
-        return ProblemError(413, "Content too large", f"the request body exceeds {self.limit} bytes",
-                            type_=BODY_TOO_LARGE)
+        return ProblemError(
+            413, "Content too large", f"the request body exceeds {self.limit} bytes", type_=BODY_TOO_LARGE
+        )
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http":
@@ -59,23 +65,12 @@ class BodySizeLimit:
 
 
 def _include_routers(app: FastAPI) -> None:
-    from app.routers import api
-
     app.include_router(api.router)
     app.include_router(api.ops_router)  # /healthz and /metrics at the root as well
-
-    from fastapi.staticfiles import StaticFiles
-
-    from app.routers import pages
-
     app.include_router(pages.router)
     pages.install_page_handlers(app)
     app.mount("/static", StaticFiles(directory=pages.STATIC_DIR), name="static")
-    from app.routers import summary
-
     app.include_router(summary.router)
-    from app.routers import detailed_runs  # also registers the "detailed_run" job kind
-
     app.include_router(detailed_runs.router)
 
 
@@ -83,25 +78,26 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or get_settings()
     engine = make_engine(settings.database_url)
     factory = make_session_factory(engine)
-    runner = JobRunner(factory)
+    runner = ThreadRunner(factory, KINDS)
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
         if settings.migrate_on_start:
             upgrade_database(settings.database_url)
+        # From now on a job starts as soon as the transaction that queued it commits.
+        attach_runner(factory, runner)
         runner.resume_unfinished()
         # Shots evaluated by an older model version (wakeledger was upgraded) are re-evaluated.
         with factory() as session:
-            upgrade_jobs = queue_model_upgrade_reevaluations(session)
-        for job_id in upgrade_jobs:
-            runner.start(job_id)
+            reevaluation.queue_model_upgrades(session)
         yield
+        attach_runner(factory, None)
         runner.join(timeout=5.0)
         engine.dispose()
 
     app = FastAPI(
         title="wakeledger",
-        version="0.1.0",
+        version=VERSION,
         summary="Shot ledger and self-modulation model check",
         description=ADVISORY_CAUTION,
         lifespan=lifespan,

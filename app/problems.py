@@ -2,8 +2,9 @@
 
 Body: ``type``, ``title``, ``status``, ``detail`` and, for input errors, ``errors``:
 a list of ``{"field": "<dotted path>", "reason": "..."}`` naming every failing field.
-FastAPI/pydantic validation errors and ``model.ShotInputError`` are converted the
-same way, so a client parses one format.
+Services raise domain errors (``app.errors``); ``install_problem_handlers`` maps each
+kind to its status here, once. FastAPI/pydantic validation errors and
+``model.ShotInputError`` are converted the same way, so a client parses one format.
 """
 
 from __future__ import annotations
@@ -17,6 +18,18 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
+from app.errors import (
+    AlreadyExists,
+    DomainError,
+    FieldProblem,
+    Forbidden,
+    InvalidInput,
+    NotFound,
+    ShotConflict,
+    Unauthorized,
+    Unavailable,
+)
+from app.schemas import pydantic_problems
 from model import ShotInputError
 
 PROBLEM_JSON = "application/problem+json"
@@ -31,8 +44,6 @@ FORBIDDEN = "/problems/forbidden"
 BODY_TOO_LARGE = "/problems/body-too-large"
 ALREADY_EXISTS = "/problems/already-exists"
 INTERNAL = "/problems/internal-error"
-
-FieldProblem = tuple[str, str]
 
 
 class ProblemError(HTTPException):
@@ -70,39 +81,33 @@ class ProblemError(HTTPException):
 
 def invalid_input(problems: Sequence[FieldProblem], detail: str | None = None) -> ProblemError:
     """422 naming every failing field."""
-    if detail is None:
-        fields = ", ".join(f for f, _ in problems[:5])
-        more = f" and {len(problems) - 5} more" if len(problems) > 5 else ""
-        detail = f"{len(problems)} invalid field(s): {fields}{more}"
-    return ProblemError(422, "Invalid input", detail, type_=INVALID_INPUT, errors=problems)
-
-
-def not_found(what: str) -> ProblemError:
-    return ProblemError(404, "Not found", f"{what} does not exist", type_=NOT_FOUND)
+    error = InvalidInput(problems, detail)
+    return ProblemError(422, "Invalid input", error.detail, type_=INVALID_INPUT, errors=error.problems)
 
 
 def problem_response(exc: ProblemError) -> JSONResponse:
-    return JSONResponse(
-        exc.body(), status_code=exc.status_code, headers=exc.headers, media_type=PROBLEM_JSON
-    )
+    return JSONResponse(exc.body(), status_code=exc.status_code, headers=exc.headers, media_type=PROBLEM_JSON)
 
 
-def dotted(loc: Sequence[Any]) -> str:
-    """('body', 'shots', 3, 'taken_at') -> 'shots.3.taken_at'; other locations keep their prefix."""
-    parts = list(loc)
-    if parts and parts[0] == "body":
-        parts = parts[1:]
-    return ".".join(str(p) for p in parts) or "body"
+_BEARER = {"WWW-Authenticate": 'Bearer realm="wakeledger"'}
+# Domain error -> (status, title, problem type, headers).
+_DOMAIN: list[tuple[type[DomainError], int, str, str, dict[str, str] | None]] = [
+    (InvalidInput, 422, "Invalid input", INVALID_INPUT, None),
+    (NotFound, 404, "Not found", NOT_FOUND, None),
+    (ShotConflict, 409, "Shot conflict", SHOT_CONFLICT, None),
+    (AlreadyExists, 409, "Already exists", ALREADY_EXISTS, None),
+    (Unauthorized, 401, "Unauthorized", UNAUTHORIZED, _BEARER),
+    (Forbidden, 403, "Forbidden", FORBIDDEN, None),
+    (Unavailable, 503, "Service unavailable", "about:blank", None),
+]
 
 
-def pydantic_problems(errors: Iterable[dict[str, Any]], prefix: str = "") -> list[FieldProblem]:
-    out = []
-    for err in errors:
-        path = dotted(err.get("loc", ()))
-        if prefix:
-            path = f"{prefix}.{path}" if path != "body" else prefix
-        out.append((path, err.get("msg", "invalid")))
-    return out
+def problem_of(error: DomainError) -> ProblemError:
+    """The problem document of a domain error."""
+    for kind, status, title, type_, headers in _DOMAIN:
+        if isinstance(error, kind):
+            return ProblemError(status, title, error.detail, type_=type_, errors=error.problems, headers=headers)
+    return ProblemError(500, "Internal server error", "the error was logged", type_=INTERNAL)
 
 
 _STATUS_TITLES = {
@@ -119,32 +124,30 @@ _STATUS_TITLES = {
 }
 
 
-def install_problem_handlers(app: FastAPI) -> None:
-    async def on_problem(_request: Request, exc: ProblemError) -> JSONResponse:
-        return problem_response(exc)
-
-    async def on_http(_request: Request, exc: StarletteHTTPException) -> JSONResponse:
+def _as_problem(exc: Exception) -> ProblemError:
+    """The problem document of anything a handler below receives."""
+    if isinstance(exc, ProblemError):
+        return exc
+    if isinstance(exc, DomainError):
+        return problem_of(exc)
+    if isinstance(exc, RequestValidationError):
+        return invalid_input(pydantic_problems(exc.errors()))
+    if isinstance(exc, ShotInputError):
+        return invalid_input([(str(f), str(r)) for f, r in exc.problems])
+    if isinstance(exc, StarletteHTTPException):
         title = _STATUS_TITLES.get(exc.status_code, "Error")
         detail = exc.detail if isinstance(exc.detail, str) else title
-        return problem_response(
-            ProblemError(exc.status_code, title, detail, headers=getattr(exc, "headers", None))
-        )
+        return ProblemError(exc.status_code, title, detail, headers=getattr(exc, "headers", None))
+    log.exception("unhandled error", exc_info=exc)
+    return ProblemError(500, "Internal server error", "the error was logged", type_=INTERNAL)
 
-    async def on_validation(_request: Request, exc: RequestValidationError) -> JSONResponse:
-        return problem_response(invalid_input(pydantic_problems(exc.errors())))
 
-    async def on_unexpected(_request: Request, exc: Exception) -> JSONResponse:
-        log.exception("unhandled error", exc_info=exc)
-        return problem_response(
-            ProblemError(500, "Internal server error", "the error was logged", type_=INTERNAL)
-        )
+def install_problem_handlers(app: FastAPI) -> None:
+    """Every error the app raises answers as a problem document (HTTP errors, pydantic and
+    model input errors, domain errors, and anything unexpected as a logged 500)."""
 
-    app.add_exception_handler(ProblemError, on_problem)
-    app.add_exception_handler(StarletteHTTPException, on_http)
-    app.add_exception_handler(RequestValidationError, on_validation)
-    app.add_exception_handler(Exception, on_unexpected)
+    async def on_error(_request: Request, exc: Exception) -> JSONResponse:
+        return problem_response(_as_problem(exc))
 
-    async def on_shot_input(_request: Request, exc: ShotInputError) -> JSONResponse:
-        return problem_response(invalid_input([(str(f), str(r)) for f, r in exc.problems]))
-
-    app.add_exception_handler(ShotInputError, on_shot_input)
+    for kind in (ProblemError, DomainError, StarletteHTTPException, RequestValidationError, ShotInputError, Exception):
+        app.add_exception_handler(kind, on_error)

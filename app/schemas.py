@@ -8,11 +8,32 @@ in ``model.INPUT_FIELDS``).
 
 from __future__ import annotations
 
+from collections.abc import Iterable, Sequence
 from datetime import datetime
 from typing import Any, Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator
+
+
+def dotted(loc: Sequence[Any]) -> str:
+    """('body', 'shots', 3, 'taken_at') -> 'shots.3.taken_at'; other locations keep their prefix."""
+    parts = list(loc)
+    if parts and parts[0] == "body":
+        parts = parts[1:]
+    return ".".join(str(p) for p in parts) or "body"
+
+
+def pydantic_problems(errors: Iterable[Any], prefix: str = "") -> list[tuple[str, str]]:
+    """(field path, reason) of each pydantic error, under ``prefix`` (e.g. ``shots.3``)."""
+    out = []
+    for err in errors:
+        path = dotted(err.get("loc", ()))
+        if prefix:
+            path = f"{prefix}.{path}" if path != "body" else prefix
+        out.append((path, err.get("msg", "invalid")))
+    return out
+
 
 SHOT_ID_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9._:+-]{0,127}$"
 SLUG_PATTERN = r"^[a-z0-9][a-z0-9-]{0,63}$"

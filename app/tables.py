@@ -9,7 +9,7 @@ revision in migrations/versions.
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy import (
@@ -47,15 +47,15 @@ class UTCDateTime(TypeDecorator[datetime]):
             return None
         if value.tzinfo is None:
             raise ValueError("naive datetime given to a UTC column")
-        value = value.astimezone(timezone.utc)
+        value = value.astimezone(UTC)
         return value.replace(tzinfo=None) if dialect.name == "sqlite" else value
 
     def process_result_value(self, value: datetime | None, dialect: Any) -> datetime | None:
         if value is None:
             return None
         if value.tzinfo is None:
-            return value.replace(tzinfo=timezone.utc)
-        return value.astimezone(timezone.utc)
+            return value.replace(tzinfo=UTC)
+        return value.astimezone(UTC)
 
 
 def _utc_dt() -> UTCDateTime:
@@ -209,14 +209,10 @@ class Flag(Base):
     """One fired regime rule of a shot's current evaluation."""
 
     __tablename__ = "flags"
-    __table_args__ = (
-        Index("ix_flags_campaign_code_severity", "campaign_id", "code", "severity"),
-    )
+    __table_args__ = (Index("ix_flags_campaign_code_severity", "campaign_id", "code", "severity"),)
 
     id: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)
-    shot_pk: Mapped[int] = mapped_column(
-        ForeignKey("evaluations.shot_pk", ondelete="CASCADE"), index=True
-    )
+    shot_pk: Mapped[int] = mapped_column(ForeignKey("evaluations.shot_pk", ondelete="CASCADE"), index=True)
     campaign_id: Mapped[int] = mapped_column(ForeignKey("campaigns.id", ondelete="CASCADE"))
     code: Mapped[str] = mapped_column(String(32))
     severity: Mapped[str] = mapped_column(String(16))

@@ -203,6 +203,8 @@ INPUT_FIELDS: tuple[InputField, ...] = (
     _f("measured.witness_energy_mev", "MeV", "float", "witness energy"),
 )
 
+FIELDS_BY_PATH: dict[str, InputField] = {f.path: f for f in INPUT_FIELDS}
+
 _NEEDED_TEXT = {
     "species=ion": "missing (needed for species ion)",
     "seeded": "missing (needed for seed methods ionization_front and electron_bunch)",
@@ -471,6 +473,16 @@ def validate_columns(columns: Mapping[str, Any], nan_is_absent: bool = True) -> 
             [(path, reason + (_rows_text(rows) if rows.size else "")) for path, reason, rows in problems]
         )
     return ValidatedColumns(clean, codes["driver.species"], codes["seed.method"])
+
+
+def refused_rows(columns: Mapping[str, Any], nan_is_absent: bool = True) -> np.ndarray:
+    """The rows validate_columns would refuse, as a boolean mask (the per-row form of the same check)."""
+    n = _column_rows(columns)
+    _, _, problems = _check_columns(columns, n, blank_nan=nan_is_absent)
+    refused = np.zeros(n, dtype=bool)
+    for _, _, rows in problems:
+        refused[rows] = True
+    return refused
 
 
 def shot_to_columns(shot: Mapping[str, Any]) -> tuple[dict[str, np.ndarray], list[tuple[str, str]]]:

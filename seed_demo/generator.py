@@ -19,7 +19,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from datetime import date, datetime, time, timedelta, timezone
+from datetime import UTC, date, datetime, time, timedelta
 from typing import Any
 from zoneinfo import ZoneInfo
 
@@ -145,10 +145,19 @@ def _calendar(rng: np.random.Generator) -> list[_Slot]:
                     continue
                 run += 1
                 for k in range(size):
-                    slots.append(_Slot(
-                        local=times[cursor + k], shift=shift, crew=crew, run=run, index_in_run=k + 1,
-                        block=block, index_in_block=k, block_size=size, first_in_block=k == 0,
-                    ))
+                    slots.append(
+                        _Slot(
+                            local=times[cursor + k],
+                            shift=shift,
+                            crew=crew,
+                            run=run,
+                            index_in_run=k + 1,
+                            block=block,
+                            index_in_block=k,
+                            block_size=size,
+                            first_in_block=k == 0,
+                        )
+                    )
                 cursor += size
         day += timedelta(days=1)
         day_number += 1
@@ -159,7 +168,7 @@ def _step(steps: Sequence[tuple[Any, float]], slot: _Slot) -> tuple[int, Any]:
     """The scan step of this shot: steps share the block by weight, in order."""
     part, parts = slot.block.options.get("part", (1, 1))
     chunk = math.ceil(len(steps) / parts)
-    mine = list(steps[(part - 1) * chunk: part * chunk])
+    mine = list(steps[(part - 1) * chunk : part * chunk])
     weights = np.cumsum([w for _, w in mine])
     k = int(np.searchsorted(weights / weights[-1], (slot.index_in_block + 0.5) / slot.block_size))
     return (part - 1) * chunk + k, mine[k][0]
@@ -316,6 +325,7 @@ def _record_as_daq(shot: _Shot) -> None:
 
 # --- truth and diagnostics ------------------------------------------------------------
 
+
 def _evaluate_truth(shots: Sequence[_Shot]) -> dict[str, np.ndarray]:
     """The model's outputs for the machine as it really was (true density, no drift in the record)."""
     columns: dict[str, np.ndarray] = {}
@@ -412,14 +422,25 @@ _FIRST_NOTES = {
     "unseeded-reference": "seed laser blocked on purpose: unseeded reference shots",
 }
 _RANDOM_NOTES = (
-    "stable", "streak camera gain changed", "witness timing tweaked by 2 ps",
-    "heterodyne receiver re-armed", "laser energy 3 % low", "OTR screen 2 in",
-    "<b>check BPM</b> 3, reading jumps", "vacuum spike upstream, recovered",
-    "cell temperature settled", "DAQ restarted <i>no data lost</i>", "seed <-> bunch timing ok",
-    "n_e > target? compare with interferometer", "halo screen saturated, filter in",
+    "stable",
+    "streak camera gain changed",
+    "witness timing tweaked by 2 ps",
+    "heterodyne receiver re-armed",
+    "laser energy 3 % low",
+    "OTR screen 2 in",
+    "<b>check BPM</b> 3, reading jumps",
+    "vacuum spike upstream, recovered",
+    "cell temperature settled",
+    "DAQ restarted <i>no data lost</i>",
+    "seed <-> bunch timing ok",
+    "n_e > target? compare with interferometer",
+    "halo screen saturated, filter in",
 )
 _ALIGNMENT_NOTES = (
-    "<b>check BPM</b>", "offset x > 0.1 mm", "steering by hand", "angle still large & drifting",
+    "<b>check BPM</b>",
+    "offset x > 0.1 mm",
+    "steering by hand",
+    "angle still large & drifting",
     "centroid oscillation visible on screen",
 )
 
@@ -433,8 +454,7 @@ def _notes(rng: np.random.Generator, shot: _Shot, measured: dict[str, Any], f_pr
         return _ALIGNMENT_NOTES[int(rng.integers(len(_ALIGNMENT_NOTES)))]
     f_meas = measured.get("modulation_freq_ghz")
     if f_meas is not None and f_meas / f_pred_ghz - 1.0 > 0.03 and rng.random() < 0.15:
-        return (f"f_meas {100 * (f_meas / f_pred_ghz - 1):.1f} % above prediction; "
-                "density gauge recalibration requested")
+        return f"f_meas {100 * (f_meas / f_pred_ghz - 1):.1f} % above prediction; density gauge recalibration requested"
     if rng.random() < 0.04:
         return _RANDOM_NOTES[int(rng.integers(len(_RANDOM_NOTES)))]
     return ""
@@ -444,7 +464,7 @@ def _payload(rng: np.random.Generator, shot: _Shot, truth: dict[str, np.ndarray]
     slot = shot.slot
     measured = _measured(rng, shot, truth, i)
     f_pred = float(plasma_frequency(shot.plasma["density_cm3"] * PER_CM3)) / GHZ
-    taken_at = slot.local.astimezone(timezone.utc)
+    taken_at = slot.local.astimezone(UTC)
     body: dict[str, Any] = {
         "shot_id": f"qm-r{slot.run}-{slot.index_in_run:04d}",
         "taken_at": taken_at.isoformat(timespec="milliseconds").replace("+00:00", "Z"),

@@ -68,7 +68,7 @@ def load_demo_campaign(
     for first in range(0, len(payloads), batch_size):
         # One transaction per batch, as a DAQ posting batches would do.
         with session_factory() as session:
-            result = ingest_shots(session, CAMPAIGN_SLUG, payloads[first:first + batch_size], actor, batch=True)
+            result = ingest_shots(session, CAMPAIGN_SLUG, payloads[first : first + batch_size], actor, batch=True)
         shots_created += result.count("created")
         shots_unchanged += result.count("unchanged") + result.count("duplicate_in_batch")
 

@@ -62,18 +62,23 @@ def _d(day: int) -> date:
 PLAN: dict[date, dict[str, tuple[Block, ...]]] = {
     # 2026-W46
     _d(9): {"early": (Block("commissioning", 34), Block("production")), "late": (Block("production"),)},
-    _d(10): {"early": (Block("density-scan", options={"scan": "wide", "part": (1, 2)}),),
-             "late": (Block("density-scan", options={"scan": "wide", "part": (2, 2)}),)},
-    _d(11): {"early": (Block("seed-scan", options={"scan": "wide", "part": (1, 2)}),),
-             "late": (Block("seed-scan", options={"scan": "wide", "part": (2, 2)}),)},
-    _d(12): {"early": (Block("production"),),
-             "late": (Block("production"),)},
+    _d(10): {
+        "early": (Block("density-scan", options={"scan": "wide", "part": (1, 2)}),),
+        "late": (Block("density-scan", options={"scan": "wide", "part": (2, 2)}),),
+    },
+    _d(11): {
+        "early": (Block("seed-scan", options={"scan": "wide", "part": (1, 2)}),),
+        "late": (Block("seed-scan", options={"scan": "wide", "part": (2, 2)}),),
+    },
+    _d(12): {"early": (Block("production"),), "late": (Block("production"),)},
     _d(13): {"early": (Block("gradient-scan"),), "late": (Block("production"),)},
     _d(14): {"early": (Block("ebunch-seed", options={"scan": True}),)},
     # 2026-W47
     _d(16): {"early": (Block("production"),), "late": (Block("intensity-scan"),)},
-    _d(17): {"early": (Block("alignment", options={"recovery": False}),),
-             "late": (Block("alignment", options={"recovery": True}),)},
+    _d(17): {
+        "early": (Block("alignment", options={"recovery": False}),),
+        "late": (Block("alignment", options={"recovery": True}),),
+    },
     # Wednesday early shift: access for maintenance, no beam.
     _d(18): {"late": (Block("production", 40), Block("quad-trip", 6), Block("production"))},
     _d(19): {"early": (Block("ion-test"),), "late": (Block("production"),)},
@@ -138,29 +143,68 @@ PHASE_CALIBRATION_RAD = 0.9  # phase of the reference slice at the recorded dens
 
 # Scans: step values, and relative weights (shots per step).
 DENSITY_SCAN_WIDE = (
-    (2.2e12, 0.3), (6.0e12, 0.3), (1.5e13, 0.5), (3.0e13, 0.8), (6.0e13, 1.0), (1.2e14, 1.0),
-    (2.2e14, 1.0), (3.5e14, 1.0), (4.6e14, 1.0), (5.8e14, 1.2), (7.0e14, 1.0), (8.5e14, 1.0),
-    (1.05e15, 1.0), (1.35e15, 1.0), (1.8e15, 0.8), (2.4e15, 0.6),
+    (2.2e12, 0.3),
+    (6.0e12, 0.3),
+    (1.5e13, 0.5),
+    (3.0e13, 0.8),
+    (6.0e13, 1.0),
+    (1.2e14, 1.0),
+    (2.2e14, 1.0),
+    (3.5e14, 1.0),
+    (4.6e14, 1.0),
+    (5.8e14, 1.2),
+    (7.0e14, 1.0),
+    (8.5e14, 1.0),
+    (1.05e15, 1.0),
+    (1.35e15, 1.0),
+    (1.8e15, 0.8),
+    (2.4e15, 0.6),
 )
 DENSITY_SCAN_FINE = tuple((5.8e14 * f, 1.0) for f in (0.90, 0.93, 0.96, 0.98, 1.0, 1.02, 1.04, 1.07, 1.10))
 SEED_SCAN_WIDE = (
-    (-45.0, 1.0), (-25.0, 1.0), (-10.0, 1.0), (0.0, 1.0), (12.0, 1.0), (24.0, 1.2), (36.0, 1.0),
-    (50.0, 1.0), (68.0, 1.0), (90.0, 1.0), (115.0, 0.8), (145.0, 0.6), (180.0, 0.5),
-    (215.0, 0.4), (250.0, 0.3),
+    (-45.0, 1.0),
+    (-25.0, 1.0),
+    (-10.0, 1.0),
+    (0.0, 1.0),
+    (12.0, 1.0),
+    (24.0, 1.2),
+    (36.0, 1.0),
+    (50.0, 1.0),
+    (68.0, 1.0),
+    (90.0, 1.0),
+    (115.0, 0.8),
+    (145.0, 0.6),
+    (180.0, 0.5),
+    (215.0, 0.4),
+    (250.0, 0.3),
 )
 SEED_SCAN_FINE = tuple((p, 1.0) for p in (16.0, 18.0, 20.0, 22.0, 24.0, 26.0, 28.0, 30.0, 32.0))
-GRADIENT_SCAN = tuple(
-    (g, 1.0) for g in (-1.4, -1.0, -0.6, -0.3, 0.0, 0.15, 0.3, 0.45, 0.6, 0.8, 1.0, 1.3, 1.7, 2.1)
-)
+GRADIENT_SCAN = tuple((g, 1.0) for g in (-1.4, -1.0, -0.6, -0.3, 0.0, 0.15, 0.3, 0.45, 0.6, 0.8, 1.0, 1.3, 1.7, 2.1))
 INTENSITY_SCAN = (
-    (1.6e11, 1.0), (1.3e11, 1.0), (1.0e11, 1.0), (7.5e10, 1.0), (5.5e10, 1.0), (4.0e10, 0.8),
-    (2.5e10, 0.6), (1.4e10, 0.5), (8.0e9, 0.4),
+    (1.6e11, 1.0),
+    (1.3e11, 1.0),
+    (1.0e11, 1.0),
+    (7.5e10, 1.0),
+    (5.5e10, 1.0),
+    (4.0e10, 0.8),
+    (2.5e10, 0.6),
+    (1.4e10, 0.5),
+    (8.0e9, 0.4),
 )
 # Electron-bunch seeding: (charge pC, rms length mm); the long ones seed weakly.
 EBUNCH_SCAN = (
-    ((180.0, 0.28), 1.2), ((120.0, 0.28), 1.0), ((60.0, 0.28), 1.0), ((25.0, 0.28), 1.0),
-    ((8.0, 0.28), 1.0), ((2.0, 0.28), 0.8), ((0.4, 0.28), 0.6), ((0.12, 0.28), 0.4),
-    ((180.0, 0.45), 1.0), ((180.0, 0.6), 0.8), ((180.0, 0.8), 0.6), ((180.0, 0.95), 0.4),
+    ((180.0, 0.28), 1.2),
+    ((120.0, 0.28), 1.0),
+    ((60.0, 0.28), 1.0),
+    ((25.0, 0.28), 1.0),
+    ((8.0, 0.28), 1.0),
+    ((2.0, 0.28), 0.8),
+    ((0.4, 0.28), 0.6),
+    ((0.12, 0.28), 0.4),
+    ((180.0, 0.45), 1.0),
+    ((180.0, 0.6), 0.8),
+    ((180.0, 0.8), 0.6),
+    ((180.0, 0.95), 0.4),
 )
 ION_TEST = (("helium", 4.0026, 0.6), ("hydrogen", 1.008, 0.4))  # gas, ion mass (u), share
 QUAD_TRIP_SIGMA_R_MM = (0.45, 0.78, 0.92, 0.86, 0.64, 0.38)

@@ -68,8 +68,11 @@ def _wanted_backends() -> list[str]:
 
 
 def _backend_params() -> list[Any]:
-    return [pytest.param(b, marks=[pytest.mark.postgres] if b == "postgresql" else [], id=b)
-            for b in ("sqlite", "postgresql") if b in _wanted_backends()]
+    return [
+        pytest.param(b, marks=[pytest.mark.postgres] if b == "postgresql" else [], id=b)
+        for b in ("sqlite", "postgresql")
+        if b in _wanted_backends()
+    ]
 
 
 # --- PostgreSQL scratch databases -------------------------------------------------------------

@@ -2,19 +2,14 @@
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
 from typing import Annotated
-from zoneinfo import ZoneInfo
 
-from fastapi import APIRouter, Depends, Query, Response
-from sqlalchemy.orm import Session
+from fastapi import APIRouter, Query, Response
 
-from app.deps import get_session
-from app.problems import invalid_input
-from app.services import campaigns as campaign_service
-from app.services.auth import TokenInfo, require_role
-from app.services.export_formats import EXPORT_FORMATS, MEDIA_TYPES, export_file_name, render_export
-from app.services.summary import IsoWeek, WeekFormatError, build_weekly_summary
+from app.routers.deps import DB, Viewer
+from app.routers.responses import file_response
+from app.services.weekly import exports
+from app.services.weekly.table import MEDIA_TYPES
 
 router = APIRouter(prefix="/api/v1", tags=["summary"])
 
@@ -28,34 +23,13 @@ _INLINE = {"html", "json"}
 )
 def weekly_summary(
     slug: str,
-    session: Annotated[Session, Depends(get_session)],
-    _who: Annotated[TokenInfo, Depends(require_role("viewer"))],
+    session: DB,
+    _who: Viewer,
     week: Annotated[
         str | None,
-        Query(description="ISO week in the campaign's timezone, e.g. 2026-W47 (default: the current week)"),
+        Query(description="ISO week in the campaign's time zone, e.g. 2026-W47 (default: the current week)"),
     ] = None,
     format: Annotated[str, Query(description="csv, json, html or parquet")] = "json",
 ) -> Response:
-    problems = []
-    iso_week = None
-    if week is not None:
-        try:
-            iso_week = IsoWeek.parse(week)
-        except WeekFormatError as exc:
-            problems.append(("week", str(exc)))
-    if format not in EXPORT_FORMATS:
-        problems.append(("format", f"unknown format {format!r}; choose one of {', '.join(EXPORT_FORMATS)}"))
-    if problems:
-        raise invalid_input(problems)
-    campaign = campaign_service.get_campaign_or_404(session, slug)
-    if iso_week is None:
-        iso_week = IsoWeek.containing(datetime.now(timezone.utc), ZoneInfo(campaign.timezone))
-    summary = build_weekly_summary(session, campaign, iso_week)
-    body = render_export(summary, format)
-    name = export_file_name(campaign.slug, iso_week.label, format)
-    disposition = "inline" if format in _INLINE else "attachment"
-    return Response(
-        content=body,
-        media_type=MEDIA_TYPES[format],
-        headers={"Content-Disposition": f'{disposition}; filename="{name}"', "Cache-Control": "no-store"},
-    )
+    export = exports.weekly_export(session, slug, week, format)
+    return file_response(export.body, MEDIA_TYPES[format], export.file_name, inline=format in _INLINE)

@@ -1,30 +1,26 @@
-"""Tokens and roles, for the API (``Authorization: Bearer``) and the dashboard (cookie).
+"""Tokens and roles.
 
 Roles are ordered viewer < ingest < admin; a role grants everything below it. Tokens are
 random strings shown once; only their sha256 is stored. In demo mode an anonymous
-visitor is a viewer (a wrong token is still refused).
+visitor is a viewer (a wrong token is still refused). How a request presents its token
+(Bearer header or the dashboard's cookie) is the web layer's part (``app.routers.deps``).
 """
 
 from __future__ import annotations
 
 import hashlib
 import secrets
-from collections.abc import Callable
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
-from fastapi import Request, Response
 from sqlalchemy.orm import Session
 
-from app.config import Settings
 from app.database import begin_write
-from app.problems import FORBIDDEN, UNAUTHORIZED, ProblemError
+from app.errors import Forbidden, Unauthorized
 from app.store import audit, tokens
 
 ROLES = ("viewer", "ingest", "admin")
 _RANK = {role: i for i, role in enumerate(ROLES)}
-# The dashboard keeps the raw token in this HttpOnly, SameSite=Lax cookie.
-SESSION_COOKIE = "wakeledger_token"
 TOKEN_PREFIX = "wlt_"
 
 
@@ -50,6 +46,11 @@ def has_role(held: str, needed: str) -> bool:
     return _RANK.get(held, -1) >= _RANK[needed]
 
 
+def check_role(role: str) -> None:
+    if role not in _RANK:
+        raise ValueError(f"unknown role {role!r}; choose one of {', '.join(ROLES)}")
+
+
 def hash_token(raw_token: str) -> str:
     return hashlib.sha256(raw_token.encode("utf-8")).hexdigest()
 
@@ -60,17 +61,17 @@ def create_token(session: Session, role: str, name: str, actor: str = "cli", *, 
     With ``replace_named`` the earlier active tokens of the same name are revoked in the
     same transaction (the demo's admin token: only the one printed last stays valid).
     """
-    if role not in _RANK:
-        raise ValueError(f"unknown role {role!r}; choose one of {', '.join(ROLES)}")
+    check_role(role)
     raw = TOKEN_PREFIX + secrets.token_urlsafe(32)
-    now = datetime.now(timezone.utc)
+    now = datetime.now(UTC)
     begin_write(session)
     row = tokens.add_token(session, name, role, hash_token(raw), now)
     audit.record(session, actor, "token.create", target=f"token:{row.id}", detail={"name": name, "role": role})
     if replace_named:
         for revoked in tokens.revoke_tokens_named(session, name, now, keep_id=row.id):
-            audit.record(session, actor, "token.revoke", target=f"token:{revoked}",
-                         detail={"name": name, "replaced_by": row.id})
+            audit.record(
+                session, actor, "token.revoke", target=f"token:{revoked}", detail={"name": name, "replaced_by": row.id}
+            )
     session.commit()
     return raw
 
@@ -85,73 +86,21 @@ def resolve_token(session: Session, raw_token: str | None) -> TokenInfo | None:
     return TokenInfo(name=row.name, role=row.role, token_id=row.id)
 
 
-def token_from_request(request: Request) -> str | None:
-    """The raw token from ``Authorization: Bearer`` or, failing that, the session cookie."""
-    header = request.headers.get("authorization")
-    if header:
-        scheme, _, value = header.partition(" ")
-        if scheme.lower() == "bearer" and value.strip():
-            return value.strip()
-        return header  # malformed: let it fail resolution rather than fall back to the cookie
-    return request.cookies.get(SESSION_COOKIE) or None
-
-
-def _unauthorized(detail: str) -> ProblemError:
-    return ProblemError(
-        401,
-        "Unauthorized",
-        detail,
-        type_=UNAUTHORIZED,
-        headers={"WWW-Authenticate": 'Bearer realm="wakeledger"'},
-    )
-
-
-def principal_from_request(request: Request) -> TokenInfo | None:
-    """Who is calling: a token's identity, the anonymous demo viewer, or None.
-
-    Raises 401 when a token is presented but not valid.
-    """
-    raw = token_from_request(request)
-    settings: Settings = request.app.state.settings
-    if raw is None:
-        return ANONYMOUS_VIEWER if settings.demo_mode else None
-    with request.app.state.session_factory() as session:
-        info = resolve_token(session, raw)
+def identify(session: Session, raw_token: str | None, demo_mode: bool) -> TokenInfo | None:
+    """Who presents ``raw_token``: a token's identity, the anonymous demo viewer (no token in
+    demo mode), or None (no token). Unauthorized when a token is presented but not valid."""
+    if raw_token is None:
+        return ANONYMOUS_VIEWER if demo_mode else None
+    info = resolve_token(session, raw_token)
     if info is None:
-        raise _unauthorized("the token is unknown or revoked")
+        raise Unauthorized("the token is unknown or revoked")
     return info
 
 
-def require_role(role: str) -> Callable[[Request], TokenInfo]:
-    """FastAPI dependency: the caller must hold ``role`` or a higher one (401 / 403)."""
-    if role not in _RANK:
-        raise ValueError(f"unknown role {role!r}")
-
-    def dependency(request: Request) -> TokenInfo:
-        info = principal_from_request(request)
-        if info is None or (info.token_id is None and not info.can(role)):
-            raise _unauthorized(f"a bearer token with the {role} role is required")
-        if not info.can(role):
-            raise ProblemError(
-                403, "Forbidden", f"this needs the {role} role; the token has {info.role}", type_=FORBIDDEN
-            )
-        return info
-
-    dependency.__name__ = f"require_{role}"
-    return dependency
-
-
-def set_session_cookie(response: Response, raw_token: str, settings: Settings) -> None:
-    """Keep a dashboard login: HttpOnly so scripts cannot read it, SameSite=Lax against CSRF."""
-    response.set_cookie(
-        SESSION_COOKIE,
-        raw_token,
-        httponly=True,
-        samesite="lax",
-        secure=settings.secure_cookies,
-        path="/",
-    )
-
-
-def clear_session_cookie(response: Response) -> None:
-    response.delete_cookie(SESSION_COOKIE, path="/")
+def authorize(info: TokenInfo | None, role: str) -> TokenInfo:
+    """The caller must hold ``role`` or a higher one: Unauthorized without a token, Forbidden below it."""
+    if info is None or (info.token_id is None and not info.can(role)):
+        raise Unauthorized(f"a bearer token with the {role} role is required")
+    if not info.can(role):
+        raise Forbidden(f"this needs the {role} role; the token has {info.role}")
+    return info

@@ -1,29 +1,49 @@
-"""Campaigns and their model settings (overrides of ``model.DEFAULT_SETTINGS``)."""
+"""Campaigns: lookup, the writer lock, creation, and the checks of their model settings
+(overrides of ``model.DEFAULT_SETTINGS``). Changing settings is ``campaign_settings``."""
 
 from __future__ import annotations
 
 import copy
 import math
 from collections.abc import Mapping
-from datetime import datetime, timezone
-from typing import TYPE_CHECKING, Any
+from datetime import UTC, datetime
+from typing import Any
 
-from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy.orm import Session
 
 import model
 from app.database import begin_write, run_write
-from app.problems import ALREADY_EXISTS, FieldProblem, ProblemError, invalid_input, not_found
-from app.schemas import CampaignCreate, CampaignOut
+from app.errors import AlreadyExists, FieldProblem, InvalidInput, NotFound
+from app.schemas import CampaignCreate, CampaignList, CampaignOut
 from app.store import audit
 from app.store import campaigns as campaign_store
-from app.tables import Campaign, Job
+from app.tables import Campaign
 
-if TYPE_CHECKING:
-    from app.services.jobs import Progress
+
+def campaign_lock(slug: str) -> str:
+    """Writer lock name shared by ingest, corrections, settings changes and re-evaluation."""
+    return f"campaign:{slug}"
+
+
+def find_campaign(session: Session, slug: str) -> Campaign | None:
+    return campaign_store.get_campaign(session, slug)
+
+
+def require_campaign(session: Session, slug: str) -> Campaign:
+    """The campaign, or NotFound naming it."""
+    campaign = campaign_store.get_campaign(session, slug)
+    if campaign is None:
+        raise NotFound(f"campaign {slug!r}")
+    return campaign
 
 
 def default_settings() -> dict[str, Any]:
     return copy.deepcopy(dict(model.DEFAULT_SETTINGS))
+
+
+def effective_settings(campaign: Campaign) -> dict[str, Any]:
+    """The campaign's settings as the model uses them (defaults with overrides)."""
+    return model.resolve_settings(campaign.model_settings or {})
 
 
 def settings_problems(
@@ -64,16 +84,22 @@ def settings_problems(
     return problems
 
 
-def check_overrides(overrides: Mapping[str, Any], prefix: str = "settings") -> None:
-    """422 unless the model accepts these overrides."""
+def override_problems(overrides: Mapping[str, Any], prefix: str = "settings") -> list[FieldProblem]:
+    """Every problem of a whole set of overrides: kinds first, then the model's own checks."""
     problems = settings_problems(overrides, default_settings(), prefix)
     if not problems:
         try:
             model.resolve_settings(overrides)
         except model.SettingsError as exc:
             problems = [(f"{prefix}.{path}" if path != "settings" else prefix, reason) for path, reason in exc.problems]
+    return problems
+
+
+def check_overrides(overrides: Mapping[str, Any], prefix: str = "settings") -> None:
+    """InvalidInput unless the model accepts these overrides."""
+    problems = override_problems(overrides, prefix)
     if problems:
-        raise invalid_input(problems)
+        raise InvalidInput(problems)
 
 
 def merge_patch(target: Mapping[str, Any], patch: Mapping[str, Any]) -> dict[str, Any]:
@@ -91,14 +117,19 @@ def merge_patch(target: Mapping[str, Any], patch: Mapping[str, Any]) -> dict[str
     return {k: v for k, v in out.items() if v != {}}
 
 
-def campaign_lock(slug: str) -> str:
-    """Writer lock name shared by ingest, corrections, settings changes and re-evaluation."""
-    return f"campaign:{slug}"
-
-
-def effective_settings(campaign: Campaign) -> dict[str, Any]:
-    """The campaign's settings as the model uses them (defaults with overrides)."""
-    return model.resolve_settings(campaign.model_settings or {})
+def merge_patch_between(old: Mapping[str, Any], new: Mapping[str, Any]) -> dict[str, Any]:
+    """The RFC 7386 merge patch that turns ``old`` into ``new`` (null removes a key)."""
+    patch: dict[str, Any] = {}
+    for key in set(old) | set(new):
+        if key not in new:
+            patch[key] = None
+        elif isinstance(new[key], Mapping) and isinstance(old.get(key), Mapping):
+            sub = merge_patch_between(old[key], new[key])
+            if sub:
+                patch[key] = sub
+        elif old.get(key) != new[key]:
+            patch[key] = new[key]
+    return patch
 
 
 def campaign_out(campaign: Campaign, shot_count: int | None = None) -> CampaignOut:
@@ -115,11 +146,14 @@ def campaign_out(campaign: Campaign, shot_count: int | None = None) -> CampaignO
     )
 
 
-def get_campaign_or_404(session: Session, slug: str) -> Campaign:
-    campaign = campaign_store.get_campaign(session, slug)
-    if campaign is None:
-        raise not_found(f"campaign {slug!r}")
-    return campaign
+def campaign_list(session: Session) -> CampaignList:
+    counts = campaign_store.shot_counts(session)
+    return CampaignList(items=[campaign_out(c, counts.get(c.id, 0)) for c in campaign_store.list_campaigns(session)])
+
+
+def campaign_detail(session: Session, slug: str) -> CampaignOut:
+    campaign = require_campaign(session, slug)
+    return campaign_out(campaign, campaign_store.shot_counts(session).get(campaign.id, 0))
 
 
 def create_campaign(session: Session, data: CampaignCreate, actor: str) -> Campaign:
@@ -128,9 +162,7 @@ def create_campaign(session: Session, data: CampaignCreate, actor: str) -> Campa
     def work() -> Campaign:
         begin_write(session, "campaigns")
         if campaign_store.get_campaign(session, data.slug) is not None:
-            raise ProblemError(
-                409, "Campaign exists", f"campaign {data.slug!r} already exists", type_=ALREADY_EXISTS
-            )
+            raise AlreadyExists(f"campaign {data.slug!r} already exists")
         campaign = campaign_store.add_campaign(
             session,
             Campaign(
@@ -140,87 +172,17 @@ def create_campaign(session: Session, data: CampaignCreate, actor: str) -> Campa
                 description=data.description,
                 model_settings=merge_patch({}, data.settings),
                 settings_version=1,
-                created_at=datetime.now(timezone.utc),
+                created_at=datetime.now(UTC),
             ),
         )
-        audit.record(session, actor, "campaign.create", campaign_slug=data.slug, target=data.slug,
-                     detail={"name": data.name, "settings": campaign.model_settings})
+        audit.record(
+            session,
+            actor,
+            "campaign.create",
+            campaign_slug=data.slug,
+            target=data.slug,
+            detail={"name": data.name, "settings": campaign.model_settings},
+        )
         return campaign
 
     return run_write(session, work)
-
-
-def change_settings(session: Session, slug: str, patch: Mapping[str, Any], actor: str) -> tuple[Campaign, Job]:
-    """Apply a merge patch to the campaign's overrides, bump its version, queue re-evaluation."""
-    from app.services import jobs
-
-    problems = settings_problems(patch, default_settings())
-    if problems:
-        raise invalid_input(problems)
-
-    def work() -> tuple[Campaign, Job]:
-        # Same lock as ingest: no shot is evaluated with the old settings after the bump.
-        begin_write(session, campaign_lock(slug))
-        campaign = get_campaign_or_404(session, slug)
-        new = merge_patch(campaign.model_settings or {}, patch)
-        check_overrides(new)
-        version = campaign_store.set_model_settings(session, campaign.id, new)
-        audit.record(session, actor, "campaign.settings", campaign_slug=slug, target=slug,
-                     detail={"patch": dict(patch), "settings_version": version})
-        job = jobs.queue_reevaluation(session, campaign.id, version)
-        session.flush()
-        session.refresh(campaign)
-        return campaign, job
-
-    return run_write(session, work)
-
-
-MODEL_UPGRADE_ACTOR = "wakeledger (model upgrade)"
-
-
-def queue_model_upgrade_reevaluations(session: Session, actor: str = MODEL_UPGRADE_ACTOR) -> list[str]:
-    """Queue the "reevaluate" job of every campaign holding evaluations by another model
-    version, unless one is already queued or running; returns the new job ids (start them)."""
-    from app.services import jobs
-    from app.store import jobs as job_store
-    from app.store import shots as shot_store
-
-    ids = shot_store.campaign_ids_evaluated_by_other_model(session, model.MODEL_VERSION)
-    campaigns = [(c.id, c.slug) for c in (campaign_store.get_campaign_by_id(session, i) for i in ids) if c is not None]
-    session.rollback()  # end the read: each write below begins with its campaign's writer lock
-    queued: list[str] = []
-    for campaign_id, slug in campaigns:
-
-        def work() -> Job | None:
-            # Under the campaign lock, so two processes starting at once queue one job.
-            begin_write(session, campaign_lock(slug))
-            if job_store.has_unfinished_job(session, "reevaluate", campaign_id):
-                return None
-            current = campaign_store.get_campaign_by_id(session, campaign_id)
-            if current is None:
-                return None
-            job = jobs.queue_reevaluation(session, campaign_id, current.settings_version)
-            audit.record(session, actor, "campaign.reevaluate", campaign_slug=slug, target=slug,
-                         detail={"reason": "model upgrade", "model_version": model.MODEL_VERSION, "job": job.id})
-            return job
-
-        job = run_write(session, work)
-        if job is not None:
-            queued.append(job.id)
-    return queued
-
-
-def reevaluate_now(factory: sessionmaker[Session], slug: str, actor: str, progress: Progress) -> int:
-    """Run the campaign's re-evaluation in this thread (``wakeledger reevaluate``); audited.
-    Returns how many shots were re-evaluated."""
-    from app.services.ingest import reevaluate_campaign
-
-    done = reevaluate_campaign(factory, slug, progress)
-    with factory() as session:
-        def work() -> None:
-            begin_write(session)
-            audit.record(session, actor, "campaign.reevaluate", campaign_slug=slug, target=slug,
-                         detail={"reevaluated": done, "model_version": model.MODEL_VERSION})
-
-        run_write(session, work)
-    return done

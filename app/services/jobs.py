@@ -1,8 +1,16 @@
-"""Background jobs in threads, with progress persisted in the jobs table.
+"""Background jobs: infrastructure only (the kinds live with the work they do).
 
-A job kind is a function ``run(factory, job_id, progress) -> result dict`` registered in
-``JOB_KINDS``. Jobs left queued or running by a stopped process are resumed at start-up
-(every kind must therefore be safe to restart).
+- ``queue_job(session, kind, campaign_id, params)`` is the one way to ask for work: it
+  inserts a queued row in the caller's transaction. When that transaction commits, the
+  session factory's runner (if one is attached) is notified and starts the job; with no
+  runner attached (a CLI process, or a server that has not started yet) the row waits
+  in the table until a runner resumes it. Nobody calls a runner directly.
+- A runner (``JobRunner``) runs queued jobs; ``ThreadRunner`` runs each on a daemon
+  thread of this process. A job is a function ``run(factory, job_id, progress) -> result``
+  looked up by kind in the mapping the runner is given (``app.services.job_kinds``).
+  Progress and results are written to the ``jobs`` table, so any process can read them.
+- Jobs left queued or running by a stopped process are resumed when a runner starts,
+  so every kind must be safe to restart.
 """
 
 from __future__ import annotations
@@ -10,13 +18,16 @@ from __future__ import annotations
 import logging
 import threading
 import uuid
-from collections.abc import Callable
-from typing import Any
+from collections.abc import Callable, Mapping
+from typing import Any, Protocol
 
+from sqlalchemy import event
 from sqlalchemy.orm import Session, sessionmaker
 
 from app.database import begin_write
+from app.errors import NotFound
 from app.schemas import JobOut
+from app.store import campaigns as campaign_store
 from app.store import jobs as job_store
 from app.tables import Job
 
@@ -24,22 +35,28 @@ log = logging.getLogger(__name__)
 
 Progress = Callable[[int, int, str], None]  # (done, total, message)
 JobRun = Callable[[sessionmaker[Session], str, Progress], dict[str, Any]]
-JOB_KINDS: dict[str, JobRun] = {}
+
+_QUEUED = "wakeledger.queued_jobs"  # session.info: ids queued in the open transaction
+_RUNNER = "wakeledger.job_runner"  # session.info (set by the factory): the runner to notify
 
 
-def job_kind(name: str) -> Callable[[JobRun], JobRun]:
-    def register(fn: JobRun) -> JobRun:
-        JOB_KINDS[name] = fn
-        return fn
+class JobRunner(Protocol):
+    """What runs queued jobs. The thread runner is the one in use; a worker loop that
+    claims jobs from the table can take its place behind the same three calls."""
 
-    return register
+    def start(self, job_id: str) -> None:
+        """A queued job was committed: run it (a no-op if it already runs)."""
+
+    def resume_unfinished(self) -> None:
+        """Run every job left queued or running."""
+
+    def join(self, timeout: float = 10.0) -> None:
+        """Wait (bounded) for the jobs this runner started."""
 
 
-def new_job(session: Session, kind: str, campaign_id: int | None, params: dict[str, Any] | None = None) -> Job:
-    """A queued job row (committed by the caller's transaction; start it afterwards)."""
-    if kind not in JOB_KINDS:
-        raise ValueError(f"unknown job kind {kind!r}")
-    return job_store.add_job(
+def queue_job(session: Session, kind: str, campaign_id: int | None, params: Mapping[str, Any] | None = None) -> Job:
+    """Insert a queued job row in the caller's transaction; it starts once that commits."""
+    job = job_store.add_job(
         session,
         Job(
             id=str(uuid.uuid4()),
@@ -49,14 +66,45 @@ def new_job(session: Session, kind: str, campaign_id: int | None, params: dict[s
             done=0,
             total=0,
             message="queued",
-            result={"params": params or {}},
+            result={"params": dict(params or {})},
             created_at=job_store.now(),
         ),
     )
+    session.info.setdefault(_QUEUED, []).append(job.id)
+    return job
 
 
-def queue_reevaluation(session: Session, campaign_id: int, settings_version: int) -> Job:
-    return new_job(session, "reevaluate", campaign_id, {"settings_version": settings_version})
+@event.listens_for(Session, "after_commit")
+def _notify_runner(session: Session) -> None:
+    queued = session.info.pop(_QUEUED, None)
+    runner: JobRunner | None = session.info.get(_RUNNER)
+    if queued and runner is not None:
+        for job_id in queued:
+            runner.start(job_id)
+
+
+@event.listens_for(Session, "after_rollback")
+def _forget_queued(session: Session) -> None:
+    session.info.pop(_QUEUED, None)
+
+
+def attach_runner(factory: sessionmaker[Session], runner: JobRunner | None) -> None:
+    """Sessions of ``factory`` notify ``runner`` of the jobs they commit (None: detach)."""
+    info = dict(factory.kw.get("info") or {})
+    if runner is None:
+        info.pop(_RUNNER, None)
+    else:
+        info[_RUNNER] = runner
+    factory.configure(info=info)
+
+
+def job_detail(session: Session, job_id: str) -> JobOut:
+    """A job as the API shows it, or NotFound."""
+    job = job_store.get_job(session, job_id)
+    if job is None:
+        raise NotFound(f"job {job_id!r}")
+    campaign = campaign_store.get_campaign_by_id(session, job.campaign_id) if job.campaign_id else None
+    return job_out(job, campaign.slug if campaign else None)
 
 
 def job_params(job: Job) -> dict[str, Any]:
@@ -79,11 +127,12 @@ def job_out(job: Job, campaign_slug: str | None) -> JobOut:
     )
 
 
-class JobRunner:
-    """Runs jobs on daemon threads; one per app (``app.state.jobs``)."""
+class ThreadRunner:
+    """Runs each job on a daemon thread of this process."""
 
-    def __init__(self, factory: sessionmaker[Session]) -> None:
+    def __init__(self, factory: sessionmaker[Session], kinds: Mapping[str, JobRun]) -> None:
         self._factory = factory
+        self._kinds = kinds
         self._threads: dict[str, threading.Thread] = {}
         self._lock = threading.Lock()
 
@@ -127,22 +176,18 @@ class JobRunner:
             self._update(job_id, done=done, total=total, message=message)
 
         try:
-            result = JOB_KINDS[kind](self._factory, job_id, progress)
+            run = self._kinds.get(kind)
+            if run is None:
+                raise LookupError(f"unknown job kind {kind!r}")
+            result = run(self._factory, job_id, progress)
         except Exception as exc:  # the job fails, the process carries on
             log.exception("job %s failed", job_id)
-            self._update(job_id, merge_result={"error": type(exc).__name__}, state="failed",
-                         finished_at=job_store.now(), message=f"{type(exc).__name__}: {exc}"[:2000])
+            self._update(
+                job_id,
+                merge_result={"error": type(exc).__name__},
+                state="failed",
+                finished_at=job_store.now(),
+                message=f"{type(exc).__name__}: {exc}"[:2000],
+            )
             return
         self._update(job_id, merge_result=result, state="succeeded", finished_at=job_store.now(), message="done")
-
-
-@job_kind("reevaluate")
-def run_reevaluation(factory: sessionmaker[Session], job_id: str, progress: Progress) -> dict[str, Any]:
-    """Re-evaluate every shot of the campaign evaluated with older settings or another model version."""
-    from app.services.ingest import reevaluate_campaign
-    from app.store.campaigns import get_campaign_by_id
-
-    with factory() as session:
-        job = job_store.get_job(session, job_id)
-        slug = get_campaign_by_id(session, job.campaign_id).slug
-    return {"reevaluated": reevaluate_campaign(factory, slug, progress)}

@@ -18,8 +18,10 @@ def _labels(labels: LabelValues, extra: Iterable[tuple[str, str]] = ()) -> str:
     items = list(labels) + list(extra)
     if not items:
         return ""
+
     def esc(v: str) -> str:
         return v.replace("\\", "\\\\").replace("\n", "\\n").replace('"', '\\"')
+
     return "{" + ",".join(f'{k}="{esc(v)}"' for k, v in items) + "}"
 
 
@@ -80,7 +82,7 @@ class Histogram:
         with self._lock:
             items = sorted((k, list(v)) for k, v in self._series.items())
         for key, s in items:
-            for upper, n in zip(self.buckets, s):
+            for upper, n in zip(self.buckets, s, strict=False):
                 lines.append(f"{self.name}_bucket{_labels(key, [('le', _num(upper))])} {_num(n)}")
             lines.append(f"{self.name}_bucket{_labels(key, [('le', '+Inf')])} {_num(s[-1])}")
             lines.append(f"{self.name}_sum{_labels(key)} {_num(s[-2])}")
@@ -89,7 +91,9 @@ class Histogram:
 
 
 SHOTS_INGESTED = Counter("wakeledger_shots_ingested_total", "Shots stored and evaluated (new shots and corrections).")
-SHOTS_UNCHANGED = Counter("wakeledger_shots_unchanged_total", "Shots re-posted with an identical payload (nothing stored).")
+SHOTS_UNCHANGED = Counter(
+    "wakeledger_shots_unchanged_total", "Shots re-posted with an identical payload (nothing stored)."
+)
 SHOTS_REJECTED = Counter("wakeledger_shots_rejected_total", "Shots refused, by reason (invalid, conflict).")
 SHOTS_REEVALUATED = Counter("wakeledger_shots_reevaluated_total", "Shots re-evaluated after a settings change.")
 EVALUATION_SECONDS = Histogram(
@@ -98,7 +102,14 @@ EVALUATION_SECONDS = Histogram(
     (0.0005, 0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5, 5.0, 10.0),
 )
 EVALUATION_SHOTS = Counter("wakeledger_evaluated_shots_total", "Shots passed through the model, by mode.")
-REGISTRY = [SHOTS_INGESTED, SHOTS_UNCHANGED, SHOTS_REJECTED, SHOTS_REEVALUATED, EVALUATION_SECONDS, EVALUATION_SHOTS]
+REGISTRY: list[Counter | Histogram] = [
+    SHOTS_INGESTED,
+    SHOTS_UNCHANGED,
+    SHOTS_REJECTED,
+    SHOTS_REEVALUATED,
+    EVALUATION_SECONDS,
+    EVALUATION_SHOTS,
+]
 
 
 def render() -> str:

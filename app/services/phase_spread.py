@@ -69,8 +69,9 @@ def phase_jitter_rad(phases: ArrayLike) -> float | None:
     if v.size < NEIGHBOUR_WINDOW_SHOTS:
         centre = np.full(v.size, np.mean(unit))
     else:
-        centre = (uniform_filter1d(unit.real, NEIGHBOUR_WINDOW_SHOTS, mode="nearest")
-                  + 1j * uniform_filter1d(unit.imag, NEIGHBOUR_WINDOW_SHOTS, mode="nearest"))
+        centre = uniform_filter1d(unit.real, NEIGHBOUR_WINDOW_SHOTS, mode="nearest") + 1j * uniform_filter1d(
+            unit.imag, NEIGHBOUR_WINDOW_SHOTS, mode="nearest"
+        )
     return robust_spread(np.angle(unit * np.conj(centre)))
 
 

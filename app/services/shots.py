@@ -1,24 +1,32 @@
-"""Reading shots: the JSON shape of a stored shot, filtered pages and revisions."""
+"""Reading shots over the API: the JSON shape of a stored shot, filtered pages with a
+cursor, revisions, and the what-if evaluation of a body (nothing stored)."""
 
 from __future__ import annotations
 
-import math
 from collections.abc import Mapping, Sequence
+from datetime import datetime
 from typing import Any
 
 from sqlalchemy.orm import Session
 
 import model
-from app.problems import invalid_input, not_found
-from app.services.campaigns import get_campaign_or_404
-from app.services.ingest import format_utc, physics_problems
+from app.errors import InvalidInput, NotFound
+from app.plain import plain
+from app.services.campaigns import effective_settings, require_campaign
+from app.services.ingest import check_shot_body
 from app.store import shots as shot_store
 from app.tables import Evaluation, Flag, Shot, ShotRevision
+from app.times import format_utc
 
 
 def flag_out(flag: Flag) -> dict[str, Any]:
-    return {"code": flag.code, "severity": flag.severity, "value": flag.value, "limit": flag.limit,
-            "message": flag.message}
+    return {
+        "code": flag.code,
+        "severity": flag.severity,
+        "value": flag.value,
+        "limit": flag.limit,
+        "message": flag.message,
+    }
 
 
 def evaluation_out(evaluation: Evaluation | None, flags: Sequence[Flag]) -> dict[str, Any] | None:
@@ -50,11 +58,16 @@ def shot_out(shot: Shot, evaluation: Evaluation | None, flags: Sequence[Flag]) -
     }
 
 
-def shot_detail(session: Session, campaign_slug: str, shot_id: str) -> dict[str, Any]:
-    campaign = get_campaign_or_404(session, campaign_slug)
+def _shot(session: Session, campaign_slug: str, shot_id: str) -> Shot:
+    campaign = require_campaign(session, campaign_slug)
     shot = shot_store.get_shot(session, campaign.id, shot_id)
     if shot is None:
-        raise not_found(f"shot {shot_id!r} in campaign {campaign_slug!r}")
+        raise NotFound(f"shot {shot_id!r} in campaign {campaign_slug!r}")
+    return shot
+
+
+def shot_detail(session: Session, campaign_slug: str, shot_id: str) -> dict[str, Any]:
+    shot = _shot(session, campaign_slug, shot_id)
     evaluation = shot_store.get_evaluation(session, shot.id)
     return shot_out(shot, evaluation, shot_store.flags_for(session, [shot.id])[shot.id])
 
@@ -64,22 +77,46 @@ def shot_details_by_pk(session: Session, shot_pks: Sequence[int]) -> dict[int, d
     flags = shot_store.flags_for(session, list(shot_pks))
     for pk in shot_pks:
         shot = session.get(Shot, pk)
+        assert shot is not None
         out[pk] = shot_out(shot, shot_store.get_evaluation(session, pk), flags[pk])
     return out
 
 
 def shot_page(
-    session: Session, campaign_slug: str, f: shot_store.ShotFilter, cursor: str | None, limit: int
+    session: Session,
+    campaign_slug: str,
+    *,
+    status: Sequence[str] = (),
+    flag: Sequence[str] = (),
+    taken_from: datetime | None = None,
+    taken_to: datetime | None = None,
+    seed_method: Sequence[str] = (),
+    descending: bool = False,
+    cursor: str | None = None,
+    limit: int = 100,
 ) -> dict[str, Any]:
-    campaign = get_campaign_or_404(session, campaign_slug)
+    """One page of shots in (taken_at, id) order; unknown statuses or flag codes are refused."""
+    problems = [("status", f"unknown status {s!r}") for s in status if s not in model.STATUSES]
+    problems += [("flag", f"unknown flag code {c!r}") for c in flag if c not in model.FLAG_CODES]
+    if problems:
+        raise InvalidInput(problems)
+    f = shot_store.ShotFilter(
+        status=tuple(status),
+        flag_code=tuple(flag),
+        taken_from=taken_from,
+        taken_to=taken_to,
+        seed_method=tuple(seed_method),
+        descending=descending,
+    )
+    campaign = require_campaign(session, campaign_slug)
     after = None
     if cursor:
         try:
-            at, pk, descending = shot_store.decode_cursor(cursor)
+            at, pk, cursor_descending = shot_store.decode_cursor(cursor)
         except (ValueError, TypeError, KeyError):
-            raise invalid_input([("cursor", "not a cursor issued by this API")]) from None
-        if descending != f.descending:
-            raise invalid_input([("cursor", "was issued for the other sort order")])
+            raise InvalidInput([("cursor", "not a cursor issued by this API")]) from None
+        if cursor_descending != f.descending:
+            raise InvalidInput([("cursor", "was issued for the other sort order")])
         after = (at, pk)
     rows, last = shot_store.list_shots(session, campaign.id, f, after, limit)
     flags = shot_store.flags_for(session, [s.id for s, _ in rows])
@@ -90,38 +127,29 @@ def shot_page(
 
 
 def revision_out(rev: ShotRevision) -> dict[str, Any]:
-    return {"revision": rev.revision, "payload": rev.raw_payload, "reason": rev.reason, "author": rev.author,
-            "created_at": format_utc(rev.created_at)}
+    return {
+        "revision": rev.revision,
+        "payload": rev.raw_payload,
+        "reason": rev.reason,
+        "author": rev.author,
+        "created_at": format_utc(rev.created_at),
+    }
 
 
 def revision_list(session: Session, campaign_slug: str, shot_id: str) -> list[dict[str, Any]]:
-    campaign = get_campaign_or_404(session, campaign_slug)
-    shot = shot_store.get_shot(session, campaign.id, shot_id)
-    if shot is None:
-        raise not_found(f"shot {shot_id!r} in campaign {campaign_slug!r}")
+    shot = _shot(session, campaign_slug, shot_id)
     return [revision_out(r) for r in shot_store.revisions_of(session, shot.id)]
 
 
-def _json_value(value: Any) -> Any:
-    """numpy scalars to Python, NaN to null."""
-    if isinstance(value, Mapping):
-        return {k: _json_value(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_json_value(v) for v in value]
-    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
-
-
-def what_if(payload: Any, settings: Mapping[str, Any] | None, settings_version: int | None) -> dict[str, Any]:
-    """Evaluate a shot body with nothing stored; the same input checks as ingest."""
-    if not isinstance(payload, Mapping):
-        raise invalid_input([("body", "a shot must be a JSON object")])
-    problems = physics_problems(payload)
-    if problems:
-        raise invalid_input(problems)
-    result = _json_value(model.evaluate_shot(payload, settings))
-    result.update(model_version=model.MODEL_VERSION, settings_version=settings_version)
+def what_if(session: Session, payload: Any, campaign_slug: str | None = None) -> dict[str, Any]:
+    """Evaluate a shot body with nothing stored (the campaign's settings if one is named);
+    the same input checks as ingest."""
+    settings: Mapping[str, Any] | None = None
+    version = None
+    if campaign_slug is not None:
+        campaign = require_campaign(session, campaign_slug)
+        settings, version = effective_settings(campaign), campaign.settings_version
+    check_shot_body(payload)
+    result = plain(model.evaluate_shot(payload, settings))
+    result.update(model_version=model.MODEL_VERSION, settings_version=version)
     return result

@@ -2,10 +2,9 @@
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.tables import AuditEntry
@@ -22,7 +21,7 @@ def record(
 ) -> None:
     session.add(
         AuditEntry(
-            at=datetime.now(timezone.utc),
+            at=datetime.now(UTC),
             actor=actor,
             action=action,
             campaign_slug=campaign_slug,
@@ -30,10 +29,3 @@ def record(
             detail=detail or {},
         )
     )
-
-
-def list_entries(session: Session, campaign_slug: str | None = None, limit: int = 100) -> list[AuditEntry]:
-    stmt = select(AuditEntry).order_by(AuditEntry.id.desc()).limit(limit)
-    if campaign_slug is not None:
-        stmt = stmt.where(AuditEntry.campaign_slug == campaign_slug)
-    return list(session.scalars(stmt))

@@ -40,4 +40,6 @@ def set_model_settings(session: Session, campaign_id: int, overrides: dict[str, 
         .where(Campaign.id == campaign_id)
         .values(model_settings=overrides, settings_version=Campaign.settings_version + 1)
     )
-    return session.scalar(select(Campaign.settings_version).where(Campaign.id == campaign_id))
+    version = session.scalar(select(Campaign.settings_version).where(Campaign.id == campaign_id))
+    assert version is not None
+    return version

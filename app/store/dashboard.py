@@ -7,9 +7,9 @@ All datetimes bound here are UTC (SQLite stores them without an offset).
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import datetime
 from typing import Any
 
 from sqlalchemy import (
@@ -25,44 +25,29 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import Session
 
+import model
 from app.tables import Campaign, Evaluation, Flag, Job, Shot, ShotRevision
+from app.times import as_utc
 
-STATUSES = ("nominal", "marginal", "outside")
-# Sorting by status means sorting by severity, not alphabetically.
-STATUS_RANK = case(
-    (Evaluation.status == "outside", 2), (Evaluation.status == "marginal", 1), else_=0
-)
+STATUSES = model.STATUSES
+# Sorting by status means sorting by severity (the status rank), not alphabetically.
+STATUS_RANK = case(*((Evaluation.status == name, rank) for rank, name in enumerate(STATUSES) if rank), else_=0)
 
 # Numeric columns a user may put on a regime-map axis or sort the table by.
 INPUT_COLUMNS: dict[str, ColumnElement[Any]] = {
     c.name: c
     for c in Shot.__table__.columns
-    if c.name.split("_", 1)[0] in ("driver", "plasma", "seed", "measured")
-    and c.type.python_type in (float, int)
+    if c.name.split("_", 1)[0] in model.SECTIONS and c.type.python_type in (float, int)
 }
 OUTPUT_COLUMNS: dict[str, ColumnElement[Any]] = {
     c.name: c
     for c in Evaluation.__table__.columns
-    if c.name not in ("shot_pk", "campaign_id", "settings_version")
-    and c.type.python_type is float
+    if c.name not in ("shot_pk", "campaign_id", "settings_version") and c.type.python_type is float
 }
 NUMERIC_COLUMNS: dict[str, ColumnElement[Any]] = {**INPUT_COLUMNS, **OUTPUT_COLUMNS}
 
 
-def as_utc(value: datetime | None) -> datetime | None:
-    """Aware datetimes to UTC; naive ones (SQLite round trip) are already UTC."""
-    if value is None:
-        return None
-    if value.tzinfo is None:
-        return value.replace(tzinfo=timezone.utc)
-    return value.astimezone(timezone.utc)
-
-
 # --------------------------------------------------------------------------- campaigns
-
-
-def campaign_by_slug(session: Session, slug: str) -> Campaign | None:
-    return session.scalar(select(Campaign).where(Campaign.slug == slug))
 
 
 def campaigns_with_status_counts(session: Session) -> list[tuple[Campaign, dict[str, int], datetime | None]]:
@@ -75,9 +60,7 @@ def campaigns_with_status_counts(session: Session) -> list[tuple[Campaign, dict[
         )
     ):
         counts.setdefault(campaign_id, dict.fromkeys(STATUSES, 0))[status] = n
-    latest = dict(
-        session.execute(select(Shot.campaign_id, func.max(Shot.taken_at)).group_by(Shot.campaign_id)).all()
-    )
+    latest = dict(session.execute(select(Shot.campaign_id, func.max(Shot.taken_at)).group_by(Shot.campaign_id)).all())
     return [(c, counts[c.id], as_utc(latest.get(c.id))) for c in campaigns]
 
 
@@ -87,9 +70,7 @@ def campaigns_with_status_counts(session: Session) -> list[tuple[Campaign, dict[
 def status_counts(session: Session, campaign_id: int) -> dict[str, int]:
     counts = dict.fromkeys(STATUSES, 0)
     rows = session.execute(
-        select(Evaluation.status, func.count())
-        .where(Evaluation.campaign_id == campaign_id)
-        .group_by(Evaluation.status)
+        select(Evaluation.status, func.count()).where(Evaluation.campaign_id == campaign_id).group_by(Evaluation.status)
     )
     for status, n in rows:
         counts[status] = n
@@ -197,12 +178,16 @@ def status_series(
         stmt = stmt.where(Shot.id % step == 0)
     rows = session.execute(stmt).all()
     if len(rows) > max_points:  # ids of this status were denser than average: thin evenly
-        keep = sorted({round(i * (len(rows) - 1) / (max_points - 1)) for i in range(max_points)}) if max_points > 1 else [0]
+        keep = (
+            sorted({round(i * (len(rows) - 1) / (max_points - 1)) for i in range(max_points)})
+            if max_points > 1
+            else [0]
+        )
         rows, step = [rows[i] for i in keep], -(-total // len(keep))
     out: dict[str, list[Any]] = {name: [] for name in columns}
     lists = list(out.values())
     for row in rows:
-        for values, value in zip(lists, row):
+        for values, value in zip(lists, row, strict=False):
             values.append(value)
     return Series(out, total, step)
 
@@ -237,7 +222,7 @@ def phase_rows(session: Session, campaign_id: int, *, max_rows: int, upto_pk: in
     if step > 1:
         stmt = stmt.where(Shot.id % step == 0)
     rows = session.execute(stmt).all()
-    pk, phases, density, per_pct = ([list(c) for c in zip(*rows)] if rows else [[], [], [], []])
+    pk, phases, density, per_pct = [list(c) for c in zip(*rows, strict=False)] if rows else [[], [], [], []]
     return PhaseRows(pk, phases, density, per_pct, total, step)
 
 
@@ -256,12 +241,9 @@ def median_density_offset(session: Session, campaign_id: int) -> tuple[int, floa
     n = session.scalar(base.with_only_columns(func.count())) or 0
     if n == 0:
         return 0, None
-    middle = list(
-        session.scalars(
-            base.with_only_columns(ratio).order_by(ratio).offset((n - 1) // 2).limit(2 - n % 2)
-        )
-    )
-    return n, sum(middle) / len(middle)
+    middle = list(session.scalars(base.with_only_columns(ratio).order_by(ratio).offset((n - 1) // 2).limit(2 - n % 2)))
+    values = [float(v) for v in middle if v is not None]
+    return n, (sum(values) / len(values) if values else None)
 
 
 # ------------------------------------------------------------------------------- table
@@ -282,9 +264,7 @@ class ShotFilter:
             out.append(Evaluation.status == self.status)
         if self.flag_code:
             out.append(
-                Shot.id.in_(
-                    select(Flag.shot_pk).where(Flag.campaign_id == campaign_id, Flag.code == self.flag_code)
-                )
+                Shot.id.in_(select(Flag.shot_pk).where(Flag.campaign_id == campaign_id, Flag.code == self.flag_code))
             )
         if self.taken_from:
             out.append(Shot.taken_at >= as_utc(self.taken_from))
@@ -309,7 +289,7 @@ def _escape_like(text: str) -> str:
 
 
 # Table columns a user may sort by: name -> SQL expression.
-SORT_COLUMNS: dict[str, ColumnElement[Any]] = {
+SORT_COLUMNS: dict[str, Any] = {
     "taken_at": Shot.taken_at,
     "shot_id": Shot.shot_id,
     "status": STATUS_RANK,
@@ -336,10 +316,7 @@ class ShotRow:
 
 def _table_query(campaign_id: int, flt: ShotFilter) -> Select[Any]:
     return (
-        select()
-        .select_from(Shot)
-        .join(Evaluation, Evaluation.shot_pk == Shot.id)
-        .where(*flt.conditions(campaign_id))
+        select().select_from(Shot).join(Evaluation, Evaluation.shot_pk == Shot.id).where(*flt.conditions(campaign_id))
     )
 
 
@@ -347,7 +324,7 @@ def count_shots(session: Session, campaign_id: int, flt: ShotFilter) -> int:
     return session.scalar(_table_query(campaign_id, flt).with_only_columns(func.count())) or 0
 
 
-def _row_columns(value_columns: Sequence[str]) -> list[ColumnElement[Any]]:
+def _row_columns(value_columns: Sequence[str]) -> list[Any]:
     return [
         Shot.id,
         Shot.shot_id,
@@ -374,7 +351,7 @@ def _to_row(row: Sequence[Any], value_columns: Sequence[str]) -> ShotRow:
         seed_method=seed_method,
         notes=notes or "",
         tags=list(tags or []),
-        values=dict(zip(value_columns, row[9:])),
+        values=dict(zip(value_columns, row[9:], strict=False)),
     )
 
 
@@ -415,7 +392,9 @@ def shot_page(
     return rows
 
 
-def shots_after(session: Session, campaign_id: int, after_pk: int, *, limit: int, value_columns: Sequence[str]) -> list[ShotRow]:
+def shots_after(
+    session: Session, campaign_id: int, after_pk: int, *, limit: int, value_columns: Sequence[str]
+) -> list[ShotRow]:
     """Shots stored after ``after_pk`` (the live cursor), oldest first, at most ``limit``."""
     stmt = (
         _table_query(campaign_id, ShotFilter())
@@ -427,24 +406,6 @@ def shots_after(session: Session, campaign_id: int, after_pk: int, *, limit: int
     rows = [_to_row(r, value_columns) for r in session.execute(stmt)]
     _attach_flags(session, rows)
     return rows
-
-
-def iter_filtered_shots(
-    session: Session, campaign_id: int, flt: ShotFilter, *, value_columns: Sequence[str], sort: str, descending: bool, chunk: int = 2000
-) -> Iterator[ShotRow]:
-    """Every shot of the filter, in chunks (keyset on the shot key keeps memory flat)."""
-    key = SORT_COLUMNS[sort]
-    stmt = (
-        _table_query(campaign_id, flt)
-        .with_only_columns(*_row_columns(value_columns))
-        .order_by(key.desc() if descending else key.asc(), Shot.id.desc() if descending else Shot.id.asc())
-        .execution_options(yield_per=chunk)
-    )
-    result = session.execute(stmt)
-    for part in result.partitions():
-        rows = [_to_row(r, value_columns) for r in part]
-        _attach_flags(session, rows)
-        yield from rows
 
 
 # ------------------------------------------------------------------------- one shot

@@ -18,8 +18,12 @@ def add_run(session: Session, run: DetailedRun) -> DetailedRun:
 
 def list_runs(session: Session, shot_pk: int) -> list[DetailedRun]:
     """Newest first, without the (large) result column."""
-    stmt = (select(DetailedRun).options(defer(DetailedRun.result)).where(DetailedRun.shot_pk == shot_pk)
-            .order_by(DetailedRun.id.desc()))
+    stmt = (
+        select(DetailedRun)
+        .options(defer(DetailedRun.result))
+        .where(DetailedRun.shot_pk == shot_pk)
+        .order_by(DetailedRun.id.desc())
+    )
     return list(session.scalars(stmt))
 
 
@@ -28,8 +32,9 @@ def get_run(session: Session, shot_pk: int, run_id: int) -> DetailedRun | None:
 
 
 def latest_run(session: Session, shot_pk: int) -> DetailedRun | None:
-    return session.scalar(select(DetailedRun).where(DetailedRun.shot_pk == shot_pk)
-                          .order_by(DetailedRun.id.desc()).limit(1))
+    return session.scalar(
+        select(DetailedRun).where(DetailedRun.shot_pk == shot_pk).order_by(DetailedRun.id.desc()).limit(1)
+    )
 
 
 def run_id_for_job(session: Session, job_id: str) -> int | None:
@@ -37,12 +42,16 @@ def run_id_for_job(session: Session, job_id: str) -> int | None:
 
 
 def revision_payload(session: Session, shot_pk: int, revision: int) -> dict[str, Any] | None:
-    return session.scalar(select(ShotRevision.raw_payload).where(ShotRevision.shot_pk == shot_pk,
-                                                                 ShotRevision.revision == revision))
+    return session.scalar(
+        select(ShotRevision.raw_payload).where(ShotRevision.shot_pk == shot_pk, ShotRevision.revision == revision)
+    )
 
 
 def unfinished_jobs(session: Session, kind: str, campaign_id: int) -> list[Job]:
     """Queued or running jobs of one kind in a campaign, oldest first (their params say which shot)."""
-    stmt = (select(Job).where(Job.kind == kind, Job.campaign_id == campaign_id, Job.state.in_(("queued", "running")))
-            .order_by(Job.created_at))
+    stmt = (
+        select(Job)
+        .where(Job.kind == kind, Job.campaign_id == campaign_id, Job.state.in_(("queued", "running")))
+        .order_by(Job.created_at)
+    )
     return list(session.scalars(stmt))

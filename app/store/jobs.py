@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy import select, update
@@ -27,10 +27,14 @@ def unfinished_job_ids(session: Session) -> list[str]:
 
 def has_unfinished_job(session: Session, kind: str, campaign_id: int) -> bool:
     """Whether a job of this kind is queued or running for the campaign."""
-    return session.scalar(
-        select(Job.id).where(Job.kind == kind, Job.campaign_id == campaign_id, Job.state.in_(("queued", "running")))
-        .limit(1)
-    ) is not None
+    return (
+        session.scalar(
+            select(Job.id)
+            .where(Job.kind == kind, Job.campaign_id == campaign_id, Job.state.in_(("queued", "running")))
+            .limit(1)
+        )
+        is not None
+    )
 
 
 def set_job(session: Session, job_id: str, **values: Any) -> None:
@@ -38,4 +42,4 @@ def set_job(session: Session, job_id: str, **values: Any) -> None:
 
 
 def now() -> datetime:
-    return datetime.now(timezone.utc)
+    return datetime.now(UTC)

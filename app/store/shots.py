@@ -11,17 +11,18 @@ import json
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
-from typing import Any
+from typing import Any, cast
 
 from sqlalchemy import ColumnElement, Select, Table, and_, bindparam, delete, exists, func, or_, select, text, update
 from sqlalchemy.orm import Session
 
+import model
 from app.tables import Evaluation, Flag, Shot, ShotRevision
 
-SHOTS = Shot.__table__
-REVISIONS = ShotRevision.__table__
-EVALUATIONS = Evaluation.__table__
-FLAGS = Flag.__table__
+SHOTS = cast(Table, Shot.__table__)
+REVISIONS = cast(Table, ShotRevision.__table__)
+EVALUATIONS = cast(Table, Evaluation.__table__)
+FLAGS = cast(Table, Flag.__table__)
 
 
 @dataclass(frozen=True)
@@ -35,7 +36,7 @@ def digests_by_shot_id(session: Session, campaign_id: int, shot_ids: Sequence[st
     out: dict[str, StoredDigest] = {}
     ids = list(shot_ids)
     for start in range(0, len(ids), 900):
-        chunk = ids[start:start + 900]
+        chunk = ids[start : start + 900]
         rows = session.execute(
             select(Shot.shot_id, Shot.id, Shot.payload_sha256).where(
                 Shot.campaign_id == campaign_id, Shot.shot_id.in_(chunk)
@@ -88,13 +89,16 @@ def bulk_insert(session: Session, table: Table, rows: Columns) -> None:
     column_list = ", ".join(quote(n) for n in names)
     if dialect.name == "postgresql":
         # COPY is the bulk path of PostgreSQL; it runs inside the session's transaction.
-        with conn.connection.driver_connection.cursor() as cursor:
+        driver = conn.connection.driver_connection
+        assert driver is not None
+        with driver.cursor() as cursor:
             with cursor.copy(f"COPY {quote(table.name)} ({column_list}) FROM STDIN") as copy:
-                for row in zip(*columns):
+                for row in zip(*columns, strict=False):
                     copy.write_row(row)
         return
-    conn.exec_driver_sql(f"INSERT INTO {quote(table.name)} ({column_list}) VALUES ({', '.join('?' * len(names))})",
-                         list(zip(*columns)))
+    placeholders = ", ".join("?" * len(names))
+    values = list(zip(*columns, strict=True))
+    conn.exec_driver_sql(f"INSERT INTO {quote(table.name)} ({column_list}) VALUES ({placeholders})", values)
 
 
 def insert_shots(session: Session, rows: Columns) -> list[int]:
@@ -111,8 +115,11 @@ def insert_shots(session: Session, rows: Columns) -> list[int]:
         first = (session.scalar(select(func.max(SHOTS.c.id))) or 0) + 1
         pks = list(range(first, first + n))
     else:
-        pks = list(session.scalars(
-            text("SELECT nextval(pg_get_serial_sequence('shots', 'id')) FROM generate_series(1, :n)"), {"n": n}))
+        pks = list(
+            session.scalars(
+                text("SELECT nextval(pg_get_serial_sequence('shots', 'id')) FROM generate_series(1, :n)"), {"n": n}
+            )
+        )
     bulk_insert(session, SHOTS, {"id": pks, **rows})
     return pks
 
@@ -135,7 +142,7 @@ def replace_evaluations(session: Session, rows: Sequence[dict[str, Any]], flag_r
         return
     pks = [r["shot_pk"] for r in rows]
     for start in range(0, len(pks), 900):
-        session.execute(delete(FLAGS).where(FLAGS.c.shot_pk.in_(pks[start:start + 900])))
+        session.execute(delete(FLAGS).where(FLAGS.c.shot_pk.in_(pks[start : start + 900])))
     columns = [c for c in rows[0] if c != "shot_pk"]
     stmt = (
         update(EVALUATIONS)
@@ -203,10 +210,8 @@ def decode_cursor(cursor: str) -> tuple[datetime, int, bool]:
 
 
 def _filtered(campaign_id: int, f: ShotFilter) -> Select[Any]:
-    stmt = (
-        select(Shot, Evaluation)
-        .join(Evaluation, Evaluation.shot_pk == Shot.id)
-        .where(Shot.campaign_id == campaign_id)
+    stmt: Any = (
+        select(Shot, Evaluation).join(Evaluation, Evaluation.shot_pk == Shot.id).where(Shot.campaign_id == campaign_id)
     )
     if f.status:
         stmt = stmt.where(Evaluation.status.in_(list(f.status)))
@@ -248,7 +253,7 @@ def count_shots(session: Session, campaign_id: int) -> int:
 
 
 def input_columns() -> list[str]:
-    return [c.name for c in SHOTS.columns if c.name.split("_", 1)[0] in ("driver", "plasma", "seed", "measured")]
+    return [model.column_name(f.path) for f in model.INPUT_FIELDS]
 
 
 def _is_stale(campaign_id: int, settings_version: int, model_version: str) -> ColumnElement[bool]:
@@ -260,9 +265,12 @@ def _is_stale(campaign_id: int, settings_version: int, model_version: str) -> Co
 
 
 def count_stale(session: Session, campaign_id: int, settings_version: int, model_version: str) -> int:
-    return session.scalar(
-        select(func.count()).select_from(EVALUATIONS).where(_is_stale(campaign_id, settings_version, model_version))
-    ) or 0
+    return (
+        session.scalar(
+            select(func.count()).select_from(EVALUATIONS).where(_is_stale(campaign_id, settings_version, model_version))
+        )
+        or 0
+    )
 
 
 def stale_inputs(
@@ -283,7 +291,11 @@ def stale_inputs(
 
 def campaign_ids_evaluated_by_other_model(session: Session, model_version: str) -> list[int]:
     """Campaigns holding any evaluation made by a model version other than ``model_version``."""
-    return list(session.scalars(
-        select(EVALUATIONS.c.campaign_id).where(EVALUATIONS.c.model_version != model_version)
-        .distinct().order_by(EVALUATIONS.c.campaign_id)
-    ))
+    return list(
+        session.scalars(
+            select(EVALUATIONS.c.campaign_id)
+            .where(EVALUATIONS.c.model_version != model_version)
+            .distinct()
+            .order_by(EVALUATIONS.c.campaign_id)
+        )
+    )

@@ -18,9 +18,7 @@ def add_token(session: Session, name: str, role: str, token_sha256: str, now: da
 
 
 def find_active_token(session: Session, token_sha256: str) -> ApiToken | None:
-    return session.scalar(
-        select(ApiToken).where(ApiToken.token_sha256 == token_sha256, ApiToken.revoked_at.is_(None))
-    )
+    return session.scalar(select(ApiToken).where(ApiToken.token_sha256 == token_sha256, ApiToken.revoked_at.is_(None)))
 
 
 def revoke_tokens_named(session: Session, name: str, now: datetime, *, keep_id: int | None = None) -> list[int]:

@@ -31,8 +31,14 @@ def _time_to_serve(folder: Path) -> tuple[float, float, str]:
     port = _free_port()
     env = {**os.environ, "PYTHONPATH": str(REPO)}
     start = time.perf_counter()
-    proc = subprocess.Popen([sys.executable, "-m", "app.cli", "demo", "--port", str(port)],
-                            cwd=folder, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "app.cli", "demo", "--port", str(port)],
+        cwd=folder,
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.STDOUT,
+        text=True,
+    )
     try:
         healthy = page = float("nan")
         while time.perf_counter() - start < LIMIT_S:

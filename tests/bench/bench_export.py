@@ -17,12 +17,13 @@ from pathlib import Path
 from zoneinfo import ZoneInfo
 
 ROOT = Path(__file__).resolve().parents[2]
-sys.path[:0] = [str(ROOT), str(ROOT / "tests" / "summary")]
+sys.path.insert(0, str(ROOT))
 
 from app.database import make_engine, make_session_factory, upgrade_database  # noqa: E402
-from app.services.export_formats import EXPORT_FORMATS, write_export_file  # noqa: E402
-from app.services.summary import IsoWeek, build_weekly_summary  # noqa: E402
-from week_data import add_campaign, insert_shots, spread_over_week  # noqa: E402
+from app.services.weekly.summary import build_weekly_summary  # noqa: E402
+from app.services.weekly.table import EXPORT_FORMATS, write_export_file  # noqa: E402
+from app.times import IsoWeek  # noqa: E402
+from tests.support.week_data import add_campaign, insert_shots, spread_over_week  # noqa: E402
 
 TARGET_S = 2.0
 
@@ -45,8 +46,10 @@ def main() -> None:
             insert_shots(session, campaign, spread_over_week(start, args.shots), seed=1)
             prev_start, _ = week.previous().bounds_utc(tz)
             insert_shots(session, campaign, spread_over_week(prev_start, args.shots), seed=2, prefix="p")
-        print(f"setup: {2 * args.shots} shots stored in {time.perf_counter() - t0:.1f} s "
-              f"(week {week.label} and the week before, {campaign.timezone})")
+        print(
+            f"setup: {2 * args.shots} shots stored in {time.perf_counter() - t0:.1f} s "
+            f"(week {week.label} and the week before, {campaign.timezone})"
+        )
 
         with factory() as session:
             walls, cpus = [], []
@@ -58,7 +61,10 @@ def main() -> None:
         print(f"build_weekly_summary alone: wall best {min(walls):.3f} s, cpu best {min(cpus):.3f} s")
 
         print(f"load average at start: {os.getloadavg()[0]:.1f} ({os.cpu_count()} cores)")
-        print(f"{'format':8} {'wall best':>9} {'wall worst':>10} {'cpu best':>9} {'size [MB]':>10}  target < {TARGET_S:.0f} s")
+        print(
+            f"{'format':8} {'wall best':>9} {'wall worst':>10} {'cpu best':>9} {'size [MB]':>10}"
+            f"  target < {TARGET_S:.0f} s"
+        )
         for fmt in EXPORT_FORMATS:
             out = Path(tmp) / f"week.{fmt}"
             walls, cpus = [], []
@@ -70,8 +76,10 @@ def main() -> None:
                 walls.append(time.perf_counter() - t)
                 cpus.append(time.process_time() - c)
             verdict = "ok" if min(walls) < TARGET_S else "SLOW"
-            print(f"{fmt:8} {min(walls):9.3f} {max(walls):10.3f} {min(cpus):9.3f} "
-                  f"{out.stat().st_size / 1e6:10.2f}  {verdict}")
+            print(
+                f"{fmt:8} {min(walls):9.3f} {max(walls):10.3f} {min(cpus):9.3f} "
+                f"{out.stat().st_size / 1e6:10.2f}  {verdict}"
+            )
         print(f"load average at end: {os.getloadavg()[0]:.1f}")
 
 

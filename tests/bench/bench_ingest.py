@@ -72,10 +72,10 @@ def start_server(database_url: str) -> tuple[subprocess.Popen, str]:
     sock = socket.socket()
     sock.bind(("127.0.0.1", 0))
     port = sock.getsockname()[1]
-    env = {**os.environ, "DATABASE_URL": database_url, "WAKELEDGER_MIGRATE_ON_START": "false",
-           "PYTHONPATH": str(ROOT)}
-    proc = subprocess.Popen([sys.executable, "-c", SERVER, str(sock.fileno())],
-                            env=env, pass_fds=[sock.fileno()], cwd=ROOT)
+    env = {**os.environ, "DATABASE_URL": database_url, "WAKELEDGER_MIGRATE_ON_START": "false", "PYTHONPATH": str(ROOT)}
+    proc = subprocess.Popen(
+        [sys.executable, "-c", SERVER, str(sock.fileno())], env=env, pass_fds=[sock.fileno()], cwd=ROOT
+    )
     sock.close()
     base = f"http://127.0.0.1:{port}"
     for _ in range(300):  # bounded: 30 s
@@ -100,18 +100,23 @@ def percentile(values: list[float], q: float) -> float:
     return ordered[min(len(ordered) - 1, int(round(q / 100 * (len(ordered) - 1))))]
 
 
-def raw_insert_rate(factory, campaign_id: int, source_campaign_id: int, batch_size: int,
-                    batches: int) -> tuple[float, float]:
+def raw_insert_rate(
+    factory, campaign_id: int, source_campaign_id: int, batch_size: int, batches: int
+) -> tuple[float, float]:
     """Copy the stored rows of the batch campaign into another campaign with Core inserts;
     (shots per wall second, shots per CPU second)."""
     with factory() as session:
         shot_cols = [c for c in Shot.__table__.columns if c.name != "id"]
-        shots = [dict(r._mapping) for r in session.execute(
-            select(*shot_cols).where(Shot.campaign_id == source_campaign_id).order_by(Shot.id))]
+        shots = [
+            dict(r._mapping)
+            for r in session.execute(select(*shot_cols).where(Shot.campaign_id == source_campaign_id).order_by(Shot.id))
+        ]
         pks = list(session.scalars(select(Shot.id).where(Shot.campaign_id == source_campaign_id).order_by(Shot.id)))
         ev_cols = [c for c in Evaluation.__table__.columns]
-        evals = {r.shot_pk: dict(r._mapping) for r in session.execute(
-            select(*ev_cols).where(Evaluation.campaign_id == source_campaign_id))}
+        evals = {
+            r.shot_pk: dict(r._mapping)
+            for r in session.execute(select(*ev_cols).where(Evaluation.campaign_id == source_campaign_id))
+        }
         flag_cols = [c for c in Flag.__table__.columns if c.name != "id"]
         flags: dict[int, list[dict]] = {}
         for r in session.execute(select(*flag_cols).where(Flag.campaign_id == source_campaign_id)):
@@ -124,16 +129,39 @@ def raw_insert_rate(factory, campaign_id: int, source_campaign_id: int, batch_si
         start = time.perf_counter()
         cpu_start = time.process_time()
         with factory() as session:
-            new_pks = [pk for (pk,) in session.execute(
-                insert(Shot.__table__).returning(Shot.__table__.c.id, sort_by_parameter_order=True), shot_rows)]
-            session.execute(insert(ShotRevision.__table__), [
-                dict(shot_pk=pk, revision=1, raw_payload=row["raw_payload"], payload_sha256=row["payload_sha256"],
-                     reason="first version", author="bench", created_at=row["created_at"])
-                for pk, row in zip(new_pks, shot_rows)])
-            session.execute(insert(Evaluation.__table__), [
-                {**evals[pks[i]], "shot_pk": pk, "campaign_id": campaign_id} for i, pk in zip(chunk, new_pks)])
-            flag_rows = [{**f, "shot_pk": pk, "campaign_id": campaign_id}
-                         for i, pk in zip(chunk, new_pks) for f in flags.get(pks[i], [])]
+            new_pks = [
+                pk
+                for (pk,) in session.execute(
+                    insert(Shot.__table__).returning(Shot.__table__.c.id, sort_by_parameter_order=True), shot_rows
+                )
+            ]
+            session.execute(
+                insert(ShotRevision.__table__),
+                [
+                    dict(
+                        shot_pk=pk,
+                        revision=1,
+                        raw_payload=row["raw_payload"],
+                        payload_sha256=row["payload_sha256"],
+                        reason="first version",
+                        author="bench",
+                        created_at=row["created_at"],
+                    )
+                    for pk, row in zip(new_pks, shot_rows, strict=False)
+                ],
+            )
+            session.execute(
+                insert(Evaluation.__table__),
+                [
+                    {**evals[pks[i]], "shot_pk": pk, "campaign_id": campaign_id}
+                    for i, pk in zip(chunk, new_pks, strict=False)
+                ],
+            )
+            flag_rows = [
+                {**f, "shot_pk": pk, "campaign_id": campaign_id}
+                for i, pk in zip(chunk, new_pks, strict=False)
+                for f in flags.get(pks[i], [])
+            ]
             if flag_rows:
                 session.execute(insert(Flag.__table__), flag_rows)
             session.commit()
@@ -163,8 +191,10 @@ def main() -> None:
         for slug in ("bench-batch", "bench-single", "bench-raw"):
             slug = f"{slug}-{stamp}"
             with factory() as session:
-                ids[slug.rsplit("-", 1)[0]] = (slug, create_campaign(
-                    session, CampaignCreate(slug=slug, name=slug), "bench").id)
+                ids[slug.rsplit("-", 1)[0]] = (
+                    slug,
+                    create_campaign(session, CampaignCreate(slug=slug, name=slug), "bench").id,
+                )
         backend = engine.dialect.name
         print(f"backend: {backend}; batches: {args.batches} x {args.batch_size}; single posts: {args.singles}")
 
@@ -173,8 +203,9 @@ def main() -> None:
             headers = {"Authorization": f"Bearer {token}", "Content-Type": "application/json"}
             with httpx.Client(base_url=base, headers=headers, timeout=120) as http:
                 slug = ids["bench-batch"][0]
-                bodies = [json.dumps({"shots": make_shots(f"b{b}", args.batch_size)}).encode()
-                          for b in range(args.batches)]
+                bodies = [
+                    json.dumps({"shots": make_shots(f"b{b}", args.batch_size)}).encode() for b in range(args.batches)
+                ]
                 batch_times = []
                 cpu_before = process_cpu_seconds(proc.pid)
                 for body in bodies:
@@ -206,23 +237,33 @@ def main() -> None:
             except subprocess.TimeoutExpired:
                 proc.kill()
 
-        raw_rate, raw_cpu_rate = raw_insert_rate(factory, ids["bench-raw"][1], ids["bench-batch"][1], args.batch_size, args.batches)
+        raw_rate, raw_cpu_rate = raw_insert_rate(
+            factory, ids["bench-raw"][1], ids["bench-batch"][1], args.batch_size, args.batches
+        )
         engine.dispose()
 
     ms = [x * 1000 for x in latencies]
     n_batch = args.batches * args.batch_size
-    print(f"load average at the end: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores "
-          "(wall-clock rates drop on a busy machine; the CPU rates do not)")
-    print(f"batch ingest with evaluation: {batch_rate:,.0f} shots/s "
-          f"(per {args.batch_size}-shot request: median {statistics.median(batch_times):.3f} s, "
-          f"max {max(batch_times):.3f} s; target >= {TARGET_SHOTS_PER_S:,} shots/s); "
-          f"server CPU: {n_batch / batch_cpu:,.0f} shots per CPU second")
-    print(f"single-shot POST: {single_rate:,.0f} requests/s; latency p50 {percentile(ms, 50):.1f} ms, "
-          f"p95 {percentile(ms, 95):.1f} ms, p99 {percentile(ms, 99):.1f} ms; "
-          f"server CPU {single_cpu / args.singles * 1000:.1f} ms per request")
+    print(
+        f"load average at the end: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores "
+        "(wall-clock rates drop on a busy machine; the CPU rates do not)"
+    )
+    print(
+        f"batch ingest with evaluation: {batch_rate:,.0f} shots/s "
+        f"(per {args.batch_size}-shot request: median {statistics.median(batch_times):.3f} s, "
+        f"max {max(batch_times):.3f} s; target >= {TARGET_SHOTS_PER_S:,} shots/s); "
+        f"server CPU: {n_batch / batch_cpu:,.0f} shots per CPU second"
+    )
+    print(
+        f"single-shot POST: {single_rate:,.0f} requests/s; latency p50 {percentile(ms, 50):.1f} ms, "
+        f"p95 {percentile(ms, 95):.1f} ms, p99 {percentile(ms, 99):.1f} ms; "
+        f"server CPU {single_cpu / args.singles * 1000:.1f} ms per request"
+    )
     print(f"raw Core insert of the same rows: {raw_rate:,.0f} shots/s; {raw_cpu_rate:,.0f} shots per CPU second")
-    print(f"batch ingest / raw insert: {batch_rate / raw_rate:.0%} wall-clock, "
-          f"{n_batch / batch_cpu / raw_cpu_rate:.0%} by CPU (target >= {TARGET_RAW_FRACTION:.0%})")
+    print(
+        f"batch ingest / raw insert: {batch_rate / raw_rate:.0%} wall-clock, "
+        f"{n_batch / batch_cpu / raw_cpu_rate:.0%} by CPU (target >= {TARGET_RAW_FRACTION:.0%})"
+    )
 
 
 if __name__ == "__main__":

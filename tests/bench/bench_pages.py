@@ -2,7 +2,7 @@
 
 Builds an invented campaign in a temp SQLite database (inputs generated with numpy,
 evaluated by model.evaluate_table in one call, rows bulk-inserted with SQLAlchemy Core
-using the ingest service's evaluation_rows), then times the overview, its regime-map
+using the ingest service's evaluation_rows (app.services.ingest.evaluation)), then times the overview, its regime-map
 feed, the live feed and the shot table (several filters and sorts) through an
 in-process TestClient. Targets: under 1 s server time and under 3 MB per response.
 
@@ -17,7 +17,7 @@ import statistics
 import sys
 import tempfile
 import time
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import numpy as np
@@ -68,32 +68,48 @@ def invented_columns(n: int, rng: np.random.Generator) -> dict[str, np.ndarray]:
 def build_campaign(url: str, n: int) -> float:
     import model
     from app.database import make_engine
-    from app.services.ingest import evaluation_rows
+    from app.services.ingest.evaluation import evaluation_rows
 
     start = time.perf_counter()
     rng = np.random.default_rng(20261201)
     cols = invented_columns(n, rng)
     table = model.evaluate_table(cols, None)
     engine = make_engine(url)
-    now = datetime.now(timezone.utc)
-    t0 = datetime(2026, 10, 1, tzinfo=timezone.utc)
+    now = datetime.now(UTC)
+    t0 = datetime(2026, 10, 1, tzinfo=UTC)
     with engine.begin() as conn:
-        conn.execute(insert(Campaign), [dict(id=1, slug="bench", name="Bench campaign", timezone="UTC",
-                                             description="invented", model_settings={}, settings_version=1,
-                                             created_at=now)])
+        conn.execute(
+            insert(Campaign),
+            [
+                dict(
+                    id=1,
+                    slug="bench",
+                    name="Bench campaign",
+                    timezone="UTC",
+                    description="invented",
+                    model_settings={},
+                    settings_version=1,
+                    created_at=now,
+                )
+            ],
+        )
         chunk = 20000
         for lo in range(0, n, chunk):
             hi = min(n, lo + chunk)
             rows = []
             for i in range(lo, hi):
                 row = {
-                    "id": i + 1, "campaign_id": 1, "shot_id": f"b-{i:06d}",
-                    "taken_at": t0 + timedelta(seconds=40 * i), "revision": 1,
+                    "id": i + 1,
+                    "campaign_id": 1,
+                    "shot_id": f"b-{i:06d}",
+                    "taken_at": t0 + timedelta(seconds=40 * i),
+                    "revision": 1,
                     "notes": "bench shot" if i % 10 else "bench shot with a note about the seed",
                     "tags": ["scan-a"] if i % 2 else ["scan-b"],
                     "raw_payload": {"shot_id": f"b-{i:06d}"},
                     "payload_sha256": hashlib.sha256(str(i).encode()).hexdigest(),
-                    "created_at": now, "updated_at": now,
+                    "created_at": now,
+                    "updated_at": now,
                 }
                 for path, values in cols.items():
                     v = values[i]
@@ -132,7 +148,8 @@ def main() -> None:
     from starlette.testclient import TestClient
 
     from app.main import create_app
-    from app.services.auth import SESSION_COOKIE, create_token
+    from app.routers.deps import SESSION_COOKIE
+    from app.services.auth import create_token
 
     with tempfile.TemporaryDirectory() as tmp:
         path = args.db or Path(tmp) / "bench.db"
@@ -176,13 +193,17 @@ def main() -> None:
                 t = time.perf_counter()
                 response = client.get("/campaigns/bench/shots.csv")
                 csv_time = time.perf_counter() - t
-                print(f"{'/campaigns/bench/shots.csv (all 100k rows, streamed)':78s} {csv_time:9.3f} {'':7s} "
-                      f"{len(response.content):10,d}")
+                print(
+                    f"{'/campaigns/bench/shots.csv (all 100k rows, streamed)':78s} {csv_time:9.3f} {'':7s} "
+                    f"{len(response.content):10,d}"
+                )
             overview = [p for p in paths if p.startswith(("/campaigns/bench/charts", "/campaigns/bench/regime"))]
             total_bytes = sum(len(client.get(p).content) for p in ["/campaigns/bench", *overview[:4]])
             print(f"overview page + its chart feeds (default regime map): {total_bytes / 1e6:.2f} MB in total")
-            print(f"worst median time {worst_time:.3f} s (target < {TARGET_SECONDS} s); "
-                  f"largest payload {worst_size / 1e6:.2f} MB (target < {TARGET_BYTES / 1e6:.2f} MB)")
+            print(
+                f"worst median time {worst_time:.3f} s (target < {TARGET_SECONDS} s); "
+                f"largest payload {worst_size / 1e6:.2f} MB (target < {TARGET_BYTES / 1e6:.2f} MB)"
+            )
         app.state.engine.dispose()
 
 

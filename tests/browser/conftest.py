@@ -2,12 +2,11 @@
 
 The server is the ``live_server`` fixture of tests/conftest.py (127.0.0.1, free port,
 temp SQLite); ``page_server`` seeds it through the API with the shots of
-tests/dashboard/page_shots.py. Screenshots go to test-artifacts/ (gitignored).
+tests/support/page_shots.py. Screenshots go to test-artifacts/ (gitignored).
 """
 
 from __future__ import annotations
 
-import importlib.util
 import os
 from collections.abc import Iterator
 from pathlib import Path
@@ -16,19 +15,19 @@ from typing import Any
 import httpx
 import pytest
 
+from tests.support.page_shots import page_shots
+
 CHROMIUM = Path("/usr/bin/chromium")
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
-CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-                 "--disable-background-networking", "--disable-component-update", "--disable-sync"]
-
-
-def _page_shots_module() -> Any:
-    path = Path(__file__).resolve().parents[1] / "dashboard" / "page_shots.py"
-    spec = importlib.util.spec_from_file_location("wakeledger_page_shots", path)
-    module = importlib.util.module_from_spec(spec)
-    assert spec.loader is not None
-    spec.loader.exec_module(module)
-    return module
+CHROMIUM_ARGS = [
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+]
 
 
 @pytest.fixture
@@ -63,11 +62,18 @@ def backend() -> str:
 def page_server(live_server: str, admin_token: str, make_shot) -> dict[str, Any]:
     headers = {"Authorization": f"Bearer {admin_token}"}
     with httpx.Client(base_url=live_server, headers=headers, timeout=30) as api:
-        r = api.post("/api/v1/campaigns", json={"slug": "browser-run", "name": "Browser run campaign",
-                                                "timezone": "Europe/Berlin"})
+        r = api.post(
+            "/api/v1/campaigns",
+            json={"slug": "browser-run", "name": "Browser run campaign", "timezone": "Europe/Berlin"},
+        )
         assert r.status_code == 201, r.text
-        shots = _page_shots_module().page_shots(make_shot)
+        shots = page_shots(make_shot)
         r = api.post("/api/v1/campaigns/browser-run/shots/batch", json={"shots": shots})
         assert r.status_code == 201, r.text
-    return {"base": live_server, "token": admin_token, "slug": "browser-run", "headers": headers,
-            "make_shot": make_shot}
+    return {
+        "base": live_server,
+        "token": admin_token,
+        "slug": "browser-run",
+        "headers": headers,
+        "make_shot": make_shot,
+    }

@@ -5,6 +5,8 @@ from __future__ import annotations
 import httpx
 import pytest
 
+from app.presentation.numbers import format_number
+
 pytestmark = pytest.mark.browser
 
 
@@ -24,7 +26,14 @@ def _csp_violations(page) -> list[str]:
 def _watch_console(page) -> list[str]:
     page.add_init_script(_RECORD_CSP_VIOLATIONS)
     problems: list[str] = []
-    page.on("console", lambda msg: problems.append(f"console {msg.type}: {msg.text}") if msg.type in ("error", "warning") and "WebGL" not in msg.text else None)
+    page.on(
+        "console",
+        lambda msg: (
+            problems.append(f"console {msg.type}: {msg.text}")
+            if msg.type in ("error", "warning") and "WebGL" not in msg.text
+            else None
+        ),
+    )
     page.on("pageerror", lambda exc: problems.append(f"page error: {exc}"))
     page.on("requestfailed", lambda req: problems.append(f"request failed: {req.url}"))
     return problems
@@ -53,13 +62,17 @@ def test_shift_physicist_signs_in_filters_to_outside_shots_and_opens_one_with_it
     page.wait_for_selector("#chart-calibration .plot-container")
     assert page.locator(".caution").first.inner_text().startswith("Advisory only")
     assert page.locator("[data-count=outside]").inner_text() == "6"
-    assert page.locator("#chart-timeline .scatterlayer .point").count() == 5 * 36 - 3  # five panels; 3 unseeded: no seed position
+    assert (
+        page.locator("#chart-timeline .scatterlayer .point").count() == 5 * 36 - 3
+    )  # five panels; 3 unseeded: no seed position
     assert page.locator("#chart-regime .scatterlayer .point").count() == 36
     assert "not supported" not in page.locator("main").inner_text()
     assert "expected phase jitter" in page.locator("#facts-chart-phase").inner_text()
     assert "implied density offset" in page.locator("#facts-chart-calibration").inner_text()
     page.select_option("#regime-y", "hosing_ratio")
-    page.wait_for_function("() => document.getElementById('chart-regime').layout.yaxis.title.text.startsWith('hosing_ratio')")
+    page.wait_for_function(
+        "() => document.getElementById('chart-regime').layout.yaxis.title.text.startsWith('hosing_ratio')"
+    )
     page.screenshot(path=str(artifacts / "dashboard-overview.png"), full_page=True)
     assert _csp_violations(page) == []
 
@@ -102,13 +115,24 @@ def test_a_new_shot_appears_on_the_open_overview_and_table_without_a_reload(brow
 
     overview.wait_for_function(
         "([n]) => document.querySelector('[data-count=outside]').textContent.trim() === String(n)",
-        arg=[int(before) + 1], timeout=5000)
+        arg=[int(before) + 1],
+        timeout=5000,
+    )
     table.wait_for_selector("#shot-rows tr:first-child a:text('pg-live-1')", timeout=5000)
     traces = overview.evaluate(
         "() => document.getElementById('chart-timeline').data.filter(t => t.meta && t.meta.status === 'outside')"
-        ".map(t => Array.from(t.customdata))")
+        ".map(t => Array.from(t.customdata))"
+    )
     assert all("pg-live-1" in ids for ids in traces)
+    # The live row's text comes from the server's formatters: the same as the row the server renders.
+    live_cells = table.locator("#shot-rows tr:first-child td").all_inner_texts()
     table.screenshot(path=str(artifacts / "dashboard-shots-live.png"))
+    table.reload()
+    table.wait_for_selector("#shot-rows tr:first-child a:text('pg-live-1')")
+    served_cells = table.locator("#shot-rows tr:first-child td").all_inner_texts()
+    assert [c.strip() for c in live_cells[1:-1]] == [c.strip() for c in served_cells[1:-1]]
+    counts = table.evaluate("() => [0, 7, 9999, 10000, 1234567].map(window.wakeledgerFormatCount)")
+    assert counts == [format_number(n) for n in (0, 7, 9999, 10000, 1234567)]
     assert not problems, problems
     context.close()
 

@@ -6,7 +6,7 @@ from __future__ import annotations
 import httpx
 import pytest
 
-from tests.detailed_runs_support import QUICK_CHANGES
+from tests.support.detailed_runs import QUICK_CHANGES
 
 pytestmark = pytest.mark.browser
 

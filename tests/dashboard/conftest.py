@@ -2,34 +2,25 @@
 
 from __future__ import annotations
 
-import importlib.util
-from pathlib import Path
 from typing import Any
 
 import pytest
 
-from app.services.auth import SESSION_COOKIE
-
-
-def _page_shots():
-    path = Path(__file__).resolve().parent / "page_shots.py"
-    spec = importlib.util.spec_from_file_location("wakeledger_page_shots", path)
-    module = importlib.util.module_from_spec(spec)
-    assert spec.loader is not None
-    spec.loader.exec_module(module)
-    return module.page_shots
+from app.routers.deps import SESSION_COOKIE
+from tests.support.page_shots import page_shots as make_page_shots
 
 
 @pytest.fixture
 def page_shots(make_shot) -> list[dict[str, Any]]:
-    return _page_shots()(make_shot)
+    return make_page_shots(make_shot)
 
 
 @pytest.fixture
 def seeded(client, campaign, admin_headers, page_shots) -> str:
     """The test campaign with 36 shots: 27 nominal, 3 marginal, 6 outside."""
-    response = client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": page_shots},
-                           headers=admin_headers)
+    response = client.post(
+        f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": page_shots}, headers=admin_headers
+    )
     assert response.status_code == 201, response.text
     return campaign
 

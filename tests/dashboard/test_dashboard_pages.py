@@ -7,21 +7,26 @@ import io
 import json
 import math
 import re
+from datetime import UTC
 
 import numpy as np
 import pytest
 
-from app.routers.pages import CONTENT_SECURITY_POLICY, json_for_html
-from app.services import dashboard as dash
-from app.services.auth import SESSION_COOKIE
+from app.presentation.charts import text_for_chart
+from app.presentation.csv_writer import defuse
+from app.presentation.json_text import json_for_html
+from app.routers.deps import SESSION_COOKIE
+from app.routers.pages import CONTENT_SECURITY_POLICY
+from app.services.campaigns import find_campaign
+from app.services.dashboard import figures, overview, settings_form, shot_page, table
 from app.store import dashboard as store
-from tests import shot_to_shot_reference as reference
+from tests.support import shot_to_shot_reference as reference
 
 SLUG = "test-campaign"
 
 
 def _campaign(db):
-    return store.campaign_by_slug(db, SLUG)
+    return find_campaign(db, SLUG)
 
 
 def _chart(html: str, chart_id: str) -> dict:
@@ -37,8 +42,11 @@ def test_signed_out_visitor_is_sent_to_sign_in_and_back_to_the_page_afterwards(c
     response = client.get(f"/campaigns/{SLUG}/shots?status=outside", follow_redirects=False)
     assert response.status_code == 303
     assert response.headers["location"].startswith("/sign-in?next=")
-    response = client.post("/sign-in", data={"token": viewer_token, "next": f"/campaigns/{SLUG}/shots?status=outside"},
-                           follow_redirects=False)
+    response = client.post(
+        "/sign-in",
+        data={"token": viewer_token, "next": f"/campaigns/{SLUG}/shots?status=outside"},
+        follow_redirects=False,
+    )
     assert response.status_code == 303
     assert response.headers["location"] == f"/campaigns/{SLUG}/shots?status=outside"
 
@@ -51,7 +59,7 @@ def test_sign_in_sets_an_httponly_samesite_lax_cookie_and_sign_out_clears_it(cli
     assert client.get("/campaigns").status_code == 200
     response = client.post("/sign-out", follow_redirects=False)
     assert response.status_code == 303
-    assert 'Max-Age=0' in response.headers["set-cookie"] or "expires=" in response.headers["set-cookie"].lower()
+    assert "Max-Age=0" in response.headers["set-cookie"] or "expires=" in response.headers["set-cookie"].lower()
 
 
 def test_sign_in_cookie_is_secure_when_the_settings_ask_for_it(settings, viewer_token, app):
@@ -74,8 +82,9 @@ def test_sign_in_with_an_unknown_token_is_refused_with_a_clear_message(client):
 
 
 def test_sign_in_never_redirects_to_another_site(client, viewer_token):
-    response = client.post("/sign-in", data={"token": viewer_token, "next": "//elsewhere.invalid/x"},
-                           follow_redirects=False)
+    response = client.post(
+        "/sign-in", data={"token": viewer_token, "next": "//elsewhere.invalid/x"}, follow_redirects=False
+    )
     assert response.headers["location"] == "/campaigns"
 
 
@@ -88,8 +97,16 @@ def test_a_revoked_or_stale_cookie_counts_as_signed_out(client):
 # --------------------------------------------------------------- every page
 
 
-@pytest.mark.parametrize("path", ["/campaigns", f"/campaigns/{SLUG}", f"/campaigns/{SLUG}/shots",
-                                  f"/campaigns/{SLUG}/shots/pg-0000", f"/campaigns/{SLUG}/settings"])
+@pytest.mark.parametrize(
+    "path",
+    [
+        "/campaigns",
+        f"/campaigns/{SLUG}",
+        f"/campaigns/{SLUG}/shots",
+        f"/campaigns/{SLUG}/shots/pg-0000",
+        f"/campaigns/{SLUG}/settings",
+    ],
+)
 def test_every_page_carries_the_caution_the_weekly_summary_link_and_a_strict_csp(admin_client, seeded, path, db):
     response = admin_client.get(path)
     assert response.status_code == 200
@@ -99,7 +116,7 @@ def test_every_page_carries_the_caution_the_weekly_summary_link_and_a_strict_csp
     assert csp == CONTENT_SECURITY_POLICY
     assert "script-src 'self';" in csp and "unsafe-inline" not in csp.split("script-src")[1].split(";")[0]
     if path != "/campaigns":
-        week = dash.current_week(_campaign(db))
+        week = overview.campaign_week(_campaign(db))
         assert f"/api/v1/campaigns/{SLUG}/summary?week={week}&amp;format=html" in response.text
     # No inline executable script: every <script> either has src= or is a JSON data block.
     for tag in re.findall(r"<script\b[^>]*>", response.text):
@@ -119,7 +136,7 @@ def test_plotly_js_is_served_by_wakeledger_from_the_installed_package(client):
     response = client.get("/assets/plotly.min.js")
     assert response.status_code == 200
     assert response.headers["content-type"].startswith("text/javascript")
-    bundled = (plotly.__path__[0] + "/package_data/plotly.min.js")
+    bundled = plotly.__path__[0] + "/package_data/plotly.min.js"
     assert len(response.content) == len(open(bundled, "rb").read())
 
 
@@ -133,7 +150,7 @@ def test_unknown_campaign_and_shot_get_a_not_found_page(viewer_client, seeded):
 
 
 def test_campaign_list_shows_each_campaign_with_counts_by_status(viewer_client, seeded, db):
-    cards = dash.campaign_cards(db)
+    cards = overview.campaign_cards(db)
     assert [c.campaign.slug for c in cards] == [SLUG]
     assert cards[0].counts == {"nominal": 27, "marginal": 3, "outside": 6}
     response = viewer_client.get("/campaigns")
@@ -141,7 +158,7 @@ def test_campaign_list_shows_each_campaign_with_counts_by_status(viewer_client, 
 
 
 def test_overview_counts_shots_by_status_and_by_flag_code(seeded, db, client, admin_headers):
-    data = dash.overview(db, _campaign(db))
+    data = overview.overview(db, _campaign(db))
     assert data.counts == {"nominal": 27, "marginal": 3, "outside": 6}
     stored = client.get(f"/api/v1/campaigns/{SLUG}/shots?limit=100", headers=admin_headers).json()
     expected: dict[str, dict[str, int]] = {}
@@ -158,21 +175,24 @@ def test_overview_counts_shots_by_status_and_by_flag_code(seeded, db, client, ad
 
 
 def test_timeline_marks_flagged_shots_with_their_own_colour_shape_and_name(seeded, db):
-    figure = dash.timeline_figure(db, _campaign(db))
+    figure = figures.timeline_figure(db, _campaign(db))
     points = [t for t in figure["data"] if t.get("meta")]
-    assert {t["meta"]["y"] for t in points} == set(dash.TIMELINE_FIELDS)
+    assert {t["meta"]["y"] for t in points} == set(figures.TIMELINE_FIELDS)
     by_status = {}
     for trace in points:
         by_status.setdefault(trace["meta"]["status"], trace)
     assert {s: (t["marker"]["color"], t["marker"]["symbol"]) for s, t in by_status.items()} == {
-        "nominal": ("#0072B2", "circle"), "marginal": ("#E69F00", "diamond"), "outside": ("#D55E00", "x")}
+        "nominal": ("#0072B2", "circle"),
+        "marginal": ("#E69F00", "diamond"),
+        "outside": ("#D55E00", "x"),
+    }
     assert by_status["outside"]["name"].startswith("outside (6)")
     assert len(by_status["outside"]["x"]) == 6 and len(by_status["nominal"]["x"]) == 27
 
 
 def test_long_timelines_keep_every_kth_nominal_shot_and_all_flagged_shots(seeded, db, monkeypatch):
-    monkeypatch.setattr(dash, "TIMELINE_NOMINAL_POINTS", 10)
-    figure = dash.timeline_figure(db, _campaign(db))
+    monkeypatch.setattr(figures, "TIMELINE_NOMINAL_POINTS", 10)
+    figure = figures.timeline_figure(db, _campaign(db))
     density = {t["meta"]["status"]: t for t in figure["data"] if t.get("meta", {}).get("y") == "plasma_density_cm3"}
     assert 5 <= len(density["nominal"]["x"]) <= 10  # 27 nominal shots, thinned to at most 10
     assert re.search(r"nominal \(\d+ of 27, 1 in \d+\)", density["nominal"]["name"])
@@ -181,22 +201,28 @@ def test_long_timelines_keep_every_kth_nominal_shot_and_all_flagged_shots(seeded
 
 
 def test_flagged_shots_beyond_the_cap_are_thinned_over_the_whole_range(seeded, db, monkeypatch):
-    monkeypatch.setattr(dash, "FLAGGED_POINTS_CAP", 4)
-    figure = dash.timeline_figure(db, _campaign(db))
+    monkeypatch.setattr(figures, "FLAGGED_POINTS_CAP", 4)
+    figure = figures.timeline_figure(db, _campaign(db))
     outside = next(t for t in figure["data"] if t.get("meta", {}).get("status") == "outside")
     assert 1 <= len(outside["x"]) <= 4 and ", 1 in " in outside["name"]
 
 
 def test_no_chart_needs_webgl_which_the_csp_would_block(seeded, db):
     campaign = _campaign(db)
-    figures = [dash.timeline_figure(db, campaign), dash.phase_figure(db, campaign),
-               dash.calibration_figure(db, campaign), dash.regime_figure(db, campaign, "plasma_density_cm3", "efolds_exit")]
-    assert {t["type"] for f in figures for t in f["data"]} == {"scatter"}
+    drawn = [
+        figures.timeline_figure(db, campaign),
+        figures.phase_figure(db, campaign),
+        figures.calibration_figure(db, campaign),
+        figures.regime_figure(db, campaign, "plasma_density_cm3", "efolds_exit"),
+    ]
+    assert {t["type"] for f in drawn for t in f["data"]} == {"scatter"}
     assert "unsafe-eval" not in CONTENT_SECURITY_POLICY
 
 
 def test_regime_map_plots_any_two_numeric_fields_and_refuses_others(viewer_client, seeded):
-    response = viewer_client.get(f"/campaigns/{SLUG}/regime.json", params={"x": "driver_sigma_r_mm", "y": "hosing_ratio"})
+    response = viewer_client.get(
+        f"/campaigns/{SLUG}/regime.json", params={"x": "driver_sigma_r_mm", "y": "hosing_ratio"}
+    )
     assert response.status_code == 200
     feed = response.json()
     figure = feed["figure"]
@@ -213,9 +239,11 @@ def test_regime_feed_needs_a_signed_in_viewer(client, seeded):
 
 
 def test_expected_phase_jitter_is_phase_per_percent_density_times_shot_to_shot_density_jitter(seeded, db, page_shots):
-    summary = dash.phase_summary(db, _campaign(db))
-    with_phase = sorted((s for s in page_shots if s.get("measured", {}).get("modulation_phase_rad") is not None),
-                        key=lambda s: s["taken_at"])
+    summary = figures.phase_summary(db, _campaign(db))
+    with_phase = sorted(
+        (s for s in page_shots if s.get("measured", {}).get("modulation_phase_rad") is not None),
+        key=lambda s: s["taken_at"],
+    )
     density = [s["plasma"]["density_cm3"] for s in with_phase]
     phase = [s["measured"]["modulation_phase_rad"] for s in with_phase]
     jitter_pct = reference.density_jitter_pct(density)
@@ -223,26 +251,34 @@ def test_expected_phase_jitter_is_phase_per_percent_density_times_shot_to_shot_d
     assert summary.density_spread_pct == pytest.approx(jitter_pct, rel=1e-9)
     assert summary.measured_phase_std_rad == pytest.approx(reference.phase_jitter_rad(phase), rel=1e-9)
     assert summary.expected_phase_jitter_rad == pytest.approx(summary.phase_per_pct_density_rad * jitter_pct, rel=1e-12)
-    figure = dash.phase_figure(db, _campaign(db))
+    figure = figures.phase_figure(db, _campaign(db))
     names = [t["name"] for t in figure["data"]]
     assert any("expected from shot-to-shot density jitter" in n for n in names)
     assert any("measured shot-to-shot phase jitter" in n for n in names)
 
 
 def test_a_density_scan_posted_out_of_time_order_shows_the_shot_to_shot_jitter_not_the_scan(
-        client, campaign, admin_headers, make_shot, db):
+    client, campaign, admin_headers, make_shot, db
+):
     # Two set points 10 % apart with 0.1 % shot-to-shot noise, posted in a shuffled order:
     # the overview compares neighbours in time, so the scan drops out.
     rng = np.random.default_rng(3)
     density = [4.0e14 * (1.0 if i < 30 else 1.1) * (1 + 0.001 * rng.standard_normal()) for i in range(60)]
-    shots = [make_shot(0, shot_id=f"scan-{i:03d}", taken_at=f"2026-11-17T{8 + i // 6:02d}:{(i % 6) * 7:02d}:00Z",
-                       changes={"plasma.density_cm3": d, "measured.modulation_phase_rad": 0.1})
-             for i, d in enumerate(density)]
+    shots = [
+        make_shot(
+            0,
+            shot_id=f"scan-{i:03d}",
+            taken_at=f"2026-11-17T{8 + i // 6:02d}:{(i % 6) * 7:02d}:00Z",
+            changes={"plasma.density_cm3": d, "measured.modulation_phase_rad": 0.1},
+        )
+        for i, d in enumerate(density)
+    ]
     order = rng.permutation(len(shots))
-    response = client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": [shots[i] for i in order]},
-                           headers=admin_headers)
+    response = client.post(
+        f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": [shots[i] for i in order]}, headers=admin_headers
+    )
     assert response.status_code == 201, response.text
-    summary = dash.phase_summary(db, _campaign(db))
+    summary = figures.phase_summary(db, _campaign(db))
     assert summary.density_spread_pct == pytest.approx(reference.density_jitter_pct(density), rel=1e-9)
     assert summary.density_spread_pct == pytest.approx(0.1, rel=0.3)
     assert 100 * np.std(density, ddof=1) / np.mean(density) > 4  # what the spread over all shots would say
@@ -251,13 +287,17 @@ def test_a_density_scan_posted_out_of_time_order_shows_the_shot_to_shot_jitter_n
 def test_density_offset_is_the_median_of_implied_over_set_density_minus_one(seeded, db, client, admin_headers):
     from app.tables import Evaluation, Shot
 
-    rows = db.query(Evaluation.implied_density_cm3, Shot.plasma_density_cm3).join(Shot, Shot.id == Evaluation.shot_pk) \
-        .filter(Evaluation.implied_density_cm3.isnot(None)).all()
+    rows = (
+        db.query(Evaluation.implied_density_cm3, Shot.plasma_density_cm3)
+        .join(Shot, Shot.id == Evaluation.shot_pk)
+        .filter(Evaluation.implied_density_cm3.isnot(None))
+        .all()
+    )
     expected = float(np.median([i / n - 1 for i, n in rows]))
-    summary = dash.calibration_summary(db, _campaign(db))
+    summary = figures.calibration_summary(db, _campaign(db))
     assert summary.shots_with_frequency == len(rows) == 30
     assert summary.median_density_offset == pytest.approx(expected, rel=1e-12)
-    figure = dash.calibration_figure(db, _campaign(db))
+    figure = figures.calibration_figure(db, _campaign(db))
     assert figure["data"][0]["name"] == "measured = predicted"
 
 
@@ -286,8 +326,8 @@ def test_chart_feeds_are_a_snapshot_up_to_their_cursor(seeded, db, client, admin
     new = make_shot(1, shot_id="pg-after", taken_at="2026-11-17T10:00:00Z")
     assert client.post(f"/api/v1/campaigns/{SLUG}/shots", json=new, headers=admin_headers).status_code == 201
     db.rollback()
-    before = dash.timeline_figure(db, campaign, upto_pk=cursor)
-    after = dash.timeline_figure(db, campaign)
+    before = figures.timeline_figure(db, campaign, upto_pk=cursor)
+    after = figures.timeline_figure(db, campaign)
     ids = lambda fig: {i for t in fig["data"] if t.get("meta") for i in t["customdata"]}  # noqa: E731
     assert "pg-after" not in ids(before) and "pg-after" in ids(after)
 
@@ -323,12 +363,14 @@ def test_table_sorts_by_any_column_and_pages_by_one_hundred(viewer_client, seede
     by_status = viewer_client.get(f"/campaigns/{SLUG}/shots", params={"sort": "status", "dir": "desc"}).text
     first_rows = re.findall(r'<span class="status (\w+)">', by_status)
     assert first_rows[:6] == ["outside"] * 6
-    page = dash.table_page(db, _campaign(db), dash.TableQuery(store.ShotFilter(), page=1))
+    page = table.table_page(db, _campaign(db), table.TableQuery(store.ShotFilter(), page=1))
     assert page.page_size == 100 and page.pages == 1 and page.total == 36
 
 
 def test_table_reports_bad_filters_instead_of_ignoring_them(viewer_client, seeded):
-    response = viewer_client.get(f"/campaigns/{SLUG}/shots", params={"status": "fine", "from": "yesterday", "sort": "notes"})
+    response = viewer_client.get(
+        f"/campaigns/{SLUG}/shots", params={"status": "fine", "from": "yesterday", "sort": "notes"}
+    )
     assert response.status_code == 422
     for text in ("choose one of nominal, marginal, outside", "write a date and time", "cannot sort by"):
         assert text in response.text.replace("&#39;", "'")
@@ -347,26 +389,32 @@ def test_csv_download_streams_the_whole_filtered_set(viewer_client, seeded):
     assert "attachment" in response.headers["content-disposition"]
     rows = list(csv.DictReader(io.StringIO(response.text)))
     assert len(rows) == 3 and {r["status"] for r in rows} == {"marginal"}
-    assert "plasma.density_cm3" in rows[0] and "efolds_exit" in rows[0]
-    assert float(rows[0]["plasma.density_cm3"]) > 1e14
+    assert "plasma_density_cm3 [cm^-3]" in rows[0] and "efolds_exit [e-folds]" in rows[0]
+    assert float(rows[0]["plasma_density_cm3 [cm^-3]"]) > 1e14
 
 
 def test_csv_cells_cannot_start_a_spreadsheet_formula():
-    assert dash._csv_text("=SUM(A1)") == "'=SUM(A1)"
-    assert dash._csv_text("plain") == "plain"
+    assert defuse("=SUM(A1)") == "'=SUM(A1)"
+    assert defuse("plain") == "plain"
 
 
 # ------------------------------------------------------------------------- one shot
 
 
-def test_shot_page_shows_inputs_with_units_outputs_flags_and_history(admin_client, seeded, admin_headers, make_shot, db):
+def test_shot_page_shows_inputs_with_units_outputs_flags_and_history(
+    admin_client, seeded, admin_headers, make_shot, db
+):
     corrected = make_shot(2, shot_id="pg-0010", taken_at="2026-11-16T09:10:00Z", changes={"plasma.length_m": 10.0})
     corrected["notes"] = "no seed this time"
     corrected["tags"] = ["unseeded"]
-    response = admin_client.put(f"/api/v1/campaigns/{SLUG}/shots/pg-0010", params={"reason": "length was wrong"},
-                                json=corrected, headers=admin_headers)
+    response = admin_client.put(
+        f"/api/v1/campaigns/{SLUG}/shots/pg-0010",
+        params={"reason": "length was wrong"},
+        json=corrected,
+        headers=admin_headers,
+    )
     assert response.status_code == 200, response.text
-    detail = dash.shot_detail(db, _campaign(db), "pg-0010")
+    detail = shot_page.shot_detail(db, _campaign(db), "pg-0010")
     units = {row.path: row.unit for row in detail.inputs}
     assert units["plasma.density_cm3"] == "cm^-3" and units["driver.momentum_gev"] == "GeV/c"
     outputs = {row.name: row for row in detail.outputs}
@@ -388,15 +436,17 @@ def test_growth_curves_are_the_models_own_numbers_and_end_at_the_exit_values(see
 
     shot, evaluation = store.shot_with_evaluation(db, campaign.id, "pg-0000")
     settings = effective_settings(campaign)
-    curves = dash.growth_curves(shot, settings)
+    curves = shot_page.growth_curves(shot, settings)
     assert curves["z_m"][-1] == pytest.approx(shot.plasma_length_m)
     assert curves["efolds"][-1] == pytest.approx(evaluation.efolds_exit, rel=1e-9)
     assert curves["modulation"][-1] == pytest.approx(math.exp(evaluation.growth_margin_efolds), rel=1e-9)
     assert np.all(np.diff(curves["efolds"]) > 0) and np.all(np.diff(curves["modulation"]) > 0)
     # N(L, xi) at the reference slice (xi_ref = r_ref sigma_z) is the shot's exit e-folds.
     xi_ref = settings["reference_slice_sigma"] * shot.driver_sigma_z_mm
-    assert np.interp(xi_ref, curves["xi_mm"], curves["efolds_exit_xi"]) == pytest.approx(evaluation.efolds_exit, rel=2e-3)
-    figure = dash.growth_figure(curves, shot, evaluation, settings["saturation_modulation"])
+    assert np.interp(xi_ref, curves["xi_mm"], curves["efolds_exit_xi"]) == pytest.approx(
+        evaluation.efolds_exit, rel=2e-3
+    )
+    figure = shot_page.growth_figure(curves, shot, evaluation, settings["saturation_modulation"])
     star = [t for t in figure["data"] if t.get("marker", {}).get("symbol") == "star"]
     assert star and star[0]["x"][0] == pytest.approx(evaluation.saturation_length_m, rel=1e-5)
 
@@ -404,7 +454,9 @@ def test_growth_curves_are_the_models_own_numbers_and_end_at_the_exit_values(see
 # ---------------------------------------------------------------------- live feed
 
 
-def test_live_feed_returns_only_shots_after_the_cursor_with_current_counts(viewer_client, seeded, admin_headers, make_shot):
+def test_live_feed_returns_only_shots_after_the_cursor_with_current_counts(
+    viewer_client, seeded, admin_headers, make_shot
+):
     first = viewer_client.get(f"/campaigns/{SLUG}/live", params={"since": 0}).json()
     assert len(first["shots"]) == 36 and first["counts"]["outside"] == 6
     cursor = first["cursor"]
@@ -416,12 +468,12 @@ def test_live_feed_returns_only_shots_after_the_cursor_with_current_counts(viewe
     assert [s["shot_id"] for s in update["shots"]] == ["pg-new"]
     shot = update["shots"][0]
     assert shot["status"] == "outside" and update["counts"]["outside"] == 7
-    assert set(dash.TIMELINE_FIELDS) <= set(shot["values"]) and "hosing_ratio" in shot["values"]
+    assert set(figures.TIMELINE_FIELDS) <= set(shot["values"]) and "hosing_ratio" in shot["values"]
     assert shot["url"] == f"/campaigns/{SLUG}/shots/pg-new"
 
 
 def test_live_feed_is_bounded(viewer_client, seeded, monkeypatch):
-    monkeypatch.setattr(dash, "LIVE_MAX_ROWS", 5)
+    monkeypatch.setattr(overview, "LIVE_MAX_ROWS", 5)
     update = viewer_client.get(f"/campaigns/{SLUG}/live", params={"since": 0}).json()
     assert len(update["shots"]) == 5 and update["more"] is True
 
@@ -436,7 +488,7 @@ def test_chart_json_cannot_close_its_script_element():
 
 
 def test_hover_text_from_users_is_escaped_for_plotly():
-    assert dash.text_for_chart("<a href=x>run</a>") == "&lt;a href=x&gt;run&lt;/a&gt;"
+    assert text_for_chart("<a href=x>run</a>") == "&lt;a href=x&gt;run&lt;/a&gt;"
 
 
 # ------------------------------------------------------------------------ settings
@@ -449,7 +501,7 @@ def test_settings_page_is_for_admins_only(viewer_client, seeded):
 
 
 def test_settings_form_rejects_bad_values_with_clear_errors_and_saves_nothing(admin_client, seeded, db):
-    form = {f.name: f.text for f in dash.settings_form(db, _campaign(db)).model_fields}
+    form = {f.name: f.text for f in settings_form.settings_form(db, _campaign(db)).model_fields}
     form["setting.noise_floor"] = "lots"
     response = admin_client.post(f"/campaigns/{SLUG}/settings", data=form)
     assert response.status_code == 422
@@ -464,16 +516,18 @@ def test_settings_form_rejects_bad_values_with_clear_errors_and_saves_nothing(ad
 
 
 def test_settings_posted_from_another_site_are_refused(admin_client, seeded, db):
-    form = {f.name: f.text for f in dash.settings_form(db, _campaign(db)).model_fields}
+    form = {f.name: f.text for f in settings_form.settings_form(db, _campaign(db)).model_fields}
     form["limit.HOSING_RISK.outside"] = "1000"
-    response = admin_client.post(f"/campaigns/{SLUG}/settings", data=form, headers={"Origin": "http://elsewhere.invalid"})
+    response = admin_client.post(
+        f"/campaigns/{SLUG}/settings", data=form, headers={"Origin": "http://elsewhere.invalid"}
+    )
     assert response.status_code == 403
     db.rollback()
     assert _campaign(db).settings_version == 1
 
 
 def test_saving_settings_starts_the_reevaluation_and_shows_its_progress(admin_client, seeded, db, app, admin_headers):
-    form = {f.name: f.text for f in dash.settings_form(db, _campaign(db)).model_fields}
+    form = {f.name: f.text for f in settings_form.settings_form(db, _campaign(db)).model_fields}
     form["limit.HOSING_RISK.outside"] = "1000"
     response = admin_client.post(f"/campaigns/{SLUG}/settings", data=form, follow_redirects=False)
     assert response.status_code == 303
@@ -487,14 +541,20 @@ def test_saving_settings_starts_the_reevaluation_and_shows_its_progress(admin_cl
     assert campaign.model_settings == {"limits": {"HOSING_RISK": {"outside": 1000.0}}}
     page = admin_client.get(response.headers["location"]).text
     assert f'"job_id":"{job_id}"' in page
-    assert dash.overview(db, campaign).counts["outside"] < 6
+    assert overview.overview(db, campaign).counts["outside"] < 6
 
 
 def test_a_campaign_without_shots_still_has_every_page(viewer_client, campaign):
-    for path in (f"/campaigns/{SLUG}", f"/campaigns/{SLUG}/shots", f"/campaigns/{SLUG}/shots.csv",
-                 f"/campaigns/{SLUG}/charts/timeline.json", f"/campaigns/{SLUG}/charts/phase.json",
-                 f"/campaigns/{SLUG}/charts/calibration.json", f"/campaigns/{SLUG}/live?since=0",
-                 f"/campaigns/{SLUG}/regime.json?x=plasma_density_cm3&y=plasma_density_cm3"):
+    for path in (
+        f"/campaigns/{SLUG}",
+        f"/campaigns/{SLUG}/shots",
+        f"/campaigns/{SLUG}/shots.csv",
+        f"/campaigns/{SLUG}/charts/timeline.json",
+        f"/campaigns/{SLUG}/charts/phase.json",
+        f"/campaigns/{SLUG}/charts/calibration.json",
+        f"/campaigns/{SLUG}/live?since=0",
+        f"/campaigns/{SLUG}/regime.json?x=plasma_density_cm3&y=plasma_density_cm3",
+    ):
         assert viewer_client.get(path).status_code == 200, path
     assert "No shots match this filter." in viewer_client.get(f"/campaigns/{SLUG}/shots").text
 
@@ -502,20 +562,24 @@ def test_a_campaign_without_shots_still_has_every_page(viewer_client, campaign):
 # ------------------------------------------------------------ weekly-summary link
 
 
-def test_the_weekly_summary_link_points_at_the_latest_week_with_shots_and_keeps_a_this_week_link(admin_client, seeded, db):
+def test_the_weekly_summary_link_points_at_the_latest_week_with_shots_and_keeps_a_this_week_link(
+    admin_client, seeded, db
+):
     campaign = _campaign(db)
-    this_week = dash.current_week(campaign)
+    this_week = overview.campaign_week(campaign)
     if this_week == "2026-W47":  # the page shots are all taken in 2026-W47
         pytest.skip("run during 2026-W47: the latest week with shots is this week")
     for path in (f"/campaigns/{SLUG}", "/campaigns"):
         page = admin_client.get(path).text
         assert f'href="/api/v1/campaigns/{SLUG}/summary?week=2026-W47&amp;format=html">Weekly summary 2026-W47' in page
-        assert f'href="/api/v1/campaigns/{SLUG}/summary?week={this_week}&amp;format=html">this week ({this_week})' in page
+        assert (
+            f'href="/api/v1/campaigns/{SLUG}/summary?week={this_week}&amp;format=html">this week ({this_week})' in page
+        )
 
 
 def test_the_weekly_summary_link_of_an_empty_campaign_is_the_current_week_alone(admin_client, campaign, db):
-    links = dash.campaign_summary_links(db, _campaign(db))
-    week = dash.current_week(_campaign(db))
+    links = overview.campaign_summary_links(db, _campaign(db))
+    week = overview.campaign_week(_campaign(db))
     assert (links.week, links.this_week, links.this_week_url) == (week, None, None)
     page = admin_client.get(f"/campaigns/{SLUG}").text
     assert f'summary?week={week}&amp;format=html">Weekly summary {week}</a>' in page
@@ -523,24 +587,33 @@ def test_the_weekly_summary_link_of_an_empty_campaign_is_the_current_week_alone(
 
 
 def test_when_the_latest_shot_is_this_week_there_is_one_weekly_summary_link(seeded, db):
-    from datetime import datetime, timezone
+    from datetime import datetime
 
-    links = dash.campaign_summary_links(db, _campaign(db), now=datetime(2026, 11, 20, 12, tzinfo=timezone.utc))
+    links = overview.campaign_summary_links(db, _campaign(db), now=datetime(2026, 11, 20, 12, tzinfo=UTC))
     assert links.week == "2026-W47" and links.this_week is None
     assert links.url == f"/api/v1/campaigns/{SLUG}/summary?week=2026-W47&format=html"
 
 
-def test_phases_either_side_of_plus_minus_pi_get_a_small_spread_on_the_overview(client, campaign, admin_headers, make_shot, db):
+def test_phases_either_side_of_plus_minus_pi_get_a_small_spread_on_the_overview(
+    client, campaign, admin_headers, make_shot, db
+):
     # Phases within 0.05 rad of +-pi, alternating sides: 0.1 rad apart at most, not 2 pi.
     phases = [(math.pi - 0.05 * ((i // 2) % 5) / 4) * (1 if i % 2 else -1) for i in range(30)]
-    shots = [make_shot(0, shot_id=f"wrap-{i:03d}", taken_at=f"2026-11-17T{8 + i // 6:02d}:{(i % 6) * 7:02d}:00Z",
-                       changes={"measured.modulation_phase_rad": p}) for i, p in enumerate(phases)]
+    shots = [
+        make_shot(
+            0,
+            shot_id=f"wrap-{i:03d}",
+            taken_at=f"2026-11-17T{8 + i // 6:02d}:{(i % 6) * 7:02d}:00Z",
+            changes={"measured.modulation_phase_rad": p},
+        )
+        for i, p in enumerate(phases)
+    ]
     response = client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": shots}, headers=admin_headers)
     assert response.status_code == 201, response.text
-    summary = dash.phase_summary(db, _campaign(db))
+    summary = figures.phase_summary(db, _campaign(db))
     assert summary.shots_with_phase == 30
     assert summary.measured_phase_std_rad < 0.05
     assert np.std(phases, ddof=1) > 3  # what a plain std about the plain mean would say
-    figure = dash.phase_figure(db, _campaign(db))
+    figure = figures.phase_figure(db, _campaign(db))
     per_group = next(t for t in figure["data"] if t["name"].startswith("measured shot-to-shot phase jitter"))
     assert per_group["y"] and all(v is not None and v < 0.05 for v in per_group["y"])

@@ -5,8 +5,8 @@ from __future__ import annotations
 import json
 import re
 
-from app.services import detailed_runs as run_service
-from tests.detailed_runs_support import post_quick_shot, run_quick_detailed_run
+from app.services.detailed_runs import figures as run_figures
+from tests.support.detailed_runs import post_quick_shot, run_quick_detailed_run
 
 
 def _panel_config(html: str) -> dict:
@@ -33,7 +33,7 @@ def test_shot_page_shows_the_latest_detailed_run_with_its_three_charts_and_valid
     assert latest["validity_note"] and latest["validity_note"] in html
     heatmap = latest["figures"]["map"]["data"][0]
     assert heatmap["type"] == "heatmap"
-    assert len(heatmap["y"]) <= run_service.MAP_MAX_ZETA and len(heatmap["x"]) <= run_service.MAP_MAX_Z
+    assert len(heatmap["y"]) <= run_figures.MAP_MAX_ZETA and len(heatmap["x"]) <= run_figures.MAP_MAX_Z
     assert latest["figures"]["growth"]["layout"]["yaxis"]["type"] == "log"
     names = [t["name"] for t in latest["figures"]["growth"]["data"]]
     assert "δ(z) envelope solver" in names and "δ(z) closed form" in names
@@ -65,8 +65,8 @@ def test_chart_payload_of_a_long_bunch_stays_small(reference_cases):
     shot = json.loads(json.dumps(shot))
     shot["plasma"]["length_m"] = 0.05
     doc = envelope_result_to_json(simulate_envelope(shot, dz_m=0.01))
-    figures = run_service.run_figures(doc)
+    figures = run_figures.run_figures(doc)
     assert len(json.dumps(figures)) < 1_000_000
     field = figures["field"]["data"]
     assert len(field) == 2 and field[1]["fill"] == "tonexty"
-    assert len(field[0]["x"]) <= run_service.FIELD_MAX_POINTS
+    assert len(field[0]["x"]) <= run_figures.FIELD_MAX_POINTS

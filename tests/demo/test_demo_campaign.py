@@ -120,10 +120,14 @@ def test_the_density_calibration_drift_shows_as_a_growing_frequency_mismatch(sho
 def test_phase_jitter_follows_the_density_jitter(shots, evaluated):
     # MODEL.md section 5: a 1 % density change moves the phase by phase_per_pct_density_rad.
     production = np.array(
-        [s["tags"][0] == "production" and _local(s).date().isoformat() < "2026-11-16"
-         and "modulation_phase_rad" in s.get("measured", {}) for s in shots]
+        [
+            s["tags"][0] == "production"
+            and _local(s).date().isoformat() < "2026-11-16"
+            and "modulation_phase_rad" in s.get("measured", {})
+            for s in shots
+        ]
     )
-    phases = np.array([s["measured"]["modulation_phase_rad"] for s, p in zip(shots, production) if p])
+    phases = np.array([s["measured"]["modulation_phase_rad"] for s, p in zip(shots, production, strict=False) if p])
     per_pct = float(np.median(evaluated["phase_per_pct_density_rad"][production]))
     expected = math.hypot(per_pct * 100 * scenario.JITTER["true_density"], scenario.PHASE_RESOLUTION_RAD)
     assert phases.std() == pytest.approx(expected, rel=0.2)
@@ -138,8 +142,13 @@ def test_some_shots_are_seeded_by_an_electron_bunch_and_some_unseeded(shots):
 
 def test_diagnostics_and_unknown_fields_are_present(shots):
     measured = Counter(k for s in shots for k in s.get("measured", {}))
-    for key in ("modulation_freq_ghz", "modulation_phase_rad", "microbunch_count",
-                "halo_radius_mm", "witness_energy_mev"):
+    for key in (
+        "modulation_freq_ghz",
+        "modulation_phase_rad",
+        "microbunch_count",
+        "halo_radius_mm",
+        "witness_energy_mev",
+    ):
         assert measured[key] > 100, key
     assert all("daq" in s for s in shots)  # not a model input: kept verbatim by ingest
 

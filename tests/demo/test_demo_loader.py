@@ -46,8 +46,9 @@ def test_demo_loads_through_the_services_and_a_second_load_changes_nothing(datab
             assert campaign.timezone == scenario.CAMPAIGN_TIMEZONE
             assert session.scalar(select(func.count()).select_from(Shot)) == len(demo_payloads)
             assert session.scalar(select(func.count()).select_from(Evaluation)) == len(demo_payloads)
-            statuses = Counter(dict(session.execute(
-                select(Evaluation.status, func.count()).group_by(Evaluation.status)).all()))
+            statuses = Counter(
+                dict(session.execute(select(Evaluation.status, func.count()).group_by(Evaluation.status)).all())
+            )
             assert statuses["nominal"] > statuses["marginal"] > 0 and statuses["outside"] > 0
             codes = set(session.scalars(select(Flag.code).distinct()))
             assert codes == set(model.FLAG_CODES)
@@ -123,7 +124,11 @@ def test_wakeledger_demo_starts_prints_the_url_and_token_and_serves_anonymous_re
     env = {**os.environ, "PYTHONPATH": str(REPO), "DATABASE_URL": "sqlite:///must-not-be-used.db"}
     proc = subprocess.Popen(
         [sys.executable, "-m", "app.cli", "demo", "--port", str(port), "--db", str(tmp_path / "demo.db")],
-        cwd=tmp_path, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+        cwd=tmp_path,
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.STDOUT,
+        text=True,
     )
     try:
         lines: list[str] = []

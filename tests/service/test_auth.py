@@ -5,7 +5,8 @@ from __future__ import annotations
 from sqlalchemy import select
 
 from app.cli import main
-from app.services.auth import SESSION_COOKIE, hash_token
+from app.routers.deps import SESSION_COOKIE
+from app.services.auth import hash_token
 from app.tables import ApiToken
 
 
@@ -30,14 +31,22 @@ def test_a_viewer_cannot_post_a_shot_and_gets_403(client, campaign, viewer_heade
 
 
 def test_an_ingest_token_cannot_create_a_campaign_or_change_settings(client, campaign, ingest_headers):
-    assert client.post("/api/v1/campaigns", json={"slug": "other", "name": "Other"},
-                       headers=ingest_headers).status_code == 403
-    assert client.patch(f"/api/v1/campaigns/{campaign}/settings", json={"noise_floor": 0.002},
-                        headers=ingest_headers).status_code == 403
+    assert (
+        client.post("/api/v1/campaigns", json={"slug": "other", "name": "Other"}, headers=ingest_headers).status_code
+        == 403
+    )
+    assert (
+        client.patch(
+            f"/api/v1/campaigns/{campaign}/settings", json={"noise_floor": 0.002}, headers=ingest_headers
+        ).status_code
+        == 403
+    )
 
 
 def test_an_admin_token_can_also_post_shots_and_read(client, campaign, admin_headers, make_shot):
-    assert client.post(f"/api/v1/campaigns/{campaign}/shots", json=make_shot(), headers=admin_headers).status_code == 201
+    assert (
+        client.post(f"/api/v1/campaigns/{campaign}/shots", json=make_shot(), headers=admin_headers).status_code == 201
+    )
     assert client.get(f"/api/v1/campaigns/{campaign}/shots", headers=admin_headers).status_code == 200
 
 
@@ -81,8 +90,11 @@ def test_demo_mode_lets_anonymous_visitors_read_but_not_write(settings, make_sho
 
     demo = create_app(settings.model_copy(update={"demo_mode": True}))
     with TestClient(demo) as client:
-        client.post("/api/v1/campaigns", json={"slug": "demo", "name": "Demo"},
-                    headers={"Authorization": f"Bearer {admin_token}"})
+        client.post(
+            "/api/v1/campaigns",
+            json={"slug": "demo", "name": "Demo"},
+            headers={"Authorization": f"Bearer {admin_token}"},
+        )
         assert client.get("/api/v1/campaigns/demo").status_code == 200
         assert client.post("/api/v1/campaigns/demo/shots", json=make_shot()).status_code == 401
         assert client.get("/api/v1/campaigns", headers={"Authorization": "Bearer wrong"}).status_code == 401

@@ -15,12 +15,16 @@ from app.tables import AuditEntry, Evaluation, Flag, Shot, ShotRevision
 
 def _counts(app) -> dict[str, int]:
     with app.state.session_factory() as session:
-        return {t.__tablename__: session.scalar(select(func.count()).select_from(t))
-                for t in (Shot, ShotRevision, Evaluation, Flag)}
+        return {
+            t.__tablename__: session.scalar(select(func.count()).select_from(t))
+            for t in (Shot, ShotRevision, Evaluation, Flag)
+        }
 
 
 def _shots(make_shot, ids) -> list[dict]:
-    return [make_shot(i % 3, shot_id=f"c-{i:05d}", taken_at=f"2026-11-17T11:{i // 60 % 60:02d}:{i % 60:02d}Z") for i in ids]
+    return [
+        make_shot(i % 3, shot_id=f"c-{i:05d}", taken_at=f"2026-11-17T11:{i // 60 % 60:02d}:{i % 60:02d}Z") for i in ids
+    ]
 
 
 def test_two_posters_of_overlapping_batches_both_succeed_and_every_shot_is_stored_once(
@@ -33,11 +37,13 @@ def test_two_posters_of_overlapping_batches_both_succeed_and_every_shot_is_store
     statuses: dict[str, list[int]] = {"a": [], "b": []}
 
     def poster(name: str) -> None:
-        with httpx.Client(base_url=live_server, headers={"Authorization": f"Bearer {ingest_token}"},
-                          timeout=60) as http:
+        with httpx.Client(
+            base_url=live_server, headers={"Authorization": f"Bearer {ingest_token}"}, timeout=60
+        ) as http:
             for batch in batches[name]:
-                statuses[name].append(http.post(f"/api/v1/campaigns/{campaign}/shots/batch",
-                                                json={"shots": batch}).status_code)
+                statuses[name].append(
+                    http.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": batch}).status_code
+                )
 
     threads = [threading.Thread(target=poster, args=(n,)) for n in batches]
     for t in threads:
@@ -61,8 +67,9 @@ def test_four_posters_of_the_same_single_shots_store_each_once_without_errors(
     lock = threading.Lock()
 
     def poster() -> None:
-        with httpx.Client(base_url=live_server, headers={"Authorization": f"Bearer {ingest_token}"},
-                          timeout=60) as http:
+        with httpx.Client(
+            base_url=live_server, headers={"Authorization": f"Bearer {ingest_token}"}, timeout=60
+        ) as http:
             for shot in shots:
                 code = http.post(f"/api/v1/campaigns/{campaign}/shots", json=shot).status_code
                 with lock:
@@ -99,7 +106,9 @@ def test_a_crash_in_the_middle_of_a_batch_leaves_no_partial_rows(app, campaign, 
         ingest_shots(session, campaign, _shots(make_shot, range(20)), actor="test")
     assert _counts(app) == {"shots": 0, "shot_revisions": 0, "evaluations": 0, "flags": 0}
     with app.state.session_factory() as session:
-        assert session.scalar(select(func.count()).select_from(AuditEntry).where(AuditEntry.action == "shots.ingest")) == 0
+        assert (
+            session.scalar(select(func.count()).select_from(AuditEntry).where(AuditEntry.action == "shots.ingest")) == 0
+        )
 
 
 def test_an_unexpected_server_error_answers_a_500_problem_and_stores_nothing(

@@ -8,9 +8,9 @@ from pathlib import Path
 
 import pytest
 
-from app.services import detailed_runs as run_service
-from tests.detailed_runs_support import post_quick_shot, run_quick_detailed_run
-from tests.jobs_support import wait_for_job
+from app.services.detailed_runs import lifecycle as run_service
+from tests.support.detailed_runs import post_quick_shot, run_quick_detailed_run
+from tests.support.jobs import wait_for_job
 
 RUNS = "/api/v1/campaigns/{campaign}/shots/{shot}/detailed-runs"
 
@@ -72,15 +72,15 @@ def test_the_same_run_asked_twice_while_it_waits_is_one_job(client, campaign, in
     with run_service._SOLVER_SLOT:  # hold the solver: the first job waits in "running"
         first = client.post(_runs(campaign, shot), headers=ingest_headers).json()["job_id"]
         second = client.post(_runs(campaign, shot), json={}, headers=ingest_headers).json()["job_id"]
-        other = client.post(_runs(campaign, shot), json={"slices_per_wavelength": 17},
-                            headers=ingest_headers).json()["job_id"]
+        other = client.post(_runs(campaign, shot), json={"slices_per_wavelength": 17}, headers=ingest_headers).json()[
+            "job_id"
+        ]
     assert first == second != other
     for job_id in (first, other):
         assert wait_for_job(client, job_id, ingest_headers)["state"] == "succeeded"
 
 
-def test_a_viewer_cannot_start_a_detailed_run_and_gets_403(client, campaign, ingest_headers, viewer_headers,
-                                                          make_shot):
+def test_a_viewer_cannot_start_a_detailed_run_and_gets_403(client, campaign, ingest_headers, viewer_headers, make_shot):
     shot = post_quick_shot(client, campaign, ingest_headers, make_shot)
     response = client.post(_runs(campaign, shot), headers=viewer_headers)
     assert response.status_code == 403
@@ -93,8 +93,7 @@ def test_starting_or_reading_detailed_runs_without_a_token_gets_401(client, camp
     assert client.get(_runs(campaign, shot)).status_code == 401
 
 
-def test_detailed_runs_of_an_unknown_shot_or_run_get_404(client, campaign, ingest_headers, viewer_headers,
-                                                         make_shot):
+def test_detailed_runs_of_an_unknown_shot_or_run_get_404(client, campaign, ingest_headers, viewer_headers, make_shot):
     assert client.post(_runs(campaign, "no-such-shot"), headers=ingest_headers).status_code == 404
     assert client.get(_runs(campaign, "no-such-shot"), headers=viewer_headers).status_code == 404
     assert client.post(_runs("no-such-campaign", "x"), headers=ingest_headers).status_code == 404
@@ -115,8 +114,7 @@ BAD_PARAMETERS = [
 ]
 
 
-def test_bad_run_parameters_get_422_naming_the_field_and_start_nothing(client, campaign, ingest_headers,
-                                                                        make_shot):
+def test_bad_run_parameters_get_422_naming_the_field_and_start_nothing(client, campaign, ingest_headers, make_shot):
     shot = post_quick_shot(client, campaign, ingest_headers, make_shot)
     for body, field in BAD_PARAMETERS:
         response = client.post(_runs(campaign, shot), json=body, headers=ingest_headers)
@@ -146,8 +144,9 @@ def test_a_failed_run_marks_the_job_failed_with_the_message_and_stores_nothing(
 def test_solver_progress_reaches_the_job_as_percent_at_most_every_interval():
     reports: list[tuple[int, int]] = []
     now = [0.0]
-    progress = run_service.JobProgress(lambda done, total, _msg: reports.append((done, total)), interval_s=1.0,
-                                       clock=lambda: now[0])
+    progress = run_service.JobProgress(
+        lambda done, total, _msg: reports.append((done, total)), interval_s=1.0, clock=lambda: now[0]
+    )
     for step in range(1, 11):  # 10 % per call, 0.4 s apart
         now[0] += 0.4
         progress(step / 10)
@@ -191,8 +190,7 @@ def _ex1_file(tmp_path: Path, reference_cases) -> Path:
     return path
 
 
-def test_simulate_writes_a_self_contained_html_file_with_the_three_plots_for_ex1(tmp_path, reference_cases,
-                                                                                 capsys):
+def test_simulate_writes_a_self_contained_html_file_with_the_three_plots_for_ex1(tmp_path, reference_cases, capsys):
     from app.cli import main
 
     out = tmp_path / "run.html"
@@ -233,8 +231,9 @@ def test_simulate_refuses_too_few_slices_naming_the_option(tmp_path, reference_c
     from app.cli import main
 
     out = tmp_path / "run.html"
-    code = main(["simulate", str(_ex1_file(tmp_path, reference_cases)), "--out", str(out),
-                 "--slices-per-wavelength", "8"])
+    code = main(
+        ["simulate", str(_ex1_file(tmp_path, reference_cases)), "--out", str(out), "--slices-per-wavelength", "8"]
+    )
     assert code == 2
     assert "--slices-per-wavelength" in capsys.readouterr().err
     assert not out.exists()

@@ -3,13 +3,13 @@ at server start-up in a background job, or now with ``wakeledger reevaluate``.""
 
 from __future__ import annotations
 
-
 from sqlalchemy import select, update
 
 import model
 from app.cli import main
+from app.database import make_session_factory
 from app.tables import AuditEntry, Campaign, Evaluation, Job
-from tests.jobs_support import wait_for_job
+from tests.support.jobs import wait_for_job
 
 OLD_VERSION = "2000.1.0"  # a model version no release carries
 
@@ -40,9 +40,14 @@ def _model_versions(factory, slug: str) -> set[str]:
 
 def _reevaluation_jobs(factory, slug: str) -> list[Job]:
     with factory() as session:
-        return list(session.scalars(
-            select(Job).join(Campaign, Campaign.id == Job.campaign_id)
-            .where(Campaign.slug == slug, Job.kind == "reevaluate").order_by(Job.created_at)))
+        return list(
+            session.scalars(
+                select(Job)
+                .join(Campaign, Campaign.id == Job.campaign_id)
+                .where(Campaign.slug == slug, Job.kind == "reevaluate")
+                .order_by(Job.created_at)
+            )
+        )
 
 
 def _start_again(settings):
@@ -76,7 +81,8 @@ def test_a_campaign_evaluated_by_an_older_model_is_re_evaluated_when_the_service
     with factory() as session:
         entries = list(session.scalars(select(AuditEntry).where(AuditEntry.action == "campaign.reevaluate")))
     assert [(e.actor, e.campaign_slug, e.detail["job"]) for e in entries] == [
-        ("wakeledger (model upgrade)", campaign, job.id)]
+        ("wakeledger (model upgrade)", campaign, job.id)
+    ]
 
 
 def test_a_campaign_already_on_the_current_model_gets_no_job_at_start_up(
@@ -104,12 +110,14 @@ def test_a_campaign_already_on_the_current_model_gets_no_job_at_start_up(
 def test_start_up_queues_no_second_job_when_a_re_evaluation_is_already_queued(
     app, settings, client, ingest_headers, viewer_headers, campaign, make_shot
 ):
-    from app.services.campaigns import change_settings
+    from app.services.campaign_settings import change_settings
 
     _post_shots(client, ingest_headers, campaign, make_shot, 4, "old")
     factory = app.state.session_factory
     _age_evaluations(factory, campaign)
-    with factory() as session:  # a settings change commits its job, then the process "dies"
+    # A settings change commits its job in a process that "dies" before running it: its
+    # sessions have no job runner attached, so the job stays queued.
+    with make_session_factory(app.state.engine)() as session:
         _campaign, queued = change_settings(session, campaign, {"noise_floor": 0.002}, "test")
 
     restarted, test_client = _start_again(settings)

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import re
 
-SAMPLE = re.compile(r'^[a-zA-Z_:][a-zA-Z0-9_:]*(\{([a-zA-Z_][a-zA-Z0-9_]*="[^"]*",?)*\})? (-?[0-9.eE+-]+|\+Inf|-Inf|NaN)$')
+SAMPLE = re.compile(
+    r'^[a-zA-Z_:][a-zA-Z0-9_:]*(\{([a-zA-Z_][a-zA-Z0-9_]*="[^"]*",?)*\})? (-?[0-9.eE+-]+|\+Inf|-Inf|NaN)$'
+)
 
 
 def _sample(text: str, name: str) -> float:
@@ -26,8 +28,11 @@ def test_metrics_are_in_the_prometheus_text_format_and_count_ingested_and_reject
 ):
     before = client.get("/metrics", headers=viewer_headers).text
     client.post(f"/api/v1/campaigns/{campaign}/shots", json=make_shot(), headers=ingest_headers)
-    client.post(f"/api/v1/campaigns/{campaign}/shots", json=make_shot(shot_id="bad", changes={"plasma.length_m": 0}),
-                headers=ingest_headers)
+    client.post(
+        f"/api/v1/campaigns/{campaign}/shots",
+        json=make_shot(shot_id="bad", changes={"plasma.length_m": 0}),
+        headers=ingest_headers,
+    )
     response = client.get("/metrics", headers=viewer_headers)
     assert response.status_code == 200
     assert response.headers["content-type"].startswith("text/plain; version=0.0.4")

@@ -58,7 +58,9 @@ def test_a_worked_example_posted_through_the_api_gives_the_same_numbers_as_the_m
             assert evaluation[name] == pytest.approx(expected, rel=1e-6), name
 
 
-def test_a_stored_shot_reads_back_with_its_evaluation_and_flags(client, campaign, ingest_headers, viewer_headers, make_shot):
+def test_a_stored_shot_reads_back_with_its_evaluation_and_flags(
+    client, campaign, ingest_headers, viewer_headers, make_shot
+):
     client.post(_shots_url(campaign), json=make_shot("ex-2"), headers=ingest_headers)
     response = client.get(f"{_shots_url(campaign)}/ex-2", headers=viewer_headers)
     assert response.status_code == 200
@@ -73,8 +75,9 @@ def test_a_stored_shot_reads_back_with_its_evaluation_and_flags(client, campaign
 def test_a_daq_posts_a_shot_with_a_negative_density_and_gets_422_naming_the_field(
     client, app, campaign, ingest_headers, make_shot
 ):
-    response = client.post(_shots_url(campaign), json=make_shot(changes={"plasma.density_cm3": -1e15}),
-                           headers=ingest_headers)
+    response = client.post(
+        _shots_url(campaign), json=make_shot(changes={"plasma.density_cm3": -1e15}), headers=ingest_headers
+    )
     assert response.status_code == 422
     assert response.headers["content-type"].startswith("application/problem+json")
     body = response.json()
@@ -92,8 +95,9 @@ def test_every_failing_field_of_a_shot_is_named_at_once(client, campaign, ingest
 
 
 def test_a_shot_time_without_a_utc_offset_is_refused(client, campaign, ingest_headers, make_shot):
-    response = client.post(_shots_url(campaign), json=make_shot(taken_at="2026-11-17T09:12:03.120"),
-                           headers=ingest_headers)
+    response = client.post(
+        _shots_url(campaign), json=make_shot(taken_at="2026-11-17T09:12:03.120"), headers=ingest_headers
+    )
     assert response.status_code == 422
     assert _fields(response) == ["taken_at"]
 
@@ -107,8 +111,9 @@ def test_a_shot_without_shot_id_is_refused(client, campaign, ingest_headers, mak
 def test_nan_anywhere_in_the_body_is_refused_even_in_an_unknown_field(client, app, campaign, ingest_headers, make_shot):
     shot = make_shot()
     shot["daq"] = {"temperature_k": math.nan}
-    response = client.post(_shots_url(campaign), content=json.dumps(shot),
-                           headers={**ingest_headers, "Content-Type": "application/json"})
+    response = client.post(
+        _shots_url(campaign), content=json.dumps(shot), headers={**ingest_headers, "Content-Type": "application/json"}
+    )
     assert response.status_code == 422
     assert _fields(response) == ["daq.temperature_k"]
     assert _count(app, Shot) == 0
@@ -116,20 +121,24 @@ def test_nan_anywhere_in_the_body_is_refused_even_in_an_unknown_field(client, ap
 
 def test_infinity_in_an_input_is_refused(client, campaign, ingest_headers, make_shot):
     shot = make_shot(changes={"driver.momentum_gev": math.inf})
-    response = client.post(_shots_url(campaign), content=json.dumps(shot),
-                           headers={**ingest_headers, "Content-Type": "application/json"})
+    response = client.post(
+        _shots_url(campaign), content=json.dumps(shot), headers={**ingest_headers, "Content-Type": "application/json"}
+    )
     assert response.status_code == 422
     assert _fields(response) == ["driver.momentum_gev"]
 
 
 def test_a_body_that_is_not_json_gets_a_422_problem(client, campaign, ingest_headers):
-    response = client.post(_shots_url(campaign), content=b"{not json",
-                           headers={**ingest_headers, "Content-Type": "application/json"})
+    response = client.post(
+        _shots_url(campaign), content=b"{not json", headers={**ingest_headers, "Content-Type": "application/json"}
+    )
     assert response.status_code == 422
     assert response.headers["content-type"].startswith("application/problem+json")
 
 
-def test_unknown_fields_are_kept_verbatim_in_the_raw_payload(client, campaign, ingest_headers, viewer_headers, make_shot):
+def test_unknown_fields_are_kept_verbatim_in_the_raw_payload(
+    client, campaign, ingest_headers, viewer_headers, make_shot
+):
     shot = make_shot(changes={"driver.vendor_tag": "bpm-7"})
     shot["daq"] = {"crate": 3, "firmware": "4.2.1", "channels": [1, 2, 3]}
     client.post(_shots_url(campaign), json=shot, headers=ingest_headers)
@@ -137,7 +146,9 @@ def test_unknown_fields_are_kept_verbatim_in_the_raw_payload(client, campaign, i
     assert stored["payload"] == shot
 
 
-def test_reposting_the_identical_shot_answers_200_and_stores_nothing_new(client, app, campaign, ingest_headers, make_shot):
+def test_reposting_the_identical_shot_answers_200_and_stores_nothing_new(
+    client, app, campaign, ingest_headers, make_shot
+):
     shot = make_shot()
     first = client.post(_shots_url(campaign), json=shot, headers=ingest_headers)
     again = client.post(_shots_url(campaign), json=shot, headers=ingest_headers)
@@ -147,7 +158,9 @@ def test_reposting_the_identical_shot_answers_200_and_stores_nothing_new(client,
     assert _count(app, ShotRevision) == 1
 
 
-def test_the_same_instant_written_with_another_offset_or_as_250_0_is_the_same_shot(client, campaign, ingest_headers, make_shot):
+def test_the_same_instant_written_with_another_offset_or_as_250_0_is_the_same_shot(
+    client, campaign, ingest_headers, make_shot
+):
     shot = make_shot(taken_at="2026-11-17T09:12:03.120Z")
     client.post(_shots_url(campaign), json=shot, headers=ingest_headers)
     same = make_shot(taken_at="2026-11-17T10:12:03.12+01:00", changes={"driver.momentum_gev": 250.0})
@@ -180,12 +193,18 @@ def test_reading_an_unknown_shot_gets_404(client, campaign, viewer_headers):
 
 
 def _batch(make_shot, n: int, start: int = 0) -> list[dict]:
-    return [make_shot(i % 3, shot_id=f"b-{i:05d}", taken_at=f"2026-11-17T{10 + i // 3600:02d}:{i // 60 % 60:02d}:{i % 60:02d}Z")
-            for i in range(start, start + n)]
+    return [
+        make_shot(
+            i % 3, shot_id=f"b-{i:05d}", taken_at=f"2026-11-17T{10 + i // 3600:02d}:{i // 60 % 60:02d}:{i % 60:02d}Z"
+        )
+        for i in range(start, start + n)
+    ]
 
 
 def test_a_batch_is_stored_and_evaluated_in_one_call(client, app, campaign, ingest_headers, make_shot):
-    response = client.post(f"{_shots_url(campaign)}/batch", json={"shots": _batch(make_shot, 30)}, headers=ingest_headers)
+    response = client.post(
+        f"{_shots_url(campaign)}/batch", json={"shots": _batch(make_shot, 30)}, headers=ingest_headers
+    )
     assert response.status_code == 201, response.text
     body = response.json()
     assert (body["created"], body["unchanged"], body["duplicates_in_batch"]) == (30, 0, 0)
@@ -245,7 +264,9 @@ def test_a_batch_replaying_a_stored_shot_with_other_values_is_refused_whole_with
     assert _count(app, Shot) == 2
 
 
-def test_a_batch_with_two_different_bodies_under_one_shot_id_is_refused_with_409(client, app, campaign, ingest_headers, make_shot):
+def test_a_batch_with_two_different_bodies_under_one_shot_id_is_refused_with_409(
+    client, app, campaign, ingest_headers, make_shot
+):
     shots = _batch(make_shot, 3)
     twin = make_shot(0, shot_id=shots[0]["shot_id"], taken_at=shots[0]["taken_at"], changes={"plasma.length_m": 7.5})
     response = client.post(f"{_shots_url(campaign)}/batch", json={"shots": shots + [twin]}, headers=ingest_headers)
@@ -256,8 +277,9 @@ def test_a_batch_with_two_different_bodies_under_one_shot_id_is_refused_with_409
 
 def test_a_batch_over_the_shot_limit_is_refused(client, app, campaign, ingest_headers, make_shot, settings):
     shot = make_shot()
-    response = client.post(f"{_shots_url(campaign)}/batch", json={"shots": [shot] * (settings.max_batch_shots + 1)},
-                           headers=ingest_headers)
+    response = client.post(
+        f"{_shots_url(campaign)}/batch", json={"shots": [shot] * (settings.max_batch_shots + 1)}, headers=ingest_headers
+    )
     assert response.status_code == 422
     assert _fields(response) == ["shots"]
 
@@ -284,9 +306,11 @@ def small_body_client(settings):
 
 
 def test_an_oversized_body_gets_413_from_its_content_length(small_body_client, ingest_token):
-    response = small_body_client.post("/api/v1/campaigns/any/shots", content=b"{" + b" " * 5000 + b"}",
-                                      headers={"Authorization": f"Bearer {ingest_token}",
-                                               "Content-Type": "application/json"})
+    response = small_body_client.post(
+        "/api/v1/campaigns/any/shots",
+        content=b"{" + b" " * 5000 + b"}",
+        headers={"Authorization": f"Bearer {ingest_token}", "Content-Type": "application/json"},
+    )
     assert response.status_code == 413
     assert response.headers["content-type"].startswith("application/problem+json")
 
@@ -298,9 +322,11 @@ def test_an_oversized_streamed_body_without_content_length_gets_413(small_body_c
             yield b" " * 100
         yield b"}"
 
-    response = small_body_client.post("/api/v1/campaigns/any/shots", content=chunks(),
-                                      headers={"Authorization": f"Bearer {ingest_token}",
-                                               "Content-Type": "application/json"})
+    response = small_body_client.post(
+        "/api/v1/campaigns/any/shots",
+        content=chunks(),
+        headers={"Authorization": f"Bearer {ingest_token}", "Content-Type": "application/json"},
+    )
     assert response.status_code == 413
 
 
@@ -325,14 +351,19 @@ def test_a_physicist_pages_through_every_shot_with_a_cursor_and_sees_each_once(
 def test_newest_first_paging_works_too(client, campaign, ingest_headers, viewer_headers, make_shot):
     client.post(f"{_shots_url(campaign)}/batch", json={"shots": _batch(make_shot, 9)}, headers=ingest_headers)
     first = client.get(_shots_url(campaign), params={"order": "desc", "limit": 5}, headers=viewer_headers).json()
-    rest = client.get(_shots_url(campaign), params={"order": "desc", "limit": 5, "cursor": first["next_cursor"]},
-                      headers=viewer_headers).json()
+    rest = client.get(
+        _shots_url(campaign),
+        params={"order": "desc", "limit": 5, "cursor": first["next_cursor"]},
+        headers=viewer_headers,
+    ).json()
     ids = [i["shot_id"] for i in first["items"] + rest["items"]]
     assert ids == [f"b-{i:05d}" for i in reversed(range(9))]
     assert rest["next_cursor"] is None
 
 
-def test_shots_are_filtered_by_status_flag_time_range_and_seed_method(client, campaign, ingest_headers, viewer_headers, make_shot):
+def test_shots_are_filtered_by_status_flag_time_range_and_seed_method(
+    client, campaign, ingest_headers, viewer_headers, make_shot
+):
     client.post(f"{_shots_url(campaign)}/batch", json={"shots": _batch(make_shot, 12)}, headers=ingest_headers)
 
     def ids(**params):
@@ -344,7 +375,10 @@ def test_shots_are_filtered_by_status_flag_time_range_and_seed_method(client, ca
     assert ids(flag="BEAM_TOO_WIDE") == [f"b-{i:05d}" for i in range(1, 12, 3)]
     assert ids(seed_method="electron_bunch") == [f"b-{i:05d}" for i in range(1, 12, 3)]
     assert ids(**{"from": "2026-11-17T10:00:03Z", "to": "2026-11-17T10:00:06Z"}) == ["b-00003", "b-00004", "b-00005"]
-    assert ids(status="marginal,outside", flag="WEAK_GROWTH", **{"to": "2026-11-17T10:00:05Z"}) == ["b-00001", "b-00004"]
+    assert ids(status="marginal,outside", flag="WEAK_GROWTH", **{"to": "2026-11-17T10:00:05Z"}) == [
+        "b-00001",
+        "b-00004",
+    ]
 
 
 def test_a_forged_cursor_or_unknown_filter_value_gets_422(client, campaign, viewer_headers):
@@ -359,12 +393,18 @@ def test_a_forged_cursor_or_unknown_filter_value_gets_422(client, campaign, view
 # --- corrections -----------------------------------------------------------------------------------
 
 
-def test_a_correction_is_stored_as_a_new_revision_and_re_evaluated(client, app, campaign, ingest_headers, viewer_headers, make_shot):
+def test_a_correction_is_stored_as_a_new_revision_and_re_evaluated(
+    client, app, campaign, ingest_headers, viewer_headers, make_shot
+):
     original = make_shot("ex-2")
     client.post(_shots_url(campaign), json=original, headers=ingest_headers)
     corrected = make_shot("ex-2", changes={"driver.sigma_r_mm": 0.2})
-    response = client.put(f"{_shots_url(campaign)}/ex-2", params={"reason": "wrong screen calibration"},
-                          json=corrected, headers=ingest_headers)
+    response = client.put(
+        f"{_shots_url(campaign)}/ex-2",
+        params={"reason": "wrong screen calibration"},
+        json=corrected,
+        headers=ingest_headers,
+    )
     assert response.status_code == 200, response.text
     body = response.json()
     assert body["revision"] == 2
@@ -380,11 +420,19 @@ def test_a_correction_is_stored_as_a_new_revision_and_re_evaluated(client, app, 
 def test_putting_the_identical_body_makes_no_new_revision(client, campaign, ingest_headers, viewer_headers, make_shot):
     shot = make_shot()
     client.post(_shots_url(campaign), json=shot, headers=ingest_headers)
-    assert client.put(f"{_shots_url(campaign)}/{shot['shot_id']}", json=shot, headers=ingest_headers).json()["revision"] == 1
-    assert len(client.get(f"{_shots_url(campaign)}/{shot['shot_id']}/revisions", headers=viewer_headers).json()["items"]) == 1
+    assert (
+        client.put(f"{_shots_url(campaign)}/{shot['shot_id']}", json=shot, headers=ingest_headers).json()["revision"]
+        == 1
+    )
+    assert (
+        len(client.get(f"{_shots_url(campaign)}/{shot['shot_id']}/revisions", headers=viewer_headers).json()["items"])
+        == 1
+    )
 
 
-def test_a_correction_with_bad_values_gets_422_and_keeps_the_stored_revision(client, campaign, ingest_headers, viewer_headers, make_shot):
+def test_a_correction_with_bad_values_gets_422_and_keeps_the_stored_revision(
+    client, campaign, ingest_headers, viewer_headers, make_shot
+):
     shot = make_shot()
     client.post(_shots_url(campaign), json=shot, headers=ingest_headers)
     bad = make_shot(changes={"plasma.length_m": -3})
@@ -408,7 +456,9 @@ def test_correcting_an_unknown_shot_gets_404(client, campaign, ingest_headers, m
 # --- what-if ---------------------------------------------------------------------------------------
 
 
-def test_a_what_if_evaluation_answers_the_model_numbers_and_stores_nothing(client, app, campaign, viewer_headers, make_shot):
+def test_a_what_if_evaluation_answers_the_model_numbers_and_stores_nothing(
+    client, app, campaign, viewer_headers, make_shot
+):
     shot = make_shot("ex-3", drop=["shot_id", "taken_at"])
     response = client.post("/api/v1/evaluate", json=shot, headers=viewer_headers)
     assert response.status_code == 200, response.text
@@ -419,18 +469,25 @@ def test_a_what_if_evaluation_answers_the_model_numbers_and_stores_nothing(clien
 
 
 def test_a_what_if_with_a_campaign_uses_its_settings(client, campaign, admin_headers, viewer_headers, make_shot):
-    client.patch(f"/api/v1/campaigns/{campaign}/settings",
-                 json={"limits": {"BEAM_TOO_WIDE": {"marginal": 5.0, "outside": 10.0}}}, headers=admin_headers)
+    client.patch(
+        f"/api/v1/campaigns/{campaign}/settings",
+        json={"limits": {"BEAM_TOO_WIDE": {"marginal": 5.0, "outside": 10.0}}},
+        headers=admin_headers,
+    )
     shot = make_shot("ex-2")
     plain = client.post("/api/v1/evaluate", json=shot, headers=viewer_headers).json()
-    with_campaign = client.post("/api/v1/evaluate", params={"campaign": campaign}, json=shot, headers=viewer_headers).json()
+    with_campaign = client.post(
+        "/api/v1/evaluate", params={"campaign": campaign}, json=shot, headers=viewer_headers
+    ).json()
     assert "BEAM_TOO_WIDE" in {f["code"] for f in plain["flags"]}
     assert "BEAM_TOO_WIDE" not in {f["code"] for f in with_campaign["flags"]}
     assert with_campaign["settings_version"] == 2
 
 
 def test_a_what_if_with_bad_input_gets_422(client, viewer_headers, campaign, make_shot):
-    response = client.post("/api/v1/evaluate", json=make_shot(changes={"plasma.density_cm3": 0}), headers=viewer_headers)
+    response = client.post(
+        "/api/v1/evaluate", json=make_shot(changes={"plasma.density_cm3": 0}), headers=viewer_headers
+    )
     assert response.status_code == 422
     assert _fields(response) == ["plasma.density_cm3"]
 
@@ -446,10 +503,14 @@ def test_an_unknown_field_holding_a_huge_integer_is_kept(client, campaign, inges
     shot = make_shot()
     shot["daq"] = {"counter": 10**30}
     assert client.post(_shots_url(campaign), json=shot, headers=ingest_headers).status_code == 201
-    assert client.get(f"{_shots_url(campaign)}/ex-1", headers=viewer_headers).json()["payload"]["daq"]["counter"] == 10**30
+    assert (
+        client.get(f"{_shots_url(campaign)}/ex-1", headers=viewer_headers).json()["payload"]["daq"]["counter"] == 10**30
+    )
 
 
-def test_seed_fields_without_a_seed_method_are_refused_alone_and_in_a_batch(client, campaign, ingest_headers, make_shot):
+def test_seed_fields_without_a_seed_method_are_refused_alone_and_in_a_batch(
+    client, campaign, ingest_headers, make_shot
+):
     shot = make_shot(drop=["seed.method"])
     single = client.post(_shots_url(campaign), json=shot, headers=ingest_headers)
     assert single.status_code == 422
@@ -462,7 +523,9 @@ def test_seed_fields_without_a_seed_method_are_refused_alone_and_in_a_batch(clie
 def test_a_section_that_is_not_an_object_is_named(client, campaign, ingest_headers, make_shot):
     shot = make_shot()
     shot["plasma"] = 5
-    response = client.post(f"{_shots_url(campaign)}/batch", json={"shots": [make_shot(1), shot]}, headers=ingest_headers)
+    response = client.post(
+        f"{_shots_url(campaign)}/batch", json={"shots": [make_shot(1), shot]}, headers=ingest_headers
+    )
     assert response.status_code == 422
     assert "shots.1.plasma" in _fields(response)
 

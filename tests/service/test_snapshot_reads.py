@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 from sqlalchemy import func, select
 
@@ -17,8 +17,17 @@ def test_a_write_committed_between_two_reads_of_a_snapshot_is_not_seen_by_the_se
         with factory() as session, snapshot_read(session) as read:
             before = read.scalar(select(func.count()).select_from(Campaign))
             with factory() as writer, writer.begin():
-                writer.add(Campaign(slug="meanwhile", name="Meanwhile", timezone="UTC", description="",
-                                    model_settings={}, settings_version=1, created_at=datetime.now(timezone.utc)))
+                writer.add(
+                    Campaign(
+                        slug="meanwhile",
+                        name="Meanwhile",
+                        timezone="UTC",
+                        description="",
+                        model_settings={},
+                        settings_version=1,
+                        created_at=datetime.now(UTC),
+                    )
+                )
             assert read.scalar(select(func.count()).select_from(Campaign)) == before
         with factory() as session:
             assert session.scalar(select(func.count()).select_from(Campaign)) == before + 1

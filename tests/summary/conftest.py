@@ -3,16 +3,12 @@ and PostgreSQL when the server is configured), and invented weeks of stored shot
 
 from __future__ import annotations
 
-import sys
 from collections.abc import Iterator
-from pathlib import Path
 
 import pytest
 from sqlalchemy.orm import Session, sessionmaker
 
-sys.path.insert(0, str(Path(__file__).resolve().parent))
-
-from app.database import make_engine, make_session_factory  # noqa: E402
+from app.database import make_engine, make_session_factory
 
 
 @pytest.fixture

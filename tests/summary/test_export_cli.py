@@ -14,9 +14,9 @@ import pyarrow.parquet as pq
 import pytest
 
 from app.cli import main
-from app.services import export_formats
-from app.services.summary import IsoWeek
-from week_data import add_campaign, insert_shots, spread_over_week
+from app.services.weekly import table as export_table
+from app.times import IsoWeek
+from tests.support.week_data import add_campaign, insert_shots, spread_over_week
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -60,15 +60,24 @@ def test_export_writes_the_week_in_each_format_with_a_progress_bar(database_url,
     assert sorted(p.name for p in out_dir.iterdir()) == [out.name]  # no temporary file left
 
 
-def test_the_format_follows_the_file_extension_and_a_directory_gets_the_default_name(database_url, stored_week, out_dir):
-    assert export(database_url, "--campaign", "cli-week", "--week", "2026-W47", "--out", str(out_dir / "a.parquet")) == 0
+def test_the_format_follows_the_file_extension_and_a_directory_gets_the_default_name(
+    database_url, stored_week, out_dir
+):
+    assert (
+        export(database_url, "--campaign", "cli-week", "--week", "2026-W47", "--out", str(out_dir / "a.parquet")) == 0
+    )
     assert pq.read_table(out_dir / "a.parquet").num_rows == 1500
-    assert export(database_url, "--campaign", "cli-week", "--week", "2026-W47", "--format", "csv", "--out", str(out_dir)) == 0
+    assert (
+        export(database_url, "--campaign", "cli-week", "--week", "2026-W47", "--format", "csv", "--out", str(out_dir))
+        == 0
+    )
     assert (out_dir / "wakeledger-cli-week-2026-W47.csv").is_file()
 
 
 @pytest.mark.parametrize("week", ["2026-W54", "2026-47", "W00"])
-def test_a_malformed_week_exits_non_zero_with_a_message_and_writes_nothing(database_url, stored_week, out_dir, capsys, week):
+def test_a_malformed_week_exits_non_zero_with_a_message_and_writes_nothing(
+    database_url, stored_week, out_dir, capsys, week
+):
     out = out_dir / "week.csv"
     assert export(database_url, "--campaign", "cli-week", "--week", week, "--out", str(out)) == 2
     err = capsys.readouterr().err
@@ -96,7 +105,7 @@ def test_a_failure_while_writing_leaves_the_previous_file_untouched_and_no_parti
         stream.write(b'{"half": ')
         raise RuntimeError("disk gone")
 
-    monkeypatch.setitem(export_formats.WRITERS, "json", broken)
+    monkeypatch.setitem(export_table.WRITERS, "json", broken)
     with pytest.raises(RuntimeError):
         export(database_url, "--campaign", "cli-week", "--week", "2026-W47", "--out", str(out))
     assert out.read_text() == "previous export"
@@ -115,16 +124,50 @@ def test_the_console_script_runs_as_a_separate_process(database_url, stored_week
         pytest.skip("one process run is enough")
     out = out_dir / "week.csv"
     done = subprocess.run(
-        [sys.executable, "-m", "app.cli", "--database-url", database_url, "export", "--campaign", "cli-week",
-         "--week", "2026-W47", "--format", "csv", "--out", str(out)],
-        cwd=REPO, capture_output=True, text=True, timeout=120,
+        [
+            sys.executable,
+            "-m",
+            "app.cli",
+            "--database-url",
+            database_url,
+            "export",
+            "--campaign",
+            "cli-week",
+            "--week",
+            "2026-W47",
+            "--format",
+            "csv",
+            "--out",
+            str(out),
+        ],
+        cwd=REPO,
+        capture_output=True,
+        text=True,
+        timeout=120,
     )
     assert done.returncode == 0, done.stderr
     assert "100% 1500/1500 shots" in done.stderr
     assert len(out.read_text().splitlines()) == 1501
     bad = subprocess.run(
-        [sys.executable, "-m", "app.cli", "--database-url", database_url, "export", "--campaign", "cli-week",
-         "--week", "2026-W54", "--format", "csv", "--out", str(out)],
-        cwd=REPO, capture_output=True, text=True, timeout=120,
+        [
+            sys.executable,
+            "-m",
+            "app.cli",
+            "--database-url",
+            database_url,
+            "export",
+            "--campaign",
+            "cli-week",
+            "--week",
+            "2026-W54",
+            "--format",
+            "csv",
+            "--out",
+            str(out),
+        ],
+        cwd=REPO,
+        capture_output=True,
+        text=True,
+        timeout=120,
     )
     assert bad.returncode != 0 and "2026-W54" in bad.stderr

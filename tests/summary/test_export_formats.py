@@ -14,11 +14,14 @@ import pyarrow.parquet as pq
 import pytest
 from sqlalchemy import select
 
+import model
 from app.advisory import ADVISORY_CAUTION
-from app.services.export_formats import render_export, summary_document
-from app.services.summary import INPUT_PATHS, OUTPUT_NAMES, IsoWeek, build_weekly_summary, input_column
+from app.services.export_table import INPUT_PATHS
+from app.services.weekly.summary import build_weekly_summary
+from app.services.weekly.table import render_export, summary_document
 from app.tables import Evaluation, Flag, Shot
-from week_data import add_campaign, insert_shots, spread_over_week
+from app.times import IsoWeek
+from tests.support.week_data import add_campaign, insert_shots, spread_over_week
 
 WEEK = IsoWeek(2026, 47)
 
@@ -48,7 +51,7 @@ def empty_summary(session_factory):
 
 def stored_value(row, key):
     shot, evaluation, _ = row
-    return getattr(shot, input_column(key)) if key in INPUT_PATHS else getattr(evaluation, key)
+    return getattr(shot, model.column_name(key)) if key in INPUT_PATHS else getattr(evaluation, key)
 
 
 def same_number(cell, expected) -> bool:
@@ -62,21 +65,32 @@ def test_csv_has_one_row_per_shot_with_units_in_the_headers_and_the_stored_value
     rows = list(csv.DictReader(io.StringIO(render_export(summary, "csv").decode("utf-8"))))
     assert len(rows) == len(stored) == 150
     header = rows[0].keys()
-    for expected in ("plasma.density_cm3 [cm^-3]", "driver.sigma_z_mm [mm]", "driver.species", "seed.method",
-                     "efolds_exit [e-folds]", "wakefield_estimate_mv_m [MV/m]", "frequency_mismatch_pct [%]",
-                     "density_ratio", "status", "flags", "taken_at [UTC]"):
+    for expected in (
+        "plasma_density_cm3 [cm^-3]",
+        "driver_sigma_z_mm [mm]",
+        "driver_species",
+        "seed_method",
+        "efolds_exit [e-folds]",
+        "wakefield_estimate_mv_m [MV/m]",
+        "frequency_mismatch_pct [%]",
+        "density_ratio",
+        "status",
+        "flag_codes",
+        "taken_at",
+    ):
         assert expected in header
+    assert "flags" not in header  # pandas' DataFrame.flags would shadow it
     units = {h.split(" [")[0]: h for h in header}
     for row in rows:
         shot, evaluation, flags = stored[row["shot_id"]]
         assert row["status"] == evaluation.status
-        assert row["flags"] == "; ".join(f"{f.code}:{f.severity}" for f in flags)
+        assert row["flag_codes"] == ";".join(f"{f.code}:{f.severity}" for f in flags)
         assert row["notes"] == shot.notes
-        assert row["driver.species"] == shot.driver_species and row["seed.method"] == shot.seed_method
-        for key in (*INPUT_PATHS, *OUTPUT_NAMES):
+        assert row["driver_species"] == shot.driver_species and row["seed_method"] == shot.seed_method
+        for key in (*INPUT_PATHS, *model.OUTPUT_NAMES):
             if key in ("driver.species", "seed.method"):
                 continue
-            assert same_number(row[units[key]], stored_value(stored[row["shot_id"]], key)), key
+            assert same_number(row[units[model.column_name(key)]], stored_value(stored[row["shot_id"]], key)), key
 
 
 def test_json_holds_the_summary_and_every_shot_with_its_flags(week_summary):
@@ -97,7 +111,7 @@ def test_json_holds_the_summary_and_every_shot_with_its_flags(week_summary):
         assert record["seed"]["method"] == shot.seed_method
         assert record["measured"]["modulation_phase_rad"] == shot.measured_modulation_phase_rad
         assert record["tags"] == shot.tags
-        for name in OUTPUT_NAMES:
+        for name in model.OUTPUT_NAMES:
             assert record["evaluation"][name] == getattr(evaluation, name), name
         assert [(f["code"], f["severity"], f["message"]) for f in record["evaluation"]["flags"]] == [
             (f.code, f.severity, f.message) for f in flags
@@ -108,7 +122,7 @@ def test_parquet_reads_back_in_pyarrow_with_typed_columns_units_and_the_summary(
     summary, stored = week_summary
     table = pq.read_table(io.BytesIO(render_export(summary, "parquet")))
     assert table.num_rows == 150
-    assert table.schema.field("plasma.density_cm3").metadata[b"unit"] == b"cm^-3"
+    assert table.schema.field("plasma_density_cm3").metadata[b"unit"] == b"cm^-3"
     assert str(table.schema.field("taken_at").type) == "timestamp[us, tz=UTC]"
     assert json.loads(table.schema.metadata[b"wakeledger.summary"])["shot_count"] == 150
     columns = table.to_pydict()
@@ -117,12 +131,13 @@ def test_parquet_reads_back_in_pyarrow_with_typed_columns_units_and_the_summary(
         shot, evaluation, flags = row
         assert columns["status"][i] == evaluation.status
         assert columns["taken_at"][i] == summary.shots.taken_at[i]
-        assert [f["code"] for f in columns["flags"][i]] == [f.code for f in flags]
-        for key in (*INPUT_PATHS, *OUTPUT_NAMES):
+        assert [f["code"] for f in columns["flag_codes"][i]] == [f.code for f in flags]
+        for key in (*INPUT_PATHS, *model.OUTPUT_NAMES):
+            column = model.column_name(key) if key in INPUT_PATHS else key
             if key in ("driver.species", "seed.method"):
-                assert columns[key][i] == stored_value(row, key)
+                assert columns[column][i] == stored_value(row, key)
             else:
-                assert same_number(columns[key][i], stored_value(row, key)), key
+                assert same_number(columns[column][i], stored_value(row, key)), key
 
 
 class _ReportReader(HTMLParser):
@@ -181,11 +196,11 @@ def test_an_empty_week_gives_valid_exports_that_say_so(empty_summary):
     assert "No shots were recorded in week 2026-W47" in report.words
     assert "all shots 0" in report.words
     rows = list(csv.reader(io.StringIO(render_export(empty_summary, "csv").decode("utf-8"))))
-    assert len(rows) == 1 and "plasma.density_cm3 [cm^-3]" in rows[0]
+    assert len(rows) == 1 and "plasma_density_cm3 [cm^-3]" in rows[0]
     doc = json.loads(render_export(empty_summary, "json"))
     assert doc["summary"]["empty"] is True and doc["shots"] == []
     table = pq.read_table(io.BytesIO(render_export(empty_summary, "parquet")))
-    assert table.num_rows == 0 and "plasma.density_cm3" in table.column_names
+    assert table.num_rows == 0 and "plasma_density_cm3" in table.column_names
 
 
 def test_summary_document_is_strict_json_without_nan(week_summary):

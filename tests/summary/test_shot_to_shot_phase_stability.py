@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS, phase_jitter
-from tests import shot_to_shot_reference as reference
+from tests.support import shot_to_shot_reference as reference
 
 
 def normalised_mad(values):

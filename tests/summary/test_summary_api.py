@@ -55,8 +55,11 @@ def test_the_json_summary_counts_the_model_evaluated_shots_and_compares_with_the
     doc = response.json()
     summary = doc["summary"]
     assert summary["shot_count"] == 9 and sum(summary["status_counts"].values()) == 9
-    listed = client.get("/api/v1/campaigns/test-campaign/shots", params={"from": "2026-11-16T00:00:00Z",
-                        "to": "2026-11-23T00:00:00Z", "limit": 100}, headers=viewer_headers).json()
+    listed = client.get(
+        "/api/v1/campaigns/test-campaign/shots",
+        params={"from": "2026-11-16T00:00:00Z", "to": "2026-11-23T00:00:00Z", "limit": 100},
+        headers=viewer_headers,
+    ).json()
     statuses = [s["evaluation"]["status"] for s in listed["items"]]
     for status in ("nominal", "marginal", "outside"):
         assert summary["status_counts"][status] == statuses.count(status)
@@ -68,15 +71,20 @@ def test_the_json_summary_counts_the_model_evaluated_shots_and_compares_with_the
     assert all(r["message"] for s in summary["flagged_shots"] for r in s["reasons"])
 
 
-@pytest.mark.parametrize(("fmt", "media", "disposition"), [
-    ("html", "text/html", "inline"),
-    ("parquet", "application/vnd.apache.parquet", "attachment"),
-])
+@pytest.mark.parametrize(
+    ("fmt", "media", "disposition"),
+    [
+        ("html", "text/html", "inline"),
+        ("parquet", "application/vnd.apache.parquet", "attachment"),
+    ],
+)
 def test_html_opens_inline_and_parquet_downloads(client, ingested_week, viewer_headers, fmt, media, disposition):
     response = client.get(URL, params={"week": "2026-W47", "format": fmt}, headers=viewer_headers)
     assert response.status_code == 200
     assert response.headers["content-type"].startswith(media)
-    assert response.headers["content-disposition"] == f'{disposition}; filename="wakeledger-test-campaign-2026-W47.{fmt}"'
+    assert (
+        response.headers["content-disposition"] == f'{disposition}; filename="wakeledger-test-campaign-2026-W47.{fmt}"'
+    )
     if fmt == "parquet":
         assert pq.read_table(io.BytesIO(response.content)).num_rows == 9
     else:

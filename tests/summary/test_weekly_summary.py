@@ -6,21 +6,18 @@ from __future__ import annotations
 
 import math
 import statistics
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from zoneinfo import ZoneInfo
 
 import pytest
 from sqlalchemy import select
 
-from app.services.summary import (
-    IsoWeek,
-    WeekFormatError,
-    build_weekly_summary,
-    input_column,
-)
+import model
+from app.services.weekly.summary import build_weekly_summary
 from app.tables import Evaluation, Flag, Shot
-from tests import shot_to_shot_reference as reference
-from week_data import add_campaign, insert_shots, spread_over_week
+from app.times import IsoWeek, WeekFormatError
+from tests.support import shot_to_shot_reference as reference
+from tests.support.week_data import add_campaign, insert_shots, spread_over_week
 
 WEEK = IsoWeek(2026, 47)
 
@@ -30,7 +27,7 @@ def stored_week(session, campaign, week: IsoWeek):
     tz = ZoneInfo(campaign.timezone)
     out = []
     for shot in session.scalars(select(Shot).where(Shot.campaign_id == campaign.id)):
-        taken = shot.taken_at if shot.taken_at.tzinfo else shot.taken_at.replace(tzinfo=timezone.utc)
+        taken = shot.taken_at if shot.taken_at.tzinfo else shot.taken_at.replace(tzinfo=UTC)
         iso = taken.astimezone(tz).isocalendar()
         if (iso.year, iso.week) == (week.year, week.week):
             flags = list(session.scalars(select(Flag).where(Flag.shot_pk == shot.id)))
@@ -40,7 +37,7 @@ def stored_week(session, campaign, week: IsoWeek):
 
 def value_of(shot, evaluation, key: str):
     if "." in key:  # inputs are dotted paths, outputs plain names
-        return getattr(shot, input_column(key))
+        return getattr(shot, model.column_name(key))
     return getattr(evaluation, key)
 
 
@@ -73,7 +70,10 @@ def test_counts_and_ranges_match_a_plain_python_computation_over_the_stored_shot
         assert summary.status_counts[status] == sum(1 for _, e, _ in rows if e.status == status)
     for code, by_severity in summary.flag_counts.items():
         for severity, n in by_severity.items():
-            assert n == sum(1 for *_, flags in rows if any(f.code == code and f.severity == severity for f in flags)), (code, severity)
+            assert n == sum(1 for *_, flags in rows if any(f.code == code and f.severity == severity for f in flags)), (
+                code,
+                severity,
+            )
     assert sum(summary.flag_counts["UNSEEDED"].values()) == sum(1 for s, _, _ in rows if s.seed_method == "none")
 
     for r in summary.ranges:
@@ -106,7 +106,9 @@ def test_phase_stability_and_density_calibration_figures(session_factory, zurich
         rows = stored_week(session, zurich_weeks, WEEK)
 
     in_time_order = sorted(rows, key=lambda row: (row[0].taken_at, row[0].id))
-    phases = [s.measured_modulation_phase_rad for s, _, _ in in_time_order if s.measured_modulation_phase_rad is not None]
+    phases = [
+        s.measured_modulation_phase_rad for s, _, _ in in_time_order if s.measured_modulation_phase_rad is not None
+    ]
     densities = [s.plasma_density_cm3 for s, _, _ in in_time_order]
     per_pct = statistics.median(e.phase_per_pct_density_rad for _, e, _ in rows)
     jitter_pct, phase_jitter = reference.density_jitter_pct(densities), reference.phase_jitter_rad(phases)
@@ -160,9 +162,9 @@ def test_change_against_the_previous_week_is_given_as_deltas(session_factory, zu
     ("tz", "week", "monday_utc"),
     [
         # Winter time: Zurich is UTC+1, so local Monday 00:00 is Sunday 23:00 UTC.
-        ("Europe/Zurich", IsoWeek(2026, 47), datetime(2026, 11, 15, 23, 0, tzinfo=timezone.utc)),
+        ("Europe/Zurich", IsoWeek(2026, 47), datetime(2026, 11, 15, 23, 0, tzinfo=UTC)),
         # Chicago is UTC-6 in November: Monday 00:00 local is Monday 06:00 UTC.
-        ("America/Chicago", IsoWeek(2026, 47), datetime(2026, 11, 16, 6, 0, tzinfo=timezone.utc)),
+        ("America/Chicago", IsoWeek(2026, 47), datetime(2026, 11, 16, 6, 0, tzinfo=UTC)),
     ],
 )
 def test_a_shot_just_before_and_just_after_local_monday_midnight_fall_in_different_weeks(
@@ -189,8 +191,8 @@ def test_a_week_with_a_daylight_saving_change_is_one_hour_longer_in_chicago(sess
     tz = ZoneInfo("America/Chicago")
     start, end = week.bounds_utc(tz)
     assert end - start == timedelta(hours=169)
-    assert start == datetime(2026, 10, 26, 5, 0, tzinfo=timezone.utc)  # CDT, UTC-5
-    assert end == datetime(2026, 11, 2, 6, 0, tzinfo=timezone.utc)  # CST, UTC-6
+    assert start == datetime(2026, 10, 26, 5, 0, tzinfo=UTC)  # CDT, UTC-5
+    assert end == datetime(2026, 11, 2, 6, 0, tzinfo=UTC)  # CST, UTC-6
     with session_factory() as session, session.begin():
         campaign = add_campaign(session, "dst", "America/Chicago")
         # Sunday 23:59:59 local (after the change) is in W44; Monday 00:00 local is not.
@@ -220,7 +222,9 @@ def test_shots_of_other_campaigns_and_unevaluated_shots_are_kept_apart(session_f
         other = add_campaign(session, "other", "UTC")
         start, _ = WEEK.bounds_utc(ZoneInfo("UTC"))
         insert_shots(session, mine, spread_over_week(start, 20), seed=5)
-        insert_shots(session, mine, spread_over_week(start + timedelta(hours=1), 3), seed=6, prefix="u", evaluated=False)
+        insert_shots(
+            session, mine, spread_over_week(start + timedelta(hours=1), 3), seed=6, prefix="u", evaluated=False
+        )
         insert_shots(session, other, spread_over_week(start, 40), seed=7)
     with session_factory() as session:
         summary = build_weekly_summary(session, mine, WEEK)
@@ -229,7 +233,9 @@ def test_shots_of_other_campaigns_and_unevaluated_shots_are_kept_apart(session_f
     assert sum(summary.status_counts.values()) == 23
 
 
-@pytest.mark.parametrize("text", ["2026-W54", "2026-47", "W00", "2026-W00", "2025-W53", "26-W47", "2026-W4", "", "2026-W47x"])
+@pytest.mark.parametrize(
+    "text", ["2026-W54", "2026-47", "W00", "2026-W00", "2025-W53", "26-W47", "2026-W4", "", "2026-W47x"]
+)
 def test_a_malformed_or_missing_iso_week_is_refused_with_a_clear_message(text):
     with pytest.raises(WeekFormatError, match="week"):
         IsoWeek.parse(text)
@@ -247,9 +253,10 @@ def test_phases_either_side_of_plus_minus_pi_get_a_small_spread_not_one_near_pi(
     phases = [(math.pi - 0.05 * ((i // 2) % 5) / 4) * (1 if i % 2 else -1) for i in range(40)]
     with session_factory() as session:
         campaign = add_campaign(session, "wrapping-phase")
-        pks = insert_shots(session, campaign, spread_over_week(datetime(2026, 11, 16, tzinfo=timezone.utc), 40),
-                           measured_fraction=1.0)
-        for pk, phase in zip(pks, phases):
+        pks = insert_shots(
+            session, campaign, spread_over_week(datetime(2026, 11, 16, tzinfo=UTC), 40), measured_fraction=1.0
+        )
+        for pk, phase in zip(pks, phases, strict=False):
             session.get(Shot, pk).measured_modulation_phase_rad = phase
         session.commit()
         summary = build_weekly_summary(session, campaign, WEEK)

@@ -5,7 +5,6 @@
   "use strict";
 
   var PLOT_CONFIG = { displaylogo: false, responsive: true, modeBarButtonsToRemove: ["lasso2d", "select2d"] };
-  var STATUS_GLYPH = { nominal: "\u25cf", marginal: "\u25c6", outside: "\u2716" };
 
   function readJson(id) {
     var el = document.getElementById(id);
@@ -25,13 +24,18 @@
     return node;
   }
 
-  function formatNumber(v, digits) {
-    if (v === null || v === undefined || !isFinite(v)) return "\u2014";
-    digits = digits || 4;
-    var a = Math.abs(v);
-    if (v !== 0 && (a >= 1e5 || a < 1e-3)) return v.toExponential(digits - 1);
-    return String(Number(v.toPrecision(digits)));
+  // Glyphs of the statuses come from the server's one palette (app/presentation/palette.py),
+  // and every number and time shown in a live row comes as text from the server's formatters:
+  // this script never formats a number itself.
+  var PRESENTATION = readJson("presentation") || { glyphs: {} };
+
+  // The one exception: a page's running count of table rows, an integer the page adds to.
+  // Same rule as app/presentation/numbers.py for integers (thousands separators from
+  // 10,000 on); tests/browser holds the two equal.
+  function formatCount(n) {
+    return Math.abs(n) >= 10000 ? n.toLocaleString("en") : String(n);
   }
+  window.wakeledgerFormatCount = formatCount;
 
   function shotLinkBase() {
     var m = window.location.pathname.match(/^\/campaigns\/[^/]+/);
@@ -192,13 +196,11 @@
   }
 
   function updateCounts(data) {
-    var total = 0;
-    Object.keys(data.counts).forEach(function (k) { total += data.counts[k]; });
     var nodes = document.querySelectorAll("[data-count]");
     Array.prototype.forEach.call(nodes, function (n) {
       var key = n.getAttribute("data-count");
-      var v = key === "total" ? total : data.counts[key];
-      if (v !== undefined) n.textContent = v >= 10000 ? v.toLocaleString("en") : String(v);
+      var text = data.counts_text[key];
+      if (text !== undefined) n.textContent = text;
     });
     var rows = document.querySelectorAll("#flag-count-rows tr[data-flag]");
     Array.prototype.forEach.call(rows, function (tr) {
@@ -217,7 +219,7 @@
 
   function statusNode(name) {
     var span = el("span", "status " + name);
-    var shape = el("span", "shape", STATUS_GLYPH[name] || "");
+    var shape = el("span", "shape", PRESENTATION.glyphs[name] || "");
     shape.setAttribute("aria-hidden", "true");
     span.appendChild(shape);
     span.appendChild(document.createTextNode(name));
@@ -257,7 +259,7 @@
     });
     tr.appendChild(td);
     tr.appendChild(el("td", null, s.seed_method));
-    columns.forEach(function (c) { tr.appendChild(el("td", "num", formatNumber(s.values[c]))); });
+    columns.forEach(function (c) { tr.appendChild(el("td", "num", s.text[c])); });
     td = el("td", "notes", s.notes.length > 160 ? s.notes.slice(0, 160) + "\u2026" : s.notes);
     s.tags.forEach(function (t) { td.appendChild(document.createTextNode(" ")); td.appendChild(el("span", "tag", t)); });
     tr.appendChild(td);
@@ -275,7 +277,7 @@
     if (total) {
       var n = Number(total.getAttribute("data-total")) + fresh.length;
       total.setAttribute("data-total", String(n));
-      total.textContent = n >= 10000 ? n.toLocaleString("en") : String(n);
+      total.textContent = formatCount(n);
     }
     if (cfg.prepend) {
       var empty = body.querySelector("tr.empty");

@@ -4,15 +4,18 @@ from __future__ import annotations
 
 from typing import Any
 
-from tests.jobs_support import wait_for_job
+from tests.support.jobs import wait_for_job
 
 # Worked example ex-1 with a 0.5 m plasma: about 2,400 slices x 200 steps, well under a second.
 QUICK_CHANGES = {"plasma.length_m": 0.5}
 
 
 def post_quick_shot(client, campaign: str, headers: dict[str, str], make_shot, shot_id: str = "quick-1") -> str:
-    response = client.post(f"/api/v1/campaigns/{campaign}/shots",
-                           json=make_shot("ex-1", shot_id=shot_id, changes=QUICK_CHANGES), headers=headers)
+    response = client.post(
+        f"/api/v1/campaigns/{campaign}/shots",
+        json=make_shot("ex-1", shot_id=shot_id, changes=QUICK_CHANGES),
+        headers=headers,
+    )
     assert response.status_code == 201, response.text
     return shot_id
 

@@ -42,7 +42,7 @@ def density_jitter_pct(densities: Sequence[float]) -> float | None:
         centres = [statistics.fmean(densities)] * n
     else:
         centres = [statistics.median(_window(densities, i)) for i in range(n)]
-    return _normalised_mad(100 * (d - c) / c for d, c in zip(densities, centres))
+    return _normalised_mad(100 * (d - c) / c for d, c in zip(densities, centres, strict=False))
 
 
 def phase_jitter_rad(phases: Sequence[float]) -> float | None:
@@ -54,4 +54,4 @@ def phase_jitter_rad(phases: Sequence[float]) -> float | None:
         centres = [_circular_mean(phases)] * n
     else:
         centres = [_circular_mean(_window(phases, i)) for i in range(n)]
-    return _normalised_mad(cmath.phase(cmath.exp(1j * (p - c))) for p, c in zip(phases, centres))
+    return _normalised_mad(cmath.phase(cmath.exp(1j * (p - c))) for p, c in zip(phases, centres, strict=False))

@@ -11,13 +11,13 @@ from __future__ import annotations
 import hashlib
 import math
 from collections.abc import Sequence
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 
 import numpy as np
 from sqlalchemy import insert
 from sqlalchemy.orm import Session
 
-from app.store.summary import EVALUATION_OUTPUT_COLUMNS
+from app.store.exports import EVALUATION_OUTPUT_COLUMNS
 from app.tables import Campaign, Evaluation, Flag, Shot
 
 FLAG_RULES = (
@@ -41,7 +41,7 @@ def add_campaign(session: Session, slug: str = "test-week", tz: str = "UTC") -> 
         description="",
         model_settings={},
         settings_version=1,
-        created_at=datetime(2026, 1, 1, tzinfo=timezone.utc),
+        created_at=datetime(2026, 1, 1, tzinfo=UTC),
     )
     session.add(campaign)
     session.flush()
@@ -69,7 +69,7 @@ def insert_shots(
     n = len(taken_at)
     if n == 0:
         return []
-    now = datetime(2026, 12, 1, tzinfo=timezone.utc)
+    now = datetime(2026, 12, 1, tzinfo=UTC)
     density = 7e14 * (1 + 0.01 * rng.standard_normal(n))
     seeded = rng.random(n) < 0.8
     measured = rng.random(n) < measured_fraction
@@ -86,7 +86,7 @@ def insert_shots(
             {
                 "campaign_id": campaign.id,
                 "shot_id": sid,
-                "taken_at": t.astimezone(timezone.utc),
+                "taken_at": t.astimezone(UTC),
                 "revision": 1,
                 "notes": "note, with a comma" if i % 7 == 0 else "",
                 "tags": ["scan-a"] if i % 3 == 0 else [],
@@ -115,9 +115,12 @@ def insert_shots(
                 "measured_modulation_phase_rad": opt(phase[i]),
             }
         )
-    pks = [pk for (pk,) in session.execute(
-        insert(Shot.__table__).returning(Shot.__table__.c.id, sort_by_parameter_order=True), shot_rows
-    )]
+    pks = [
+        pk
+        for (pk,) in session.execute(
+            insert(Shot.__table__).returning(Shot.__table__.c.id, sort_by_parameter_order=True), shot_rows
+        )
+    ]
     if not evaluated:
         return pks
 

@@ -3,7 +3,7 @@ and they print as crisply as the text around them.
 
 Points are drawn one path per group, so a 10,000-shot scatter stays a few hundred
 kilobytes: nominal shots as zero-length round-capped segments (dots), marginal shots as
-diamonds and outside shots as crosses, the shapes of app.services.charts.STATUS_STYLES.
+diamonds and outside shots as crosses, the shapes of app.presentation.palette.STATUS_STYLES.
 """
 
 from __future__ import annotations
@@ -15,15 +15,12 @@ from html import escape
 import numpy as np
 from markupsafe import Markup
 
-from app.services.charts import STATUS_STYLES
+import model
+from app.presentation.numbers import format_number
+from app.presentation.palette import GROUP_COLOURS, MUTED, STATUS_STYLES
 
-# Colours per status (the dashboard's palette); the legend always names them and the
+# Colours per group come from the one palette; the legend always names them and the
 # scatter marks each status by its shape too, so grey print stays readable.
-GROUP_COLOURS = {
-    **{status: style.colour for status, style in STATUS_STYLES.items()},
-    "not_evaluated": "#757575",
-    "shots": "#1f5fa8",
-}
 _MARKER_SIZE = 2.6  # half-width of a diamond or cross in px
 _W, _H = 720, 260
 _M = {"left": 64, "right": 16, "top": 30, "bottom": 44}
@@ -49,12 +46,8 @@ def nice_ticks(lo: float, hi: float, count: int = 5) -> list[float]:
 
 
 def _fmt(v: float) -> str:
-    if v == 0:
-        return "0"
-    a = abs(v)
-    if a >= 1e5 or a < 1e-3:
-        return f"{v:.3g}"
-    return f"{v:.6g}"
+    """Tick labels: the one number formatter, to 6 significant digits."""
+    return format_number(float(v), digits=6)
 
 
 def _frame(title: str, x_label: str, y_label: str) -> list[str]:
@@ -81,9 +74,7 @@ class _Scale:
         return self.a + (np.asarray(v, dtype=float) - self.lo) * (self.b - self.a) / (self.hi - self.lo)
 
 
-def _axes(
-    xs: _Scale, ys: _Scale, x_ticks: Sequence[tuple[float, str]], y_ticks: Sequence[float]
-) -> list[str]:
+def _axes(xs: _Scale, ys: _Scale, x_ticks: Sequence[tuple[float, str]], y_ticks: Sequence[float]) -> list[str]:
     x0, x1 = _M["left"], _W - _M["right"]
     y0, y1 = _H - _M["bottom"], _M["top"]
     out = [f'<rect x="{x0}" y="{y1}" width="{x1 - x0}" height="{y0 - y1}" class="plot-area"/>']
@@ -107,10 +98,12 @@ def _marker_path(symbol: str, px: Sequence[float], py: Sequence[float]) -> str:
     """SVG path data drawing one marker of ``symbol`` (a Plotly symbol name) at each point."""
     r = _MARKER_SIZE
     if symbol == "diamond":
-        return "".join(f"M{a:.1f} {b - r:.1f}l{r} {r}l{-r} {r}l{-r} {-r}z" for a, b in zip(px, py))
+        return "".join(f"M{a:.1f} {b - r:.1f}l{r} {r}l{-r} {r}l{-r} {-r}z" for a, b in zip(px, py, strict=True))
     if symbol == "x":
-        return "".join(f"M{a - r:.1f} {b - r:.1f}l{2 * r} {2 * r}m0 {-2 * r}l{-2 * r} {2 * r}" for a, b in zip(px, py))
-    return "".join(f"M{a:.1f} {b:.1f}h0" for a, b in zip(px, py))
+        return "".join(
+            f"M{a - r:.1f} {b - r:.1f}l{2 * r} {2 * r}m0 {-2 * r}l{-2 * r} {2 * r}" for a, b in zip(px, py, strict=True)
+        )
+    return "".join(f"M{a:.1f} {b:.1f}h0" for a, b in zip(px, py, strict=True))
 
 
 def _legend(groups: Sequence[str], counts: Mapping[str, int] | None = None, shapes: bool = False) -> list[str]:
@@ -120,11 +113,12 @@ def _legend(groups: Sequence[str], counts: Mapping[str, int] | None = None, shap
     for g in reversed(list(groups)):
         label = g.replace("_", " ") + (f" ({counts[g]})" if counts is not None else "")
         x -= 14 + 7 * len(label)
-        colour = GROUP_COLOURS.get(g, "#444")
+        colour = GROUP_COLOURS.get(g, MUTED)
         if shapes:
             symbol = _symbol(g)
-            swatch = (f'<path d="{_marker_path(symbol, [x + 5], [14])}" stroke="{colour}" '
-                      f'class="points marker-{symbol}"/>')
+            swatch = (
+                f'<path d="{_marker_path(symbol, [x + 5], [14])}" stroke="{colour}" class="points marker-{symbol}"/>'
+            )
         else:
             swatch = f'<rect x="{x}" y="9" width="10" height="10" fill="{colour}"/>'
         out.append(swatch + f'<text x="{x + 14}" y="18" class="legend">{escape(label)}</text>')
@@ -150,7 +144,7 @@ def scatter_svg(
     y_label: str,
     x_range: tuple[float, float] | None = None,
     x_ticks: Sequence[tuple[float, str]] | None = None,
-    group_order: Sequence[str] = ("nominal", "marginal", "outside", "not_evaluated"),
+    group_order: Sequence[str] = (*model.STATUSES, "not_evaluated"),
 ) -> Markup:
     x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
     ok = np.isfinite(x) & np.isfinite(y)
@@ -169,12 +163,10 @@ def scatter_svg(
     present = [g for g in group_order if np.any(ok & (groups == g))]
     for g in present:
         m = ok & (groups == g)
-        px, py = xs(x[m]), ys(y[m])
+        px, py = np.asarray(xs(x[m])), np.asarray(ys(y[m]))
         symbol = _symbol(g)
         d = _marker_path(symbol, px.tolist(), py.tolist())
-        out.append(
-            f'<path d="{d}" stroke="{GROUP_COLOURS.get(g, "#444")}" class="points marker-{symbol}"/>'
-        )
+        out.append(f'<path d="{d}" stroke="{GROUP_COLOURS.get(g, MUTED)}" class="points marker-{symbol}"/>')
     out += _legend(present, {g: int(np.count_nonzero(ok & (groups == g))) for g in present}, shapes=True)
     out.append("</svg>")
     return Markup("".join(out))
@@ -196,16 +188,16 @@ def stacked_bars_svg(
     n = len(categories)
     slot = (_W - _M["left"] - _M["right"]) / n
     xs = _Scale(-0.5, n - 0.5, _M["left"], _W - _M["right"])
-    out = _frame(title, x_label, y_label) + _axes(xs, ys, list(zip(range(n), categories)), yt)
+    out = _frame(title, x_label, y_label) + _axes(xs, ys, list(zip(range(n), categories, strict=False)), yt)
     base = np.zeros(n)
     for g, values in series.items():
         v = np.asarray(values, dtype=float)
-        for i in np.flatnonzero(v):
+        for i in np.flatnonzero(v).tolist():
             top, bottom = float(ys(base[i] + v[i])), float(ys(base[i]))
             out.append(
                 f'<rect x="{_M["left"] + i * slot + slot * 0.15:.1f}" y="{top:.1f}" '
                 f'width="{slot * 0.7:.1f}" height="{bottom - top:.1f}" '
-                f'fill="{GROUP_COLOURS.get(g, "#444")}"><title>{escape(categories[i])}: '
+                f'fill="{GROUP_COLOURS.get(g, MUTED)}"><title>{escape(categories[i])}: '
                 f"{int(v[i])} {escape(g.replace('_', ' '))}</title></rect>"
             )
         base += v
@@ -214,9 +206,7 @@ def stacked_bars_svg(
     return Markup("".join(out))
 
 
-def histogram_svg(
-    values: np.ndarray, *, title: str, x_label: str, bins: int = 30, group: str = "shots"
-) -> Markup:
+def histogram_svg(values: np.ndarray, *, title: str, x_label: str, bins: int = 30, group: str = "shots") -> Markup:
     v = np.asarray(values, dtype=float)
     v = v[np.isfinite(v)]
     if not v.size:
@@ -231,8 +221,8 @@ def histogram_svg(
     ys = _Scale(0.0, max(yt[-1], float(counts.max())), _H - _M["bottom"], _M["top"] + 4)
     x_ticks = [(t, _fmt(t)) for t in nice_ticks(xs.lo, xs.hi) if xs.lo <= t <= xs.hi]
     out = _frame(title, x_label, "shots") + _axes(xs, ys, x_ticks, yt)
-    colour = GROUP_COLOURS.get(group, "#444")
-    for c, a, b in zip(counts.tolist(), edges[:-1].tolist(), edges[1:].tolist()):
+    colour = GROUP_COLOURS.get(group, MUTED)
+    for c, a, b in zip(counts.tolist(), edges[:-1].tolist(), edges[1:].tolist(), strict=True):
         if c:
             x0, x1, top = float(xs(a)), float(xs(b)), float(ys(c))
             out.append(

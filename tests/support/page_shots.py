@@ -9,13 +9,15 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
-START = datetime(2026, 11, 16, 8, 0, tzinfo=timezone.utc)
+START = datetime(2026, 11, 16, 8, 0, tzinfo=UTC)
 
 
-def page_shots(make_shot: Callable[..., dict[str, Any]], count: int = 36, start: datetime = START) -> list[dict[str, Any]]:
+def page_shots(
+    make_shot: Callable[..., dict[str, Any]], count: int = 36, start: datetime = START
+) -> list[dict[str, Any]]:
     shots = []
     for i in range(count):
         taken = (start + timedelta(minutes=7 * i)).isoformat().replace("+00:00", "Z")

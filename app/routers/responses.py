@@ -1,0 +1,31 @@
+"""Response helpers shared by the routers: JSON encoded once (large chart and run
+documents are not walked by FastAPI's encoder) and file downloads."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from typing import Any
+
+from fastapi.responses import Response, StreamingResponse
+
+from app.presentation.json_text import json_text
+
+NO_STORE = {"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"}
+
+
+def json_response(value: Any, status_code: int = 200) -> Response:
+    return Response(
+        json_text(value).encode("utf-8"), status_code=status_code, media_type="application/json", headers=NO_STORE
+    )
+
+
+def _disposition(filename: str, inline: bool) -> dict[str, str]:
+    return {"Content-Disposition": f'{"inline" if inline else "attachment"}; filename="{filename}"', **NO_STORE}
+
+
+def file_response(body: bytes, media_type: str, filename: str, *, inline: bool = False) -> Response:
+    return Response(content=body, media_type=media_type, headers=_disposition(filename, inline))
+
+
+def streamed_file(pieces: Iterable[str], media_type: str, filename: str) -> StreamingResponse:
+    return StreamingResponse(iter(pieces), media_type=media_type, headers=_disposition(filename, inline=False))

@@ -1,0 +1,495 @@
+"""The overview's Plotly figures: timeline, regime map, phase stability, density
+calibration and flag counts, with the figures shown beside them.
+
+Charts are plain figure dicts (``{"data": [...], "layout": {...}}``) that the static
+JavaScript hands to Plotly. Every point trace carries ``meta`` = {status, x, y} naming
+the fields it plots, so live updates can extend the right traces without knowing the
+chart. Large series are decimated in SQL (app.store.dashboard).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+import numpy as np
+from sqlalchemy.orm import Session
+
+import model
+from app.plain import rounded, rounded_list
+from app.presentation.charts import axis, layout, text_for_chart
+from app.presentation.fields import field_label, short_label
+from app.presentation.palette import INK, OKABE_ITO, SEVERITY_STYLES, STATUS_STYLES, rgba
+from app.services.phase_spread import PhaseJitter, circular_mean_rad, phase_jitter
+from app.store import dashboard as store
+from app.tables import Campaign, Shot
+from app.times import campaign_zone, chart_time
+
+# Limits that keep a 100,000-shot campaign's pages small and quick.
+# Plotly's WebGL traces (scattergl) compile code at run time, which the pages' CSP
+# forbids (no 'unsafe-eval'), so every chart is SVG and long series are thinned.
+TIMELINE_NOMINAL_POINTS = 1500
+FLAGGED_POINTS_CAP = 1000  # per flagged status and chart; past it, 1 in k over the whole range
+SCATTER_NOMINAL_POINTS = 3000
+PHASE_MAX_BINS = 80
+PHASE_MIN_SHOTS_PER_BIN = 5
+PHASE_MAX_ROWS = 20000  # shots the phase figures are computed from; past it, 1 in k
+
+TIMELINE_FIELDS = (
+    "plasma_density_cm3",
+    "driver_population",
+    "seed_position_mm",
+    "driver_sigma_z_mm",
+    "driver_sigma_r_mm",
+)
+PHASE_FIELD = "measured_modulation_phase_rad"
+CALIBRATION_FIELDS = ("plasma_frequency_ghz", "measured_modulation_freq_ghz")
+DEFAULT_REGIME_AXES = ("plasma_density_cm3", "efolds_exit")
+
+
+def _point_trace(
+    status: str,
+    x: list[Any],
+    y: list[Any],
+    ids: list[str],
+    *,
+    x_field: str,
+    y_field: str,
+    total: int,
+    axes: tuple[str, str] = ("x", "y"),
+    showlegend: bool = True,
+    note: str = "",
+) -> dict[str, Any]:
+    style = STATUS_STYLES[status]
+    shown = f"{len(x):,} of {total:,}" if len(x) != total else f"{total:,}"
+    return {
+        "type": "scatter",
+        "mode": "markers",
+        "name": f"{status} ({shown}{note})",
+        "legendgroup": status,
+        "showlegend": showlegend,
+        "x": x,
+        "y": y,
+        "customdata": ids,
+        "xaxis": axes[0],
+        "yaxis": axes[1],
+        "marker": {
+            "color": style.colour,
+            "symbol": style.symbol,
+            "size": 7 if status == "nominal" else 8,
+            "opacity": 0.75 if status == "nominal" else 0.95,
+            "line": {"width": 1, "color": style.colour},
+        },
+        "hovertemplate": "%{customdata}<br>x %{x}<br>y %{y:.5g}<extra>" + status + "</extra>",
+        "meta": {"status": status, "x": x_field, "y": y_field},
+    }
+
+
+@dataclass
+class _StatusSeries:
+    status: str
+    series: store.Series
+
+
+def _series_by_status(
+    session: Session,
+    campaign: Campaign,
+    columns: Sequence[str],
+    *,
+    nominal_points: int,
+    required: Sequence[str] = (),
+    upto_pk: int | None = None,
+) -> list[_StatusSeries]:
+    """Nominal shots thinned to ``nominal_points``; flagged shots all kept up to a cap."""
+    wanted: dict[str, Any] = {"shot_id": Shot.shot_id, "taken_at": Shot.taken_at}
+    wanted.update({name: store.NUMERIC_COLUMNS[name] for name in columns})
+    needed = [store.NUMERIC_COLUMNS[name] for name in required]
+    totals = store.counts_with_values(session, campaign.id, needed, upto_pk=upto_pk)
+    out = []
+    for status in model.STATUSES:
+        series = store.status_series(
+            session,
+            campaign.id,
+            status,
+            wanted,
+            total=totals.get(status, 0),
+            max_points=nominal_points if status == "nominal" else FLAGGED_POINTS_CAP,
+            required=needed,
+            upto_pk=upto_pk,
+        )
+        out.append(_StatusSeries(status, series))
+    return out
+
+
+def _series_note(item: _StatusSeries) -> str:
+    return f", 1 in {item.series.step}" if item.series.step > 1 else ""
+
+
+def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, Any]:
+    """Key conditions against time, one panel each, flagged shots marked by shape and colour."""
+    zone = campaign_zone(campaign.timezone)
+    by_status = _series_by_status(
+        session, campaign, TIMELINE_FIELDS, nominal_points=TIMELINE_NOMINAL_POINTS, upto_pk=upto_pk
+    )
+    panels = len(TIMELINE_FIELDS)
+    gap = 0.04
+    height = (1 - gap * (panels - 1)) / panels
+    traces: list[dict[str, Any]] = []
+    figure_layout = layout(height=190 * panels + 90, showlegend=True)
+    # The same shots in every panel: their times and labels are written once.
+    times = {item.status: [chart_time(t, zone) for t in item.series.columns["taken_at"]] for item in by_status}
+    labels = {item.status: [text_for_chart(v) for v in item.series.columns["shot_id"]] for item in by_status}
+    for i, name in enumerate(TIMELINE_FIELDS):
+        axis_id = "" if i == 0 else str(i + 1)
+        top = 1 - i * (height + gap)
+        figure_layout[f"yaxis{axis_id}"] = axis(short_label(name), domain=[top - height, top], exponentformat="power")
+        figure_layout[f"xaxis{axis_id}"] = axis(
+            f"taken at ({zone.key})" if i == panels - 1 else "",
+            type="date",
+            anchor=f"y{axis_id}",
+            matches="x" if i else None,
+            showticklabels=i == panels - 1,
+        )
+        for item in by_status:
+            cols = item.series.columns
+            traces.append(
+                _point_trace(
+                    item.status,
+                    times[item.status],
+                    rounded_list(cols[name]),
+                    labels[item.status],
+                    x_field="taken_at",
+                    y_field=name,
+                    total=item.series.total,
+                    axes=(f"x{axis_id}", f"y{axis_id}"),
+                    showlegend=i == 0,
+                    note=_series_note(item),
+                )
+            )
+    for key in list(figure_layout):
+        if key.startswith("xaxis") and figure_layout[key].get("matches") is None:
+            figure_layout[key].pop("matches", None)
+    return {"data": traces, "layout": figure_layout}
+
+
+def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk: int | None = None) -> dict[str, Any]:
+    """Any two conditions or outputs against each other, coloured and shaped by status."""
+    by_status = _series_by_status(
+        session,
+        campaign,
+        tuple(dict.fromkeys((x, y))),
+        nominal_points=SCATTER_NOMINAL_POINTS,
+        required=(x, y),
+        upto_pk=upto_pk,
+    )
+    traces = [
+        _point_trace(
+            item.status,
+            rounded_list(item.series.columns[x]),
+            rounded_list(item.series.columns[y]),
+            [text_for_chart(s) for s in item.series.columns["shot_id"]],
+            x_field=x,
+            y_field=y,
+            total=item.series.total,
+            note=_series_note(item),
+        )
+        for item in by_status
+    ]
+    figure_layout = layout(
+        height=520,
+        xaxis=axis(field_label(x), exponentformat="power"),
+        yaxis=axis(field_label(y), exponentformat="power"),
+    )
+    return {"data": traces, "layout": figure_layout}
+
+
+@dataclass(frozen=True)
+class PhaseSummary:
+    shots_with_phase: int
+    measured_phase_std_rad: float | None
+    density_spread_pct: float | None
+    phase_per_pct_density_rad: float | None
+    expected_phase_jitter_rad: float | None
+    thinned_step: int = 1  # the spreads come from about every k-th shot of a large campaign
+
+
+def phase_rows(session: Session, campaign: Campaign, upto_pk: int | None = None) -> store.PhaseRows:
+    return store.phase_rows(session, campaign.id, max_rows=PHASE_MAX_ROWS, upto_pk=upto_pk)
+
+
+def _jitter(rows: store.PhaseRows, part: slice = slice(None)) -> PhaseJitter:
+    """The shared definition (app.services.phase_spread) over the shots with a measured phase."""
+
+    def as_array(values: list[Any]) -> np.ndarray:
+        return np.array(values[part], dtype=float)  # None becomes NaN
+
+    return phase_jitter(as_array(rows.phase), as_array(rows.density), as_array(rows.phase_per_pct_density))
+
+
+def phase_summary(
+    session: Session, campaign: Campaign, upto_pk: int | None = None, rows: store.PhaseRows | None = None
+) -> PhaseSummary:
+    rows = rows if rows is not None else phase_rows(session, campaign, upto_pk)
+    jitter = _jitter(rows)
+    return PhaseSummary(
+        shots_with_phase=rows.total,
+        measured_phase_std_rad=jitter.measured_phase_std_rad,
+        density_spread_pct=jitter.density_spread_pct,
+        phase_per_pct_density_rad=jitter.phase_per_pct_density_rad,
+        expected_phase_jitter_rad=jitter.expected_phase_jitter_rad,
+        thinned_step=rows.step,
+    )
+
+
+@dataclass(frozen=True)
+class PhaseGroup:
+    first_taken_at: datetime
+    last_taken_at: datetime
+    phase_mean_rad: float | None  # circular mean
+    jitter: PhaseJitter
+
+
+def phase_groups(session: Session, rows: store.PhaseRows) -> list[PhaseGroup]:
+    """Consecutive shots (taken_at order) in at most PHASE_MAX_BINS groups of at least
+    PHASE_MIN_SHOTS_PER_BIN shots where there are enough."""
+    n = len(rows.pk)
+    if n < 2:
+        return []
+    count = max(1, min(PHASE_MAX_BINS, n // PHASE_MIN_SHOTS_PER_BIN))
+    edges = np.linspace(0, n, count + 1).round().astype(int).tolist()
+    parts = [(lo, hi) for lo, hi in zip(edges[:-1], edges[1:], strict=False) if hi > lo]
+    # Only the groups' first and last shots need their times (a few hundred, not every row).
+    times = store.taken_at_of(session, [rows.pk[i] for lo, hi in parts for i in (lo, hi - 1)])
+    phases = np.array(rows.phase, dtype=float)
+    return [
+        PhaseGroup(
+            times[rows.pk[lo]], times[rows.pk[hi - 1]], circular_mean_rad(phases[lo:hi]), _jitter(rows, slice(lo, hi))
+        )
+        for lo, hi in parts
+    ]
+
+
+def phase_figure(
+    session: Session, campaign: Campaign, upto_pk: int | None = None, rows: store.PhaseRows | None = None
+) -> dict[str, Any]:
+    """Measured modulation phase against shot time, beside the jitter the density jitter predicts.
+
+    Top: each shot's phase with, per group of consecutive shots, the group's circular mean ±
+    the expected jitter (median phase per % density × shot-to-shot density jitter in %).
+    Bottom: per group, the measured shot-to-shot phase jitter beside that expected jitter
+    (both about running windows of neighbouring shots, app.services.phase_spread).
+    """
+    zone = campaign_zone(campaign.timezone)
+    by_status = _series_by_status(
+        session,
+        campaign,
+        (PHASE_FIELD,),
+        nominal_points=TIMELINE_NOMINAL_POINTS,
+        required=(PHASE_FIELD,),
+        upto_pk=upto_pk,
+    )
+    groups = phase_groups(session, rows if rows is not None else phase_rows(session, campaign, upto_pk))
+    traces: list[dict[str, Any]] = []
+    centres, upper, lower, measured_rms, expected = [], [], [], [], []
+    for g in groups:
+        mid = g.first_taken_at + (g.last_taken_at - g.first_taken_at) / 2
+        jitter = g.jitter.expected_phase_jitter_rad
+        mean = g.phase_mean_rad
+        centres.append(chart_time(mid, zone))
+        upper.append(rounded(mean + jitter) if jitter is not None and mean is not None else None)
+        lower.append(rounded(mean - jitter) if jitter is not None and mean is not None else None)
+        measured_rms.append(rounded(g.jitter.measured_phase_std_rad))
+        expected.append(rounded(jitter))
+    band = {"color": rgba(OKABE_ITO["bluish_green"], 0.55), "width": 1, "shape": "hv"}
+    traces.append(
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": centres,
+            "y": lower,
+            "line": band,
+            "name": "expected jitter band",
+            "legendgroup": "band",
+            "showlegend": False,
+            "hoverinfo": "skip",
+            "xaxis": "x",
+            "yaxis": "y",
+        }
+    )
+    traces.append(
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": centres,
+            "y": upper,
+            "line": band,
+            "fill": "tonexty",
+            "fillcolor": rgba(OKABE_ITO["bluish_green"], 0.15),
+            "name": "group mean \u00b1 jitter expected from shot-to-shot density jitter",
+            "legendgroup": "band",
+            "hoverinfo": "skip",
+            "xaxis": "x",
+            "yaxis": "y",
+        }
+    )
+    for item in by_status:
+        cols = item.series.columns
+        traces.append(
+            _point_trace(
+                item.status,
+                [chart_time(t, zone) for t in cols["taken_at"]],
+                rounded_list(cols[PHASE_FIELD]),
+                [text_for_chart(s) for s in cols["shot_id"]],
+                x_field="taken_at",
+                y_field=PHASE_FIELD,
+                total=item.series.total,
+                note=_series_note(item),
+            )
+        )
+    traces.append(
+        {
+            "type": "scatter",
+            "mode": "lines+markers",
+            "x": centres,
+            "y": measured_rms,
+            "name": "measured shot-to-shot phase jitter (per group)",
+            "xaxis": "x2",
+            "yaxis": "y2",
+            "line": {"color": INK, "width": 2},
+            "marker": {"symbol": "square", "size": 6},
+        }
+    )
+    traces.append(
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "x": centres,
+            "y": expected,
+            "name": "expected shot-to-shot jitter (per group)",
+            "xaxis": "x2",
+            "yaxis": "y2",
+            "line": {"color": OKABE_ITO["bluish_green"], "width": 2, "dash": "dash"},
+        }
+    )
+    figure_layout = layout(
+        height=560,
+        xaxis=axis("", type="date", anchor="y", showticklabels=False),
+        yaxis=axis("measured phase [rad]", domain=[0.42, 1.0]),
+        xaxis2=axis(f"taken at ({zone.key})", type="date", anchor="y2", matches="x"),
+        yaxis2=axis("shot-to-shot jitter [rad]", domain=[0.0, 0.32], rangemode="tozero"),
+    )
+    return {"data": traces, "layout": figure_layout}
+
+
+@dataclass(frozen=True)
+class CalibrationSummary:
+    shots_with_frequency: int
+    median_density_offset: float | None  # implied/set density − 1 (a fraction)
+
+
+def calibration_summary(session: Session, campaign: Campaign) -> CalibrationSummary:
+    n, offset = store.median_density_offset(session, campaign.id)
+    return CalibrationSummary(n, offset)
+
+
+def calibration_figure(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, Any]:
+    """Measured modulation frequency against the plasma frequency the set density predicts."""
+    predicted, measured = CALIBRATION_FIELDS
+    by_status = _series_by_status(
+        session,
+        campaign,
+        CALIBRATION_FIELDS,
+        nominal_points=SCATTER_NOMINAL_POINTS,
+        required=CALIBRATION_FIELDS,
+        upto_pk=upto_pk,
+    )
+    traces = []
+    values: list[float] = []
+    for item in by_status:
+        xs = rounded_list(item.series.columns[predicted])
+        ys = rounded_list(item.series.columns[measured])
+        values.extend(v for v in (*xs, *ys) if v is not None)
+        traces.append(
+            _point_trace(
+                item.status,
+                xs,
+                ys,
+                [text_for_chart(s) for s in item.series.columns["shot_id"]],
+                x_field=predicted,
+                y_field=measured,
+                total=item.series.total,
+                note=_series_note(item),
+            )
+        )
+    if values:
+        lo, hi = min(values), max(values)
+        traces.insert(
+            0,
+            {
+                "type": "scatter",
+                "mode": "lines",
+                "x": [lo, hi],
+                "y": [lo, hi],
+                "name": "measured = predicted",
+                "hoverinfo": "skip",
+                "line": {"color": OKABE_ITO["sky_blue"], "dash": "dot", "width": 2},
+            },
+        )
+    figure_layout = layout(
+        height=460,
+        xaxis=axis("predicted plasma frequency [GHz]"),
+        yaxis=axis("measured modulation frequency [GHz]"),
+    )
+    return {"data": traces, "layout": figure_layout}
+
+
+@dataclass(frozen=True)
+class FlagCodeCount:
+    code: str
+    by_severity: dict[str, int]
+
+    @property
+    def total(self) -> int:
+        return sum(self.by_severity.values())
+
+
+def flag_code_counts(session: Session, campaign: Campaign) -> list[FlagCodeCount]:
+    counts: dict[str, dict[str, int]] = {}
+    for row in store.flag_counts(session, campaign.id):
+        counts.setdefault(row.code, {})[row.severity] = row.shots
+    return [FlagCodeCount(code, counts[code]) for code in sorted(counts, key=lambda c: (-sum(counts[c].values()), c))]
+
+
+def flag_figure(counts: Sequence[FlagCodeCount]) -> dict[str, Any]:
+    """Shots per flag code, stacked by severity (colour and hatching)."""
+    codes = [c.code for c in reversed(counts)]
+    traces = []
+    for severity, style in SEVERITY_STYLES.items():
+        values = [c.by_severity.get(severity, 0) for c in reversed(counts)]
+        if not any(values):
+            continue
+        traces.append(
+            {
+                "type": "bar",
+                "orientation": "h",
+                "name": severity,
+                "y": codes,
+                "x": values,
+                "marker": {
+                    "color": style.colour,
+                    "line": {"color": INK, "width": 0.5},
+                    "pattern": {"shape": style.pattern, "fgcolor": "#ffffff", "fillmode": "overlay", "solidity": 0.25},
+                },
+                "hovertemplate": "%{y}: %{x} shots<extra>" + severity + "</extra>",
+            }
+        )
+    figure_layout = layout(
+        height=max(180, 34 * len(codes) + 90),
+        barmode="stack",
+        xaxis=axis("shots"),
+        yaxis=axis("", automargin=True),
+        margin={"l": 150, "r": 20, "t": 30, "b": 45},
+    )
+    return {"data": traces, "layout": figure_layout}

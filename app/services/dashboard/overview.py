@@ -1,0 +1,271 @@
+"""The overview and the campaign list: status and flag counts, the chart feeds with the
+figures beside them, the weekly-summary links, and the live feed that keeps open pages
+current (new shots, counts, and the text the table shows for them).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+from sqlalchemy.orm import Session
+
+from app.errors import InvalidInput
+from app.plain import rounded
+from app.presentation.fields import field_label
+from app.presentation.numbers import MISSING, format_number
+from app.services.dashboard.figures import (
+    CALIBRATION_FIELDS,
+    DEFAULT_REGIME_AXES,
+    PHASE_FIELD,
+    TIMELINE_FIELDS,
+    CalibrationSummary,
+    FlagCodeCount,
+    PhaseSummary,
+    calibration_figure,
+    calibration_summary,
+    flag_code_counts,
+    flag_figure,
+    phase_figure,
+    phase_rows,
+    phase_summary,
+    regime_figure,
+    timeline_figure,
+)
+from app.services.dashboard.table import TABLE_VALUE_COLUMNS
+from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
+from app.store import dashboard as store
+from app.store.dashboard import ShotRow
+from app.tables import Campaign
+from app.times import IsoWeek, campaign_zone, chart_time, current_week, format_utc, local_text, local_time
+
+LIVE_MAX_ROWS = 200
+# Everything a live update may need to extend the overview's charts and the table.
+LIVE_VALUE_COLUMNS = tuple(dict.fromkeys((*TIMELINE_FIELDS, *TABLE_VALUE_COLUMNS, PHASE_FIELD, *CALIBRATION_FIELDS)))
+
+
+def campaign_week(campaign: Campaign, now: datetime | None = None) -> str:
+    """The current ISO week in the campaign's zone, as a label (``2026-W47``)."""
+    return current_week(campaign_zone(campaign.timezone), now).label
+
+
+def summary_url(campaign: Campaign, week: str | None = None, fmt: str = "html") -> str:
+    return f"/api/v1/campaigns/{campaign.slug}/summary?week={week or campaign_week(campaign)}&format={fmt}"
+
+
+@dataclass(frozen=True)
+class SummaryLinks:
+    """Where the weekly-summary links point: the latest ISO week with shots (the current
+    week for an empty campaign), and the current week too when that is another week."""
+
+    week: str
+    url: str
+    this_week: str | None = None
+    this_week_url: str | None = None
+
+
+def summary_links(campaign: Campaign, latest_taken_at: datetime | None, now: datetime | None = None) -> SummaryLinks:
+    zone = campaign_zone(campaign.timezone)
+    this_week = campaign_week(campaign, now)
+    latest = local_time(latest_taken_at, zone)
+    week = IsoWeek.containing(latest, zone).label if latest else this_week
+    if week == this_week:
+        return SummaryLinks(week, summary_url(campaign, week))
+    return SummaryLinks(week, summary_url(campaign, week), this_week, summary_url(campaign, this_week))
+
+
+def campaign_summary_links(session: Session, campaign: Campaign, now: datetime | None = None) -> SummaryLinks:
+    return summary_links(campaign, store.latest_taken_at(session, campaign.id), now)
+
+
+# -------------------------------------------------------------------------- pages
+
+
+@dataclass
+class CampaignCard:
+    campaign: Campaign
+    counts: dict[str, int]
+    latest_local: str  # empty for a campaign without shots
+    summary: SummaryLinks
+
+    @property
+    def total(self) -> int:
+        return sum(self.counts.values())
+
+
+def campaign_cards(session: Session) -> list[CampaignCard]:
+    return [
+        CampaignCard(c, counts, local_text(latest, campaign_zone(c.timezone)), summary_links(c, latest))
+        for c, counts, latest in store.campaigns_with_status_counts(session)
+    ]
+
+
+@dataclass
+class Overview:
+    campaign: Campaign
+    counts: dict[str, int]
+    flag_counts: list[FlagCodeCount]
+    figures: dict[str, dict[str, Any]]
+    regime_options: list[tuple[str, str]]
+    regime_axes: tuple[str, str]
+    live_cursor: int
+
+    @property
+    def total(self) -> int:
+        return sum(self.counts.values())
+
+
+# Charts the overview loads from /campaigns/{slug}/charts/{name}.json after the page.
+CHART_FEEDS = {
+    "timeline": timeline_figure,
+    "phase": phase_figure,
+    "calibration": calibration_figure,
+}
+
+
+def phase_facts(summary: PhaseSummary) -> list[tuple[str, str]]:
+    sample = f" (from 1 in {summary.thinned_step} shots)" if summary.thinned_step > 1 else ""
+    window = NEIGHBOUR_WINDOW_SHOTS
+    return [
+        ("shots with a measured phase", format_number(summary.shots_with_phase)),
+        (
+            "measured shot-to-shot phase jitter (robust spread about a running circular mean "
+            f"of {window} neighbouring shots)",
+            f"{format_number(summary.measured_phase_std_rad)} rad{sample}",
+        ),
+        (
+            "shot-to-shot density jitter of those shots (robust spread about a running median "
+            f"of {window} neighbouring shots)",
+            f"{format_number(summary.density_spread_pct)} %{sample}",
+        ),
+        ("phase change per 1 % density (median)", f"{format_number(summary.phase_per_pct_density_rad)} rad/%"),
+        ("expected phase jitter (shot-to-shot)", f"{format_number(summary.expected_phase_jitter_rad)} rad"),
+    ]
+
+
+def calibration_facts(summary: CalibrationSummary) -> list[tuple[str, str]]:
+    offset = summary.median_density_offset
+    return [
+        ("shots with a measured frequency", format_number(summary.shots_with_frequency)),
+        ("implied density offset (median)", MISSING if offset is None else f"{format_number(100 * offset)} %"),
+    ]
+
+
+# The numbers shown beside a chart, sent with it (so the page itself stays quick).
+CHART_FACTS = {
+    "phase": lambda session, campaign: phase_facts(phase_summary(session, campaign)),
+    "calibration": lambda session, campaign: calibration_facts(calibration_summary(session, campaign)),
+}
+
+
+def chart_feed(session: Session, campaign: Campaign, name: str, **params: Any) -> dict[str, Any]:
+    """A chart drawn from the shots stored up to now, that cursor for the live feed, and
+    the figures shown beside it."""
+    cursor = store.latest_shot_pk(session, campaign.id)
+    if name == "phase":  # the chart and its figures from one read of the phases
+        rows = phase_rows(session, campaign, cursor)
+        return {
+            "figure": phase_figure(session, campaign, upto_pk=cursor, rows=rows),
+            "cursor": cursor,
+            "facts": phase_facts(phase_summary(session, campaign, rows=rows)),
+        }
+    builder = regime_figure if name == "regime" else CHART_FEEDS[name]
+    feed: dict[str, Any] = {"figure": builder(session, campaign, upto_pk=cursor, **params), "cursor": cursor}
+    if name in CHART_FACTS:
+        feed["facts"] = CHART_FACTS[name](session, campaign)
+    return feed
+
+
+def regime_feed(session: Session, campaign: Campaign, x: str, y: str) -> dict[str, Any]:
+    """The regime map of any two numeric columns; InvalidInput names an axis that is not one."""
+    problems = [
+        (axis, "not a numeric input or output")
+        for axis, name in (("x", x), ("y", y))
+        if name not in store.NUMERIC_COLUMNS
+    ]
+    if problems:
+        raise InvalidInput(problems, f"cannot plot {', '.join(n for n in (x, y) if n not in store.NUMERIC_COLUMNS)}")
+    return chart_feed(session, campaign, "regime", x=x, y=y)
+
+
+LIVE_EXTRA_MAX = 4
+
+
+def live_extra(fields: str) -> list[str]:
+    """The numeric columns a live page asks for besides the usual ones (the regime map's axes)."""
+    return [f for f in fields.split(",") if f in store.NUMERIC_COLUMNS][:LIVE_EXTRA_MAX]
+
+
+def regime_options() -> list[tuple[str, str]]:
+    """(column, label) of every numeric input and output, inputs first."""
+    return [(name, field_label(name)) for name in store.NUMERIC_COLUMNS]
+
+
+def overview(session: Session, campaign: Campaign) -> Overview:
+    flags = flag_code_counts(session, campaign)
+    return Overview(
+        campaign=campaign,
+        counts=store.status_counts(session, campaign.id),
+        flag_counts=flags,
+        figures={"flags": flag_figure(flags)},
+        regime_options=regime_options(),
+        regime_axes=DEFAULT_REGIME_AXES,
+        live_cursor=store.latest_shot_pk(session, campaign.id),
+    )
+
+
+# --------------------------------------------------------------------------- live
+
+
+def live_rows(rows: Sequence[ShotRow], campaign: Campaign, shot_url: str) -> list[dict[str, Any]]:
+    """New shots for open pages: chart values as numbers, and the table's text for each
+    value and time from the server's own formatters (the script never formats a number)."""
+    zone = campaign_zone(campaign.timezone)
+    out = []
+    for row in rows:
+        out.append(
+            {
+                "pk": row.pk,
+                "shot_id": row.shot_id,
+                "url": shot_url.format(shot_id=row.shot_id),
+                "taken_at": format_utc(row.taken_at),
+                "t": chart_time(row.taken_at, zone),
+                "taken_local": local_text(row.taken_at, zone),
+                "revision": row.revision,
+                "status": row.status,
+                "seed_method": row.seed_method,
+                "flags": [{"code": c, "severity": s} for c, s in row.flags],
+                "notes": row.notes[:200],
+                "tags": row.tags,
+                "values": {k: rounded(v) for k, v in row.values.items()},
+                "text": {k: format_number(v) for k, v in row.values.items()},
+            }
+        )
+    return out
+
+
+def live_update(
+    session: Session, campaign: Campaign, since: int, shot_url: str, extra_columns: Sequence[str] = ()
+) -> dict[str, Any]:
+    """Counts now, and the shots stored after the cursor ``since`` (oldest first, bounded)."""
+    columns = tuple(dict.fromkeys((*LIVE_VALUE_COLUMNS, *extra_columns)))
+    rows = store.shots_after(session, campaign.id, since, limit=LIVE_MAX_ROWS, value_columns=columns)
+    latest = store.latest_shot_pk(session, campaign.id)
+    cursor = rows[-1].pk if rows else max(since, 0)
+    if not rows and since > latest:
+        cursor = latest  # the cursor ran past the campaign (e.g. a deleted shot): resync
+    flags = flag_code_counts(session, campaign)
+    counts = store.status_counts(session, campaign.id)
+    return {
+        "cursor": cursor,
+        "more": cursor < latest,
+        "counts": counts,
+        "counts_text": {
+            **{k: format_number(v) for k, v in counts.items()},
+            "total": format_number(sum(counts.values())),
+        },
+        "flag_counts": {f.code: f.by_severity for f in flags},
+        "shots": live_rows(rows, campaign, shot_url),
+    }

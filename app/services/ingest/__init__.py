@@ -1,0 +1,7 @@
+"""Ingest: payload validation, digest and diff (``payloads``), evaluation rows
+(``evaluation``) and storing in one transaction (``storing``)."""
+
+from app.services.ingest.payloads import check_shot_body, physics_problems
+from app.services.ingest.storing import IngestResult, ItemOutcome, correct_shot, ingest_shots
+
+__all__ = ["IngestResult", "ItemOutcome", "check_shot_body", "correct_shot", "ingest_shots", "physics_problems"]

@@ -1,0 +1,83 @@
+"""The weekly summary as one self-contained HTML report: inline CSS (the palette's
+custom properties) and SVG charts, no script, nothing fetched, prints cleanly on A4."""
+
+from __future__ import annotations
+
+from datetime import datetime, timedelta
+from typing import Any
+
+import numpy as np
+
+from app.presentation.templates import render
+from app.services.export_table import NOT_EVALUATED
+from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
+from app.services.weekly import report_charts as charts
+from app.services.weekly.summary import STATUSES, WeeklySummary, export_file_name
+from app.times import campaign_zone, local_text
+
+# Flagged shots listed in the HTML report per status; the CSV/JSON exports list all.
+HTML_FLAGGED_LIMIT = 500
+
+
+def _charts(summary: WeeklySummary) -> dict[str, Any]:
+    shots = summary.shots
+    tz = campaign_zone(summary.timezone)
+    start = summary.start_local
+    days = [(start + timedelta(days=d)) for d in range(7)]
+    day_labels = [d.strftime("%a %d %b") for d in days]
+    local_day = np.array([(t.astimezone(tz).date() - start.date()).days for t in shots.taken_at], dtype=int)
+    hours = np.array([(t - summary.start_utc).total_seconds() / 3600.0 for t in shots.taken_at], dtype=float)
+    week_hours = (summary.end_utc - summary.start_utc).total_seconds() / 3600.0
+    day_ticks = [
+        ((datetime.combine(d.date(), datetime.min.time(), tzinfo=tz) - start).total_seconds() / 3600.0, label)
+        for d, label in zip(days, day_labels, strict=True)
+    ]
+    groups = [*STATUSES, NOT_EVALUATED]
+    per_day = {g: [int(np.count_nonzero((local_day == d) & (shots.status == g))) for d in range(7)] for g in groups}
+    per_day = {g: v for g, v in per_day.items() if g in STATUSES or any(v)}
+    density = shots.inputs["plasma.density_cm3"]
+    finite_density = density[np.isfinite(density)]
+    density_offset_pct = 100.0 * (density / np.mean(finite_density) - 1.0) if finite_density.size else density
+    return {
+        "per_day": charts.stacked_bars_svg(
+            day_labels, per_day, title="Shots per day by status", x_label=f"day ({summary.timezone})", y_label="shots"
+        ),
+        "growth": charts.scatter_svg(
+            hours,
+            shots.outputs["growth_margin_efolds"],
+            shots.status,
+            title="Growth margin over the week",
+            x_label=f"time ({summary.timezone})",
+            y_label="growth margin [e-folds]",
+            x_range=(0.0, week_hours),
+            x_ticks=day_ticks,
+        ),
+        "phase": charts.scatter_svg(
+            density_offset_pct,
+            shots.inputs["measured.modulation_phase_rad"],
+            shots.status,
+            title="Measured phase against density offset",
+            x_label="density offset from the week's mean [%]",
+            y_label="measured phase [rad]",
+        ),
+        "mismatch": charts.histogram_svg(
+            shots.outputs["frequency_mismatch_pct"],
+            title="Frequency mismatch (measured against expected)",
+            x_label="frequency mismatch [%]",
+        ),
+    }
+
+
+def render_html(summary: WeeklySummary) -> str:
+    flagged = {status: [s for s in summary.flagged_shots if s.status == status] for status in ("outside", "marginal")}
+    zone = campaign_zone(summary.timezone)
+    return render(
+        "summary_report.html",
+        s=summary,
+        charts=_charts(summary),
+        flagged=flagged,
+        flagged_limit=HTML_FLAGGED_LIMIT,
+        local=lambda t: local_text(t, zone),
+        phase_window_shots=NEIGHBOUR_WINDOW_SHOTS,
+        file_stem=export_file_name(summary.campaign_slug, summary.week.label, "").rstrip("."),
+    )

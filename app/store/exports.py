@@ -1,0 +1,175 @@
+"""Reads of whole shot rows for exports and summaries: shots with their current
+evaluation column-wise (Core statements, no ORM objects for 10,000 rows), their flags,
+and flag counts.
+
+Times in and out are UTC (the tables' UTCDateTime type sees to that on every backend).
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+import orjson
+from sqlalchemy import ColumnElement, Select, Text, distinct, func, select, type_coerce
+from sqlalchemy.orm import Session
+
+import model
+from app.tables import Evaluation, Flag, Shot
+
+#: Shot input columns (``model.column_name`` of each input path), in the model's order.
+SHOT_INPUT_COLUMNS: tuple[str, ...] = tuple(model.column_name(f.path) for f in model.INPUT_FIELDS)
+#: Evaluation output columns (MODEL.md section 8 names), in the model's order.
+EVALUATION_OUTPUT_COLUMNS: tuple[str, ...] = model.OUTPUT_NAMES
+
+
+@dataclass(frozen=True)
+class FlagRow:
+    shot_pk: int
+    code: str
+    severity: str
+    value: float | None
+    limit: float | None
+    message: str
+
+
+def in_window(campaign_id: int, start_utc: datetime, end_utc: datetime) -> list[ColumnElement[bool]]:
+    """Shots of the campaign taken in [start_utc, end_utc)."""
+    return [Shot.campaign_id == campaign_id, Shot.taken_at >= start_utc, Shot.taken_at < end_utc]
+
+
+def shot_rows_query(
+    conditions: Sequence[ColumnElement[bool]],
+    order_by: Sequence[Any] = (Shot.taken_at, Shot.id),
+    input_columns: Sequence[str] = SHOT_INPUT_COLUMNS,
+    output_columns: Sequence[str] = EVALUATION_OUTPUT_COLUMNS,
+    *,
+    details: bool = True,
+    payloads: bool = False,
+) -> Select[Any]:
+    """Shots matching ``conditions`` with their evaluation (None where there is none).
+    Keys: shot_pk, status; with ``details`` also shot_id, taken_at, revision, notes, tags,
+    model_version, settings_version; with ``payloads`` the raw payload as JSON text;
+    then the requested input and output columns under their column names."""
+    meta: list[Any] = [Shot.id.label("shot_pk"), Evaluation.status]
+    if details:
+        meta += [
+            Shot.shot_id,
+            Shot.taken_at,
+            Shot.revision,
+            Shot.notes,
+            # Raw JSON text: most shots have no tags, and decoding 10,000 "[]" through the
+            # JSON type costs more than the rest of the row.
+            type_coerce(Shot.tags, Text).label("tags"),
+            Evaluation.model_version,
+            Evaluation.settings_version,
+        ]
+    if payloads:
+        meta.append(type_coerce(Shot.raw_payload, Text).label("raw_payload"))
+    shot_cols = [Shot.__table__.c[name] for name in input_columns]
+    eval_cols = [Evaluation.__table__.c[name] for name in output_columns]
+    return (
+        select(*meta, *shot_cols, *eval_cols)
+        .outerjoin(Evaluation, Evaluation.shot_pk == Shot.id)
+        .where(*conditions)
+        .order_by(*order_by)
+    )
+
+
+def _columns(keys: Sequence[str], rows: Sequence[Any]) -> dict[str, list[Any]]:
+    columns: dict[str, list[Any]] = {k: [] for k in keys}
+    for key, values in zip(keys, zip(*rows, strict=True), strict=False):
+        columns[key] = list(values)
+    if "tags" in columns:
+        columns["tags"] = [_json_list(t) for t in columns["tags"]]
+    if "raw_payload" in columns:
+        columns["raw_payload"] = [_json_object(p) for p in columns["raw_payload"]]
+    return columns
+
+
+def fetch_shot_rows(session: Session, stmt: Select[Any]) -> dict[str, list[Any]]:
+    """All rows of ``shot_rows_query`` column-wise."""
+    result = session.connection().execute(stmt)
+    return _columns(list(result.keys()), result.all())
+
+
+def iter_shot_rows(session: Session, stmt: Select[Any], chunk: int = 2000) -> Iterator[dict[str, list[Any]]]:
+    """The rows of ``shot_rows_query`` column-wise, ``chunk`` rows at a time (memory stays flat);
+    at least one (possibly empty) chunk."""
+    result = session.connection().execution_options(yield_per=chunk).execute(stmt)
+    keys = list(result.keys())
+    empty = True
+    for part in result.partitions():
+        empty = False
+        yield _columns(keys, part)
+    if empty:
+        yield _columns(keys, [])
+
+
+def _json_list(raw: Any) -> list[str]:
+    if isinstance(raw, list):  # a driver that decodes JSON itself
+        return raw
+    if not raw or raw == "[]":
+        return []
+    return list(json.loads(raw))
+
+
+def _json_object(raw: Any) -> dict[str, Any]:
+    if isinstance(raw, dict):
+        return raw
+    if not raw:
+        return {}
+    try:
+        return orjson.loads(raw)
+    except orjson.JSONDecodeError:  # an integer beyond 64 bits: the standard parser keeps it
+        return json.loads(raw)
+
+
+def fetch_flags(session: Session, conditions: Sequence[ColumnElement[bool]]) -> list[FlagRow]:
+    """Every flag of the current evaluations of the shots matching ``conditions``, by shot then rule order."""
+    stmt = (
+        select(Flag.shot_pk, Flag.code, Flag.severity, Flag.value, Flag.limit, Flag.message)
+        .join(Shot, Shot.id == Flag.shot_pk)
+        .where(*conditions)
+        .order_by(Flag.shot_pk, Flag.id)
+    )
+    return [FlagRow(*row) for row in session.connection().execute(stmt)]
+
+
+def fetch_flags_of(session: Session, shot_pks: Sequence[int]) -> list[FlagRow]:
+    """Every flag of the given shots (chunked to stay under bind limits)."""
+    out: list[FlagRow] = []
+    pks = list(shot_pks)
+    for start in range(0, len(pks), 900):
+        out += fetch_flags(session, [Shot.id.in_(pks[start : start + 900])])
+    return out
+
+
+def count_flags(session: Session, conditions: Sequence[ColumnElement[bool]]) -> list[tuple[str, str, int]]:
+    """(code, severity, number of shots) for the flags of the shots matching ``conditions``."""
+    stmt = (
+        select(Flag.code, Flag.severity, func.count(distinct(Flag.shot_pk)))
+        .join(Shot, Shot.id == Flag.shot_pk)
+        .where(*conditions)
+        .group_by(Flag.code, Flag.severity)
+    )
+    return [(code, severity, int(n)) for code, severity, n in session.connection().execute(stmt)]
+
+
+def iter_payloads(
+    session: Session, conditions: Sequence[ColumnElement[bool]], chunk: int = 2000
+) -> Iterator[dict[str, Any]]:
+    """The raw payloads of the shots matching ``conditions`` (any order), one at a time."""
+    stmt = (
+        select(type_coerce(Shot.raw_payload, Text))
+        .select_from(Shot)
+        .outerjoin(Evaluation, Evaluation.shot_pk == Shot.id)
+        .where(*conditions)
+    )
+    result = session.connection().execution_options(yield_per=chunk).execute(stmt)
+    for part in result.partitions():
+        for (raw,) in part:
+            yield _json_object(raw)

@@ -1,0 +1,145 @@
+"""Time in wakeledger: UTC inside, the campaign's zone on screen, ISO weeks for summaries.
+
+- ``campaign_zone(name)`` is the one way to get a campaign's zone. A name that is not a
+  known IANA zone (it can only come from a hand-edited database: campaigns are created
+  with a checked zone) falls back to UTC everywhere, logged once, and whatever shows
+  times (pages, summaries, exports) names the zone it actually used (``zone.key``).
+- ``format_utc`` is how the API, the CSV files and the JSON exports write an instant:
+  ISO 8601 / RFC 3339 in UTC with the ``Z`` offset.
+- ``local_text`` is how pages and reports show a moment: wall-clock time in the zone.
+- ``IsoWeek`` and ``current_week``: ISO weeks in a zone (Monday 00:00 local to Monday 00:00).
+"""
+
+from __future__ import annotations
+
+import logging
+import re
+from dataclasses import dataclass
+from datetime import UTC, date, datetime, time, timedelta
+from functools import lru_cache
+from typing import overload
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+log = logging.getLogger(__name__)
+
+UTC_ZONE = ZoneInfo("UTC")
+LOCAL_FORMAT = "%Y-%m-%d %H:%M:%S"
+
+
+@lru_cache(maxsize=256)
+def campaign_zone(name: str | None) -> ZoneInfo:
+    """The IANA zone of a campaign; UTC (logged) when the name is not a known zone."""
+    try:
+        return ZoneInfo(name or "UTC")
+    except (ZoneInfoNotFoundError, ValueError):
+        log.warning("unknown time zone %r: using UTC", name)
+        return UTC_ZONE
+
+
+@overload
+def as_utc(moment: datetime) -> datetime: ...
+@overload
+def as_utc(moment: None) -> None: ...
+def as_utc(moment: datetime | None) -> datetime | None:
+    """Aware datetimes to UTC; naive ones (an SQLite round trip) are already UTC."""
+    if moment is None:
+        return None
+    if moment.tzinfo is None:
+        return moment.replace(tzinfo=UTC)
+    return moment.astimezone(UTC)
+
+
+def format_utc(moment: datetime) -> str:
+    """ISO 8601 in UTC with a Z suffix; milliseconds (or microseconds) only when present."""
+    when = as_utc(moment)
+    assert when is not None
+    text = when.strftime("%Y-%m-%dT%H:%M:%S")
+    if when.microsecond % 1000:
+        text += f".{when.microsecond:06d}"
+    elif when.microsecond:
+        text += f".{when.microsecond // 1000:03d}"
+    return text + "Z"
+
+
+def iso_text(moment: datetime) -> str:
+    """ISO 8601: UTC as ``format_utc`` writes it, other offsets as they are."""
+    return format_utc(moment) if moment.utcoffset() in (None, timedelta(0)) else moment.isoformat()
+
+
+def local_time(moment: datetime | None, zone: ZoneInfo) -> datetime | None:
+    moment = as_utc(moment)
+    return moment.astimezone(zone) if moment else None
+
+
+def local_text(moment: datetime | None, zone: ZoneInfo) -> str:
+    """Wall-clock time in ``zone`` as pages and reports show it; empty for none."""
+    local = local_time(moment, zone)
+    return local.strftime(LOCAL_FORMAT) if local else ""
+
+
+def chart_time(moment: datetime | None, zone: ZoneInfo) -> str | None:
+    """Plotly date axes have no zone: local wall-clock text, the axis titled with the zone."""
+    local = local_time(moment, zone)
+    return local.replace(tzinfo=None).isoformat(sep=" ", timespec="seconds") if local else None
+
+
+class WeekFormatError(ValueError):
+    """The week is not an ISO week of the form YYYY-Www that exists in that year."""
+
+
+_WEEK_RE = re.compile(r"^(\d{4})-?W(\d{2})$", re.IGNORECASE)
+
+
+@dataclass(frozen=True, order=True)
+class IsoWeek:
+    year: int
+    week: int
+
+    @classmethod
+    def parse(cls, text: str) -> IsoWeek:
+        match = _WEEK_RE.match(text.strip()) if isinstance(text, str) else None
+        if not match:
+            raise WeekFormatError(f"week {text!r} is not an ISO week; write it as YYYY-Www, e.g. 2026-W47")
+        year, week = int(match.group(1)), int(match.group(2))
+        try:
+            date.fromisocalendar(year, week, 1)
+        except ValueError:
+            last = date(year, 12, 28).isocalendar().week
+            raise WeekFormatError(
+                f"week {text!r} does not exist: ISO year {year} has weeks W01 to W{last:02d}"
+            ) from None
+        return cls(year, week)
+
+    @classmethod
+    def containing(cls, moment: datetime, zone: ZoneInfo) -> IsoWeek:
+        iso = moment.astimezone(zone).date().isocalendar()
+        return cls(iso.year, iso.week)
+
+    @property
+    def label(self) -> str:
+        return f"{self.year}-W{self.week:02d}"
+
+    def __str__(self) -> str:
+        return self.label
+
+    def monday(self) -> date:
+        return date.fromisocalendar(self.year, self.week, 1)
+
+    def previous(self) -> IsoWeek:
+        iso = (self.monday() - timedelta(days=7)).isocalendar()
+        return IsoWeek(iso.year, iso.week)
+
+    def bounds_local(self, zone: ZoneInfo) -> tuple[datetime, datetime]:
+        """Monday 00:00 local to the next Monday 00:00 local (a DST week is 167 or 169 hours)."""
+        start = datetime.combine(self.monday(), time(0), tzinfo=zone)
+        end = datetime.combine(self.monday() + timedelta(days=7), time(0), tzinfo=zone)
+        return start, end
+
+    def bounds_utc(self, zone: ZoneInfo) -> tuple[datetime, datetime]:
+        start, end = self.bounds_local(zone)
+        return start.astimezone(UTC), end.astimezone(UTC)
+
+
+def current_week(zone: ZoneInfo, now: datetime | None = None) -> IsoWeek:
+    """The ISO week that ``now`` (default: this moment) falls in, in ``zone``."""
+    return IsoWeek.containing(now or datetime.now(UTC), zone)
