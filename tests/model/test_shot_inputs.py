@@ -212,3 +212,16 @@ def test_columns_built_from_api_payloads_can_refuse_nan_instead_of_reading_it_as
     with pytest.raises(ShotInputError) as caught:
         validate_columns(columns, nan_is_absent=False)
     assert dict(caught.value.problems)["driver.offset_x_mm"].startswith("NaN or infinity is not allowed")
+
+
+def test_the_rows_a_table_check_would_refuse_come_as_a_mask():
+    from model.inputs import refused_rows
+
+    n = 6
+    columns = {f"driver.{k}": np.full(n, v, dtype=float) for k, v in GOOD["driver"].items() if k != "species"}
+    columns |= {f"plasma.{k}": np.full(n, v, dtype=float) for k, v in GOOD["plasma"].items()}
+    columns["driver.species"] = np.array(["proton"] * n)
+    columns["seed.method"] = np.array(["none"] * n)
+    columns["plasma.density_cm3"][2] = -5.0
+    columns["plasma.gradient_pct_per_m"] = np.array([0.0, 0.0, 0.0, 0.0, 0.0, -20.0])  # 1 + g L <= 0 over 10 m
+    assert refused_rows(columns).tolist() == [False, False, True, False, False, True]
