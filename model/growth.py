@@ -153,11 +153,6 @@ def _asymptotic_log_series(n: np.ndarray) -> np.ndarray:
     return 2.5 * (_LOG_B - np.log(n)) + n - _HALF_LOG_6PI
 
 
-def _asymptotic_log_target(n: float) -> float:
-    """ln(x|S(x)|) of the asymptotic form at N: 3 ln(N/b) + its ln|S| = N + (1/2) ln(N/b) - (1/2) ln(6 pi)."""
-    return n + 0.5 * (math.log(n) - _LOG_B) - _HALF_LOG_6PI
-
-
 _FORWARD, _INVERSE, _Y_LOW, _Y_SERIES_END, _Y_STEP = _series_tables()
 
 
