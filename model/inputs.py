@@ -284,18 +284,32 @@ def _numeric_column(values: np.ndarray, blank_nan: bool) -> tuple[np.ndarray, np
     return floats, absent, bad_type
 
 
-def _enum_column(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(str values with '' for absent, absent mask) of one text column."""
+def _enum_column(values: np.ndarray, choices: tuple[str, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(str values with '' for absent, absent mask, codes in `choices`) of one text column.
+
+    Any other column is turned into text in one pass (None becomes 'None', 3 becomes '3'); only its cells that
+    are none of the choices are looked at one by one, to tell absent cells from unknown ones.
+    """
     if values.dtype.kind == "U":
-        return values, values == ""
-    out = np.empty(values.shape, dtype=object)
+        return values, values == "", codes_of(values, choices)
+    cells = values if values.dtype.kind == "O" else values.astype(object)
+    text = cells.astype(str)
+    code = codes_of(text, choices)
     absent = np.zeros(values.shape, bool)
-    for i, v in enumerate(values.tolist()):
-        if v is None or v == "" or (isinstance(v, float) and math.isnan(v)):
-            out[i], absent[i] = "", True
-        else:
-            out[i] = v if isinstance(v, str) else repr(v)
-    return out.astype(str), absent
+    odd = np.flatnonzero(code < 0)
+    if odd.size:
+        redone = []
+        for i, v in zip(odd.tolist(), cells[odd].tolist(), strict=True):
+            if v is None or v == "" or (isinstance(v, float) and math.isnan(v)):
+                absent[i] = True
+                redone.append("")
+            else:
+                redone.append(v if isinstance(v, str) else repr(v))
+        width = max(len(t) for t in redone)
+        if width > text.dtype.itemsize // 4:
+            text = text.astype(f"<U{width}")
+        text[odd] = redone
+    return text, absent, code
 
 
 def _present_range(floats: np.ndarray) -> tuple[float, float, bool]:
@@ -356,11 +370,11 @@ def _check_columns(
                 problems.append((f.path, f"column has {values.size} rows, expected {n}", np.empty(0, int)))
                 continue
         if f.kind == "enum":
-            text, absent = _enum_column(values)
+            text, absent, code = _enum_column(values, f.choices)
             if f.default is not None and absent.any():
                 text = np.where(absent, f.default, text)
+                code = np.where(absent, np.int8(f.choices.index(f.default)), code)
                 absent = np.zeros(n, bool)
-            code = codes_of(text, f.choices)
             unknown = code < 0
             if unknown.any():
                 report(f.path, "missing", absent)

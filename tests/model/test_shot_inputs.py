@@ -8,7 +8,7 @@ import math
 import numpy as np
 import pytest
 
-from model import INPUT_FIELDS, ShotInputError, evaluate_shot, evaluate_table, validate_shot
+from model import INPUT_FIELDS, ShotInputError, evaluate_shot, evaluate_table, validate_columns, validate_shot
 
 GOOD = {
     "shot_id": "demo-001",
@@ -225,3 +225,27 @@ def test_the_rows_a_table_check_would_refuse_come_as_a_mask():
     columns["plasma.density_cm3"][2] = -5.0
     columns["plasma.gradient_pct_per_m"] = np.array([0.0, 0.0, 0.0, 0.0, 0.0, -20.0])  # 1 + g L <= 0 over 10 m
     assert refused_rows(columns).tolist() == [False, False, True, False, False, True]
+
+
+def test_a_table_of_text_objects_names_missing_and_unknown_cells_like_a_shot_does():
+    # object columns (as built from JSON payloads) are read in one pass; the odd cells keep their exact reading
+    n = 5
+    columns = {f"driver.{k}": np.full(n, v, dtype=float) for k, v in GOOD["driver"].items() if k != "species"}
+    columns |= {f"plasma.{k}": np.full(n, v, dtype=float) for k, v in GOOD["plasma"].items()}
+    odd = ["proton", None, "muon", 3, "a-species-name-longer-than-any-known"]
+    columns["driver.species"] = np.array(odd, dtype=object)
+    columns["seed.method"] = np.array([None, "none", math.nan, "", "none"], dtype=object)  # absent: the default
+    with pytest.raises(ShotInputError) as caught:
+        evaluate_table(columns)
+    problems = caught.value.problems
+    assert ("driver.species", "missing at rows 1") in problems
+    reasons = " ".join(reason for path, reason in problems if path == "driver.species")
+    assert "unknown species 'muon'" in reasons and "unknown species '3'" in reasons
+    assert "unknown species 'a-species-name-longer-than-any-known'" in reasons
+    assert [path for path, _ in problems if path == "seed.method"] == []
+    columns["driver.species"] = np.array(["proton", "ion", "electron", "positron", "proton"], dtype=object)
+    columns["driver.mass_amu"] = np.array([math.nan, 4.0, math.nan, math.nan, math.nan])
+    columns["driver.charge_state"] = np.array([math.nan, 2.0, math.nan, math.nan, math.nan])
+    clean = validate_columns(columns)
+    assert clean["seed.method"].tolist() == ["none"] * 5
+    assert clean.species_code.tolist() == [0, 3, 1, 2, 0] and clean.method_code.tolist() == [2] * 5
