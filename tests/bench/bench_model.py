@@ -6,7 +6,8 @@
 What it measures, on the same invented shots throughout (all species, all three seed methods,
 gradients, a third with a measured frequency, slow drivers and small-N corners: fronts far
 ahead of the centre, electron seeds far behind it):
-- evaluate_table on --shots shots: shots/s from the best of --repeats runs, wall and CPU time;
+- evaluate_table on --shots shots: shots/s from the best of --repeats runs, wall and CPU time; and the same
+  with the two text columns as Python objects, as the ingest path builds them from JSON;
 - a loop of evaluate_shot over the first --loop of those shots: shots/s and the table's speed-up;
 - that the table and the loop agree on those shots (every output, status and flag; it stops if not);
 - with --baseline, evaluate_table of that checkout (its own .venv and its own model) on the same
@@ -127,6 +128,11 @@ def measure_table(columns: dict[str, np.ndarray], repeats: int) -> tuple[float, 
     return wall, cpu
 
 
+def with_text_as_objects(columns: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """The same columns with the two text columns as Python objects, as the ingest path builds them from JSON."""
+    return {k: v.astype(object) if v.dtype.kind == "U" else v for k, v in columns.items()}
+
+
 def check_table_equals_loop(table: dict[str, np.ndarray], shots: list[dict]) -> int:
     """Compare every output, status and flag of the table's first rows with evaluate_shot; return the cells compared."""
     from model import FLAG_CODES, OUTPUT_NAMES, SEVERITY_BY_RANK, STATUSES, evaluate_shot
@@ -148,14 +154,24 @@ def check_table_equals_loop(table: dict[str, np.ndarray], shots: list[dict]) -> 
     return checked
 
 
-def baseline_figure(checkout: Path, columns: dict[str, np.ndarray], repeats: int) -> tuple[float, float]:
+def baseline_figure(checkout: Path, columns: dict[str, np.ndarray], repeats: int, objects: bool) -> tuple[float, float]:
     """(best wall s, best CPU s) of evaluate_table in another checkout, its own venv and model, on the same shots."""
     python = checkout / ".venv" / "bin" / "python"
     with tempfile.TemporaryDirectory() as tmp:
         data = Path(tmp) / "shots.npz"
         np.savez(data, **columns)
+        worker = [
+            str(python),
+            str(HERE),
+            "--measure-only",
+            str(data),
+            "--repo",
+            str(checkout),
+            "--repeats",
+            str(repeats),
+        ]
         done = subprocess.run(
-            [str(python), str(HERE), "--measure-only", str(data), "--repo", str(checkout), "--repeats", str(repeats)],
+            worker + (["--objects"] if objects else []),
             check=True,
             capture_output=True,
             text=True,
@@ -173,13 +189,14 @@ def main() -> None:
     parser.add_argument("--baseline", type=Path, help="a checkout of the code before this round, with its own .venv")
     parser.add_argument("--measure-only", type=Path, help=argparse.SUPPRESS)  # baseline worker: shots from this .npz
     parser.add_argument("--repo", type=Path, default=HERE.parents[2], help=argparse.SUPPRESS)
+    parser.add_argument("--objects", action="store_true", help=argparse.SUPPRESS)  # worker: text columns as objects
     args = parser.parse_args()
     sys.path.insert(0, str(args.repo))
 
     if args.measure_only:  # runs inside the baseline's interpreter; the str status arrays it returns are not read
         with np.load(args.measure_only) as data:
             columns = {k: data[k] for k in data.files}
-        wall, cpu = measure_table(columns, args.repeats)
+        wall, cpu = measure_table(with_text_as_objects(columns) if args.objects else columns, args.repeats)
         print(json.dumps({"wall_s": wall, "cpu_s": cpu}))
         return
 
@@ -200,16 +217,25 @@ def main() -> None:
 
     # With a baseline the two are measured in turn, so that both see the same spells of load.
     rounds = max(1, args.rounds) if args.baseline else 1
-    ours, theirs = [], []
+    as_objects = with_text_as_objects(columns)
+    ours: dict[bool, list[tuple[float, float]]] = {False: [], True: []}
+    theirs: dict[bool, list[tuple[float, float]]] = {False: [], True: []}
     for _ in range(rounds):
-        ours.append(measure_table(columns, args.repeats))
-        if args.baseline:
-            theirs.append(baseline_figure(args.baseline, columns, args.repeats))
-    wall, cpu = min(w for w, _ in ours), min(c for _, c in ours)
+        for objects in (False, True):
+            ours[objects].append(measure_table(as_objects if objects else columns, args.repeats))
+            if args.baseline:
+                theirs[objects].append(baseline_figure(args.baseline, columns, args.repeats, objects))
+    best = {k: (min(w for w, _ in v), min(c for _, c in v)) for k, v in ours.items()}
+    wall, cpu = best[False]
     rate = args.shots / wall
     print(
         f"evaluate_table  {args.shots:>9,d} shots: wall {wall:.4f} s, CPU {cpu:.4f} s -> {rate:12,.0f} shots/s "
         f"(CPU: {args.shots / cpu:,.0f} shots/s)"
+    )
+    object_wall = best[True][0]
+    print(
+        f"  the same with the text columns as objects (as ingest builds them): wall {object_wall:.4f} s "
+        f"-> {args.shots / object_wall:,.0f} shots/s"
     )
 
     shots = [row_as_shot(columns, i) for i in range(args.loop)]
@@ -225,12 +251,20 @@ def main() -> None:
     print(f"table and loop agree on the first {args.loop:,d} shots ({cells:,d} outputs, statuses and flags compared)")
 
     if args.baseline:
-        base_wall, base_cpu = min(w for w, _ in theirs), min(c for _, c in theirs)
+        base_wall, base_cpu = min(w for w, _ in theirs[False]), min(c for _, c in theirs[False])
+        base_object_wall = min(w for w, _ in theirs[True])
         print(
             f"before this round ({args.baseline}): wall {base_wall:.4f} s, CPU {base_cpu:.4f} s -> "
             f"{args.shots / base_wall:12,.0f} shots/s (best of {rounds} x {args.repeats}, alternating with ours)"
         )
-        print(f"ratio to before this round: {base_wall / wall:.2f}x wall, {base_cpu / cpu:.2f}x CPU")
+        print(
+            f"  the same with the text columns as objects: wall {base_object_wall:.4f} s "
+            f"-> {args.shots / base_object_wall:,.0f} shots/s"
+        )
+        print(
+            f"ratio to before this round: {base_wall / wall:.2f}x wall, {base_cpu / cpu:.2f}x CPU; "
+            f"with the text columns as objects {base_object_wall / object_wall:.2f}x wall"
+        )
 
 
 if __name__ == "__main__":
