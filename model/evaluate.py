@@ -177,61 +177,56 @@ def _core(
 
 @dataclass(frozen=True)
 class _Grading:
-    """The rules with a marginal and an outside limit as one matrix (rows in _GRADED order), from the settings."""
+    """The rules with limits as one matrix, rows in _MATRIX order (the graded rules, then ASYMPTOTIC_LIMIT), signed so
+    that every row fires above its limits: an "above" rule as it is, a "below" one negated."""
 
     metric_rows: np.ndarray  # row of each rule's metric in the float block
     absolute: np.ndarray  # rows (of the matrix) whose metric is taken as |metric|
-    sign: np.ndarray  # (rules, 1): +1 for "above", -1 for "below"; signed, every rule fires above its limits
-    marginal: np.ndarray  # (rules,)
-    outside: np.ndarray  # (rules,)
-    info_limit: float  # ASYMPTOTIC_LIMIT
+    sign: np.ndarray  # (rules, 1): +1 for "above" (and info), -1 for "below"
+    marginal: np.ndarray  # (rules, 1): the marginal limit; ASYMPTOTIC_LIMIT's info limit
+    outside: np.ndarray  # (rules, 1): the outside limit; +inf for ASYMPTOTIC_LIMIT (never outside)
 
 
 def _grading(s: Mapping[str, Any]) -> _Grading:
-    rules = [RULES_BY_CODE[code] for code in _GRADED]
+    rules = [RULES_BY_CODE[code] for code in _MATRIX]
+    limits = [s["limits"][code] for code in _MATRIX]
     return _Grading(
         metric_rows=np.array([_FLOAT_ROW[r.metric] for r in rules]),
-        absolute=np.array([i for i, code in enumerate(_GRADED) if code in ABS_METRIC_CODES], dtype=np.intp),
-        sign=np.array([[1.0] if r.bad_when == "above" else [-1.0] for r in rules]),
-        marginal=np.array([s["limits"][code]["marginal"] for code in _GRADED]),
-        outside=np.array([s["limits"][code]["outside"] for code in _GRADED]),
-        info_limit=s["limits"]["ASYMPTOTIC_LIMIT"]["info"],
+        absolute=np.array([i for i, code in enumerate(_MATRIX) if code in ABS_METRIC_CODES], dtype=np.intp),
+        sign=np.array([[-1.0] if r.bad_when == "below" else [1.0] for r in rules]),
+        marginal=np.array([[lim.get("marginal", lim.get("info"))] for lim in limits]),
+        outside=np.array([[lim.get("outside", np.inf)] for lim in limits]),
     )
 
 
 def _apply_rules(floats: np.ndarray, ranks: np.ndarray, method: np.ndarray, grading: _Grading) -> None:
     """Severity rank (0 none, 1 info, 2 marginal, 3 outside), value and limit of every rule, and the status rank, into
-    a chunk of the two result blocks (MODEL.md section 7); the graded rules all at once, as one matrix."""
-    k = len(_GRADED)
+    a chunk of the two result blocks (MODEL.md section 7); the rules with limits all at once, as one matrix."""
+    k = len(_MATRIX)
     metric = floats[grading.metric_rows]
     if grading.absolute.size:
         metric[grading.absolute] = np.abs(metric[grading.absolute])
     with np.errstate(invalid="ignore"):
         signed = metric * grading.sign
         # validated order: past the outside limit implies past the marginal one
-        marginal = signed > grading.sign * grading.marginal[:, None]
-        outside = signed > grading.sign * grading.outside[:, None]
-        validity = floats[_FLOAT_ROW["asymptotic_validity"]]
-        info = validity > grading.info_limit
+        marginal = signed > grading.sign * grading.marginal
+        outside = signed > grading.sign * grading.outside
     rank = ranks[:k]
     np.add(marginal.view(np.int8), marginal.view(np.int8), out=rank)
     rank += outside.view(np.int8)
+    rank[k - 1] = marginal[k - 1]  # ASYMPTOTIC_LIMIT fires as info (rank 1), which never changes the status
     # Values and limits are NaN where a rule did not fire: times fired/fired, which is 1 there and 0/0 elsewhere.
     nan_unless_fired = marginal.astype(float)
     with np.errstate(invalid="ignore"):
         np.divide(nan_unless_fired, nan_unless_fired, out=nan_unless_fired)
     np.multiply(metric, nan_unless_fired, out=floats[_VALUE_ROW0 : _VALUE_ROW0 + k])
-    limit = np.where(outside, grading.outside[:, None], grading.marginal[:, None])
+    limit = np.where(outside, grading.outside, grading.marginal)
     np.multiply(limit, nan_unless_fired, out=floats[_LIMIT_ROW0 : _LIMIT_ROW0 + k])
     # UNSEEDED: marginal whenever unseeded, with no value or limit
     unseeded = ranks[_RANK_ROW["flag.UNSEEDED"]]
     np.multiply(method == _UNSEEDED, np.int8(2), out=unseeded)
     floats[_FLOAT_ROW["flag_value.UNSEEDED"]] = np.nan
     floats[_FLOAT_ROW["flag_limit.UNSEEDED"]] = np.nan
-    # ASYMPTOTIC_LIMIT: info above its limit (info never changes the status)
-    ranks[_RANK_ROW["flag.ASYMPTOTIC_LIMIT"]] = info
-    floats[_FLOAT_ROW["flag_value.ASYMPTOTIC_LIMIT"]] = np.where(info, validity, np.nan)
-    floats[_FLOAT_ROW["flag_limit.ASYMPTOTIC_LIMIT"]] = np.where(info, grading.info_limit, np.nan)
     worst = rank.max(axis=0)
     np.maximum(worst, unseeded, out=worst)
     # status rank from the worst severity rank: 0, 1 (info) -> nominal 0; 2 -> marginal 1; 3 -> outside 2
@@ -239,22 +234,23 @@ def _apply_rules(floats: np.ndarray, ranks: np.ndarray, method: np.ndarray, grad
     np.maximum(worst, np.int8(0), out=ranks[_RANK_ROW["status"]])
 
 
-# The result columns as rows of two blocks: the outputs, then the values and the limits of the graded rules
-# and of the other two; the ranks of the graded rules, of the other two, and the status.
+# The result columns as rows of two blocks: the outputs, then the values and the limits of the rules of the matrix
+# and of UNSEEDED; the ranks of the same, and the status.
 _GRADED = tuple(r.code for r in RULES if r.bad_when in ("above", "below"))
-_OTHER = tuple(code for code in FLAG_CODES if code not in _GRADED)
-if _OTHER != ("UNSEEDED", "ASYMPTOTIC_LIMIT"):
-    raise RuntimeError(f"_apply_rules knows the rules UNSEEDED and ASYMPTOTIC_LIMIT, not {_OTHER}")
+_MATRIX = (*_GRADED, "ASYMPTOTIC_LIMIT")
+if tuple(code for code in FLAG_CODES if code not in _MATRIX) != ("UNSEEDED",):
+    raise RuntimeError("_apply_rules knows the graded rules, ASYMPTOTIC_LIMIT and UNSEEDED, no other kind")
+_BLOCK_CODES = (*_MATRIX, "UNSEEDED")
 _FLOAT_COLUMNS = (
     *OUTPUT_NAMES,
-    *(f"flag_value.{code}" for code in _GRADED + _OTHER),
-    *(f"flag_limit.{code}" for code in _GRADED + _OTHER),
+    *(f"flag_value.{code}" for code in _BLOCK_CODES),
+    *(f"flag_limit.{code}" for code in _BLOCK_CODES),
 )
-_RANK_COLUMNS = (*(f"flag.{code}" for code in _GRADED + _OTHER), "status")
+_RANK_COLUMNS = (*(f"flag.{code}" for code in _BLOCK_CODES), "status")
 _FLOAT_ROW = {name: i for i, name in enumerate(_FLOAT_COLUMNS)}
 _RANK_ROW = {name: i for i, name in enumerate(_RANK_COLUMNS)}
-_VALUE_ROW0 = _FLOAT_ROW["flag_value." + _GRADED[0]]
-_LIMIT_ROW0 = _FLOAT_ROW["flag_limit." + _GRADED[0]]
+_VALUE_ROW0 = _FLOAT_ROW["flag_value." + _MATRIX[0]]
+_LIMIT_ROW0 = _FLOAT_ROW["flag_limit." + _MATRIX[0]]
 
 
 def _evaluate_validated(clean: ValidatedColumns, s: Mapping[str, Any]) -> dict[str, np.ndarray]:
