@@ -51,10 +51,11 @@ def _core(
 ) -> None:
     """All section-2..6 outputs of validated rows (API units in, output units out; SI between), written into `out`."""
 
-    def put(name: str, value: Any) -> None:
+    def put(name: str, value: Any, scale: float = 1.0) -> None:
+        """Write an output (times its unit scale) straight into its slice of the result."""
         dest = out.get(name)
         if dest is not None:
-            dest[...] = value
+            np.multiply(value, scale, out=dest)
 
     # Section 2: plasma and beam.
     n0 = plasma.plasma_density_m3(cols["plasma.density_cm3"], s)
@@ -76,16 +77,16 @@ def _core(
     on_axis, seed_factor, growth_factor = ff.driver_slice_factors(u)  # (k_p sigma_r)^2 R(a), H(u), F(u)
     eps_g = plasma.geometric_emittance(cols["driver.emittance_n_mm_mrad"] * U.MM_MRAD, momentum, mass)
 
-    put("plasma_frequency_ghz", f_p * (1.0 / U.GHZ))
+    put("plasma_frequency_ghz", f_p, 1.0 / U.GHZ)
     put("plasma_wavelength_mm", (2.0 * np.pi / U.MM) / kp)
-    put("skin_depth_mm", (1.0 / U.MM) / kp)
-    put("wavebreaking_field_gv_m", e0 * (1.0 / U.GV_PER_M))
+    put("skin_depth_mm", 1.0 / kp, 1.0 / U.MM)
+    put("wavebreaking_field_gv_m", e0, 1.0 / U.GV_PER_M)
     put("lorentz_gamma", gamma)
-    put("peak_beam_density_cm3", nb0 * (1.0 / U.PER_CM3))
+    put("peak_beam_density_cm3", nb0, 1.0 / U.PER_CM3)
     put("density_ratio", abs_charge * nb0 / n0)
     put("kp_sigma_r", kp_sigma_r)
-    put("bunch_length_over_plasma_wavelength", sigma_z * kp * (1.0 / (2.0 * np.pi)))
-    put("geometric_emittance_nm", eps_g * (1.0 / U.NM))
+    put("bunch_length_over_plasma_wavelength", sigma_z * kp, 1.0 / (2.0 * np.pi))
+    put("geometric_emittance_nm", eps_g, 1.0 / U.NM)
     put("waist_beta_m", np.where(eps_g > 0.0, plasma.waist_beta_function(sigma_r, eps_g), np.nan))
 
     # Section 3: seed (in logarithms: a Gaussian tail can underflow), noise, seed forces. Row subsets by seed
@@ -110,8 +111,8 @@ def _core(
         log_n_seed[bunch] = seed.log_equivalent_cut_density(log_field, field_per_density[bunch])
     log_n_seed[unseeded] = -np.inf
     n_seed = np.exp(log_n_seed)
-    put("seed_density_cm3", n_seed * (1.0 / U.PER_CM3))
-    put("seed_field_mv_m", n_seed * field_per_density * (1.0 / U.MV_PER_M))
+    put("seed_density_cm3", n_seed, 1.0 / U.PER_CM3)
+    put("seed_field_mv_m", n_seed * field_per_density, 1.0 / U.MV_PER_M)
     xi_ref = s["reference_slice_sigma"] * sigma_z
     zeta_ref = zeta_s - xi_ref
     n_ref, line_ref = seed.slice_densities(nb0, population, zeta_ref, sigma_z)
@@ -145,7 +146,7 @@ def _core(
     put("modulation_exit", modulation)
     put("growth_margin_efolds", log_delta_exit - log_sat)
     put("saturation_length_m", np.where(saturated, z_ref, np.nan))  # null where not saturated
-    put("wakefield_estimate_mv_m", wakefield * (1.0 / U.MV_PER_M))
+    put("wakefield_estimate_mv_m", wakefield, 1.0 / U.MV_PER_M)
     put("hosing_efolds_exit", n_exit * hosing_scale)
     put("asymptotic_validity", n_exit / kp_xi)
     put(_LOG_MODULATION_EXIT, log_delta_exit)
@@ -172,7 +173,7 @@ def _core(
     f_meas = cols["measured.modulation_freq_ghz"] * U.GHZ  # NaN where not measured
     f_ref = competing.reference_frequency(f_p, gradient, z_ref)
     put("frequency_mismatch_pct", 100.0 * competing.frequency_mismatch(f_meas, f_ref))
-    put("implied_density_cm3", competing.implied_density(n0, f_meas, f_ref) * (1.0 / U.PER_CM3))
+    put("implied_density_cm3", competing.implied_density(n0, f_meas, f_ref), 1.0 / U.PER_CM3)
 
 
 @dataclass(frozen=True)
