@@ -2,7 +2,8 @@
 
 Pure numpy/scipy, SI inside. Public interface: evaluate_shot, evaluate_table,
 DEFAULT_SETTINGS, MODEL_VERSION, OUTPUT_FIELDS (OUTPUT_NAMES, OUTPUTS_BY_NAME), FLAG_CODES,
-INPUT_FIELDS, ShotInputError, validate_shot (plus SettingsError, resolve_settings, flag_message),
+INPUT_FIELDS, ShotInputError, validate_shot, validate_columns (a read-only ValidatedColumns that evaluate_table
+takes without checking again), plus SettingsError, resolve_settings, flag_message,
 the vocabulary of model.vocabulary (STATUSES, SEVERITIES, SEVERITY_BY_RANK, SPECIES,
 SEED_METHODS, SECTIONS, column_name),
 and the growth curves of one shot: growth_along_plasma (N(z), delta(z)) and
@@ -21,7 +22,7 @@ from model.evaluate import (
     evaluate_table,
     growth_along_plasma,
 )
-from model.inputs import INPUT_FIELDS, ShotInputError, validate_columns, validate_shot
+from model.inputs import INPUT_FIELDS, ShotInputError, ValidatedColumns, validate_columns, validate_shot
 from model.plan import (
     MAX_SCAN_POINTS,
     SCANNABLE_FIELDS,
@@ -78,6 +79,7 @@ __all__ = [
     "SEVERITY_BY_RANK",
     "SPECIES",
     "STATUSES",
+    "ValidatedColumns",
     "column_name",
     "Sensitivities",
     "SettingsError",

@@ -11,7 +11,7 @@ from scipy import constants as _c
 
 
 def effective_offset(offset: ArrayLike, angle: ArrayLike, z: ArrayLike) -> np.ndarray:
-    """x_eff = |offset| + |angle| z/2 [m]: the centroid's mean distance from the axis over z, from the magnitudes of its offset [m] and angle [rad] vectors (MODEL.md section 6, project heuristic)."""
+    """x_eff = |offset| + |angle| z/2 [m]: mean centroid distance from the axis over z (MODEL.md 6, heuristic)."""
     return np.asarray(offset, dtype=float) + np.asarray(angle, dtype=float) * z / 2.0
 
 
@@ -24,37 +24,56 @@ def hosing_ratio(
     efolds: ArrayLike,
     hosing_efolds_ratio: ArrayLike,
 ) -> np.ndarray:
-    """(x_eff/sigma_r) / max(n_seed/n_ref, eta) exp(N_h - N), N_h = N (N_h/N): centroid seed over envelope seed, grown (MODEL.md section 6, project heuristic)."""
+    """(x_eff/sigma_r) / max(n_seed/n_ref, eta) exp(N_h - N): hosing over envelope seed (MODEL.md 6, heuristic)."""
     seed_level = np.maximum(np.asarray(seed_density, dtype=float) / reference_density, relative_noise)
     with np.errstate(over="ignore"):
         return (
-            (np.asarray(effective_offset, dtype=float) / sigma_r) / seed_level
+            (np.asarray(effective_offset, dtype=float) / sigma_r)
+            / seed_level
             * np.exp(np.asarray(efolds, dtype=float) * (np.asarray(hosing_efolds_ratio, dtype=float) - 1.0))
         )
 
 
 def ion_motion_index(
-    ion_charge: ArrayLike, ion_mass: ArrayLike, wakefield: ArrayLike, wavebreaking_field: ArrayLike, kp: ArrayLike, xi: ArrayLike
+    ion_charge: ArrayLike,
+    ion_mass: ArrayLike,
+    wakefield: ArrayLike,
+    wavebreaking_field: ArrayLike,
+    kp: ArrayLike,
+    xi: ArrayLike,
 ) -> np.ndarray:
-    """(Z_i m_e/M_i)(E_wake/E_0)(k_p xi)^2/2: plasma ions move by about a skin depth over xi when it is >~ 1 (MODEL.md section 6, order-of-magnitude estimate)."""
+    """(Z_i m_e/M_i)(E_wake/E_0)(k_p xi)^2/2: ions move a skin depth over xi when >~ 1 (MODEL.md 6, estimate)."""
     kp_xi = np.asarray(kp, dtype=float) * xi
-    return (np.asarray(ion_charge, dtype=float) * _c.m_e / ion_mass) * (np.asarray(wakefield, dtype=float) / wavebreaking_field) * kp_xi * kp_xi / 2.0
+    return (
+        (np.asarray(ion_charge, dtype=float) * _c.m_e / ion_mass)
+        * (np.asarray(wakefield, dtype=float) / wavebreaking_field)
+        * kp_xi
+        * kp_xi
+        / 2.0
+    )
 
 
 def divergence_ratio(z: ArrayLike, geometric_emittance: ArrayLike, sigma_r: ArrayLike) -> np.ndarray:
-    """z / beta* = z eps_g / sigma_r^2: the growth length over the waist beta function, 0 for a cold beam (MODEL.md section 6; beam optics convention)."""
+    """z / beta* = z eps_g / sigma_r^2, 0 for a cold beam (MODEL.md section 6; beam optics convention)."""
     sigma_r = np.asarray(sigma_r, dtype=float)
     return np.asarray(z, dtype=float) * geometric_emittance / (sigma_r * sigma_r)
 
 
-def frequency_mismatch(measured_frequency: ArrayLike, plasma_frequency: ArrayLike) -> np.ndarray:
-    """f_meas/f_p - 1 [fraction]: the modulation frequency equals f_p (MODEL.md section 6; common practice, no source)."""
-    return np.asarray(measured_frequency, dtype=float) / plasma_frequency - 1.0
+def reference_frequency(plasma_frequency: ArrayLike, gradient: ArrayLike, z: ArrayLike) -> np.ndarray:
+    """f_ref = f_p sqrt(1 + g z) [Hz]: the plasma frequency at z, where the modulation forms (MODEL.md section 6)."""
+    return np.asarray(plasma_frequency, dtype=float) * np.sqrt(1.0 + np.asarray(gradient, dtype=float) * z)
 
 
-def implied_density(plasma_density: ArrayLike, measured_frequency: ArrayLike, plasma_frequency: ArrayLike) -> np.ndarray:
-    """n_0 (f_meas/f_p)^2, in the unit of n_0: the density whose f_p is the measured frequency, since f_p ~ sqrt(n) (MODEL.md section 6; NRL Plasma Formulary)."""
-    ratio = np.asarray(measured_frequency, dtype=float) / plasma_frequency
+def frequency_mismatch(measured_frequency: ArrayLike, reference_frequency: ArrayLike) -> np.ndarray:
+    """f_meas/f_ref - 1: modulation at the local plasma frequency (MODEL.md 6; common practice, no source)."""
+    return np.asarray(measured_frequency, dtype=float) / reference_frequency - 1.0
+
+
+def implied_density(
+    plasma_density: ArrayLike, measured_frequency: ArrayLike, reference_frequency: ArrayLike
+) -> np.ndarray:
+    """n_0 (f_meas/f_ref)^2 [unit of n_0]: the entrance density giving f_meas (MODEL.md 6; NRL Plasma Formulary)."""
+    ratio = np.asarray(measured_frequency, dtype=float) / reference_frequency
     return np.asarray(plasma_density, dtype=float) * ratio * ratio
 
 
@@ -65,4 +84,5 @@ __all__ = [
     "hosing_ratio",
     "implied_density",
     "ion_motion_index",
+    "reference_frequency",
 ]

@@ -2,7 +2,8 @@
 
 Each slice zeta_i of the driver carries an rms radius sigma_i(z) obeying
     sigma_i'' = eps_g^2 / sigma_i^3 + K_i,
-    K_i = -(Z^2 e^2 k_p^3 sigma_i / (8 pi eps0 gamma M c^2)) sum_{j ahead of i} sin(k_p(zeta_j - zeta_i)) lambda_j h((u_i+u_j)/2) dzeta,
+    K_i = -(Z^2 e^2 k_p^3 sigma_i / (8 pi eps0 gamma M c^2))
+          sum_{j ahead of i} sin(k_p(zeta_j - zeta_i)) lambda_j h((u_i+u_j)/2) dzeta,
 with u = k_p^2 sigma^2 and h(u) = 1/u - e^u E1(u) = int_0^inf e^{-ut} t/(1+t) dt.
 
 Numerics (choices documented in the module and in the result's `numerics`):
@@ -25,6 +26,19 @@ Numerics (choices documented in the module and in the result's `numerics`):
   of line density lambda_c and a thin slice of lambda_c/k_p particles drive the same
   modulated force amplitude, so this is exactly section 3's noise force s_noise = (k_p^2/4)
   nu(n_ref) H(u) eta at every slice behind it: deterministic, consistent with the closed form.
+- The electron seed's force on a driver slice is h((u_i+u_s)/2), u_s = (k_p sigma_rs)^2, as
+  section 10 writes it. Section 3's closed form instead matches the seed's on-axis field with
+  an equivalent cut, R(a_s)/R(a); the solver's seed force is therefore
+  rho = [h((u+u_s)/2)/h(u)] / [R(a_s)/R(a)] times the closed form's (0.84 for ex-2, 1.06 for
+  ex-5: ln rho = -0.18 and +0.06 e-folds). `seed_force_ratio` gives rho; tests/model checks that
+  the solver's first modulation is rho times the closed form's.
+- Step. The default dz is the smallest of L/200, 1/25 of the closed form's e-fold length at
+  z_ref, beta*/20 and 0.08 rad of betatron phase in the focusing the closed form expects (its
+  saturated wake, or the cut's own). The focusing of the bunch train near saturation is stronger
+  than that estimate: while delta < delta_sat/10 a step advances at most 0.03 rad of betatron
+  phase on the worked examples, on the way to saturation up to 0.32 rad (ex-1; velocity Verlet's
+  phase error is (k dz)^2/24 per step, 0.4 %). The run reports both (numerics), and halving dz
+  changes delta by under 1 % up to the saturation point (tests/model/test_envelope.py).
 """
 
 from __future__ import annotations
@@ -39,11 +53,10 @@ import numpy as np
 from scipy.optimize import minimize_scalar
 
 from model import quadrature
-from model.form_factors import gaussian_on_axis_factor, wake_kernel_h
 from model.evaluate import evaluate_shot, growth_along_plasma
-from model.inputs import SEEDED_METHODS, ShotInputError, clean_shot_columns, validate_shot
-from model.rules import resolve_settings
-from model.seed import driver_mass_and_charge, relative_noise
+from model.form_factors import gaussian_on_axis_factor, wake_kernel_h
+from model.growth import log_series_magnitude
+from model.inputs import clean_shot_columns, validate_shot
 from model.plasma import (
     ELEMENTARY_CHARGE,
     SPEED_OF_LIGHT,
@@ -51,9 +64,13 @@ from model.plasma import (
     geometric_emittance,
     line_density,
     lorentz_factor,
+    plasma_density_m3,
     plasma_wavenumber,
 )
-from model.units import GEV_PER_C, MM, MM_MRAD, MV_PER_M, PC, PCT, PER_CM3
+from model.rules import resolve_settings
+from model.seed import driver_mass_and_charge, relative_noise
+from model.units import GEV_PER_C, MM, MM_MRAD, MV_PER_M, PC, PCT
+from model.vocabulary import SEEDED_METHODS
 
 GRID_HEAD_SIGMA_Z = 5.0  # head of the slice grid for seeds other than the ionization front
 GRID_TAIL_SIGMA_Z = 3.0  # tail of the slice grid, behind the centre
@@ -63,10 +80,13 @@ MAX_STORED_VALUES = 300_000  # slices x stored z in the sigma map (about 3 MB of
 MAX_STEPS = 200_000
 MAX_SLICES = 250_000
 MAX_SLICE_STEPS = 2e9  # about half an hour at the benchmarked rate: the bound of one run
-BETATRON_PHASE_PER_STEP = 0.08  # default dz: this many radians of the fastest expected betatron phase
+BETATRON_PHASE_PER_STEP = (
+    0.08  # default dz: this many radians of betatron phase in the focusing the closed form expects
+)
 GROWTH_STEPS_PER_EFOLD = 25
 MIN_STEPS = 200
-FIT_MIN_EFOLDS = 2.0  # the asymptotic closed form needs N >> 1
+FIT_MIN_EFOLDS = 2.0  # below, delta hardly depends on the coupling, so the fit would not see it
+LINEAR_FRACTION = 0.1  # delta below this fraction of delta_sat: the linear range of the step-size report
 FIT_MAX_FRACTION = 0.5  # fit below half the saturation level: the linear regime
 
 
@@ -105,7 +125,7 @@ def transverse_wake_sum(
     kp: float,
     sources: list[RigidSource] | tuple = (),
 ) -> np.ndarray:
-    """S_i = sum_{j ahead of i} sin(k_p(zeta_j - zeta_i)) N_j h((u_i+u_j)/2), by separable cumulative sums (MODEL.md section 10).
+    """S_i = sum_{j ahead of i} sin(k_p(zeta_j - zeta_i)) N_j h((u_i+u_j)/2) by cumulative sums (MODEL.md section 10).
 
     zeta_m must be strictly decreasing (head first); N_j = lambda_j dzeta. Rigid sources act
     on the slices behind them with their own u_s = (k_p sigma_s)^2.
@@ -121,7 +141,7 @@ def transverse_wake_sum(
     total = np.zeros(zeta_m.size)
     # slice i sees the slices strictly ahead: the inclusive sums of row i - 1
     total[1:] = (np.einsum("im,im->i", acc[:-1], decay[1:]) * rotor[1:].conj()).imag
-    for s, us in zip(sources, source_u):
+    for s, us in zip(sources, source_u, strict=True):
         first_behind = int(np.searchsorted(-zeta_m, -s.zeta_m, side="right"))
         if first_behind < zeta_m.size:
             kernel = decay[first_behind:] @ np.exp(-0.5 * us * t)  # h((u_i + u_s)/2)
@@ -137,7 +157,7 @@ def on_axis_field(
     charge: float,
     sources: list[RigidSource] | tuple = (),
 ) -> np.ndarray:
-    """On-axis E_z(zeta_i) = -(k_p^2/(2 pi eps0)) q sum_{j ahead} N_j R(u_j/2) cos(k_p(zeta_j - zeta_i)) [V/m] (Keinigs & Jones, Phys. Fluids 30, 252 (1987) kernel; MODEL.md sections 3 and 10).
+    """On-axis E_z = -(k_p^2/(2 pi eps0)) q sum_j N_j R(u_j/2) cos(k_p(zeta_j - zeta_i)) [V/m] (Keinigs & Jones 1987).
 
     The slice's own charge counts half (the field at a thin sheet is the mean of both sides).
     """
@@ -156,7 +176,7 @@ def on_axis_field(
 
 
 def modulation_amplitude(zeta_m: np.ndarray, sigma_m: np.ndarray, zeta_ref: float, kp: float) -> float:
-    """Relative radius modulation delta at zeta_ref: least-squares fit a + b(zeta - zeta_ref) + c cos + d sin(k_p zeta) over one lambda_p, delta = sqrt(c^2 + d^2)/a (MODEL.md sections 3-4, sigma = sigma_r(1 + delta))."""
+    """delta at zeta_ref: a + b(zeta - zeta_ref) + c cos + d sin(k_p zeta) fitted, delta = |(c, d)|/a (MODEL.md 4)."""
     half = np.pi / kp
     lo = int(np.searchsorted(-zeta_m, -(zeta_ref + half), side="left"))
     hi = int(np.searchsorted(-zeta_m, -(zeta_ref - half), side="right"))
@@ -195,8 +215,10 @@ class EnvelopeSetup:
     def coupling(self, kp: float) -> float:
         """Z^2 e^2 k_p^3 / (8 pi eps0 gamma M c^2) [1/m^2] (MODEL.md section 10)."""
         e = ELEMENTARY_CHARGE
-        return (self.charge_number * e) ** 2 * kp**3 / (
-            8.0 * np.pi * VACUUM_PERMITTIVITY * self.gamma * self.mass_kg * SPEED_OF_LIGHT**2
+        return (
+            (self.charge_number * e) ** 2
+            * kp**3
+            / (8.0 * np.pi * VACUUM_PERMITTIVITY * self.gamma * self.mass_kg * SPEED_OF_LIGHT**2)
         )
 
 
@@ -209,7 +231,7 @@ class EnvelopeRun:
     z_stored_m: np.ndarray
     sigma_stored_m: np.ndarray  # slices x stored z
     final_sigma_m: np.ndarray
-    max_betatron_phase_per_step: float
+    betatron_phase_steps: np.ndarray  # per step: dz sqrt(max |focusing|), the fastest slice's betatron phase advance
 
 
 def integrate_envelope(
@@ -218,7 +240,7 @@ def integrate_envelope(
     n_stored: int,
     progress: Callable[[float], None] | None = None,
 ) -> EnvelopeRun:
-    """Advance every slice along z with velocity Verlet on the planar point (x, y) whose radius is sigma (MODEL.md section 10)."""
+    """Advance every slice along z: velocity Verlet on the planar point (x, y) of radius sigma (MODEL.md section 10)."""
     grid = setup.grid
     n_steps = max(1, int(math.ceil(setup.length_m / dz_m - 1e-9)))
     if n_steps > MAX_STEPS or n_steps * setup.grid.zeta_m.size > MAX_SLICE_STEPS:
@@ -246,7 +268,7 @@ def integrate_envelope(
     sigma_stored = np.empty((n, len(stored_steps)))
     modulation = np.empty(n_steps + 1)
     next_store = 0
-    max_phase = 0.0
+    phase_steps = np.empty(n_steps)
     report_every = max(1, n_steps // 100)
 
     g, kp = focusing(0.0, x, y)
@@ -258,7 +280,7 @@ def integrate_envelope(
             next_store += 1
         if step == n_steps:
             break
-        max_phase = max(max_phase, dz * math.sqrt(max(float(np.abs(g).max()), 0.0)))
+        phase_steps[step] = dz * math.sqrt(float(np.abs(g).max()))
         half = 0.5 * dz
         vx -= half * g * x
         vy -= half * g * y
@@ -277,7 +299,7 @@ def integrate_envelope(
         z_stored_m=z_stored,
         sigma_stored_m=sigma_stored,
         final_sigma_m=np.hypot(x, y),
-        max_betatron_phase_per_step=max_phase,
+        betatron_phase_steps=phase_steps,
     )
 
 
@@ -293,21 +315,20 @@ def envelope_setup(
 ) -> EnvelopeSetup:
     """Slice grid, seed sources and SI constants of a validated shot (MODEL.md sections 1-3, 10)."""
     d, p, s = shot["driver"], shot["plasma"], shot["seed"]
-    mass_kg, charge_number = driver_mass_and_charge(d["species"], d.get("mass_amu", np.nan), d.get("charge_state", np.nan))
+    mass_kg, charge_number = driver_mass_and_charge(
+        d["species"], d.get("mass_amu", np.nan), d.get("charge_state", np.nan)
+    )
     mass, charge = float(mass_kg), float(charge_number)
     momentum = d["momentum_gev"] * GEV_PER_C
     sigma_z = d["sigma_z_mm"] * MM
     sigma_r = d["sigma_r_mm"] * MM
     population = d["population"]
-    density = p["density_cm3"] * PER_CM3
+    density = plasma_density_m3(p["density_cm3"], settings)
     gradient = p["gradient_pct_per_m"] * PCT
     length = p["length_m"]
     method = s["method"]
     zeta_s = s["position_mm"] * MM if method in SEEDED_METHODS else 0.0
     zeta_ref = zeta_s - settings["reference_slice_sigma"] * sigma_z
-    lowest = 1.0 + min(0.0, gradient * length)
-    if lowest <= 0.0:
-        raise ShotInputError([("plasma.gradient_pct_per_m", "the density gradient makes the density vanish inside the plasma")])
     kp_max = float(plasma_wavenumber(density * max(1.0, 1.0 + gradient * length)))
     spacing = 2.0 * np.pi / (kp_max * slices_per_wavelength)
     if method == "ionization_front":
@@ -330,22 +351,32 @@ def envelope_setup(
     else:
         raise ValueError(f"unknown line_profile {line_profile!r} (gaussian or uniform)")
     sources: list[RigidSource] = []
-    described = {"ionization_front": f"bunch cut at the ionization front {zeta_s:.6g} m",
-                 "electron_bunch": f"rigid electron bunch at {zeta_s:.6g} m in a preformed plasma",
-                 "none": "no seed"}[method]
+    described = {
+        "ionization_front": f"bunch cut at the ionization front {zeta_s:.6g} m",
+        "electron_bunch": f"rigid electron bunch at {zeta_s:.6g} m in a preformed plasma",
+        "none": "no seed",
+    }[method]
     if method == "electron_bunch":
-        sources.append(RigidSource(
-            zeta_m=zeta_s,
-            particles=-(s["electron_charge_pc"] * PC / ELEMENTARY_CHARGE) / charge,
-            sigma_r_m=s["electron_sigma_r_mm"] * MM,
-            sigma_z_m=s["electron_sigma_z_mm"] * MM,
-            label="electron seed bunch",
-        ))
+        sources.append(
+            RigidSource(
+                zeta_m=zeta_s,
+                particles=-(s["electron_charge_pc"] * PC / ELEMENTARY_CHARGE) / charge,
+                sigma_r_m=s["electron_sigma_r_mm"] * MM,
+                sigma_z_m=s["electron_sigma_z_mm"] * MM,
+                label="electron seed bunch",
+            )
+        )
     if noise_wanted and noise_eta is not None:
         lam_ref = line_density(zeta_ref, population, sigma_z) if line_profile == "gaussian" else lam[0]
         kp0 = float(plasma_wavenumber(density))
-        sources.append(RigidSource(
-            zeta_m=head, particles=float(noise_eta * lam_ref / kp0), sigma_r_m=sigma_r, label="noise-equivalent slice"))
+        sources.append(
+            RigidSource(
+                zeta_m=head,
+                particles=float(noise_eta * lam_ref / kp0),
+                sigma_r_m=sigma_r,
+                label="noise-equivalent slice",
+            )
+        )
         described += f"; noise-equivalent slice (eta = {noise_eta:.3g}) at the grid head {head:.6g} m"
     return EnvelopeSetup(
         charge_number=charge,
@@ -355,7 +386,7 @@ def envelope_setup(
         sigma_r_m=sigma_r,
         sigma_z_m=sigma_z,
         population=population,
-        density_m3=density,
+        density_m3=float(density),
         gradient_per_m=gradient,
         length_m=length,
         reference_zeta_m=zeta_ref,
@@ -425,27 +456,43 @@ def saturation_point(z: np.ndarray, delta: np.ndarray, level: float) -> tuple[fl
     return None, None
 
 
-def closed_form_curves(shot: Mapping[str, Any], settings: Mapping[str, Any], z_m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def closed_form_curves(
+    shot: Mapping[str, Any], settings: Mapping[str, Any], z_m: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
     """Closed-form N(z) and linear delta(z) (MODEL.md section 4), from the closed-form model's own curve function."""
     curves = growth_along_plasma(clean_shot_columns(shot), z_m, settings)
     return curves["efolds"], curves["modulation"]
 
 
 def fit_efolds(z: np.ndarray, delta: np.ndarray, n_closed: np.ndarray) -> tuple[float, float] | None:
-    """Scale kappa of the closed form's e-folds that best fits the solver: ln delta = a + kappa N + (1/2) ln(kappa N)
-    by least squares over the given samples (the shape of MODEL.md section 4 with a free coupling); returns (kappa, a)."""
-    good = np.isfinite(delta) & (delta > 0.0) & np.isfinite(n_closed) & (n_closed > 0.0)
+    """Scale kappa of the closed form's e-folds that best fits the solver: ln delta = a + 2 ln z + ln|S(x)| at
+    N = kappa N_closed, by least squares over the given samples (the growth law of MODEL.md section 4 with a free
+    coupling); returns (kappa, a)."""
+    good = np.isfinite(delta) & (delta > 0.0) & np.isfinite(n_closed) & (n_closed > 0.0) & (z > 0.0)
     if good.sum() < 4:
         return None
-    y, n = np.log(delta[good]), n_closed[good]
+    y, n, log_z2 = np.log(delta[good]), n_closed[good], 2.0 * np.log(z[good])
 
     def residual(kappa: float) -> tuple[float, float]:
-        shape = kappa * n + 0.5 * np.log(kappa * n)
+        shape = log_z2 + log_series_magnitude(kappa * n)
         a = float(np.mean(y - shape))
         return float(np.sum((y - shape - a) ** 2)), a
 
     best = minimize_scalar(lambda k: residual(k)[0], bounds=(0.05, 20.0), method="bounded", options={"xatol": 1e-6})
     return float(best.x), residual(float(best.x))[1]
+
+
+def seed_force_ratio(shot: Mapping[str, Any], settings: Mapping[str, Any] | None = None) -> float:
+    """rho = [h((u+u_s)/2)/h(u)]/[R(a_s)/R(a)]: solver's electron-seed force over the closed form's (MODEL.md 3, 10)."""
+    clean = validate_shot(shot)
+    if clean["seed"]["method"] != "electron_bunch":
+        raise ValueError("the seed force ratio is defined for an electron_bunch seed")
+    kp = float(plasma_wavenumber(plasma_density_m3(clean["plasma"]["density_cm3"], resolve_settings(settings))))
+    u = (kp * clean["driver"]["sigma_r_mm"] * MM) ** 2
+    u_seed = (kp * clean["seed"]["electron_sigma_r_mm"] * MM) ** 2
+    force = float(wake_kernel_h(0.5 * (u + u_seed)) / wake_kernel_h(u))
+    field = float(gaussian_on_axis_factor(0.5 * u_seed) / gaussian_on_axis_factor(0.5 * u))
+    return force / field
 
 
 def simulate_envelope(
@@ -459,7 +506,7 @@ def simulate_envelope(
     zeta_tail_m: float | None = None,
     max_stored_z: int = MAX_STORED_Z,
 ) -> dict[str, Any]:
-    """Slice envelope solution sigma(zeta, z) of one shot, with delta at the reference slice and the closed form beside it (MODEL.md section 10).
+    """Envelope solution sigma(zeta, z) of one shot: delta at the reference slice, the closed form beside (MODEL.md 10).
 
     line_profile "uniform" replaces the Gaussian line density by its peak value on the whole
     grid and zeta_tail_m moves the grid's tail (both for checks of the long-beam theory).
@@ -479,11 +526,16 @@ def simulate_envelope(
     sigma_z = d["sigma_z_mm"] * MM
     zeta_s = clean["seed"]["position_mm"] * MM if method in SEEDED_METHODS else 0.0
     zeta_ref = zeta_s - s["reference_slice_sigma"] * sigma_z
-    kp0 = float(plasma_wavenumber(clean["plasma"]["density_cm3"] * PER_CM3))
+    kp0 = float(plasma_wavenumber(plasma_density_m3(clean["plasma"]["density_cm3"], s)))
     eta = float(relative_noise(line_density(zeta_ref, d["population"], sigma_z), kp0, s["noise_floor"]))
     setup = envelope_setup(
-        clean, s, int(slices_per_wavelength), line_profile=line_profile, zeta_tail_m=zeta_tail_m,
-        noise_eta=eta, noise_wanted=noise_wanted,
+        clean,
+        s,
+        int(slices_per_wavelength),
+        line_profile=line_profile,
+        zeta_tail_m=zeta_tail_m,
+        noise_eta=eta,
+        noise_wanted=noise_wanted,
     )
     step = default_step(setup, closed) if dz_m is None else float(dz_m)
     n_slices = setup.grid.zeta_m.size
@@ -494,6 +546,9 @@ def simulate_envelope(
     sat = setup.saturation_modulation
     saturation_z, saturation_reason = saturation_point(z_all, delta_all, sat)
     valid_until = saturation_z if saturation_z is not None else setup.length_m
+    linear = np.flatnonzero(
+        np.maximum.accumulate(delta_all[:-1]) < LINEAR_FRACTION * sat
+    )  # steps before delta first reaches it
     n_cf_all, delta_cf_all = closed_form_curves(clean, s, z_all)
     in_fit = (z_all <= valid_until) & (n_cf_all >= FIT_MIN_EFOLDS) & (delta_all <= FIT_MAX_FRACTION * sat)
     fit = fit_efolds(z_all[in_fit], delta_all[in_fit], n_cf_all[in_fit])
@@ -505,14 +560,24 @@ def simulate_envelope(
     stored_index = np.searchsorted(z_all, run.z_stored_m - 1e-12)
     kp_exit = setup.wavenumber(setup.length_m)
     ez = on_axis_field(
-        setup.grid.zeta_m, setup.grid.particles, (kp_exit * run.final_sigma_m) ** 2, kp_exit,
-        setup.charge_number * ELEMENTARY_CHARGE, setup.grid.sources,
+        setup.grid.zeta_m,
+        setup.grid.particles,
+        (kp_exit * run.final_sigma_m) ** 2,
+        kp_exit,
+        setup.charge_number * ELEMENTARY_CHARGE,
+        setup.grid.sources,
     )
-    if saturation_reason == "growth stopped":
-        note = (f"valid until saturation: the modulation stops growing at z = {saturation_z:.3g} m "
-                f"(delta = {float(np.interp(saturation_z, z_all, delta_all)):.2g}); beyond it the envelope model is qualitative")
+    if saturation_reason == "growth stopped" and saturation_z is not None:
+        note = (
+            f"valid until saturation: the modulation stops growing at z = {saturation_z:.3g} m "
+            f"(delta = {float(np.interp(saturation_z, z_all, delta_all)):.2g}); "
+            "beyond it the envelope model is qualitative"
+        )
     elif saturation_z is not None:
-        note = f"valid until saturation: delta reaches {sat:g} at z = {saturation_z:.3g} m; beyond it the envelope model is qualitative"
+        note = (
+            f"valid until saturation: delta reaches {sat:g} at z = {saturation_z:.3g} m; "
+            "beyond it the envelope model is qualitative"
+        )
     else:
         note = "the modulation stays below saturation: valid over the whole plasma"
     return {
@@ -534,7 +599,7 @@ def simulate_envelope(
         "validity_note": note,
         "fitted_efolds": fitted,
         "closed_form_efolds_at_fit": closed_at_fit,
-        "efolds_difference": None if fitted is None else fitted - closed_at_fit,
+        "efolds_difference": None if fitted is None or closed_at_fit is None else fitted - closed_at_fit,
         "fit_range_m": None if fit_end is None else [float(z_all[in_fit][0]), fit_end],
         "ez_z_m": setup.length_m,
         "ez_v_m": ez,
@@ -548,7 +613,11 @@ def simulate_envelope(
             "dz_default": dz_m is None,
             "steps": int(z_all.size - 1),
             "kernel_rule": f"trapezoid in ln t, step {quadrature.KERNEL_STEP}, cut to each step's u range",
-            "max_betatron_phase_per_step": run.max_betatron_phase_per_step,
+            "max_betatron_phase_per_step": float(run.betatron_phase_steps.max(initial=0.0)),
+            "max_betatron_phase_per_step_linear": float(run.betatron_phase_steps[linear].max(initial=0.0)),
+            "max_betatron_phase_per_step_to_saturation": float(
+                run.betatron_phase_steps[z_all[:-1] <= valid_until].max(initial=0.0)
+            ),
             "seed": setup.seed_description,
             "noise_seeded": bool(noise_wanted),
             "relative_noise": eta,
@@ -559,7 +628,7 @@ def simulate_envelope(
 
 
 def envelope_result_to_json(result: Mapping[str, Any], digits: int = 6) -> dict[str, Any]:
-    """JSON-ready copy of a simulate_envelope result: arrays to lists rounded to `digits` significant digits, NaN to None."""
+    """JSON-ready copy of a simulate_envelope result: arrays to lists of `digits` significant digits, NaN None."""
 
     def convert(value: Any) -> Any:
         if isinstance(value, np.ndarray):

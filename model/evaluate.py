@@ -10,12 +10,17 @@ evaluate_table(columns, settings) -> dict of numpy arrays:
 Ranks stay numbers inside; they become text only at the edge (evaluate_shot, the store).
 evaluate_shot(shot, settings) builds a 1-row table, runs the same core and unpacks it
 (NaN -> None, flags as a list of {code, severity, value, limit, message}).
+
+The core runs on cache-sized chunks of rows and writes every output straight into its
+slice of the result table; columns are validated once (a ValidatedColumns from
+validate_columns is taken as it is).
 """
 
 from __future__ import annotations
 
 import math
 from collections.abc import Mapping
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -24,26 +29,42 @@ from scipy import constants as _c
 from model import competing, growth, phase, plasma, seed
 from model import form_factors as ff
 from model import units as U
-from model.inputs import clean_shot_columns, validate_columns
-from model.rules import ABS_METRIC_CODES, FLAG_CODES, RULES, flag_message, resolve_settings
-from model.vocabulary import OUTPUT_NAMES, SEVERITY_BY_RANK, STATUSES
+from model.inputs import ValidatedColumns, clean_shot_columns, validate_columns
+from model.rules import ABS_METRIC_CODES, FLAG_CODES, RULES, RULES_BY_CODE, flag_message, resolve_settings
+from model.vocabulary import OUTPUT_NAMES, SEED_METHODS, SEVERITY_BY_RANK, STATUSES
 
-MODEL_VERSION = "2026.12.1"
+MODEL_VERSION = "2026.12.2"
 
-_CHUNK = 32768  # rows per pass: keeps the temporaries in cache
-_STATUS_OF_RANK = np.array([0, 0, 1, 2], dtype=np.int8)  # severity rank -> status rank (info counts as nominal)
+_CHUNK = 8192  # rows per pass: the temporaries stay in the core's cache
+_FRONT = SEED_METHODS.index("ionization_front")
+_ELECTRON_BUNCH = SEED_METHODS.index("electron_bunch")
+_UNSEEDED = SEED_METHODS.index("none")
+_LOG_MODULATION_EXIT = "_log_modulation_exit"  # unclipped ln delta(L), for the growth curves
 
 
-def _core(cols: Mapping[str, np.ndarray], s: Mapping[str, Any]) -> dict[str, np.ndarray]:
-    """All section-2..6 outputs for validated columns (API units in, output units out; SI in between)."""
-    out: dict[str, np.ndarray] = {}
+def _core(
+    cols: Mapping[str, np.ndarray],
+    species: np.ndarray,
+    method: np.ndarray,
+    s: Mapping[str, Any],
+    out: Mapping[str, np.ndarray],
+) -> None:
+    """All section-2..6 outputs of validated rows (API units in, output units out; SI between), written into `out`."""
+
+    def put(name: str, value: Any, scale: float = 1.0) -> None:
+        """Write an output (times its unit scale) straight into its slice of the result."""
+        dest = out.get(name)
+        if dest is not None:
+            np.multiply(value, scale, out=dest)
+
     # Section 2: plasma and beam.
-    n0 = cols["plasma.density_cm3"] * U.PER_CM3
+    n0 = plasma.plasma_density_m3(cols["plasma.density_cm3"], s)
     omega_p = plasma.plasma_angular_frequency(n0)
-    kp = omega_p / _c.c
+    kp = omega_p * (1.0 / _c.c)
     e0 = plasma.wavebreaking_field(n0)
-    f_p = omega_p / (2.0 * np.pi)
-    mass, charge = seed.driver_mass_and_charge(cols["driver.species"], cols["driver.mass_amu"], cols["driver.charge_state"])
+    f_p = omega_p * (1.0 / (2.0 * np.pi))
+    mass, charge = seed.driver_mass_and_charge(species, cols["driver.mass_amu"], cols["driver.charge_state"])
+    abs_charge = np.abs(charge)
     momentum = cols["driver.momentum_gev"] * U.GEV_PER_C
     gamma = plasma.lorentz_factor(momentum, mass)
     population = cols["driver.population"]
@@ -53,80 +74,91 @@ def _core(cols: Mapping[str, np.ndarray], s: Mapping[str, Any]) -> dict[str, np.
     nb0 = plasma.peak_beam_density(population, sigma_r, sigma_z)
     kp_sigma_r = kp * sigma_r
     u = kp_sigma_r * kp_sigma_r
-    g_a, _, seed_factor_a, _ = ff.slice_form_factors(0.5 * u)
-    on_axis_a = 0.5 * g_a  # R(a)
-    _, _, seed_factor_u, growth_factor_u = ff.slice_form_factors(u)
+    on_axis, seed_factor, growth_factor = ff.driver_slice_factors(u)  # (k_p sigma_r)^2 R(a), H(u), F(u)
     eps_g = plasma.geometric_emittance(cols["driver.emittance_n_mm_mrad"] * U.MM_MRAD, momentum, mass)
-    cold = eps_g <= 0.0
 
-    out["plasma_frequency_ghz"] = f_p / U.GHZ
-    out["plasma_wavelength_mm"] = 2.0 * np.pi / kp / U.MM
-    out["skin_depth_mm"] = 1.0 / kp / U.MM
-    out["wavebreaking_field_gv_m"] = e0 / U.GV_PER_M
-    out["lorentz_gamma"] = gamma
-    out["peak_beam_density_cm3"] = nb0 / U.PER_CM3
-    out["density_ratio"] = nb0 / n0
-    out["kp_sigma_r"] = kp_sigma_r
-    out["bunch_length_over_plasma_wavelength"] = sigma_z * kp / (2.0 * np.pi)
-    out["geometric_emittance_nm"] = eps_g / U.NM
-    out["waist_beta_m"] = np.where(cold, np.nan, plasma.waist_beta_function(sigma_r, eps_g))
+    put("plasma_frequency_ghz", f_p, 1.0 / U.GHZ)
+    put("plasma_wavelength_mm", (2.0 * np.pi / U.MM) / kp)
+    put("skin_depth_mm", 1.0 / kp, 1.0 / U.MM)
+    put("wavebreaking_field_gv_m", e0, 1.0 / U.GV_PER_M)
+    put("lorentz_gamma", gamma)
+    put("peak_beam_density_cm3", nb0, 1.0 / U.PER_CM3)
+    put("density_ratio", abs_charge * nb0 / n0)
+    put("kp_sigma_r", kp_sigma_r)
+    put("bunch_length_over_plasma_wavelength", sigma_z * kp, 1.0 / (2.0 * np.pi))
+    put("geometric_emittance_nm", eps_g, 1.0 / U.NM)
+    put("waist_beta_m", np.where(eps_g > 0.0, plasma.waist_beta_function(sigma_r, eps_g), np.nan))
 
-    # Section 3: seed (in logarithms: a Gaussian tail can underflow), noise, seed force.
-    method = cols["seed.method"]
-    front = method == "ionization_front"
-    bunch = method == "electron_bunch"
-    seeded = front | bunch
-    zeta_s = np.where(seeded, cols["seed.position_mm"], 0.0) * U.MM
-    field_per_density = seed.cut_field_per_density(kp, sigma_r, charge, on_axis_a)
-    log_n_seed = np.where(front, seed.log_ionization_front_seed_density(nb0, zeta_s, sigma_z), -np.inf)
-    if bunch.any():
-        idx = np.nonzero(bunch)[0]
+    # Section 3: seed (in logarithms: a Gaussian tail can underflow), noise, seed forces. Row subsets by seed
+    # method, not np.where over every row: the cheaper way in numpy.
+    front = np.flatnonzero(method == _FRONT)
+    unseeded = np.flatnonzero(method == _UNSEEDED)
+    zeta_s = cols["seed.position_mm"] * U.MM
+    zeta_s[unseeded] = 0.0  # unseeded: the reference slice is placed behind the centre
+    field_per_density = seed.cut_field_per_density(kp, charge, on_axis)
+    log_n_seed = seed.log_ionization_front_seed_density(nb0, zeta_s, sigma_z)
+    bunch = np.flatnonzero(method == _ELECTRON_BUNCH)
+    if bunch.size:
+        kp_sigma_r_seed = kp[bunch] * (cols["seed.electron_sigma_r_mm"][bunch] * U.MM)
+        u_seed = kp_sigma_r_seed * kp_sigma_r_seed
+        seed_on_axis = ff.driver_slice_factors(u_seed)[0] / u_seed  # R((k_p sigma_rs)^2/2)
         log_field = seed.log_electron_bunch_seed_field(
-            cols["seed.electron_charge_pc"][idx] * U.PC,
-            cols["seed.electron_sigma_z_mm"][idx] * U.MM,
-            cols["seed.electron_sigma_r_mm"][idx] * U.MM,
-            kp[idx],
+            cols["seed.electron_charge_pc"][bunch] * U.PC,
+            cols["seed.electron_sigma_z_mm"][bunch] * U.MM,
+            kp[bunch],
+            seed_on_axis,
         )
-        log_n_seed[idx] = seed.log_equivalent_cut_density(log_field, field_per_density[idx])
+        log_n_seed[bunch] = seed.log_equivalent_cut_density(log_field, field_per_density[bunch])
+    log_n_seed[unseeded] = -np.inf
     n_seed = np.exp(log_n_seed)
-    out["seed_density_cm3"] = n_seed / U.PER_CM3
-    out["seed_field_mv_m"] = n_seed * field_per_density / U.MV_PER_M
+    put("seed_density_cm3", n_seed, 1.0 / U.PER_CM3)
+    put("seed_field_mv_m", n_seed * field_per_density, 1.0 / U.MV_PER_M)
     xi_ref = s["reference_slice_sigma"] * sigma_z
     zeta_ref = zeta_s - xi_ref
     n_ref, line_ref = seed.slice_densities(nb0, population, zeta_ref, sigma_z)
     eta = seed.relative_noise(line_ref, kp, s["noise_floor"])
-    noise_density = n_ref * eta
-    out["seed_to_noise_efolds"] = np.where(seeded, seed.seed_to_noise_efolds(log_n_seed, noise_density), np.nan)
     coupling_per_density = growth.coupling_per_density(charge, gamma, mass, n0)
-    log_force = seed.log_seed_force(log_n_seed, noise_density, kp, coupling_per_density, seed_factor_u)
+    log_force_per_density = seed.log_seed_force_per_density(kp, coupling_per_density, seed_factor)
+    log_force_noise = log_force_per_density + np.log(eta * n_ref)
+    log_force_reported = log_force_per_density + log_n_seed  # the seeded mode, or noise where unseeded
+    log_force_reported[unseeded] = log_force_noise[unseeded]
 
-    # Section 4: growth.
-    profile_integral = growth.profile_integral_from_start(zeta_ref, sigma_z, front, zeta_s)
-    integrated = growth.integrated_coupling(kp, coupling_per_density, nb0, profile_integral, growth_factor_u)
-    n_exit = growth.efolds(integrated, length)
-    log_scale = growth.log_modulation_scale(log_force, integrated)
+    # Section 4: growth of the seeded mode from the seed, of noise from where the plasma meets the bunch
+    # (the front, or the head of the bunch in a preformed plasma).
+    from_seed, from_head = growth.gaussian_profile_integrals(zeta_s, zeta_ref, sigma_z)
+    coupling_scale = growth.integrated_coupling(kp, coupling_per_density, nb0, 1.0, growth_factor)
+    coupling_reported = coupling_scale * from_seed
+    coupling_noise = coupling_scale * from_head
+    coupling_noise[front] = coupling_reported[front]
+    coupling_reported[unseeded] = coupling_noise[unseeded]
     log_sat = math.log(s["saturation_modulation"])
-    saturated, log_delta_exit, n_ref_efolds, z_ref = growth.saturation_reference(log_scale, n_exit, length, log_sat)
+    saturated, log_delta_exit, z_ref, n_exit, n_ref_efolds, seed_over_noise = growth.growth_to_saturation(
+        log_force_reported, coupling_reported, log_force_noise, coupling_noise, length, log_sat
+    )
     modulation = np.exp(np.minimum(log_delta_exit, log_sat))
-    wakefield = growth.wakefield_estimate(e0, n_ref, n0, kp, sigma_r, seed_factor_a, xi_ref, n_ref_efolds, modulation)
-    hosing_scale = growth.hosing_efolds_ratio(seed_factor_u, growth_factor_u)
-    out["efolds_exit"] = n_exit
-    out["modulation_exit"] = modulation
-    out["growth_margin_efolds"] = log_delta_exit - log_sat
-    out["saturation_length_m"] = np.where(saturated, z_ref, np.nan)
-    out["wakefield_estimate_mv_m"] = wakefield / U.MV_PER_M
-    out["hosing_efolds_exit"] = n_exit * hosing_scale
-    out["asymptotic_validity"] = n_exit / (kp * xi_ref)
-    out["_log_modulation_exit"] = log_delta_exit  # unclipped ln delta(L), for the growth curves
+    np.copyto(modulation, s["saturation_modulation"], where=saturated)
+    kp_xi = kp * xi_ref
+    wakefield = growth.wakefield_estimate(e0, abs_charge * n_ref / n0, on_axis, kp_xi, n_ref_efolds, modulation)
+    hosing_scale = growth.hosing_efolds_ratio(seed_factor, growth_factor)
+    seed_over_noise[unseeded] = np.nan
+    put("seed_to_noise_efolds", seed_over_noise)
+    put("efolds_exit", n_exit)
+    put("modulation_exit", modulation)
+    put("growth_margin_efolds", log_delta_exit - log_sat)
+    put("saturation_length_m", np.where(saturated, z_ref, np.nan))  # null where not saturated
+    put("wakefield_estimate_mv_m", wakefield, 1.0 / U.MV_PER_M)
+    put("hosing_efolds_exit", n_exit * hosing_scale)
+    put("asymptotic_validity", n_exit / kp_xi)
+    put(_LOG_MODULATION_EXIT, log_delta_exit)
 
     # Section 5: phase.
     gradient = cols["plasma.gradient_pct_per_m"] * U.PCT
-    out["phase_slip_rad"] = phase.phase_slip(n_ref_efolds)
-    out["phase_velocity_deficit"] = phase.phase_velocity_deficit(n_ref_efolds, kp, z_ref)
-    out["phase_per_pct_density_rad"] = phase.phase_per_pct_density(kp, xi_ref)
-    out["density_tolerance_pct"] = phase.density_tolerance_pct(kp, xi_ref, s["phase_tolerance_rad"])
-    out["compensating_gradient_pct_per_m"] = phase.compensating_gradient_pct_per_m(n_ref_efolds, kp, xi_ref, z_ref)
-    out["gradient_phase_error_rad"] = phase.gradient_phase_error(kp, xi_ref, gradient, length, n_ref_efolds)
+    put("phase_slip_rad", phase.phase_slip(n_ref_efolds))
+    put("phase_velocity_deficit", phase.phase_velocity_deficit(n_ref_efolds, kp, z_ref))
+    put("phase_per_pct_density_rad", phase.phase_per_pct_density(kp, xi_ref))
+    put("density_tolerance_pct", phase.density_tolerance_pct(kp, xi_ref, s["phase_tolerance_rad"]))
+    put("compensating_gradient_pct_per_m", phase.compensating_gradient_pct_per_m(n_ref_efolds, kp, xi_ref, z_ref))
+    put("gradient_phase_error_rad", phase.gradient_phase_error(kp, xi_ref, gradient, length, n_ref_efolds))
 
     # Section 6: competing effects and the measured frequency.
     ox, oy = cols["driver.offset_x_mm"], cols["driver.offset_y_mm"]
@@ -134,79 +166,123 @@ def _core(cols: Mapping[str, np.ndarray], s: Mapping[str, Any]) -> dict[str, np.
     offset = np.sqrt(ox * ox + oy * oy) * U.MM  # |x| <= 100 mm: no overflow, so no need for hypot
     angle = np.sqrt(ax * ax + ay * ay) * U.MRAD
     x_eff = competing.effective_offset(offset, angle, z_ref)
-    out["hosing_ratio"] = competing.hosing_ratio(x_eff, sigma_r, n_seed, n_ref, eta, n_ref_efolds, hosing_scale)
+    put("hosing_ratio", competing.hosing_ratio(x_eff, sigma_r, n_seed, n_ref, eta, n_ref_efolds, hosing_scale))
     ion_mass = cols["plasma.ion_mass_amu"] * plasma.ATOMIC_MASS
-    reported_wakefield = out["wakefield_estimate_mv_m"] * U.MV_PER_M  # E_wake is the reported estimate
-    out["ion_motion_index"] = competing.ion_motion_index(cols["plasma.ion_charge"], ion_mass, reported_wakefield, e0, kp, xi_ref)
-    out["divergence_ratio"] = competing.divergence_ratio(z_ref, eps_g, sigma_r)
+    put("ion_motion_index", competing.ion_motion_index(cols["plasma.ion_charge"], ion_mass, wakefield, e0, kp, xi_ref))
+    put("divergence_ratio", competing.divergence_ratio(z_ref, eps_g, sigma_r))
     f_meas = cols["measured.modulation_freq_ghz"] * U.GHZ  # NaN where not measured
-    out["frequency_mismatch_pct"] = 100.0 * competing.frequency_mismatch(f_meas, f_p)
-    out["implied_density_cm3"] = competing.implied_density(cols["plasma.density_cm3"], f_meas, f_p)  # linear in n_0
-    out["_unseeded"] = ~seeded
-    return out
+    f_ref = competing.reference_frequency(f_p, gradient, z_ref)
+    put("frequency_mismatch_pct", 100.0 * competing.frequency_mismatch(f_meas, f_ref))
+    put("implied_density_cm3", competing.implied_density(n0, f_meas, f_ref), 1.0 / U.PER_CM3)
 
 
-def _apply_rules(out: dict[str, np.ndarray], s: Mapping[str, Any], n: int) -> dict[str, np.ndarray]:
-    """Severity rank (0 none, 1 info, 2 marginal, 3 outside), value and limit per flag code, and the status rank (MODEL.md section 7)."""
-    flags: dict[str, np.ndarray] = {}
-    worst = np.zeros(n, dtype=np.int8)
-    nan_row = np.full(n, np.nan)
+@dataclass(frozen=True)
+class _Grading:
+    """The rules with limits as one matrix, rows in _MATRIX order (the graded rules, then ASYMPTOTIC_LIMIT), signed so
+    that every row fires above its limits: an "above" rule as it is, a "below" one negated."""
+
+    metric_rows: np.ndarray  # row of each rule's metric in the float block
+    absolute: np.ndarray  # rows (of the matrix) whose metric is taken as |metric|
+    sign: np.ndarray  # (rules, 1): +1 for "above" (and info), -1 for "below"
+    marginal: np.ndarray  # (rules, 1): the marginal limit; ASYMPTOTIC_LIMIT's info limit
+    outside: np.ndarray  # (rules, 1): the outside limit; +inf for ASYMPTOTIC_LIMIT (never outside)
+
+
+def _grading(s: Mapping[str, Any]) -> _Grading:
+    rules = [RULES_BY_CODE[code] for code in _MATRIX]
+    limits = [s["limits"][code] for code in _MATRIX]
+    return _Grading(
+        metric_rows=np.array([_FLOAT_ROW[r.metric] for r in rules]),
+        absolute=np.array([i for i, code in enumerate(_MATRIX) if code in ABS_METRIC_CODES], dtype=np.intp),
+        sign=np.array([[-1.0] if r.bad_when == "below" else [1.0] for r in rules]),
+        marginal=np.array([[lim.get("marginal", lim.get("info"))] for lim in limits]),
+        outside=np.array([[lim.get("outside", np.inf)] for lim in limits]),
+    )
+
+
+def _apply_rules(floats: np.ndarray, ranks: np.ndarray, method: np.ndarray, grading: _Grading) -> None:
+    """Severity rank (0 none, 1 info, 2 marginal, 3 outside), value and limit of every rule, and the status rank, into
+    a chunk of the two result blocks (MODEL.md section 7); the rules with limits all at once, as one matrix."""
+    k = len(_MATRIX)
+    metric = floats[grading.metric_rows]
+    if grading.absolute.size:
+        metric[grading.absolute] = np.abs(metric[grading.absolute])
     with np.errstate(invalid="ignore"):
-        for rule in RULES:
-            code = rule.code
-            limits = s["limits"].get(code, {})
-            if rule.bad_when == "always":
-                rank = out["_unseeded"].astype(np.int8) * np.int8(2)
-                value = limit = nan_row
-            else:
-                metric = out[rule.metric]
-                if code in ABS_METRIC_CODES:
-                    metric = np.abs(metric)
-                if rule.bad_when == "info_above":
-                    rank = (metric > limits["info"]).astype(np.int8)
-                    limit_of_rank = np.array([np.nan, limits["info"], np.nan, np.nan])
-                else:
-                    m, o = limits["marginal"], limits["outside"]
-                    # validated order: past the outside limit implies past the marginal one
-                    if rule.bad_when == "above":
-                        rank = (metric > m).astype(np.int8) * np.int8(2) + (metric > o).astype(np.int8)
-                    else:
-                        rank = (metric < m).astype(np.int8) * np.int8(2) + (metric < o).astype(np.int8)
-                    limit_of_rank = np.array([np.nan, np.nan, m, o])
-                limit = np.take(limit_of_rank, rank.astype(np.intp))
-                value = np.where(rank > 0, metric, np.nan)
-            flags["rank." + code] = rank
-            flags["flag_value." + code] = value
-            flags["flag_limit." + code] = limit
-            np.maximum(worst, rank, out=worst)
-    flags["status_rank"] = np.take(_STATUS_OF_RANK, worst.astype(np.intp))
-    return flags
+        signed = metric * grading.sign
+        # validated order: past the outside limit implies past the marginal one
+        marginal = signed > grading.sign * grading.marginal
+        outside = signed > grading.sign * grading.outside
+    rank = ranks[:k]
+    np.add(marginal.view(np.int8), marginal.view(np.int8), out=rank)
+    rank += outside.view(np.int8)
+    rank[k - 1] = marginal[k - 1]  # ASYMPTOTIC_LIMIT fires as info (rank 1), which never changes the status
+    # Values and limits are NaN where a rule did not fire: times fired/fired, which is 1 there and 0/0 elsewhere.
+    nan_unless_fired = marginal.astype(float)
+    with np.errstate(invalid="ignore"):
+        np.divide(nan_unless_fired, nan_unless_fired, out=nan_unless_fired)
+    np.multiply(metric, nan_unless_fired, out=floats[_VALUE_ROW0 : _VALUE_ROW0 + k])
+    limit = np.where(outside, grading.outside, grading.marginal)
+    np.multiply(limit, nan_unless_fired, out=floats[_LIMIT_ROW0 : _LIMIT_ROW0 + k])
+    # UNSEEDED: marginal whenever unseeded, with no value or limit
+    unseeded = ranks[_RANK_ROW["flag.UNSEEDED"]]
+    np.multiply(method == _UNSEEDED, np.int8(2), out=unseeded)
+    floats[_FLOAT_ROW["flag_value.UNSEEDED"]] = np.nan
+    floats[_FLOAT_ROW["flag_limit.UNSEEDED"]] = np.nan
+    worst = rank.max(axis=0)
+    np.maximum(worst, unseeded, out=worst)
+    # status rank from the worst severity rank: 0, 1 (info) -> nominal 0; 2 -> marginal 1; 3 -> outside 2
+    np.subtract(worst, np.int8(1), out=worst)
+    np.maximum(worst, np.int8(0), out=ranks[_RANK_ROW["status"]])
 
 
-def _evaluate_clean(clean: Mapping[str, np.ndarray], s: Mapping[str, Any]) -> dict[str, np.ndarray]:
-    """The core in cache-sized chunks, then the rules on the whole table."""
-    n = clean["driver.species"].shape[0]
-    result = {name: np.empty(n) for name in OUTPUT_NAMES}
-    result["_unseeded"] = np.empty(n, dtype=bool)
+# The result columns as rows of two blocks: the outputs, then the values and the limits of the rules of the matrix
+# and of UNSEEDED; the ranks of the same, and the status.
+_GRADED = tuple(r.code for r in RULES if r.bad_when in ("above", "below"))
+_MATRIX = (*_GRADED, "ASYMPTOTIC_LIMIT")
+if tuple(code for code in FLAG_CODES if code not in _MATRIX) != ("UNSEEDED",):
+    raise RuntimeError("_apply_rules knows the graded rules, ASYMPTOTIC_LIMIT and UNSEEDED, no other kind")
+_BLOCK_CODES = (*_MATRIX, "UNSEEDED")
+_FLOAT_COLUMNS = (
+    *OUTPUT_NAMES,
+    *(f"flag_value.{code}" for code in _BLOCK_CODES),
+    *(f"flag_limit.{code}" for code in _BLOCK_CODES),
+)
+_RANK_COLUMNS = (*(f"flag.{code}" for code in _BLOCK_CODES), "status")
+_FLOAT_ROW = {name: i for i, name in enumerate(_FLOAT_COLUMNS)}
+_RANK_ROW = {name: i for i, name in enumerate(_RANK_COLUMNS)}
+_VALUE_ROW0 = _FLOAT_ROW["flag_value." + _MATRIX[0]]
+_LIMIT_ROW0 = _FLOAT_ROW["flag_limit." + _MATRIX[0]]
+
+
+def _evaluate_validated(clean: ValidatedColumns, s: Mapping[str, Any]) -> dict[str, np.ndarray]:
+    """The core and the rules on cache-sized chunks, each writing into its rows of the result table.
+
+    The result columns are rows of two blocks, one large allocation each (huge pages: few page
+    faults, where dozens of separate arrays would fault on every page).
+    """
+    n = clean.rows
+    floats = np.empty((len(_FLOAT_COLUMNS), n))
+    ranks = np.empty((len(_RANK_COLUMNS), n), dtype=np.int8)
+    grading = _grading(s)
     for start in range(0, n, _CHUNK):
-        stop = min(n, start + _CHUNK)
-        out = _core({k: v[start:stop] for k, v in clean.items()}, s)
-        for name, arr in result.items():
-            arr[start:stop] = out[name]
-    flags = _apply_rules(result, s, n)
-    table: dict[str, np.ndarray] = {name: result[name] for name in OUTPUT_NAMES}
-    table["status"] = flags["status_rank"]
-    for code in FLAG_CODES:
-        table["flag." + code] = flags["rank." + code]
-        table["flag_value." + code] = flags["flag_value." + code]
-        table["flag_limit." + code] = flags["flag_limit." + code]
-    return table
+        rows = slice(start, min(n, start + _CHUNK))
+        method = clean.method_code[rows]
+        chunk = floats[:, rows]
+        _core(
+            {path: values[rows] for path, values in clean.items()},
+            clean.species_code[rows],
+            method,
+            s,
+            dict(zip(OUTPUT_NAMES, chunk, strict=False)),  # the outputs lead the block
+        )
+        _apply_rules(chunk, ranks[:, rows], method, grading)
+    return {**dict(zip(_FLOAT_COLUMNS, floats, strict=True)), **dict(zip(_RANK_COLUMNS, ranks, strict=True))}
 
 
 def evaluate_table(columns: Mapping[str, Any], settings: Mapping[str, Any] | None = None) -> dict[str, np.ndarray]:
     """Evaluate N shots given as dotted-path columns (MODEL.md sections 2-7); NaN cells mean absent."""
     s = resolve_settings(settings)
-    return _evaluate_clean(validate_columns(columns), s)
+    return _evaluate_validated(validate_columns(columns), s)
 
 
 def _none_if_nan(x: float) -> float | None:
@@ -216,7 +292,7 @@ def _none_if_nan(x: float) -> float | None:
 def evaluate_shot(shot: Mapping[str, Any], settings: Mapping[str, Any] | None = None) -> dict[str, Any]:
     """Evaluate one shot in the API JSON shape through the vectorised core (MODEL.md sections 2-7)."""
     s = resolve_settings(settings)
-    table = _evaluate_clean(clean_shot_columns(shot), s)
+    table = _evaluate_validated(clean_shot_columns(shot), s)
     result: dict[str, Any] = {name: _none_if_nan(table[name][0]) for name in OUTPUT_NAMES}
     result["status"] = STATUSES[table["status"][0]]
     flags = []
@@ -226,19 +302,35 @@ def evaluate_shot(shot: Mapping[str, Any], settings: Mapping[str, Any] | None = 
             value = _none_if_nan(table["flag_value." + code][0])
             limit = _none_if_nan(table["flag_limit." + code][0])
             flags.append(
-                {"code": code, "severity": severity, "value": value, "limit": limit,
-                 "message": flag_message(code, severity, value, limit)}
+                {
+                    "code": code,
+                    "severity": severity,
+                    "value": value,
+                    "limit": limit,
+                    "message": flag_message(code, severity, value, limit),
+                }
             )
     result["flags"] = flags
     return result
 
 
-def _one_shot_rows(columns: Mapping[str, Any], n: int) -> dict[str, np.ndarray]:
-    """The single validated shot of `columns` repeated n times."""
+def _one_shot(columns: Mapping[str, Any]) -> ValidatedColumns:
     clean = validate_columns(columns)
-    if clean["driver.species"].shape[0] != 1:
+    if clean.rows != 1:
         raise ValueError("the growth curves are drawn for one shot: give one-row columns")
-    return {path: np.repeat(values, n) for path, values in clean.items()}
+    return clean
+
+
+def _one_shot_core(
+    clean: ValidatedColumns, n: int, s: Mapping[str, Any], changes: Mapping[str, np.ndarray], names: tuple[str, ...]
+) -> dict[str, np.ndarray]:
+    """Chosen outputs of one validated shot repeated n times, with some inputs changed per row."""
+    rows = {path: np.repeat(values, n) for path, values in clean.items()}
+    rows.update(changes)
+    out = {name: np.empty(n) for name in names}
+    with np.errstate(all="ignore"):  # z = 0: no growth yet
+        _core(rows, np.repeat(clean.species_code, n), np.repeat(clean.method_code, n), s, out)
+    return out
 
 
 def _distances(values: Any, what: str) -> np.ndarray:
@@ -248,28 +340,30 @@ def _distances(values: Any, what: str) -> np.ndarray:
     return x
 
 
-def growth_along_plasma(columns: Mapping[str, Any], z_m: Any, settings: Mapping[str, Any] | None = None) -> dict[str, np.ndarray]:
-    """N(z) and the linear delta(z) (not clipped at delta_sat) at the reference slice, z in metres along the plasma, for the one shot in `columns` (MODEL.md section 4)."""
+def growth_along_plasma(
+    columns: Mapping[str, Any], z_m: Any, settings: Mapping[str, Any] | None = None
+) -> dict[str, np.ndarray]:
+    """N(z) and the linear delta(z) (not clipped) at the reference slice of the one shot in `columns` (MODEL.md 4)."""
     s = resolve_settings(settings)
     z = _distances(z_m, "z_m")
-    rows = _one_shot_rows(columns, z.size)
-    rows["plasma.length_m"] = z
-    with np.errstate(all="ignore"):  # z = 0: no growth yet
-        out = _core(rows, s)
-        return {"efolds": out["efolds_exit"], "modulation": np.exp(out["_log_modulation_exit"])}
+    out = _one_shot_core(_one_shot(columns), z.size, s, {"plasma.length_m": z}, ("efolds_exit", _LOG_MODULATION_EXIT))
+    return {"efolds": out["efolds_exit"], "modulation": np.exp(out[_LOG_MODULATION_EXIT])}
 
 
 def efolds_along_bunch(columns: Mapping[str, Any], xi_m: Any, settings: Mapping[str, Any] | None = None) -> np.ndarray:
-    """N(L, xi): e-folds at the plasma exit of the slice xi metres behind the seed, for the one shot in `columns` (MODEL.md section 4)."""
+    """N(L, xi): exit e-folds of the slice xi metres behind the seed, for the one shot in `columns` (MODEL.md 4)."""
     s = dict(resolve_settings(settings))
     xi = _distances(xi_m, "xi_m")
-    rows = _one_shot_rows(columns, xi.size)
-    s["reference_slice_sigma"] = xi / (rows["driver.sigma_z_mm"] * U.MM)  # the reference slice moved to each xi
-    with np.errstate(all="ignore"):
-        return _core(rows, s)["efolds_exit"]
+    clean = _one_shot(columns)
+    s["reference_slice_sigma"] = xi / (clean["driver.sigma_z_mm"] * U.MM)  # the reference slice moved to each xi
+    return _one_shot_core(clean, xi.size, s, {}, ("efolds_exit",))["efolds_exit"]
 
 
 __all__ = [
-    "MODEL_VERSION", "OUTPUT_NAMES", "efolds_along_bunch", "evaluate_shot", "evaluate_table",
+    "MODEL_VERSION",
+    "OUTPUT_NAMES",
+    "efolds_along_bunch",
+    "evaluate_shot",
+    "evaluate_table",
     "growth_along_plasma",
 ]

@@ -4,10 +4,10 @@ g(u) = e^u E1(u) is the scaled exponential integral (E1 as scipy.special.exp1). 
 evaluated without overflow and fast (numpy only, no per-element special-function call):
 - u < 1: the convergent series E1(u) = -gamma - ln u + sum_k (-1)^{k+1} u^k / (k k!)
   (Abramowitz & Stegun 5.1.11), 18 terms;
-- 1 <= u < 8: one Chebyshev interpolant per octave [2^j, 2^{j+1}), degree 20, built at
+- 1 <= u < 8: one Chebyshev interpolant per octave [2^j, 2^{j+1}), degree 18, built at
   import time from scipy.special.exp1;
 - u >= 8: the even continued fraction (Abramowitz & Stegun 5.1.22)
-  e^u E1(u) = 1/(u+1- 1^2/(u+3- 2^2/(u+5- ...))), 20 levels, evaluated backwards.
+  e^u E1(u) = 1/(u+1- 1^2/(u+3- 2^2/(u+5- ...))), 16 levels, evaluated backwards.
 Relative accuracy is better than 1e-14 everywhere (checked in tests/model).
 
 Writing g = 1/(u+1-r), with r the tail of the fraction, gives cancellation-free forms
@@ -15,20 +15,29 @@ of the other factors for large u:
    h = 1/u - g = g (1 - r) / u,   H = 1 - u g = u h = g (1 - r),
    F = 1 - u + u^2 g = g (1 + r (u - 1)).
 All functions take u > 0 (scalars or arrays) and return NaN for NaN input.
+
+The closed form's vectorised core reads the driver's three factors (k_p sigma_r)^2 R(a), H(u)
+and F(u) from one cubic table in ln u built from these exact forms (driver_slice_factors:
+within 1e-12 on 1e-6 <= u <= 1e4, the exact forms outside); everything else uses the exact forms.
 """
 
 from __future__ import annotations
+
+import math
+from typing import Any
 
 import numpy as np
 from numpy.polynomial import chebyshev as _cheb
 from numpy.typing import ArrayLike
 from scipy import special
 
+from model.tables import cubic_values, hermite_rows
+
 _SERIES_TERMS = 18
 _CF_THRESHOLD = 8.0
-_CF_DEPTH = 20
+_CF_DEPTH = 16
 _OCTAVES = 3  # [1,2), [2,4), [4,8)
-_CHEB_DEGREE = 20
+_CHEB_DEGREE = 18
 
 # Horner coefficients of sum_{k>=1} (-1)^{k+1} u^{k-1} / (k k!), highest power first.
 _SERIES = [(-1.0) ** (k + 1) / (k * special.factorial(k)) for k in range(_SERIES_TERMS, 0, -1)]
@@ -40,7 +49,7 @@ def _octave_coefficients() -> np.ndarray:
     for j in range(_OCTAVES):
         low = 2.0**j
 
-        def g_on_octave(x: np.ndarray, low: float = low) -> np.ndarray:
+        def g_on_octave(x: np.ndarray, low: float = low) -> Any:
             u = low * (x + 3.0) / 2.0
             return np.exp(u) * special.exp1(u)
 
@@ -133,7 +142,7 @@ def scaled_exponential_integral(u: ArrayLike) -> np.ndarray:
 
 
 def gaussian_on_axis_factor(a: ArrayLike) -> np.ndarray:
-    """On-axis wake factor of a Gaussian slice R(a) = (1/2) e^a E1(a), a = (k_p sigma_r)^2 / 2 (Keinigs & Jones, Phys. Fluids 30, 252 (1987) kernel)."""
+    """On-axis factor R(a) = (1/2) e^a E1(a), a = (k_p sigma_r)^2/2 (Keinigs & Jones, Phys. Fluids 30, 252 (1987))."""
     return 0.5 * scaled_exponential_integral(a)
 
 
@@ -155,3 +164,43 @@ def envelope_growth_factor(u: ArrayLike) -> np.ndarray:
 def slice_form_factors(u: ArrayLike) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """(e^u E1(u), h(u), H(u), F(u)) in one pass, for callers needing several (MODEL.md sections 2, 10)."""
     return _factors(u)
+
+
+def _driver_factors_exact(u: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(u R(u/2), H(u), F(u)) from the exact forms above."""
+    _, _, seed_factor, growth_factor = _factors(u)
+    return u * gaussian_on_axis_factor(0.5 * u), seed_factor, growth_factor
+
+
+# The driver's three factors as one cubic table in ln u (model.tables): slopes d/d ln u by five-point central
+# differences of the exact forms (1e-13), step 0.004, within 1e-12 of the exact forms on 1e-6 <= u <= 1e4.
+_DRIVER_TABLE_U = (1e-6, 1e4)
+_DRIVER_TABLE_STEP = 0.004
+_LN_U0 = math.log(_DRIVER_TABLE_U[0])
+
+
+def _driver_factor_table() -> np.ndarray:
+    ln_u = _LN_U0 + _DRIVER_TABLE_STEP * np.arange(
+        math.ceil(math.log(_DRIVER_TABLE_U[1] / _DRIVER_TABLE_U[0]) / _DRIVER_TABLE_STEP) + 1
+    )
+    values = np.column_stack(_driver_factors_exact(np.exp(ln_u)))
+    d = 1e-3
+    around = [np.column_stack(_driver_factors_exact(np.exp(ln_u + k * d))) for k in (-2, -1, 1, 2)]
+    slopes = (around[0] - 8.0 * around[1] + 8.0 * around[2] - around[3]) / (12.0 * d)
+    return hermite_rows(values, slopes, _DRIVER_TABLE_STEP)
+
+
+_DRIVER_TABLE = _driver_factor_table()
+
+
+def driver_slice_factors(u: ArrayLike) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(k_p sigma_r)^2 R(a), H(u), F(u) at u = (k_p sigma_r)^2, tabulated to 1e-12 of the exact forms (MODEL.md 2)."""
+    flat, shape = _flat(u)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        on_axis, seed_factor, growth_factor = cubic_values(
+            _DRIVER_TABLE, (np.log(flat) - _LN_U0) * (1.0 / _DRIVER_TABLE_STEP)
+        )
+    outside = np.flatnonzero(~((flat >= _DRIVER_TABLE_U[0]) & (flat <= _DRIVER_TABLE_U[1])))
+    if outside.size:  # beyond the table (or NaN): the exact forms
+        on_axis[outside], seed_factor[outside], growth_factor[outside] = _driver_factors_exact(flat[outside])
+    return tuple(x.reshape(shape)[()] for x in (on_axis, seed_factor, growth_factor))  # type: ignore[return-value]

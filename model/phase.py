@@ -18,33 +18,37 @@ _SQRT3 = math.sqrt(3.0)
 
 
 def phase_slip(efolds: ArrayLike) -> np.ndarray:
-    """Backward phase slip of the growing mode N/sqrt(3) [rad] (MODEL.md section 5; Schroeder et al., PRL 107, 145002 (2011); Pukhov et al., PRL 107, 145003 (2011))."""
+    """Backward phase slip of the growing mode N/sqrt(3) [rad] (MODEL.md section 5; Schroeder 2011, Pukhov 2011)."""
     return np.asarray(efolds, dtype=float) / _SQRT3
 
 
 def phase_velocity_deficit(efolds: ArrayLike, kp: ArrayLike, z: ArrayLike) -> np.ndarray:
-    """(c - v_ph)/c = 2N/(3 sqrt(3) k_p z) of the wake at z (MODEL.md section 5; Schroeder et al., PRL 107, 145002 (2011); Pukhov et al., PRL 107, 145003 (2011))."""
-    return 2.0 * phase_slip(efolds) / (3.0 * np.asarray(kp, dtype=float) * z)
+    """(c - v_ph)/c = 2N/(3 sqrt(3) k_p z) of the wake at z (MODEL.md section 5; Schroeder 2011, Pukhov 2011)."""
+    return 2.0 * phase_slip(efolds) / (3.0 * np.asarray(kp, dtype=float) * np.asarray(z, dtype=float))
 
 
 def phase_per_pct_density(kp: ArrayLike, xi: ArrayLike) -> np.ndarray:
-    """Phase change at xi behind the seed for a 1 % density change, k_p xi / 200 [rad per %] (k_p ~ sqrt(n); MODEL.md section 5, project heuristic)."""
+    """k_p xi / 200 [rad per %]: phase change at xi for a 1 % density change, k_p ~ sqrt(n) (MODEL.md 5, heuristic)."""
     return np.asarray(kp, dtype=float) * xi / 200.0
 
 
 def density_tolerance_pct(kp: ArrayLike, xi: ArrayLike, phase_tolerance: ArrayLike) -> np.ndarray:
-    """Density change 100 * 2 dpsi_tol/(k_p xi) that moves the phase at xi by the tolerance dpsi_tol [%] (MODEL.md section 5, project heuristic)."""
+    """100 * 2 dpsi_tol/(k_p xi) [%]: the density change moving the phase at xi by dpsi_tol (MODEL.md 5, heuristic)."""
     return 200.0 * np.asarray(phase_tolerance, dtype=float) / (np.asarray(kp, dtype=float) * xi)
 
 
 def compensating_gradient_pct_per_m(efolds: ArrayLike, kp: ArrayLike, xi: ArrayLike, z: ArrayLike) -> np.ndarray:
-    """Linear density gradient 100 * 4N/(3 sqrt(3) k_p xi z) whose k_p drift at xi cancels the rate of the growth slip at z, k_p xi g/2 = d(N/sqrt(3))/dz [%/m] (MODEL.md section 5; slip of Pukhov et al., PRL 107, 145003 (2011))."""
-    return 400.0 * phase_slip(efolds) / (3.0 * (np.asarray(kp, dtype=float) * xi) * z)
+    """100 * 4N/(3 sqrt(3) k_p xi z) [%/m]: k_p xi g/2 = d(N/sqrt(3))/dz cancels the slip rate (MODEL.md 5)."""
+    return 400.0 * phase_slip(efolds) / (3.0 * (np.asarray(kp, dtype=float) * xi) * np.asarray(z, dtype=float))
 
 
-def gradient_phase_error(kp: ArrayLike, xi: ArrayLike, gradient: ArrayLike, length: ArrayLike, efolds: ArrayLike) -> np.ndarray:
-    """Phase error k_p xi g L/2 - N/sqrt(3) left by a gradient g [1/m] over the plasma length L [rad] (MODEL.md section 5, project heuristic)."""
-    return np.asarray(kp, dtype=float) * xi * gradient * length / 2.0 - phase_slip(efolds)
+def gradient_phase_error(
+    kp: ArrayLike, xi: ArrayLike, gradient: ArrayLike, length: ArrayLike, efolds: ArrayLike
+) -> np.ndarray:
+    """k_p xi (sqrt(1 + g L) - 1) - N/sqrt(3) [rad]: phase error of a gradient g [1/m] over L (MODEL.md 5)."""
+    gl = np.asarray(gradient, dtype=float) * length
+    # sqrt(1 + gL) - 1 = gL / (sqrt(1 + gL) + 1), without the cancellation for a small gradient
+    return np.asarray(kp, dtype=float) * xi * (gl / (np.sqrt(1.0 + gl) + 1.0)) - phase_slip(efolds)
 
 
 __all__ = [

@@ -109,7 +109,7 @@ class PlanBase:
     """A validated base: the shot without measurements and its one-row clean columns (defaults filled)."""
 
     shot: dict[str, Any]
-    columns: dict[str, np.ndarray]
+    columns: Mapping[str, np.ndarray]
 
     def value(self, path: str) -> Any:
         return self.columns[path][0]

@@ -6,18 +6,27 @@ Constants are CODATA values from scipy.constants.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+from typing import Any
+
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy import constants as _c
 
+from model.units import PER_CM3
+
 ELECTRON_MASS = _c.m_e
-PROTON_MASS = _c.m_p
 ATOMIC_MASS = _c.physical_constants["atomic mass constant"][0]
 ELEMENTARY_CHARGE = _c.e
 VACUUM_PERMITTIVITY = _c.epsilon_0
 SPEED_OF_LIGHT = _c.c
 
 _OMEGA_P_SQ_PER_DENSITY = _c.e**2 / (_c.epsilon_0 * _c.m_e)
+
+
+def plasma_density_m3(logged_density_cm3: ArrayLike, settings: Mapping[str, Any]) -> np.ndarray:
+    """n_0 = density_scale x plasma.density_cm3 [1/m^3]: the logged density, calibrated (MODEL.md section 2)."""
+    return np.asarray(logged_density_cm3, dtype=float) * (settings["density_scale"] * PER_CM3)
 
 
 def plasma_angular_frequency(n_e_m3: ArrayLike) -> np.ndarray:
@@ -46,7 +55,7 @@ def skin_depth(n_e_m3: ArrayLike) -> np.ndarray:
 
 
 def wavebreaking_field(n_e_m3: ArrayLike) -> np.ndarray:
-    """Cold non-relativistic wave-breaking field E_0 = m_e c omega_p / e [V/m] (Esarey, Schroeder, Leemans, RMP 81, 1229 (2009))."""
+    """Cold wave-breaking field E_0 = m_e c omega_p / e [V/m] (Esarey, Schroeder, Leemans, RMP 81, 1229 (2009))."""
     return ELECTRON_MASS * SPEED_OF_LIGHT * plasma_angular_frequency(n_e_m3) / ELEMENTARY_CHARGE
 
 
@@ -56,20 +65,16 @@ def lorentz_factor(momentum: ArrayLike, mass: ArrayLike) -> np.ndarray:
     return np.sqrt(1.0 + beta_gamma * beta_gamma)
 
 
-def relativistic_beta(momentum: ArrayLike, mass: ArrayLike) -> np.ndarray:
-    """Velocity over c, beta = p / (gamma M c) (special relativity)."""
-    beta_gamma = np.asarray(momentum, dtype=float) / (np.asarray(mass, dtype=float) * SPEED_OF_LIGHT)
-    return beta_gamma / np.sqrt(1.0 + beta_gamma * beta_gamma)
-
-
 def peak_beam_density(population: ArrayLike, sigma_r: ArrayLike, sigma_z: ArrayLike) -> np.ndarray:
-    """Peak density of a tri-Gaussian bunch n_b0 = N_b / ((2 pi)^{3/2} sigma_r^2 sigma_z) [1/m^3] (Gaussian normalisation)."""
+    """Peak density of a Gaussian bunch n_b0 = N_b / ((2 pi)^{3/2} sigma_r^2 sigma_z) [1/m^3] (normalisation)."""
     sigma_r = np.asarray(sigma_r, dtype=float)
-    return np.asarray(population, dtype=float) / ((2.0 * np.pi) ** 1.5 * sigma_r * sigma_r * np.asarray(sigma_z, dtype=float))
+    return np.asarray(population, dtype=float) / (
+        (2.0 * np.pi) ** 1.5 * sigma_r * sigma_r * np.asarray(sigma_z, dtype=float)
+    )
 
 
 def line_density(zeta: ArrayLike, population: ArrayLike, sigma_z: ArrayLike) -> np.ndarray:
-    """Gaussian line density lambda(zeta) = N_b / (sqrt(2 pi) sigma_z) exp(-zeta^2 / 2 sigma_z^2) [1/m] (Gaussian normalisation)."""
+    """Line density lambda(zeta) = N_b / (sqrt(2 pi) sigma_z) exp(-zeta^2 / 2 sigma_z^2) [1/m] (Gaussian)."""
     zeta = np.asarray(zeta, dtype=float)
     sigma_z = np.asarray(sigma_z, dtype=float)
     x = zeta / sigma_z

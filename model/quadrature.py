@@ -23,7 +23,6 @@ from numpy.typing import ArrayLike
 KERNEL_STEP = 0.38
 KERNEL_LOG_T_MIN = -14.5
 KERNEL_LOG_T_MAX = 12.0
-KERNEL_U_RANGE = (1e-4, 1e2)  # u range of the fixed rule KERNEL_NODES, checked to 1e-8 relative
 
 
 @functools.lru_cache(maxsize=256)
@@ -41,13 +40,13 @@ KERNEL_NODES, KERNEL_WEIGHTS = _lattice_rule(0, round((KERNEL_LOG_T_MAX - KERNEL
 
 
 def wake_kernel_h_by_quadrature(u: ArrayLike) -> np.ndarray:
-    """h(u) = int_0^inf e^{-ut} t/(1+t) dt from the fixed node rule, u in [1e-4, 1e2] (MODEL.md section 10; checked against 1/u - e^u E1(u))."""
+    """h(u) = int_0^inf e^{-ut} t/(1+t) dt by the fixed node rule, u in [1e-4, 1e2] (MODEL.md section 10)."""
     u = np.asarray(u, dtype=float)
     return (np.exp(-u[..., None] * KERNEL_NODES) * KERNEL_WEIGHTS).sum(axis=-1)
 
 
 def kernel_rule_for(u_min: float, u_max: float, tolerance: float = 1e-9) -> tuple[np.ndarray, np.ndarray]:
-    """Nodes t_m, weights w_m with h(u) ~ sum_m w_m e^{-u t_m} for every u in [u_min, u_max] (trapezoid in ln t; Trefethen & Weideman 2014).
+    """Nodes t_m, weights w_m: h(u) ~ sum_m w_m e^{-u t_m} on [u_min, u_max] (trapezoid in ln t; Trefethen 2014).
 
     Right end: e^{-u_min t} < tolerance e^{-10}. Left end: the dropped nodes carry the tail
     int_0^t0 t dt = t0^2/2, kept below tolerance times h(u_max) >= 1/(u_max (1 + u_max)) / 2.

@@ -7,6 +7,7 @@ Settings shape (every key optional in an override; overrides merge over the defa
       "noise_floor": 1e-3,              # floor of the relative noise eta
       "phase_tolerance_rad": pi/10,     # allowed phase jitter for density_tolerance_pct
       "saturation_modulation": 1.0,     # delta_sat
+      "density_scale": 1.0,             # n_0 = density_scale x plasma.density_cm3 (the density calibration)
       "limits": {
         "WEAK_SEED": {"marginal": 4.0, "outside": 2.0},   # one entry per rule with limits
         ...,
@@ -54,30 +55,85 @@ class Rule:
 
 
 RULES: tuple[Rule, ...] = (
-    Rule("BUNCH_NOT_LONG", "bunch_length_over_plasma_wavelength", "below", "sigma_z/lambda_p",
-         "The bunch is too short compared with the plasma wavelength for self-modulation"),
-    Rule("BEAM_TOO_WIDE", "kp_sigma_r", "above", "k_p sigma_r",
-         "The beam is too wide compared with the plasma skin depth"),
-    Rule("NONLINEAR_DRIVE", "density_ratio", "above", "n_b0/n_0",
-         "The beam is too dense for the linear model"),
-    Rule("WEAK_GROWTH", "growth_margin_efolds", "below", "growth margin (e-folds)",
-         "The modulation does not reach saturation within the plasma"),
-    Rule("WEAK_SEED", "seed_to_noise_efolds", "below", "seed over noise (e-folds)",
-         "The seed is weak compared with the noise, so the phase may not be reproducible"),
-    Rule("BEAM_DIVERGES", "divergence_ratio", "above", "z_ref/beta*",
-         "The beam diverges over the growth length"),
-    Rule("PHASE_DRIFT", "gradient_phase_error_rad", "above", "|phase error| (rad)",
-         "The density gradient and the growth slip move the wake phase a lot"),
-    Rule("DENSITY_MISMATCH", "frequency_mismatch_pct", "above", "|frequency mismatch| (%)",
-         "The measured modulation frequency does not match the set plasma density"),
-    Rule("HOSING_RISK", "hosing_ratio", "above", "hosing ratio",
-         "Hosing may compete with self-modulation, by a project heuristic"),
-    Rule("ION_MOTION", "ion_motion_index", "above", "ion motion index",
-         "Plasma ions may move enough to spoil the wake, by an order-of-magnitude estimate"),
-    Rule("UNSEEDED", "", "always", "",
-         "The shot is unseeded, so the modulation grows from noise and its phase is not reproducible"),
-    Rule("ASYMPTOTIC_LIMIT", "asymptotic_validity", "info_above", "N/(k_p xi)",
-         "The closed-form growth is only indicative here"),
+    Rule(
+        "BUNCH_NOT_LONG",
+        "bunch_length_over_plasma_wavelength",
+        "below",
+        "sigma_z/lambda_p",
+        "The bunch is too short compared with the plasma wavelength for self-modulation",
+    ),
+    Rule(
+        "BEAM_TOO_WIDE",
+        "kp_sigma_r",
+        "above",
+        "k_p sigma_r",
+        "The beam is too wide compared with the plasma skin depth",
+    ),
+    Rule("NONLINEAR_DRIVE", "density_ratio", "above", "|Z| n_b0/n_0", "The beam is too dense for the linear model"),
+    Rule(
+        "WEAK_GROWTH",
+        "growth_margin_efolds",
+        "below",
+        "growth margin (e-folds)",
+        "The modulation does not reach saturation within the plasma",
+    ),
+    Rule(
+        "WEAK_SEED",
+        "seed_to_noise_efolds",
+        "below",
+        "seed over noise (e-folds)",
+        "The seed is weak compared with the noise, so the phase may not be reproducible",
+    ),
+    Rule("BEAM_DIVERGES", "divergence_ratio", "above", "z_ref/beta*", "The beam diverges over the growth length"),
+    Rule(
+        "PHASE_DRIFT",
+        "gradient_phase_error_rad",
+        "above",
+        "|phase error| (rad)",
+        "The density gradient and the growth slip move the wake phase a lot",
+    ),
+    Rule(
+        "DENSITY_MISMATCH",
+        "frequency_mismatch_pct",
+        "above",
+        "|frequency mismatch| (%)",
+        "The measured modulation frequency does not match the set plasma density",
+    ),
+    Rule(
+        "HOSING_RISK",
+        "hosing_ratio",
+        "above",
+        "hosing ratio",
+        "Hosing may compete with self-modulation, by a project heuristic",
+    ),
+    Rule(
+        "ION_MOTION",
+        "ion_motion_index",
+        "above",
+        "ion motion index",
+        "Plasma ions may move enough to spoil the wake, by an order-of-magnitude estimate",
+    ),
+    Rule(
+        "SLOW_DRIVER",
+        "lorentz_gamma",
+        "below",
+        "gamma",
+        "The driver is too slow for the model, which takes it at the speed of light",
+    ),
+    Rule(
+        "UNSEEDED",
+        "",
+        "always",
+        "",
+        "The shot is unseeded, so the modulation grows from noise and its phase is not reproducible",
+    ),
+    Rule(
+        "ASYMPTOTIC_LIMIT",
+        "asymptotic_validity",
+        "info_above",
+        "N/(k_p xi)",
+        "The closed-form growth is only indicative here",
+    ),
 )
 RULES_BY_CODE: dict[str, Rule] = {r.code: r for r in RULES}
 FLAG_CODES: tuple[str, ...] = tuple(r.code for r in RULES)
@@ -88,6 +144,7 @@ DEFAULT_SETTINGS: dict[str, Any] = {
     "noise_floor": 1e-3,
     "phase_tolerance_rad": math.pi / 10,
     "saturation_modulation": 1.0,
+    "density_scale": 1.0,
     "limits": {
         "BUNCH_NOT_LONG": {"marginal": 10.0, "outside": 3.0},
         "BEAM_TOO_WIDE": {"marginal": 1.5, "outside": 3.0},
@@ -99,11 +156,12 @@ DEFAULT_SETTINGS: dict[str, Any] = {
         "DENSITY_MISMATCH": {"marginal": 2.0, "outside": 5.0},
         "HOSING_RISK": {"marginal": 0.3, "outside": 1.0},
         "ION_MOTION": {"marginal": 0.3, "outside": 1.0},
+        "SLOW_DRIVER": {"marginal": 10.0, "outside": 3.0},
         "ASYMPTOTIC_LIMIT": {"info": 0.1},
     },
 }
 
-_POSITIVE_SETTINGS = ("reference_slice_sigma", "phase_tolerance_rad", "saturation_modulation")
+_POSITIVE_SETTINGS = ("reference_slice_sigma", "phase_tolerance_rad", "saturation_modulation", "density_scale")
 
 
 def _number(value: Any, path: str, problems: list[tuple[str, str]]) -> float | None:
@@ -137,7 +195,9 @@ def resolve_settings(overrides: Mapping[str, Any] | None = None) -> dict[str, An
                 for name, limit in limits.items():
                     if name not in settings["limits"][code]:
                         expected = ", ".join(settings["limits"][code])
-                        problems.append((f"limits.{code}.{name}", f"unknown limit {name!r} for {code} (expected {expected})"))
+                        problems.append(
+                            (f"limits.{code}.{name}", f"unknown limit {name!r} for {code} (expected {expected})")
+                        )
                     elif (number := _number(limit, f"limits.{code}.{name}", problems)) is not None:
                         settings["limits"][code][name] = number
         elif key in DEFAULT_SETTINGS:
@@ -156,11 +216,13 @@ def resolve_settings(overrides: Mapping[str, Any] | None = None) -> dict[str, An
             m, o = limits["marginal"], limits["outside"]
             if (above and m > o) or (not above and m < o):
                 side = "above" if above else "below"
-                problems.append((
-                    f"limits.{code}",
-                    f"limits of {code} are out of order: the rule fires {side} its limits, "
-                    f"so the outside limit {o!r} must lie past the marginal limit {m!r}",
-                ))
+                problems.append(
+                    (
+                        f"limits.{code}",
+                        f"limits of {code} are out of order: the rule fires {side} its limits, "
+                        f"so the outside limit {o!r} must lie past the marginal limit {m!r}",
+                    )
+                )
     if problems:
         raise SettingsError(problems)
     return settings

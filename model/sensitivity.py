@@ -61,7 +61,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from model.evaluate import evaluate_table
-from model.inputs import FIELDS_BY_PATH, ShotInputError, _check_columns, validate_columns
+from model.inputs import FIELDS_BY_PATH, ShotInputError, refused_rows, validate_columns
 from model.rules import FLAG_CODES
 from model.vocabulary import OUTPUT_NAMES, OUTPUTS_BY_NAME
 
@@ -98,11 +98,7 @@ def evaluate_where_valid(
     try:
         return np.ones(n, dtype=bool), evaluate_table(cols, settings)
     except ShotInputError:
-        # model.inputs has no public per-row form of validate_columns yet; _check_columns is that check.
-        _, problems = _check_columns(cols, n, blank_nan=True)
-        valid = np.ones(n, dtype=bool)
-        for _, _, rows in problems:
-            valid[rows] = False
+        valid = ~refused_rows(cols)
         if valid.all():  # a refusal of the table as a whole (column lengths), not of rows
             raise
     table: dict[str, np.ndarray] = {}

@@ -10,6 +10,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
+
 # Shot status, best first; the index is the status rank (MODEL.md section 7).
 STATUSES: tuple[str, ...] = ("nominal", "marginal", "outside")
 # Severity of a rule by rank; rank 0 = the rule did not fire (MODEL.md section 7).
@@ -22,6 +24,47 @@ SEED_METHODS: tuple[str, ...] = ("ionization_front", "electron_bunch", "none")
 SEEDED_METHODS: tuple[str, ...] = ("ionization_front", "electron_bunch")
 # The known input sections of a shot (MODEL.md section 1); other top-level keys are kept verbatim.
 SECTIONS: tuple[str, ...] = ("driver", "plasma", "seed", "measured")
+
+
+def codes_of(values: np.ndarray, names: tuple[str, ...]) -> np.ndarray:
+    """int8 index of each text value in `names`, -1 where it is none of them (the rank or code of a name)."""
+    values = np.asarray(values)
+    if values.dtype.kind == "U" and values.size:
+        codes = _codes_of_fixed_width_text(values.reshape(-1), names)
+        if codes is not None:
+            return codes.reshape(values.shape)
+    codes = np.full(values.shape, -1, dtype=np.int8)
+    for code, name in enumerate(names):
+        codes[values == name] = code
+    return codes
+
+
+def _codes_of_fixed_width_text(values: np.ndarray, names: tuple[str, ...]) -> np.ndarray | None:
+    """codes_of on fixed-width text by its machine words: the first word picks the candidate name, one comparison of
+    all words confirms it (several times faster than numpy's string comparison); None where the first words of the
+    names that fit do not tell them apart."""
+    word = np.uint64 if values.dtype.itemsize % 8 == 0 else np.uint32
+    width = values.dtype.itemsize // np.dtype(word).itemsize
+    fits = [len(name) * 4 <= values.dtype.itemsize for name in names]
+    table = np.array([name if fit else "" for name, fit in zip(names, fits, strict=True)] + [""], dtype=values.dtype)
+    name_words = table.view(word).reshape(len(table), width).copy()
+    name_words[[i for i, fit in enumerate(fits) if not fit] + [len(names)]] = np.iinfo(word).max  # matches no text
+    first = [int(name_words[i, 0]) for i, fit in enumerate(fits) if fit]
+    if len(set(first)) != len(first) or width > 8:
+        return None
+    words = values.view(word).reshape(values.size, width)
+    key = np.ascontiguousarray(words[:, 0])
+    candidate = np.full(values.size, len(names), dtype=np.int8)
+    for code, fit in enumerate(fits):
+        if fit:
+            candidate -= (key == name_words[code, 0]).astype(np.int8) * np.int8(len(names) - code)
+    same = words == name_words.take(candidate, axis=0)
+    row_flag = {1: np.uint8, 2: np.uint16, 4: np.uint32, 8: np.uint64}.get(width)
+    if row_flag is None:
+        whole = same.all(axis=1)
+    else:  # a row of `width` True bytes read as one integer
+        whole = same.view(row_flag).reshape(values.size) == row_flag(int.from_bytes(b"\x01" * width, "little"))
+    return np.where(whole, candidate, np.int8(-1)).astype(np.int8)
 
 
 def column_name(path: str) -> str:
@@ -93,5 +136,6 @@ __all__ = [
     "SPECIES",
     "STATUSES",
     "OutputField",
+    "codes_of",
     "column_name",
 ]

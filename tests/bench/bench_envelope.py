@@ -51,6 +51,11 @@ def main() -> None:
     print(f"wall time: best {best:.3f} s, runs {', '.join(f'{t:.3f}' for t in times)} s (target < {TARGET_S:g} s)")
     print(f"cpu time: best {min(cpu):.3f} s (the machine's load inflates wall time)")
     print(f"slice-steps per second: {slice_steps / best:.3g}")
+    print(
+        f"betatron phase per step: at most {n['max_betatron_phase_per_step_linear']:.3f} rad while delta < "
+        f"delta_sat/10, {n['max_betatron_phase_per_step_to_saturation']:.3f} rad up to saturation "
+        f"(the step criterion: model/envelope.py)"
+    )
     print(f"stored: {len(result['z_m'])} z samples, JSON {json_bytes / 1e6:.2f} MB")
     print(
         f"result: saturation at {result['saturation_z_m']} m ({result['saturation_reason']}), "

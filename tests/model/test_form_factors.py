@@ -7,6 +7,7 @@ import pytest
 from scipy import integrate, special
 
 from model.form_factors import (
+    driver_slice_factors,
     envelope_growth_factor,
     envelope_seed_factor,
     gaussian_on_axis_factor,
@@ -27,10 +28,13 @@ def test_on_axis_factor_equals_direct_integral_of_the_k0_greens_function():
     # With r = sigma x: R(a) = int_0^inf K_0(k_p sigma x) exp(-x^2/2) x dx.
     k_p = 1.0
     for sigma in (0.01, 0.1, 0.3, 1.0, 2.0, 5.0):
-        def integrand(x):
+
+        def integrand(x, sigma=sigma):
             return special.k0(k_p * sigma * x) * np.exp(-x * x / 2) * x
 
-        value = sum(integrate.quad(integrand, lo, hi, epsabs=0, epsrel=1e-12, limit=400)[0] for lo, hi in ((0, 1), (1, 40)))
+        value = sum(
+            integrate.quad(integrand, lo, hi, epsabs=0, epsrel=1e-12, limit=400)[0] for lo, hi in ((0, 1), (1, 40))
+        )
         assert gaussian_on_axis_factor((k_p * sigma) ** 2 / 2) == pytest.approx(value, rel=1e-10)
 
 
@@ -61,12 +65,17 @@ def test_wake_kernel_h_equals_its_integral_form_for_small_and_large_u():
     # MODEL.md section 10: h(u) = 1/u - e^u E1(u) = int_0^inf e^{-ut} t/(1+t) dt
     # = (1/u) int_0^inf e^{-s} s/(u+s) ds with t = s/u (so quad sees an O(1) scale).
     for u in (1e-6, 1e-3, 0.1, 1.0, 3.0, 7.9, 8.1, 30.0, 300.0, 1e4):
-        def integrand(s):
+
+        def integrand(s, u=u):
             return np.exp(-s) * s / (u + s)
 
-        value = sum(
-            integrate.quad(integrand, lo, hi, epsabs=0, epsrel=1e-13, limit=400)[0] for lo, hi in ((0, min(u, 1.0)), (min(u, 1.0), 60))
-        ) / u
+        value = (
+            sum(
+                integrate.quad(integrand, lo, hi, epsabs=0, epsrel=1e-13, limit=400)[0]
+                for lo, hi in ((0, min(u, 1.0)), (min(u, 1.0), 60))
+            )
+            / u
+        )
         assert wake_kernel_h(u) == pytest.approx(value, rel=1e-11)
 
 
@@ -92,3 +101,14 @@ def test_form_factors_work_on_scalars_and_any_array_shape():
     g, h, big_h, f = slice_form_factors(grid)
     assert g.shape == h.shape == big_h.shape == f.shape == (2, 2)
     assert h[1, 0] == wake_kernel_h(9.0)
+
+
+def test_the_cores_tabulated_driver_factors_equal_the_exact_forms_to_1e_12():
+    # driver_slice_factors (a cubic table in ln u, model.tables) against the exact forms it was built from, inside
+    # the table (1e-6 <= u <= 1e4) and beyond it, where it falls back to them; no outside reference beyond those above
+    u = np.concatenate([np.logspace(-9, 7, 20001), [1e-6, 1e4, 1e-6 * (1 + 1e-15), 1e4 * (1 - 1e-15)]])
+    on_axis, seed_factor, growth_factor = driver_slice_factors(u)
+    np.testing.assert_allclose(on_axis, u * gaussian_on_axis_factor(u / 2), rtol=1e-12)
+    np.testing.assert_allclose(seed_factor, envelope_seed_factor(u), rtol=1e-12)
+    np.testing.assert_allclose(growth_factor, envelope_growth_factor(u), rtol=1e-12)
+    assert driver_slice_factors(2.0)[1] == pytest.approx(float(envelope_seed_factor(2.0)), rel=1e-12)

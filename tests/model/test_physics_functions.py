@@ -17,6 +17,7 @@ from model import (
     OUTPUT_FIELDS,
     OUTPUT_NAMES,
     OUTPUTS_BY_NAME,
+    SPECIES,
     competing,
     efolds_along_bunch,
     evaluate_shot,
@@ -25,9 +26,11 @@ from model import (
     phase,
     seed,
 )
+from model.form_factors import gaussian_on_axis_factor
+from model.vocabulary import codes_of
 
 CASES = json.loads((Path(__file__).resolve().parents[1] / "data" / "reference_cases.json").read_text())
-EX1, EX2, EX3 = (c["input"] for c in CASES)
+EX1, EX2, EX3, EX4, EX5 = (c["input"] for c in CASES)
 
 
 def one_row(shot):
@@ -43,8 +46,9 @@ def test_every_output_name_has_a_unit_and_nothing_else_does():
 
 def test_driver_mass_and_charge_per_species_for_one_shot_and_for_an_array():
     # MODEL.md section 2: proton (m_p, +1), electron (m_e, -1), positron (m_e, +1), ion (A u, q)
-    mass, charge = seed.driver_mass_and_charge(["proton", "electron", "positron", "ion"],
-                                               [np.nan, np.nan, np.nan, 207.2], [np.nan, np.nan, np.nan, 30])
+    mass, charge = seed.driver_mass_and_charge(
+        ["proton", "electron", "positron", "ion"], [np.nan, np.nan, np.nan, 207.2], [np.nan, np.nan, np.nan, 30]
+    )
     u = constants.physical_constants["atomic mass constant"][0]
     np.testing.assert_array_equal(mass, [constants.m_p, constants.m_e, constants.m_e, 207.2 * u])
     np.testing.assert_array_equal(charge, [1.0, -1.0, 1.0, 30.0])
@@ -52,23 +56,24 @@ def test_driver_mass_and_charge_per_species_for_one_shot_and_for_an_array():
     assert float(one_mass) == constants.m_e and float(one_charge) == -1.0
 
 
-def test_relative_noise_is_shot_noise_per_skin_depth_unless_the_floor_is_higher():
-    # MODEL.md section 3: eta = max(floor, (lambda/k_p)^(-1/2))
+def test_relative_noise_is_shot_noise_per_skin_depth_unless_the_floor_is_higher_and_never_above_one():
+    # MODEL.md section 3: eta = min(1, max(floor, (lambda/k_p)^(-1/2)))
     kp = 5000.0
     assert seed.relative_noise(kp * 1e4, kp, 1e-3) == pytest.approx(1e-2, rel=1e-15)
     assert seed.relative_noise(kp * 1e8, kp, 1e-3) == 1e-3
     np.testing.assert_allclose(seed.relative_noise(np.array([kp * 1e4, kp * 1e8]), kp, 0.0), [1e-2, 1e-4], rtol=1e-15)
+    np.testing.assert_array_equal(seed.relative_noise(np.array([kp * 0.01, 0.0]), kp, 1e-3), [1.0, 1.0])
 
 
 def test_electron_bunch_seed_field_stays_finite_in_logs_where_its_form_factor_underflows():
     # exp(-(k_p sigma_zs)^2/2) = exp(-5000) is below the smallest double; its logarithm is not
     kp = 1e5
-    log_field = seed.log_electron_bunch_seed_field(1e-10, 1e-3, 1e-4, kp)
+    log_field = seed.log_electron_bunch_seed_field(1e-10, 1e-3, kp, gaussian_on_axis_factor(0.5 * (kp * 1e-4) ** 2))
     assert math.isfinite(log_field) and log_field < -4000
 
 
 def test_phase_functions_follow_the_slip_of_n_over_root_3():
-    # MODEL.md section 5 (Schroeder et al., PRL 107, 145002 (2011); Pukhov et al., PRL 107, 145003 (2011)): slip N/sqrt(3)
+    # slip N/sqrt(3): Schroeder et al., PRL 107, 145002 (2011); Pukhov et al., PRL 107, 145003 (2011) (MODEL.md 5)
     n, kp, xi, z = np.array([3.0, 12.0]), 1900.0, 0.07, 4.0
     np.testing.assert_allclose(phase.phase_slip(n), n / math.sqrt(3.0), rtol=1e-15)
     np.testing.assert_allclose(phase.phase_velocity_deficit(n, kp, z), 2 * n / (3 * math.sqrt(3) * kp * z), rtol=1e-15)
@@ -118,3 +123,22 @@ def test_integrated_coupling_is_linear_in_the_profile_integral_and_the_growth_fa
     base = growth.integrated_coupling(2000.0, 1e-25, 1e18, 0.05, 0.8)
     assert base == pytest.approx(0.25 * 2000.0**3 * 1e-25 * 1e18 * 0.05 * 0.8, rel=1e-15)
     assert growth.integrated_coupling(2000.0, 1e-25, 1e18, 0.1, 0.4) == pytest.approx(base, rel=1e-15)
+
+
+def test_text_codes_are_the_index_of_each_name_and_minus_one_for_anything_else():
+    # the fast fixed-width path and the plain comparison give the same codes, for text of any width
+    names = ["proton", "electron", "positron", "ion", "", "io", "ionx", "protons", "Proton", "muon", "positro"]
+    expected = [SPECIES.index(v) if v in SPECIES else -1 for v in names]
+    for width in ("<U8", "<U3", "<U12", "<U16", object):
+        values = np.array([v for v in names if width is object or len(v) <= int(str(width)[2:])], dtype=width)
+        want = [SPECIES.index(v) if v in SPECIES else -1 for v in values.tolist()]
+        assert codes_of(values, SPECIES).tolist() == want, width
+    assert codes_of(np.array(names), SPECIES).tolist() == expected
+
+
+def test_the_reference_frequency_is_the_plasma_frequency_where_the_modulation_forms():
+    # f_p ~ sqrt(n) (NRL Plasma Formulary), n(z) = n_0 (1 + g z): f_ref = f_p sqrt(1 + g z)
+    assert competing.reference_frequency(180e9, 0.0, 3.0) == 180e9
+    np.testing.assert_allclose(
+        competing.reference_frequency(180e9, np.array([0.01, -0.05]), 2.0), 180e9 * np.sqrt([1.02, 0.9]), rtol=1e-15
+    )

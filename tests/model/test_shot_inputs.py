@@ -8,7 +8,7 @@ import math
 import numpy as np
 import pytest
 
-from model import INPUT_FIELDS, ShotInputError, evaluate_shot, evaluate_table, validate_shot
+from model import INPUT_FIELDS, ShotInputError, evaluate_shot, evaluate_table, validate_columns, validate_shot
 
 GOOD = {
     "shot_id": "demo-001",
@@ -59,7 +59,9 @@ def test_missing_required_field_is_named_as_missing():
 
 def test_negative_density_is_out_of_range_and_the_reason_gives_the_range():
     problems, _ = problems_of(shot_with({"plasma.density_cm3": -1.0}))
-    assert problems["plasma.density_cm3"].startswith("out of range") and "1e+10 to 1e+20" in problems["plasma.density_cm3"]
+    assert (
+        problems["plasma.density_cm3"].startswith("out of range") and "1e+10 to 1e+20" in problems["plasma.density_cm3"]
+    )
 
 
 @pytest.mark.parametrize("huge", [10**400, -(10**400)])
@@ -111,7 +113,9 @@ def test_ion_driver_needs_mass_and_charge_state():
     problems, _ = problems_of(shot_with({"driver.species": "ion"}))
     assert set(problems) == {"driver.mass_amu", "driver.charge_state"}
     assert all("needed for species ion" in r for r in problems.values())
-    problems, _ = problems_of(shot_with({"driver.species": "ion", "driver.mass_amu": 207.2, "driver.charge_state": 0.5}))
+    problems, _ = problems_of(
+        shot_with({"driver.species": "ion", "driver.mass_amu": 207.2, "driver.charge_state": 0.5})
+    )
     assert problems == {"driver.charge_state": "out of range (must be a non-zero integer)"}
 
 
@@ -122,12 +126,25 @@ def test_electron_bunch_seed_needs_its_bunch_fields():
 
 
 def test_every_failing_field_is_listed_at_once_in_table_order():
-    shot = shot_with({"driver.species": "muon", "driver.momentum_gev": 0.0, "plasma.length_m": math.nan,
-                      "plasma.ion_charge": 0, "measured.modulation_freq_ghz": -3})
+    shot = shot_with(
+        {
+            "driver.species": "muon",
+            "driver.momentum_gev": 0.0,
+            "plasma.length_m": math.nan,
+            "plasma.ion_charge": 0,
+            "measured.modulation_freq_ghz": -3,
+        }
+    )
     del shot["driver"]["population"]
     problems, message = problems_of(shot)
-    expected = ["driver.species", "driver.momentum_gev", "driver.population", "plasma.length_m",
-                "plasma.ion_charge", "measured.modulation_freq_ghz"]
+    expected = [
+        "driver.species",
+        "driver.momentum_gev",
+        "driver.population",
+        "plasma.length_m",
+        "plasma.ion_charge",
+        "measured.modulation_freq_ghz",
+    ]
     assert list(problems) == expected
     assert all(path in message for path in expected)
 
@@ -183,7 +200,10 @@ def test_input_fields_table_describes_every_section_one_field():
 def test_columns_built_from_api_payloads_can_refuse_nan_instead_of_reading_it_as_absent():
     from model import validate_columns
 
-    columns = {"driver.species": np.array(["proton"], dtype=object), "driver.offset_x_mm": np.array([math.nan], dtype=object)}
+    columns = {
+        "driver.species": np.array(["proton"], dtype=object),
+        "driver.offset_x_mm": np.array([math.nan], dtype=object),
+    }
     for path, value in GOOD["driver"].items():
         columns.setdefault(f"driver.{path}", np.array([value], dtype=object))
     for path, value in GOOD["plasma"].items():
@@ -192,3 +212,40 @@ def test_columns_built_from_api_payloads_can_refuse_nan_instead_of_reading_it_as
     with pytest.raises(ShotInputError) as caught:
         validate_columns(columns, nan_is_absent=False)
     assert dict(caught.value.problems)["driver.offset_x_mm"].startswith("NaN or infinity is not allowed")
+
+
+def test_the_rows_a_table_check_would_refuse_come_as_a_mask():
+    from model.inputs import refused_rows
+
+    n = 6
+    columns = {f"driver.{k}": np.full(n, v, dtype=float) for k, v in GOOD["driver"].items() if k != "species"}
+    columns |= {f"plasma.{k}": np.full(n, v, dtype=float) for k, v in GOOD["plasma"].items()}
+    columns["driver.species"] = np.array(["proton"] * n)
+    columns["seed.method"] = np.array(["none"] * n)
+    columns["plasma.density_cm3"][2] = -5.0
+    columns["plasma.gradient_pct_per_m"] = np.array([0.0, 0.0, 0.0, 0.0, 0.0, -20.0])  # 1 + g L <= 0 over 10 m
+    assert refused_rows(columns).tolist() == [False, False, True, False, False, True]
+
+
+def test_a_table_of_text_objects_names_missing_and_unknown_cells_like_a_shot_does():
+    # object columns (as built from JSON payloads) are read in one pass; the odd cells keep their exact reading
+    n = 5
+    columns = {f"driver.{k}": np.full(n, v, dtype=float) for k, v in GOOD["driver"].items() if k != "species"}
+    columns |= {f"plasma.{k}": np.full(n, v, dtype=float) for k, v in GOOD["plasma"].items()}
+    odd = ["proton", None, "muon", 3, "a-species-name-longer-than-any-known"]
+    columns["driver.species"] = np.array(odd, dtype=object)
+    columns["seed.method"] = np.array([None, "none", math.nan, "", "none"], dtype=object)  # absent: the default
+    with pytest.raises(ShotInputError) as caught:
+        evaluate_table(columns)
+    problems = caught.value.problems
+    assert ("driver.species", "missing at rows 1") in problems
+    reasons = " ".join(reason for path, reason in problems if path == "driver.species")
+    assert "unknown species 'muon'" in reasons and "unknown species '3'" in reasons
+    assert "unknown species 'a-species-name-longer-than-any-known'" in reasons
+    assert [path for path, _ in problems if path == "seed.method"] == []
+    columns["driver.species"] = np.array(["proton", "ion", "electron", "positron", "proton"], dtype=object)
+    columns["driver.mass_amu"] = np.array([math.nan, 4.0, math.nan, math.nan, math.nan])
+    columns["driver.charge_state"] = np.array([math.nan, 2.0, math.nan, math.nan, math.nan])
+    clean = validate_columns(columns)
+    assert clean["seed.method"].tolist() == ["none"] * 5
+    assert clean.species_code.tolist() == [0, 3, 1, 2, 0] and clean.method_code.tolist() == [2] * 5

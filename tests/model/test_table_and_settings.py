@@ -18,11 +18,19 @@ from model import (
     evaluate_shot,
     evaluate_table,
     resolve_settings,
+    validate_columns,
 )
 
 EXAMPLE = {
-    "driver": {"species": "proton", "momentum_gev": 400, "population": 3e11, "sigma_z_mm": 80, "sigma_r_mm": 0.2,
-               "emittance_n_mm_mrad": 3.0, "offset_x_mm": 0.01},
+    "driver": {
+        "species": "proton",
+        "momentum_gev": 400,
+        "population": 3e11,
+        "sigma_z_mm": 80,
+        "sigma_r_mm": 0.2,
+        "emittance_n_mm_mrad": 3.0,
+        "offset_x_mm": 0.01,
+    },
     "plasma": {"density_cm3": 7e14, "length_m": 10, "ion_mass_amu": 85.47, "gradient_pct_per_m": 0.1},
     "seed": {"method": "ionization_front", "position_mm": 5},
 }
@@ -52,13 +60,19 @@ def mixed_shots(n=300, seed=7):
         if method != "none":
             seed_block["position_mm"] = float(rng.uniform(-2, 2) * sigma_z)
         if method == "electron_bunch":
-            seed_block |= {"electron_charge_pc": float(rng.uniform(10, 800)),
-                           "electron_sigma_z_mm": float(rng.uniform(0.05, 1.0)),
-                           "electron_sigma_r_mm": float(rng.uniform(0.05, 0.5))}
+            seed_block |= {
+                "electron_charge_pc": float(rng.uniform(10, 800)),
+                "electron_sigma_z_mm": float(rng.uniform(0.05, 1.0)),
+                "electron_sigma_r_mm": float(rng.uniform(0.05, 0.5)),
+            }
         shot = {
             "driver": driver,
-            "plasma": {"density_cm3": float(10 ** rng.uniform(13, 16)), "length_m": float(rng.uniform(1, 20)),
-                       "gradient_pct_per_m": float(rng.normal(0, 0.5)), "ion_mass_amu": 39.948},
+            "plasma": {
+                "density_cm3": float(10 ** rng.uniform(13, 16)),
+                "length_m": float(rng.uniform(1, 20)),
+                "gradient_pct_per_m": float(rng.normal(0, 0.5)),
+                "ion_mass_amu": 39.948,
+            },
             "seed": seed_block,
         }
         if i % 3 == 0:
@@ -68,7 +82,9 @@ def mixed_shots(n=300, seed=7):
 
 
 def to_columns(shots):
-    paths = sorted({f"{s}.{k}" for shot in shots for s in ("driver", "plasma", "seed", "measured") for k in shot.get(s, {})})
+    paths = sorted(
+        {f"{s}.{k}" for shot in shots for s in ("driver", "plasma", "seed", "measured") for k in shot.get(s, {})}
+    )
     columns = {}
     for path in paths:
         section, name = path.split(".")
@@ -119,7 +135,10 @@ def test_table_outputs_have_the_promised_keys_and_types():
 
 def test_model_version_and_output_order_are_published():
     assert isinstance(MODEL_VERSION, str) and MODEL_VERSION
-    assert OUTPUT_NAMES[0] == "plasma_frequency_ghz" and OUTPUT_NAMES[-2:] == ("frequency_mismatch_pct", "implied_density_cm3")
+    assert OUTPUT_NAMES[0] == "plasma_frequency_ghz" and OUTPUT_NAMES[-2:] == (
+        "frequency_mismatch_pct",
+        "implied_density_cm3",
+    )
     assert len(OUTPUT_NAMES) == 32
     assert FLAG_CODES[0] == "BUNCH_NOT_LONG" and FLAG_CODES[-1] == "ASYMPTOTIC_LIMIT"
 
@@ -171,6 +190,33 @@ def test_bad_settings_raise_a_settings_error_that_says_what_is_wrong(settings, w
 
 def test_a_settings_error_names_each_bad_setting_by_its_path():
     with pytest.raises(SettingsError) as caught:
-        resolve_settings({"noise_floor": "x", "limits": {"WEAK_SEED": {"outside": 5.0}, "ION_MOTION": {"marginal": math.inf}}})
+        resolve_settings(
+            {"noise_floor": "x", "limits": {"WEAK_SEED": {"outside": 5.0}, "ION_MOTION": {"marginal": math.inf}}}
+        )
     paths = [path for path, _ in caught.value.problems]
     assert paths == ["noise_floor", "limits.ION_MOTION.marginal", "limits.WEAK_SEED"]
+
+
+def test_validated_columns_pass_through_evaluate_table_unchecked_and_cannot_be_changed():
+    # validate once: the ingest path validates, then evaluates the same validated columns
+    columns = to_columns(mixed_shots(n=50, seed=11))
+    clean = validate_columns(columns)
+    assert validate_columns(clean) is clean
+    with pytest.raises(ValueError):
+        clean["plasma.density_cm3"][0] = -1.0
+    table, again = evaluate_table(clean), evaluate_table(columns)
+    for name, values in table.items():
+        np.testing.assert_array_equal(values, again[name])
+
+
+def test_density_scale_is_a_model_setting_shown_with_the_others():
+    # the settings form and the API list DEFAULT_SETTINGS; density_scale calibrates the logged density (MODEL.md 2)
+    assert DEFAULT_SETTINGS["density_scale"] == 1.0
+    assert [k for k in DEFAULT_SETTINGS if k != "limits"] == [
+        "reference_slice_sigma",
+        "noise_floor",
+        "phase_tolerance_rad",
+        "saturation_modulation",
+        "density_scale",
+    ]
+    assert DEFAULT_SETTINGS["limits"]["SLOW_DRIVER"] == {"marginal": 10.0, "outside": 3.0}

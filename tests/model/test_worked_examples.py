@@ -1,4 +1,4 @@
-"""The three worked examples of MODEL.md section 9 (invented shots): every output to 1e-6."""
+"""The five worked examples of MODEL.md section 9 (invented shots): every output to 1e-6."""
 
 from __future__ import annotations
 
@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 
 from model import FLAG_CODES, OUTPUT_NAMES, SEVERITY_BY_RANK, STATUSES, evaluate_shot, evaluate_table
+
 # The worked examples of MODEL.md section 9, kept in the repository as tests/data/reference_cases.json.
 CASES = json.loads((Path(__file__).resolve().parents[1] / "data" / "reference_cases.json").read_text())
 IDS = [c["input"]["shot_id"] for c in CASES]
@@ -59,12 +60,10 @@ def _columns(shots):
         for section in ("driver", "plasma", "seed", "measured"):
             for key in shot.get(section, {}):
                 paths.setdefault(f"{section}.{key}", None)
-    return {
-        path: [shot.get(path.split(".")[0], {}).get(path.split(".")[1]) for shot in shots] for path in paths
-    }
+    return {path: [shot.get(path.split(".")[0], {}).get(path.split(".")[1]) for shot in shots] for path in paths}
 
 
-def test_evaluate_table_on_the_three_examples_at_once_equals_evaluate_shot():
+def test_evaluate_table_on_the_five_examples_at_once_equals_evaluate_shot():
     shots = [c["input"] for c in CASES]
     table = evaluate_table(_columns(shots))
     for i, shot in enumerate(shots):

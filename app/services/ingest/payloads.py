@@ -152,7 +152,7 @@ class PreparedBatch:
     """Valid shots of one request and their validated model inputs (dotted-path columns)."""
 
     shots: list[PreparedShot]
-    inputs: dict[str, np.ndarray]  # input path -> values (defaults applied), by position
+    inputs: Mapping[str, np.ndarray]  # input path -> values (defaults applied), by position
 
     def inputs_of(self, shots: Sequence[PreparedShot]) -> dict[str, np.ndarray]:
         positions = np.array([s.position for s in shots], dtype=np.intp)
@@ -204,7 +204,7 @@ def check_shot_body(payload: Any) -> None:
 
 def _checked_inputs(
     payloads: Sequence[Mapping[str, Any]], prefixes: Sequence[str], non_finite: Sequence[bool]
-) -> tuple[dict[str, np.ndarray], list[FieldProblem]]:
+) -> tuple[Mapping[str, np.ndarray], list[FieldProblem]]:
     """Validated input columns of every shot, or the problems naming each failing field.
 
     The vectorised check (model.validate_columns) clears the usual all-valid case in one
