@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
+from datetime import timedelta
 from functools import lru_cache
 
-from pydantic import AliasChoices, Field
+from pydantic import AliasChoices, Field, field_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 
@@ -24,6 +25,31 @@ class Settings(BaseSettings):
     secure_cookies: bool = False
     # Run `db upgrade` at start-up.
     migrate_on_start: bool = True
+    # Per-token budgets (``limits`` rate strings; empty: no limit) and where they are counted
+    # (memory:// per process; a shared store such as redis://host:6379 for several app processes).
+    rate_limit_writes: str = "1200/minute"
+    rate_limit_expensive_reads: str = "300/minute"
+    rate_limit_storage: str = "memory://"
+    # How long a dashboard sign-in lasts (never longer than its token).
+    session_hours: float = Field(default=12.0, gt=0)
+    # A shot's taken_at may lie at most this far past the server's clock (clock skew, time zones).
+    max_future_hours: float = Field(default=24.0, gt=0)
+
+    @field_validator("rate_limit_writes", "rate_limit_expensive_reads")
+    @classmethod
+    def _readable_rate(cls, value: str) -> str:
+        from app.services.rate_limits import parse_rate
+
+        parse_rate(value)  # ValueError names the setting
+        return value
+
+    @property
+    def max_future(self) -> timedelta:
+        return timedelta(hours=self.max_future_hours)
+
+    @property
+    def session_lifetime(self) -> timedelta:
+        return timedelta(hours=self.session_hours)
 
 
 @lru_cache

@@ -8,12 +8,13 @@ in ``model.INPUT_FIELDS``).
 
 from __future__ import annotations
 
+import re
 from collections.abc import Iterable, Sequence
-from datetime import datetime
-from typing import Any, Literal
+from datetime import UTC, datetime
+from typing import Annotated, Any, Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator
+from pydantic import AfterValidator, AwareDatetime, BaseModel, BeforeValidator, ConfigDict, Field, field_validator
 
 
 def dotted(loc: Sequence[Any]) -> str:
@@ -35,6 +36,29 @@ def pydantic_problems(errors: Iterable[Any], prefix: str = "") -> list[tuple[str
     return out
 
 
+_NUMBER_TEXT = re.compile(r"^\s*[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?\s*$")
+
+
+def _time_text_only(value: Any) -> Any:
+    """A time is ISO 8601 text: a number (or a number as text) is not read as a Unix time."""
+    if isinstance(value, datetime):
+        return value
+    if not isinstance(value, str) or _NUMBER_TEXT.match(value):
+        raise ValueError("must be ISO 8601 text with a UTC offset, e.g. 2026-11-27T14:05:00Z (not a number)")
+    return value
+
+
+def _in_utc(value: datetime) -> datetime:
+    try:
+        return value.astimezone(UTC)
+    except OverflowError:  # e.g. 0001-01-01T00:00+05:00 is before the first representable UTC instant
+        raise ValueError("is outside the range of times this service can store") from None
+
+
+# An instant as the API takes it: ISO 8601 text with an offset (numbers and naive times are
+# refused), converted to UTC.
+Instant = Annotated[AwareDatetime, BeforeValidator(_time_text_only), AfterValidator(_in_utc)]
+
 SHOT_ID_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9._:+-]{0,127}$"
 SLUG_PATTERN = r"^[a-z0-9][a-z0-9-]{0,63}$"
 
@@ -46,7 +70,7 @@ class ShotEnvelope(BaseModel):
     model_config = ConfigDict(extra="ignore")
 
     shot_id: str = Field(pattern=SHOT_ID_PATTERN, description="unique within the campaign")
-    taken_at: AwareDatetime = Field(description="ISO 8601 with a UTC offset; naive times are refused")
+    taken_at: Instant = Field(description="ISO 8601 with a UTC offset; naive times and numbers are refused")
     notes: str = Field(default="", max_length=20000)
     tags: list[str] = Field(default_factory=list, max_length=100)
 

@@ -10,11 +10,11 @@ from typing import Annotated, Any, Literal
 
 from fastapi import APIRouter, Body, Depends, Query, Request, Response
 from fastapi.responses import PlainTextResponse
-from pydantic import AwareDatetime
 
 from app.config import Settings
 from app.errors import InvalidInput
 from app.routers.deps import DB, Admin, Ingester, Viewer, get_settings
+from app.routers.json_body import StrictJSONRoute
 from app.schemas import (
     BatchIn,
     BatchItemOut,
@@ -22,6 +22,7 @@ from app.schemas import (
     CampaignCreate,
     CampaignList,
     CampaignOut,
+    Instant,
     JobOut,
     RevisionList,
     SettingsChangeOut,
@@ -34,8 +35,8 @@ from app.services import shots as shot_service
 from app.services.campaign_settings import change_settings
 from app.services.ingest import correct_shot, ingest_shots
 
-router = APIRouter(prefix="/api/v1", tags=["api"])
-ops_router = APIRouter(tags=["operations"])
+router = APIRouter(prefix="/api/v1", tags=["api"], route_class=StrictJSONRoute)
+ops_router = APIRouter(tags=["operations"], route_class=StrictJSONRoute)
 
 ShotBody = Annotated[dict[str, Any], Body(description="a shot in the API JSON shape; unknown fields are kept")]
 
@@ -84,9 +85,16 @@ def get_job(job_id: str, session: DB, _who: Viewer) -> JobOut:
 
 
 @router.post("/campaigns/{slug}/shots", status_code=201)
-def post_shot(slug: str, payload: ShotBody, session: DB, who: Ingester, response: Response) -> dict[str, Any]:
+def post_shot(
+    slug: str,
+    payload: ShotBody,
+    session: DB,
+    who: Ingester,
+    response: Response,
+    settings: Annotated[Settings, Depends(get_settings)],
+) -> dict[str, Any]:
     """Store and evaluate one shot: 201 when new, 200 when the identical shot is already stored."""
-    result = ingest_shots(session, slug, [payload], who.actor, batch=False)
+    result = ingest_shots(session, slug, [payload], who.actor, batch=False, max_future=settings.max_future)
     [item] = result.items
     if item.outcome != "created":
         response.status_code = 200
@@ -107,7 +115,7 @@ def post_batch(
     """All or nothing: 422 lists every failing shot index and field; 409 on a conflicting replay."""
     if len(batch.shots) > settings.max_batch_shots:
         raise InvalidInput([("shots", f"at most {settings.max_batch_shots} shots per batch, got {len(batch.shots)}")])
-    result = ingest_shots(session, slug, batch.shots, who.actor, batch=True)
+    result = ingest_shots(session, slug, batch.shots, who.actor, batch=True, max_future=settings.max_future)
     created = result.count("created")
     if created == 0:
         response.status_code = 200
@@ -135,8 +143,8 @@ def list_shots(
         list[str] | None, Query(description="nominal, marginal, outside (repeat or comma-separate)")
     ] = None,
     flag: Annotated[list[str] | None, Query(description="flag code(s); a shot matches if any fired")] = None,
-    taken_from: Annotated[AwareDatetime | None, Query(alias="from", description="taken_at >= from")] = None,
-    taken_to: Annotated[AwareDatetime | None, Query(alias="to", description="taken_at < to")] = None,
+    taken_from: Annotated[Instant | None, Query(alias="from", description="taken_at >= from (ISO 8601)")] = None,
+    taken_to: Annotated[Instant | None, Query(alias="to", description="taken_at < to (ISO 8601)")] = None,
     seed_method: Annotated[list[str] | None, Query()] = None,
     order: Literal["asc", "desc"] = "asc",
     cursor: str | None = None,
@@ -168,10 +176,11 @@ def put_shot(
     payload: ShotBody,
     session: DB,
     who: Ingester,
+    settings: Annotated[Settings, Depends(get_settings)],
     reason: Annotated[str, Query(max_length=2000, description="why the shot is corrected")] = "",
 ) -> dict[str, Any]:
     """Store a correction as a new revision (re-evaluated); an identical body changes nothing."""
-    correct_shot(session, slug, shot_id, payload, who.actor, reason)
+    correct_shot(session, slug, shot_id, payload, who.actor, reason, max_future=settings.max_future)
     return shot_service.shot_detail(session, slug, shot_id)
 
 

@@ -4,16 +4,19 @@ from __future__ import annotations
 
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Body, Response
+from fastapi import APIRouter, Body, Path, Response
 
 from app.routers.deps import DB, Ingester, Viewer
+from app.routers.json_body import StrictJSONRoute
 from app.routers.responses import json_response  # stored results are large: encoded once
 from app.services import jobs as job_service
 from app.services.detailed_runs import lifecycle as runs
 
-router = APIRouter(prefix="/api/v1", tags=["detailed runs"])
+router = APIRouter(prefix="/api/v1", tags=["detailed runs"], route_class=StrictJSONRoute)
 
 RUNS = "/campaigns/{slug}/shots/{shot_id}/detailed-runs"
+# Run ids are database integers: a larger number names no run (and would overflow the query).
+RunId = Annotated[int, Path(ge=1, le=2**31 - 1, description="the run's id")]
 
 
 @router.post(RUNS, status_code=202)
@@ -42,12 +45,12 @@ def list_detailed_runs(slug: str, shot_id: str, session: DB, _who: Viewer) -> Re
 
 
 @router.get(RUNS + "/{run_id}")
-def get_detailed_run(slug: str, shot_id: str, run_id: int, session: DB, _who: Viewer) -> Response:
+def get_detailed_run(slug: str, shot_id: str, run_id: RunId, session: DB, _who: Viewer) -> Response:
     """One stored run with its full result (arrays as lists, SI units, null for NaN)."""
     return json_response(runs.get_run(session, slug, shot_id, run_id))
 
 
 @router.get(RUNS + "/{run_id}/figures")
-def get_detailed_run_figures(slug: str, shot_id: str, run_id: int, session: DB, _who: Viewer) -> Response:
+def get_detailed_run_figures(slug: str, shot_id: str, run_id: RunId, session: DB, _who: Viewer) -> Response:
     """The run as the shot page draws it: key numbers, validity note and three Plotly figures (decimated)."""
     return json_response(runs.run_view(session, slug, shot_id, run_id))

@@ -7,11 +7,12 @@ from typing import Annotated
 from fastapi import APIRouter, Query, Response
 
 from app.routers.deps import DB, Viewer
+from app.routers.json_body import StrictJSONRoute
 from app.routers.responses import file_response
 from app.services.weekly import exports
 from app.services.weekly.table import MEDIA_TYPES
 
-router = APIRouter(prefix="/api/v1", tags=["summary"])
+router = APIRouter(prefix="/api/v1", tags=["summary"], route_class=StrictJSONRoute)
 
 # HTML opens in the browser tab (the dashboard links to it); the others download.
 _INLINE = {"html", "json"}

@@ -74,12 +74,13 @@ def step_problems(params: RunParameters, plasma_length_m: float) -> list[FieldPr
     """A requested step must keep the run within the solver's step limit (model.envelope.MAX_STEPS)."""
     if params.dz_m is None:
         return []
-    steps = math.ceil(plasma_length_m / params.dz_m - 1e-9)
+    ratio = plasma_length_m / params.dz_m  # a subnormal dz_m makes this infinite
+    steps = math.ceil(ratio - 1e-9) if math.isfinite(ratio) else math.inf
     if steps > envelope.MAX_STEPS:
         return [
             (
                 "dz_m",
-                f"{plasma_length_m:g} m of plasma in steps of {params.dz_m:g} m is {steps} steps; "
+                f"{plasma_length_m:g} m of plasma in steps of {params.dz_m:g} m is {steps:.4g} steps; "
                 f"the solver takes at most {envelope.MAX_STEPS} "
                 f"(use dz_m >= {plasma_length_m / envelope.MAX_STEPS:.3g})",
             )
