@@ -11,57 +11,18 @@ from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
 from fastapi.staticfiles import StaticFiles
-from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from app.advisory import ADVISORY_CAUTION
 from app.config import Settings, get_settings
 from app.database import make_engine, make_session_factory, upgrade_database
-from app.problems import BODY_TOO_LARGE, ProblemError, install_problem_handlers, problem_response
+from app.problems import install_problem_handlers
 from app.routers import api, detailed_runs, pages, summary
+from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, RefuseNulInUrl
 from app.services import reevaluation
 from app.services.job_kinds import KINDS
 from app.services.jobs import ThreadRunner, attach_runner
+from app.services.rate_limits import RateLimiter
 from app.version import VERSION
-
-
-class BodySizeLimit:
-    """413 for bodies over ``limit`` bytes: by Content-Length up front, else while streaming."""
-
-    def __init__(self, app: ASGIApp, limit: int) -> None:
-        self.app, self.limit = app, limit
-
-    def _too_large(self) -> ProblemError:
-        return ProblemError(
-            413, "Content too large", f"the request body exceeds {self.limit} bytes", type_=BODY_TOO_LARGE
-        )
-
-    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
-        if scope["type"] != "http":
-            await self.app(scope, receive, send)
-            return
-        for name, value in scope.get("headers", ()):
-            if name == b"content-length":
-                try:
-                    too_big = int(value) > self.limit
-                except ValueError:
-                    too_big = False
-                if too_big:
-                    await problem_response(self._too_large())(scope, receive, send)
-                    return
-        received = 0
-
-        async def limited_receive() -> Message:
-            nonlocal received
-            message = await receive()
-            if message["type"] == "http.request":
-                received += len(message.get("body", b""))
-                if received > self.limit:
-                    # A ProblemError (an HTTPException) passes through FastAPI's body reader
-                    # and reaches the problem handlers as a 413.
-                    raise self._too_large()
-            return message
-
-        await self.app(scope, limited_receive, send)
 
 
 def _include_routers(app: FastAPI) -> None:
@@ -106,7 +67,13 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.engine = engine
     app.state.session_factory = factory
     app.state.jobs = runner
+    app.state.rate_limiter = RateLimiter.configured(
+        settings.rate_limit_writes, settings.rate_limit_expensive_reads, settings.rate_limit_storage
+    )
     install_problem_handlers(app)
     _include_routers(app)
+    # The last added runs first: NUL check, then authentication, then the size limit.
     app.add_middleware(BodySizeLimit, limit=settings.max_body_bytes)
+    app.add_middleware(AuthenticateBeforeBody)
+    app.add_middleware(RefuseNulInUrl)
     return app

@@ -11,12 +11,13 @@ installed plotly package; the palette's CSS custom properties from /assets/palet
 from __future__ import annotations
 
 import re
+import secrets
 from pathlib import Path
 from typing import Annotated, Any
 from urllib.parse import quote, urlencode, urlsplit
 
 import plotly
-from fastapi import APIRouter, Depends, Form, Request
+from fastapi import APIRouter, Depends, Form, Query, Request
 from fastapi.responses import FileResponse, HTMLResponse, RedirectResponse, Response
 
 from app.errors import DomainError, InvalidInput, NotFound
@@ -24,7 +25,9 @@ from app.presentation.csv_writer import csv_lines
 from app.presentation.palette import GLYPHS, css_variables
 from app.presentation.templates import environment
 from app.routers.deps import (
+    CSRF_FIELD,
     DB,
+    SESSION_COOKIE,
     PathCampaign,
     clear_session_cookie,
     principal_from_request,
@@ -74,8 +77,10 @@ router = APIRouter(include_in_schema=False)
 
 
 def render(request: Request, name: str, context: dict[str, Any], status_code: int = 200) -> Response:
+    principal: TokenInfo | None = getattr(request.state, "principal", None)
     context = {
-        "principal": getattr(request.state, "principal", None),
+        "principal": principal,
+        "csrf_token": principal.csrf_token if principal is not None else None,
         "campaign": None,
         "active": "",
         "phase_window_shots": NEIGHBOUR_WINDOW_SHOTS,
@@ -166,6 +171,26 @@ def _refuse_cross_site(request: Request) -> Response:
     )
 
 
+def _refused_form(request: Request, sent_csrf: Any) -> Response | None:
+    """The refusal page of a state-changing form post that is cross-site or lacks the
+    session's CSRF token, or None when the post may go ahead."""
+    if _cross_site(request):
+        return _refuse_cross_site(request)
+    who: TokenInfo | None = getattr(request.state, "principal", None)
+    if who is None or not auth.csrf_matches(who, sent_csrf if isinstance(sent_csrf, str) else None):
+        return render(
+            request,
+            "error.html",
+            {
+                "title": "Refused",
+                "message": "This form's security token does not match your sign-in (the page may be "
+                "older than your session), so nothing was changed. Reload the page and try again.",
+            },
+            403,
+        )
+    return None
+
+
 def install_page_handlers(app: Any) -> None:
     """Signed-out visitors go to the sign-in page; missing things get the not-found page."""
 
@@ -206,27 +231,62 @@ def home(request: Request) -> Response:
     return RedirectResponse("/campaigns" if _principal(request) else "/sign-in", status_code=303)
 
 
+# The sign-in form carries a one-off value that must match this cookie (double submit): a
+# page on another site cannot sign a browser in with a token of its choosing.
+SIGN_IN_COOKIE = "wakeledger_sign_in"
+
+
+def _sign_in_page(request: Request, next_path: str, error: str | None, status_code: int = 200) -> Response:
+    nonce = secrets.token_urlsafe(24)
+    response = render(request, "sign_in.html", {"next": next_path, "error": error, "nonce": nonce}, status_code)
+    response.set_cookie(
+        SIGN_IN_COOKIE,
+        nonce,
+        httponly=True,
+        samesite="strict",
+        secure=request.app.state.settings.secure_cookies,
+        path="/sign-in",
+        max_age=3600,
+    )
+    return response
+
+
 @router.get("/sign-in")
 def sign_in_form(request: Request, next: str = "/campaigns") -> Response:
-    return render(request, "sign_in.html", {"next": _safe_next(next), "error": None})
+    return _sign_in_page(request, _safe_next(next), None)
 
 
 @router.post("/sign-in")
-def sign_in(request: Request, session: DB, token: str = Form(""), next: str = Form("/campaigns")) -> Response:
-    info = auth.resolve_token(session, token.strip())
-    if info is None:
-        return render(
-            request, "sign_in.html", {"next": _safe_next(next), "error": "That token is unknown or revoked."}, 401
+def sign_in(
+    request: Request,
+    session: DB,
+    token: str = Form(""),
+    next: str = Form("/campaigns"),
+    nonce: str = Form(""),
+) -> Response:
+    if _cross_site(request):
+        return _refuse_cross_site(request)
+    expected = request.cookies.get(SIGN_IN_COOKIE)
+    if not expected or not secrets.compare_digest(expected, nonce):
+        return _sign_in_page(
+            request, _safe_next(next), "The sign-in form had expired; please paste the token again.", 400
         )
+    settings = request.app.state.settings
+    new = auth.start_session(session, token.strip(), settings.session_lifetime)
+    if new is None:
+        return _sign_in_page(request, _safe_next(next), "That token is unknown, revoked or expired.", 401)
     response = RedirectResponse(_safe_next(next), status_code=303)
-    set_session_cookie(response, token.strip(), request.app.state.settings)
+    set_session_cookie(response, new, settings)
+    response.delete_cookie(SIGN_IN_COOKIE, path="/sign-in")
     return response
 
 
 @router.post("/sign-out")
-def sign_out(request: Request) -> Response:
-    if _cross_site(request):
-        return _refuse_cross_site(request)
+async def sign_out(request: Request, _who: Reader, session: DB) -> Response:
+    refused = _refused_form(request, (await request.form()).get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    auth.end_session(session, request.cookies.get(SESSION_COOKIE))
     response = RedirectResponse("/sign-in", status_code=303)
     clear_session_cookie(response)
     return response
@@ -281,7 +341,13 @@ def chart_feed(name: str, _who: FeedReader, campaign: PathCampaign, session: DB)
 
 
 @router.get("/campaigns/{slug}/live")
-def live_feed(_who: FeedReader, campaign: PathCampaign, session: DB, since: int = 0, fields: str = "") -> Response:
+def live_feed(
+    _who: FeedReader,
+    campaign: PathCampaign,
+    session: DB,
+    since: Annotated[int, Query(ge=0, le=2**63 - 1)] = 0,
+    fields: str = "",
+) -> Response:
     shot_url = f"/campaigns/{quote(campaign.slug)}/shots/{{shot_id}}"
     return json_response(overview.live_update(session, campaign, since, shot_url, overview.live_extra(fields)))
 
@@ -420,9 +486,11 @@ async def settings_save(request: Request, campaign: PageCampaign, session: DB) -
     refused = _admins_only(request)
     if refused is not None:
         return refused
-    if _cross_site(request):
-        return _refuse_cross_site(request)
-    submitted = {k: v for k, v in (await request.form()).items() if isinstance(v, str)}
+    form = await request.form()
+    refused = _refused_form(request, form.get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    submitted = {k: v for k, v in form.items() if isinstance(v, str) and k != CSRF_FIELD}
     outcome = settings_form.save_settings(session, campaign, submitted, request.state.principal.actor)
     if outcome.errors:
         return render(

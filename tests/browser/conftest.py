@@ -16,6 +16,7 @@ import httpx
 import pytest
 
 from tests.support.page_shots import page_shots
+from tests.support.sessions import new_session
 
 CHROMIUM = Path("/usr/bin/chromium")
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
@@ -59,7 +60,7 @@ def backend() -> str:
 
 
 @pytest.fixture
-def page_server(live_server: str, admin_token: str, make_shot) -> dict[str, Any]:
+def page_server(app, live_server: str, admin_token: str, make_shot) -> dict[str, Any]:
     headers = {"Authorization": f"Bearer {admin_token}"}
     with httpx.Client(base_url=live_server, headers=headers, timeout=30) as api:
         r = api.post(
@@ -73,6 +74,7 @@ def page_server(live_server: str, admin_token: str, make_shot) -> dict[str, Any]
     return {
         "base": live_server,
         "token": admin_token,
+        "session": new_session(app, admin_token).cookie_value,  # a signed-in browser's cookie
         "slug": "browser-run",
         "headers": headers,
         "make_shot": make_shot,

@@ -12,6 +12,14 @@
 
   function byId(id) { return document.getElementById(id); }
 
+  // A write through the browser session carries the session's CSRF token (a meta tag of the page).
+  function writeHeaders() {
+    var meta = document.querySelector("meta[name=csrf-token]");
+    var headers = { "Content-Type": "application/json", Accept: "application/json" };
+    if (meta) headers["X-CSRF-Token"] = meta.getAttribute("content");
+    return headers;
+  }
+
   function readConfig() {
     var block = byId("detailed-run-config");
     if (!block) return null;
@@ -108,7 +116,7 @@
       text.textContent = "Starting the detailed run\u2026";
       fetch(cfg.runs_url, {
         method: "POST", credentials: "same-origin",
-        headers: { "Content-Type": "application/json", Accept: "application/json" },
+        headers: writeHeaders(),
         body: JSON.stringify(body)
       })
         .then(function (r) {
