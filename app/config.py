@@ -32,6 +32,17 @@ class Settings(BaseSettings):
     rate_limit_storage: str = "memory://"
     # How long a dashboard sign-in lasts (never longer than its token).
     session_hours: float = Field(default=12.0, gt=0)
+    # `serve` and `demo` start one local `wakeledger worker` beside the server (false: run
+    # workers yourself, on this host or others).
+    local_worker: bool = True
+    # Unfinished (queued or running) jobs a campaign, and a token, may have at once.
+    max_jobs_per_campaign: int = Field(default=20, ge=1)
+    max_jobs_per_token: int = Field(default=10, ge=1)
+    # A worker's claim on a job lasts this long unless its heartbeat renews it; a job whose
+    # worker died is taken over by another once the lease has run out.
+    job_lease_seconds: float = Field(default=30.0, gt=0)
+    job_heartbeat_seconds: float = Field(default=5.0, gt=0)
+    worker_poll_seconds: float = Field(default=1.0, gt=0)
     # A shot's taken_at may lie at most this far past the server's clock (clock skew, time zones).
     max_future_hours: float = Field(default=24.0, gt=0)
 

@@ -102,6 +102,10 @@ class ShotConflict(DomainError):
     """A shot id is already stored (or repeated in a batch) with a different payload."""
 
 
+class Conflict(DomainError):
+    """The request conflicts with the current state of the thing (e.g. cancelling a finished job)."""
+
+
 class AlreadyExists(DomainError):
     """A thing with this name exists already."""
 

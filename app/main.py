@@ -1,7 +1,8 @@
 """The FastAPI application: ``create_app(settings=None)``.
 
-Routers are listed once in ``_include_routers``; add yours there. The job runner is
-attached to the session factory while the app runs (``app.services.jobs``).
+Routers are listed once in ``_include_routers``; add yours there. The app holds no job
+and no state of its own: jobs run in worker processes (``app.services.workers``), so
+several app processes may serve behind one proxy.
 """
 
 from __future__ import annotations
@@ -19,8 +20,6 @@ from app.problems import install_problem_handlers
 from app.routers import api, detailed_runs, pages, summary
 from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, RefuseNulInUrl
 from app.services import reevaluation
-from app.services.job_kinds import KINDS
-from app.services.jobs import ThreadRunner, attach_runner
 from app.services.rate_limits import RateLimiter
 from app.version import VERSION
 
@@ -39,21 +38,16 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or get_settings()
     engine = make_engine(settings.database_url)
     factory = make_session_factory(engine)
-    runner = ThreadRunner(factory, KINDS)
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
         if settings.migrate_on_start:
             upgrade_database(settings.database_url)
-        # From now on a job starts as soon as the transaction that queued it commits.
-        attach_runner(factory, runner)
-        runner.resume_unfinished()
-        # Shots evaluated by an older model version (wakeledger was upgraded) are re-evaluated.
+        # Shots evaluated by an older model version (wakeledger was upgraded) are re-evaluated
+        # (queued once, under the campaign's lock, however many app processes start).
         with factory() as session:
             reevaluation.queue_model_upgrades(session)
         yield
-        attach_runner(factory, None)
-        runner.join(timeout=5.0)
         engine.dispose()
 
     app = FastAPI(
@@ -66,7 +60,6 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.settings = settings
     app.state.engine = engine
     app.state.session_factory = factory
-    app.state.jobs = runner
     app.state.rate_limiter = RateLimiter.configured(
         settings.rate_limit_writes, settings.rate_limit_expensive_reads, settings.rate_limit_storage
     )

@@ -20,6 +20,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from app.errors import (
     AlreadyExists,
+    Conflict,
     DomainError,
     FieldProblem,
     Forbidden,
@@ -45,6 +46,7 @@ UNAUTHORIZED = "/problems/unauthorized"
 FORBIDDEN = "/problems/forbidden"
 BODY_TOO_LARGE = "/problems/body-too-large"
 ALREADY_EXISTS = "/problems/already-exists"
+CONFLICT = "/problems/conflict"
 MALFORMED_BODY = "/problems/malformed-body"
 UNSUPPORTED_MEDIA_TYPE = "/problems/unsupported-media-type"
 RATE_LIMITED = "/problems/rate-limited"
@@ -107,6 +109,7 @@ _DOMAIN: list[tuple[type[DomainError], int, str, str, dict[str, str] | None]] = 
     (NotFound, 404, "Not found", NOT_FOUND, None),
     (ShotConflict, 409, "Shot conflict", SHOT_CONFLICT, None),
     (AlreadyExists, 409, "Already exists", ALREADY_EXISTS, None),
+    (Conflict, 409, "Conflict", CONFLICT, None),
     (Unauthorized, 401, "Unauthorized", UNAUTHORIZED, _BEARER),
     (Forbidden, 403, "Forbidden", FORBIDDEN, None),
     (TooManyJobs, 429, "Too many jobs", TOO_MANY_JOBS, None),

@@ -116,7 +116,7 @@ class JobOut(BaseModel):
     id: str
     kind: str
     campaign: str | None
-    state: Literal["queued", "running", "succeeded", "failed"]
+    state: Literal["queued", "running", "succeeded", "failed", "cancelled"]
     done: int
     total: int
     message: str
@@ -124,6 +124,9 @@ class JobOut(BaseModel):
     created_at: datetime
     started_at: datetime | None
     finished_at: datetime | None
+    submitted_by: str = Field(default="", description="who queued it (as in the audit trail)")
+    attempts: int = Field(default=0, description="how many times a worker has started it (resumptions included)")
+    cancel_requested: bool = Field(default=False, description="a cancel was asked for; the worker stops it shortly")
 
 
 class SettingsChangeOut(BaseModel):
@@ -164,3 +167,55 @@ class RevisionOut(BaseModel):
 
 class RevisionList(BaseModel):
     items: list[RevisionOut]
+
+
+class TokenOut(BaseModel):
+    """A token as admins see it (never the token itself: only its hash is stored)."""
+
+    id: int
+    name: str
+    role: str
+    state: Literal["active", "expired", "revoked"]
+    created_at: datetime
+    created_by: str
+    expires_at: datetime | None
+    last_used_at: datetime | None = Field(description="to the minute")
+    revoked_at: datetime | None
+    sessions: int = Field(description="browser sessions open now")
+
+
+class TokenList(BaseModel):
+    items: list[TokenOut]
+
+
+class TokenCreate(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    name: str = Field(min_length=1, max_length=200, description="who or what uses it (shown in the audit trail)")
+    role: Literal["viewer", "ingest", "admin"]
+    expires_in_days: float | None = Field(
+        default=None, gt=0, le=3660, allow_inf_nan=False, description="the token stops working after this many days"
+    )
+
+
+class TokenCreated(TokenOut):
+    token: str = Field(description="the new token; shown once, never stored")
+
+
+class AuditEntryOut(BaseModel):
+    id: int
+    at: datetime
+    actor: str
+    action: str
+    campaign: str | None
+    target: str
+    detail: dict[str, Any]
+
+
+class AuditPage(BaseModel):
+    items: list[AuditEntryOut]
+    next_before: int | None = Field(description="pass as before= for the next (older) page")
+
+
+class JobList(BaseModel):
+    items: list[JobOut]

@@ -152,3 +152,15 @@ class IsoWeek:
 def current_week(zone: ZoneInfo, now: datetime | None = None) -> IsoWeek:
     """The ISO week that ``now`` (default: this moment) falls in, in ``zone``."""
     return IsoWeek.containing(now or datetime.now(UTC), zone)
+
+
+_DURATION_RE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*(s|m|h|d|w)?\s*$", re.IGNORECASE)
+_DURATION_UNITS = {"s": 1, "m": 60, "h": 3600, "d": 86400, "w": 604800}
+
+
+def parse_duration(text: str) -> timedelta:
+    """``90d``, ``12h``, ``30m``, ``45s``, ``2w`` (a bare number is seconds); ValueError otherwise."""
+    match = _DURATION_RE.match(text) if isinstance(text, str) else None
+    if not match:
+        raise ValueError(f"{text!r} is not a duration; write e.g. 90d, 12h, 30m or 2w")
+    return timedelta(seconds=float(match.group(1)) * _DURATION_UNITS[(match.group(2) or "s").lower()])

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from typing import Annotated, Any, Literal
 
-from fastapi import APIRouter, Body, Depends, Query, Request, Response
+from fastapi import APIRouter, Body, Depends, Path, Query, Request, Response
 from fastapi.responses import PlainTextResponse
 
 from app.config import Settings
@@ -16,6 +16,7 @@ from app.errors import InvalidInput
 from app.routers.deps import DB, Admin, Ingester, Viewer, get_settings
 from app.routers.json_body import StrictJSONRoute
 from app.schemas import (
+    AuditPage,
     BatchIn,
     BatchItemOut,
     BatchOut,
@@ -23,13 +24,18 @@ from app.schemas import (
     CampaignList,
     CampaignOut,
     Instant,
+    JobList,
     JobOut,
     RevisionList,
     SettingsChangeOut,
     ShotPage,
+    TokenCreate,
+    TokenCreated,
+    TokenList,
+    TokenOut,
 )
+from app.services import administration, health, metrics
 from app.services import campaigns as campaign_service
-from app.services import health, metrics
 from app.services import jobs as job_service
 from app.services import shots as shot_service
 from app.services.campaign_settings import change_settings
@@ -76,9 +82,59 @@ def patch_settings(
     )
 
 
+@router.get("/jobs", response_model=JobList)
+def list_jobs(session: DB, _who: Admin) -> JobList:
+    """Queued and running jobs (oldest first), then the latest finished ones."""
+    return JobList(items=job_service.job_list(session))
+
+
 @router.get("/jobs/{job_id}", response_model=JobOut)
 def get_job(job_id: str, session: DB, _who: Viewer) -> JobOut:
     return job_service.job_detail(session, job_id)
+
+
+@router.delete("/jobs/{job_id}", response_model=JobOut)
+def cancel_job(job_id: str, session: DB, who: Viewer) -> JobOut:
+    """Cancel a job (the token that queued it, or an admin): a queued job at once, a running
+    one at its next progress report (``cancel_requested`` until then); 409 once it has finished."""
+    return job_service.cancel_job(session, job_id, who)
+
+
+# --- tokens and the audit trail (admins) ----------------------------------------------------------
+
+
+@router.get("/tokens", response_model=TokenList)
+def list_tokens(session: DB, _who: Admin) -> TokenList:
+    """Every token with its state, expiry, last use (to the minute) and open browser sessions."""
+    return administration.token_list(session)
+
+
+@router.post("/tokens", status_code=201, response_model=TokenCreated)
+def create_token(data: TokenCreate, session: DB, who: Admin, response: Response) -> TokenCreated:
+    """A new token; the answer is the only place it is ever shown."""
+    created = administration.create_token(session, data, who)
+    response.headers["Location"] = f"/api/v1/tokens/{created.id}"
+    return created
+
+
+@router.delete("/tokens/{token_id}", response_model=TokenOut)
+def revoke_token(token_id: Annotated[int, Path(ge=1, le=2**31 - 1)], session: DB, who: Admin) -> TokenOut:
+    """Revoke a token now; its browser sessions end with it."""
+    return administration.revoke_token(session, token_id, who)
+
+
+@router.get("/audit", response_model=AuditPage)
+def audit_trail(
+    session: DB,
+    _who: Admin,
+    campaign: str | None = None,
+    action: Annotated[str | None, Query(description="an action, or a prefix ending in '.' (e.g. token.)")] = None,
+    actor: str | None = None,
+    before: Annotated[int | None, Query(ge=1, le=2**63 - 1, description="entries older than this id")] = None,
+    limit: Annotated[int, Query(ge=1, le=administration.MAX_AUDIT_PAGE)] = 100,
+) -> AuditPage:
+    """Every write, newest first: who, what, which campaign, when."""
+    return administration.audit_page(session, campaign=campaign, action=action, actor=actor, before=before, limit=limit)
 
 
 # --- shots ---------------------------------------------------------------------------------------

@@ -89,6 +89,19 @@ def create_token(
     With ``replace_named`` the earlier active tokens of the same name are revoked in the
     same transaction (the demo's admin token: only the one printed last stays valid).
     """
+    return issue_token(session, role, name, actor, replace_named=replace_named, expires_in=expires_in)[0]
+
+
+def issue_token(
+    session: Session,
+    role: str,
+    name: str,
+    actor: str,
+    *,
+    replace_named: bool = False,
+    expires_in: timedelta | None = None,
+) -> tuple[str, int]:
+    """``create_token``, returning (raw token, token id)."""
     check_role(role)
     problems = []
     if not name.strip() or len(name) > 200:
@@ -114,8 +127,9 @@ def create_token(
             audit.record(
                 session, actor, "token.revoke", target=f"token:{revoked}", detail={"name": name, "replaced_by": row.id}
             )
+    token_id = row.id
     session.commit()
-    return raw
+    return raw, token_id
 
 
 def _info(row: ApiToken, csrf_token: str | None = None) -> TokenInfo:
@@ -180,13 +194,14 @@ def start_session(
     info = resolve_token(session, raw_token)
     if info is None or info.token_id is None:
         return None
+    token_id = info.token_id
     session_id = secrets.token_urlsafe(32)
     csrf = secrets.token_urlsafe(32)
     now = datetime.now(UTC)
 
     def work() -> datetime:
         begin_write(session)
-        row = tokens.get_token(session, info.token_id)
+        row = tokens.get_token(session, token_id)
         assert row is not None
         expires_at = now + lifetime if row.expires_at is None else min(now + lifetime, row.expires_at)
         tokens.add_session(session, hash_token(session_id), row.id, csrf, now, expires_at)

@@ -9,7 +9,6 @@ runs, is the job, and reads stored runs back (with their figures, for the shot p
 from __future__ import annotations
 
 import math
-import threading
 import time
 from collections.abc import Callable, Mapping
 from datetime import UTC, datetime
@@ -17,18 +16,18 @@ from typing import Any
 from urllib.parse import quote
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
-from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy.orm import Session
 
 import model
 from app.database import begin_write, run_write
 from app.errors import FieldProblem, InvalidInput, NotFound
 from app.schemas import pydantic_problems
 from app.services import jobs
+from app.services.auth import TokenInfo
 from app.services.campaigns import require_campaign
 from app.services.detailed_runs.figures import CHART_TITLES, run_facts, run_figures
 from app.store import audit
 from app.store import detailed_runs as run_store
-from app.store import jobs as job_store
 from app.store import shots as shot_store
 from app.tables import Campaign, DetailedRun, Job, Shot
 from app.times import format_utc
@@ -37,8 +36,6 @@ from model import envelope
 RUN_KIND = "detailed_run"
 MAX_SLICES_PER_WAVELENGTH = 128  # 8x the default grid: a run stays within minutes
 PROGRESS_INTERVAL_S = 0.5  # the job row is written at most this often while the solver runs
-# One solver at a time per process: the runs are CPU-bound and the service has few cores.
-_SOLVER_SLOT = threading.BoundedSemaphore(1)
 
 
 class RunParameters(BaseModel):
@@ -103,9 +100,18 @@ def _same_request(a: Mapping[str, Any], b: Mapping[str, Any]) -> bool:
     return all(a.get(k) == b.get(k) for k in keys)
 
 
-def start_run(session: Session, slug: str, shot_id: str, params: RunParameters, actor: str) -> Job:
+def start_run(
+    session: Session,
+    slug: str,
+    shot_id: str,
+    params: RunParameters,
+    who: TokenInfo,
+    limits: jobs.JobLimits = jobs.NO_LIMITS,
+) -> Job:
     """Queue a run of the shot's current revision. Asked again while an identical run is still
-    queued or running, it returns that job instead of starting a second one."""
+    queued or running, it returns that job instead of starting a second one; past the queue
+    limits of the campaign or of the token, TooManyJobs."""
+    actor = who.actor
 
     def work() -> Job:
         begin_write(session)
@@ -126,7 +132,7 @@ def start_run(session: Session, slug: str, shot_id: str, params: RunParameters, 
         for job in run_store.unfinished_jobs(session, RUN_KIND, campaign.id):
             if _same_request(jobs.job_params(job), wanted):
                 return job
-        job = jobs.queue_job(session, RUN_KIND, campaign.id, wanted)
+        job = jobs.queue_job(session, RUN_KIND, campaign.id, wanted, submitter=who, limits=limits)
         audit.record(
             session,
             actor,
@@ -164,25 +170,20 @@ class JobProgress:
         self.report(percent, 100, f"solving the envelope equations: {percent} %")
 
 
-def run_detailed_job(factory: sessionmaker[Session], job_id: str, progress: jobs.Progress) -> dict[str, Any]:
+def run_detailed_job(ctx: jobs.JobContext) -> dict[str, Any]:
     """Solve, then store the result in one transaction. Safe to restart: a stored run is not stored twice."""
+    job_id, p, factory, progress = ctx.job_id, ctx.params, ctx.factory, ctx.progress
     with factory() as session:
-        job = job_store.get_job(session, job_id)
-        if job is None:
-            raise LookupError(f"job {job_id} does not exist")
-        p = jobs.job_params(job)
         stored = run_store.run_id_for_job(session, job_id)
         payload = run_store.revision_payload(session, p["shot_pk"], p["shot_revision"]) if stored is None else None
     if stored is not None:
         return {"run_id": stored, "shot_id": p["shot_id"]}
     if payload is None:
         raise LookupError(f"shot {p['shot_id']!r} revision {p['shot_revision']} no longer exists")
-    progress(0, 100, "waiting for the solver")
-    with _SOLVER_SLOT:
-        progress(0, 100, "setting up the slices")
-        result = envelope.simulate_envelope(
-            payload, p["settings"], p["slices_per_wavelength"], p["dz_m"], progress=JobProgress(progress)
-        )
+    progress(0, 100, "setting up the slices")
+    result = envelope.simulate_envelope(
+        payload, p["settings"], p["slices_per_wavelength"], p["dz_m"], progress=JobProgress(progress)
+    )
     progress(100, 100, "storing the result")
     document = envelope.envelope_result_to_json(result)
     with factory() as session:
