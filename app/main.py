@@ -17,7 +17,7 @@ from app.advisory import ADVISORY_CAUTION
 from app.config import Settings, get_settings
 from app.database import make_engine, make_session_factory, upgrade_database
 from app.problems import install_problem_handlers
-from app.routers import api, detailed_runs, pages, summary
+from app.routers import api, detailed_runs, openapi, pages, summary
 from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, RefuseNulInUrl
 from app.services import reevaluation
 from app.services.rate_limits import RateLimiter
@@ -32,6 +32,7 @@ def _include_routers(app: FastAPI) -> None:
     app.mount("/static", StaticFiles(directory=pages.STATIC_DIR), name="static")
     app.include_router(summary.router)
     app.include_router(detailed_runs.router)
+    openapi.install_docs(app, pages.PAGE_HEADERS)
 
 
 def create_app(settings: Settings | None = None) -> FastAPI:
@@ -56,6 +57,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         summary="Shot ledger and self-modulation model check",
         description=ADVISORY_CAUTION,
         lifespan=lifespan,
+        docs_url=None,  # /docs is served from this host's own assets (app.routers.openapi)
+        redoc_url=None,
     )
     app.state.settings = settings
     app.state.engine = engine

@@ -136,7 +136,7 @@ def problem_of(error: DomainError) -> ProblemError:
     return ProblemError(500, "Internal server error", "the error was logged", type_=INTERNAL)
 
 
-_STATUS_TITLES = {
+STATUS_TITLES = {
     400: "Bad request",
     401: "Unauthorized",
     403: "Forbidden",
@@ -147,6 +147,7 @@ _STATUS_TITLES = {
     415: "Unsupported media type",
     422: "Invalid input",
     429: "Too many requests",
+    503: "Service unavailable",
     500: "Internal server error",
 }
 
@@ -162,7 +163,7 @@ def _as_problem(exc: Exception) -> ProblemError:
     if isinstance(exc, ShotInputError):
         return invalid_input([(str(f), str(r)) for f, r in exc.problems])
     if isinstance(exc, StarletteHTTPException):
-        title = _STATUS_TITLES.get(exc.status_code, "Error")
+        title = STATUS_TITLES.get(exc.status_code, "Error")
         detail = exc.detail if isinstance(exc.detail, str) else title
         return ProblemError(exc.status_code, title, detail, headers=getattr(exc, "headers", None))
     log.exception("unhandled error", exc_info=exc)

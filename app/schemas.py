@@ -14,7 +14,19 @@ from datetime import UTC, datetime
 from typing import Annotated, Any, Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from pydantic import AfterValidator, AwareDatetime, BaseModel, BeforeValidator, ConfigDict, Field, field_validator
+from pydantic import (
+    AfterValidator,
+    AwareDatetime,
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    create_model,
+    field_validator,
+)
+
+import model
+from model.inputs import InputField
 
 
 def dotted(loc: Sequence[Any]) -> str:
@@ -219,3 +231,75 @@ class AuditPage(BaseModel):
 
 class JobList(BaseModel):
     items: list[JobOut]
+
+
+# --- the shot body, described for the OpenAPI schema ------------------------------------------------
+# Bodies are validated by the ingest service (app.services.ingest.payloads, the model's
+# field table) and stored verbatim; these models describe the same fields for clients.
+
+
+def _input_field(f: InputField) -> tuple[Any, Any]:
+    unit = f" [{f.unit}]" if f.unit else ""
+    text = f"{f.description}{unit}" + (f"; default {f.default}" if f.default is not None else "")
+    constraints: dict[str, Any] = {}
+    if f.kind == "enum":
+        kind: Any = Literal[tuple(f.choices)]
+    else:
+        kind = int if f.kind == "integer" else float
+        if f.minimum is not None:
+            constraints["gt" if f.exclusive_minimum else "ge"] = f.minimum
+        if f.maximum is not None:
+            constraints["le"] = f.maximum
+        constraints["allow_inf_nan"] = False
+    required = f.required and not f.needed_for
+    return (kind if required else kind | None), Field(... if required else None, description=text, **constraints)
+
+
+def _section_model(section: str) -> type[BaseModel]:
+    fields = {f.path.split(".", 1)[1]: _input_field(f) for f in model.INPUT_FIELDS if f.path.startswith(section + ".")}
+    return create_model(  # type: ignore[call-overload]
+        f"Shot{section.capitalize()}",
+        __config__=ConfigDict(extra="forbid"),
+        __doc__=f"The {section} section: only these fields (an unknown one is refused, with a suggestion).",
+        **fields,
+    )
+
+
+ShotDriver = _section_model("driver")
+ShotPlasma = _section_model("plasma")
+ShotSeed = _section_model("seed")
+ShotMeasured = _section_model("measured")
+
+
+class ShotIn(BaseModel):
+    """One shot as data acquisition posts it. Other top-level sections (e.g. ``daq``) are kept verbatim."""
+
+    model_config = ConfigDict(extra="allow")
+
+    shot_id: str = Field(pattern=SHOT_ID_PATTERN, description="unique within the campaign")
+    taken_at: datetime = Field(description="ISO 8601 with a UTC offset, from 1990 to a day past the server's clock")
+    notes: str = Field(default="", max_length=20000)
+    tags: list[str] = Field(default_factory=list, max_length=100)
+    driver: ShotDriver  # type: ignore[valid-type]
+    plasma: ShotPlasma  # type: ignore[valid-type]
+    seed: ShotSeed | None = None  # type: ignore[valid-type]
+    measured: ShotMeasured | None = None  # type: ignore[valid-type]
+
+
+class BatchInDoc(BaseModel):
+    """A batch as documented (the shots are checked one by one by the ingest service)."""
+
+    shots: list[ShotIn] = Field(description="up to max_batch_shots shots; all are stored or none")
+
+
+class Problem(BaseModel):
+    """RFC 9457 problem details: the shape of every error answer."""
+
+    type: str
+    title: str
+    status: int
+    detail: str
+    errors: list[dict[str, str]] = Field(default_factory=list, description="{field, reason} of each failing field")
+    error_count: int | None = Field(default=None, description="all problems found, when errors lists only the first")
+    errors_truncated: bool | None = None
+    retry_after_s: int | None = Field(default=None, description="429: seconds until a retry may succeed")

@@ -12,15 +12,15 @@ from __future__ import annotations
 
 import re
 import secrets
-from pathlib import Path
+from pathlib import Path as FilePath
 from typing import Annotated, Any
 from urllib.parse import quote, urlencode, urlsplit
 
 import plotly
-from fastapi import APIRouter, Depends, Form, Query, Request
+from fastapi import APIRouter, Depends, Form, Path, Query, Request
 from fastapi.responses import FileResponse, HTMLResponse, RedirectResponse, Response
 
-from app.errors import DomainError, InvalidInput, NotFound
+from app.errors import Conflict, DomainError, Forbidden, InvalidInput, NotFound
 from app.presentation.csv_writer import csv_lines
 from app.presentation.palette import GLYPHS, css_variables
 from app.presentation.templates import environment
@@ -35,16 +35,18 @@ from app.routers.deps import (
     set_session_cookie,
 )
 from app.routers.responses import json_response, streamed_file
-from app.services import auth
+from app.schemas import TokenCreate
+from app.services import administration, auth
+from app.services import jobs as job_service
 from app.services.auth import TokenInfo
 from app.services.campaigns import Campaign, find_campaign
 from app.services.dashboard import overview, settings_form, shot_page, table
 from app.services.detailed_runs import lifecycle as detailed_runs
 from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
 
-APP_DIR = Path(__file__).resolve().parent.parent
+APP_DIR = FilePath(__file__).resolve().parent.parent
 STATIC_DIR = APP_DIR / "static"
-PLOTLY_JS = Path(plotly.__file__).resolve().parent / "package_data" / "plotly.min.js"
+PLOTLY_JS = FilePath(plotly.__file__).resolve().parent / "package_data" / "plotly.min.js"
 
 CONTENT_SECURITY_POLICY = "; ".join(
     (
@@ -448,7 +450,7 @@ def shot_detail(shot_id: str, request: Request, campaign: PageCampaign, session:
 # ------------------------------------------------------------------------ settings
 
 
-def _admins_only(request: Request) -> Response | None:
+def _admins_only(request: Request, what: str = "Changing the limits and model settings") -> Response | None:
     """The page that refuses a signed-in viewer or ingester (403), or None for an admin."""
     who: TokenInfo = request.state.principal
     if who.can("admin"):
@@ -456,10 +458,7 @@ def _admins_only(request: Request) -> Response | None:
     return render(
         request,
         "error.html",
-        {
-            "title": "Admins only",
-            "message": f"Changing the limits and model settings needs the admin role; you are signed in as {who.role}.",
-        },
+        {"title": "Admins only", "message": f"{what} needs the admin role; you are signed in as {who.role}."},
         403,
     )
 
@@ -509,3 +508,93 @@ async def settings_save(request: Request, campaign: PageCampaign, session: DB) -
     return RedirectResponse(
         f"/campaigns/{quote(campaign.slug)}/settings?job={quote(outcome.job_id or '')}", status_code=303
     )
+
+
+# ------------------------------------------------------------------------ administration
+
+
+def _admin_page(
+    request: Request,
+    session: DB,
+    *,
+    new_token: Any = None,
+    errors: list[tuple[str, str]] | None = None,
+    status_code: int = 200,
+) -> Response:
+    params = request.query_params
+    before = params.get("before")
+    audit_filter = {"campaign": params.get("campaign") or None, "action": params.get("action") or None}
+    audit = administration.audit_page(
+        session,
+        campaign=audit_filter["campaign"],
+        action=audit_filter["action"],
+        before=int(before) if before and before.isdigit() and len(before) < 19 else None,
+    )
+    older = {k: v for k, v in audit_filter.items() if v} | {"before": str(audit.next_before)}
+    return render(
+        request,
+        "admin.html",
+        {
+            "tokens": administration.token_list(session).items,
+            "jobs": job_service.job_list(session),
+            "audit": audit,
+            "audit_filter": audit_filter,
+            "older_link": "/admin?" + urlencode(older) + "#audit",
+            "roles": auth.ROLES,
+            "new_token": new_token,
+            "errors": errors or [],
+            "active": "admin",
+        },
+        status_code,
+    )
+
+
+@router.get("/admin")
+def admin_page(request: Request, _who: Reader, session: DB) -> Response:
+    return _admins_only(request, "The administration page") or _admin_page(request, session)
+
+
+@router.post("/admin/tokens")
+async def admin_create_token(request: Request, who: Reader, session: DB) -> Response:
+    form = await request.form()
+    refused = _admins_only(request, "Creating tokens") or _refused_form(request, form.get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    days = str(form.get("expires_in_days") or "").strip()
+    try:
+        data = TokenCreate(
+            name=str(form.get("name") or "").strip(),
+            role=str(form.get("role") or ""),  # type: ignore[arg-type]
+            expires_in_days=float(days) if days else None,
+        )
+    except (ValueError, TypeError) as exc:
+        problems = exc.errors() if hasattr(exc, "errors") else []
+        listed = [(".".join(str(p) for p in e["loc"]), e["msg"]) for e in problems] or [("expires_in_days", str(exc))]
+        return _admin_page(request, session, errors=listed, status_code=422)
+    created = administration.create_token(session, data, who)
+    return _admin_page(request, session, new_token=created)
+
+
+@router.post("/admin/tokens/{token_id}/revoke")
+async def admin_revoke_token(
+    token_id: Annotated[int, Path(ge=1, le=2**31 - 1)], request: Request, who: Reader, session: DB
+) -> Response:
+    form = await request.form()
+    refused = _admins_only(request, "Revoking tokens") or _refused_form(request, form.get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    administration.revoke_token(session, token_id, who)
+    return RedirectResponse("/admin#tokens", status_code=303)
+
+
+@router.post("/admin/jobs/{job_id}/cancel")
+async def admin_cancel_job(job_id: str, request: Request, who: Reader, session: DB) -> Response:
+    form = await request.form()
+    refused = _admins_only(request, "Cancelling jobs") or _refused_form(request, form.get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    try:
+        job_service.cancel_job(session, job_id, who)
+    except (Conflict, Forbidden) as exc:
+        return _admin_page(request, session, errors=[("job", exc.detail)], status_code=409)
+    return RedirectResponse("/admin#jobs", status_code=303)

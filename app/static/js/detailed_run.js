@@ -71,13 +71,25 @@
   function follow(cfg, jobId) {
     var box = byId("detailed-run-job"), bar = byId("detailed-run-bar"), text = byId("detailed-run-job-text");
     var button = document.querySelector("#detailed-run-form button");
+    var cancel = byId("detailed-run-cancel");
     var polls = 0;
     box.hidden = false;
     if (button) button.disabled = true;
+    if (cancel) {
+      cancel.hidden = false;
+      cancel.disabled = false;
+      cancel.onclick = function () {
+        cancel.disabled = true;
+        fetch("/api/v1/jobs/" + encodeURIComponent(jobId), { method: "DELETE", credentials: "same-origin", headers: writeHeaders() })
+          .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); text.textContent = "Cancelling the run\u2026"; })
+          .catch(function (err) { cancel.disabled = false; text.textContent = "The run was not cancelled (" + err.message + ")."; });
+      };
+    }
 
     function finish(message) {
       text.textContent = message;
       if (button) button.disabled = false;
+      if (cancel) cancel.hidden = true;
     }
 
     function poll() {
@@ -92,6 +104,7 @@
               .then(function (view) { showRun(view); finish("Detailed run finished: run #" + view.run.id + " is shown above."); });
           }
           if (job.state === "failed") return finish("The detailed run failed: " + job.message);
+          if (job.state === "cancelled") return finish("The detailed run was cancelled.");
           if (polls < MAX_POLLS) window.setTimeout(poll, POLL_MS);
           else finish("Still running; reload the page later to see the result.");
         })
