@@ -118,6 +118,7 @@ def serve(args: argparse.Namespace, settings: Settings) -> int:
 def _worker_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--name", help="how this worker appears in the jobs table (default: host:pid:random)")
     p.add_argument("--drain", action="store_true", help="run every queued job, then exit (instead of polling)")
+    p.add_argument("--parent-pid", type=int, metavar="PID", help="stop once the process PID has ended")
     p.add_argument("--log-level", default="info")
 
 
@@ -149,7 +150,7 @@ def worker(args: argparse.Namespace, settings: Settings) -> int:
         if args.drain:
             print(f"ran {runner.drain()} job(s)", file=sys.stderr)
         else:
-            runner.run_forever()
+            runner.run_forever(parent_pid=args.parent_pid)
     finally:
         engine.dispose()
     return 0

@@ -253,6 +253,7 @@ def job_worker(database_url: str) -> Iterator[Callable[..., Any]]:
         env = {**os.environ, "WAKELEDGER_WORKER_POLL_SECONDS": "0.2"}
         env.update({f"WAKELEDGER_{k.upper()}": str(v) for k, v in settings.items()})
         command = [sys.executable, "-m", "app.cli", "--database-url", database_url, "worker", "--log-level", "warning"]
+        command += ["--parent-pid", str(os.getpid())]  # gone with the test run, whatever ends it
         process = subprocess.Popen(command, env=env, cwd=REPO)
         started.append(process)
         return process

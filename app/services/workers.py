@@ -244,10 +244,13 @@ class Worker:
         if self._in_job:
             raise WorkerStopping(signal.Signals(signum).name)
 
-    def run_forever(self) -> None:
-        """Poll the queue until SIGTERM or SIGINT (``wakeledger worker``)."""
+    def run_forever(self, parent_pid: int | None = None) -> None:
+        """Poll the queue until SIGTERM or SIGINT (``wakeledger worker``); with ``parent_pid``,
+        also once that process has ended (a local worker never outlives its server)."""
         for sig in (signal.SIGTERM, signal.SIGINT):
             signal.signal(sig, self._on_signal)
+        if parent_pid is not None:
+            threading.Thread(target=_stop_with_parent, args=(parent_pid,), name="parent-watch", daemon=True).start()
         log.info("worker %s polling every %.1f s", self.owner, self.poll_s)
         try:
             while not self._stop_requested:
@@ -267,9 +270,17 @@ class Worker:
             log.info("worker %s stopped", self.owner)
 
 
+def _stop_with_parent(parent_pid: int) -> None:
+    """Send this process SIGTERM once its parent is gone (it is re-parented), checked every second."""
+    while os.getppid() == parent_pid:
+        time.sleep(1.0)
+    os.kill(os.getpid(), signal.SIGTERM)
+
+
 class LocalWorker:
     """One ``wakeledger worker`` subprocess for a server on this host (``serve``, ``demo``);
-    stopped (SIGTERM, then SIGKILL after ``grace_s``) when the server stops."""
+    stopped (SIGTERM, then SIGKILL after ``grace_s``) when the server stops, and stopping by
+    itself when the server's process ends any other way (e.g. a signal that ends it at once)."""
 
     def __init__(self, database_url: str, extra_args: Sequence[str] = (), grace_s: float = 5.0) -> None:
         self.database_url = database_url
@@ -278,7 +289,17 @@ class LocalWorker:
         self.process: subprocess.Popen[bytes] | None = None
 
     def __enter__(self) -> LocalWorker:
-        command = [sys.executable, "-m", "app.cli", "--database-url", self.database_url, "worker", *self.extra_args]
+        command = [
+            sys.executable,
+            "-m",
+            "app.cli",
+            "--database-url",
+            self.database_url,
+            "worker",
+            "--parent-pid",
+            str(os.getpid()),
+            *self.extra_args,
+        ]
         self.process = subprocess.Popen(command)
         return self
 
