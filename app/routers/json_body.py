@@ -21,6 +21,7 @@ from typing import Any
 
 from fastapi import Request, Response
 from fastapi.routing import APIRoute
+from starlette.concurrency import run_in_threadpool
 
 from app.errors import InvalidInput, ProblemList
 from app.problems import MALFORMED_BODY, UNSUPPORTED_MEDIA_TYPE, ProblemError, problem_of
@@ -111,10 +112,19 @@ def is_json_media_type(content_type: str | None) -> bool:
     return media == JSON_MEDIA_TYPE or (media.startswith("application/") and media.endswith("+json"))
 
 
+# Bodies larger than this are parsed on a worker thread, so that the event loop (and
+# /healthz) keeps answering while a batch of several megabytes is read.
+_PARSE_IN_THREAD_BYTES = 256 * 1024
+
+
 class StrictJSONRequest(Request):
     async def json(self) -> Any:
         if not hasattr(self, "_strict_json"):
-            self._strict_json = parse_json_body(await self.body())
+            raw = await self.body()
+            if len(raw) > _PARSE_IN_THREAD_BYTES:
+                self._strict_json = await run_in_threadpool(parse_json_body, raw)
+            else:
+                self._strict_json = parse_json_body(raw)
         return self._strict_json
 
 

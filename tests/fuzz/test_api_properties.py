@@ -3,7 +3,8 @@ hypothesis): for every operation, a fixed-seed set of generated requests, each o
 must answer without a 5xx, with a documented status code, content type and body schema.
 
 Bounded: ``EXAMPLES`` per operation, no shrinking, a fixed seed (``derandomize``), so a
-run costs the same every time and a failure is found again by the next run.
+run costs the same every time and a failure is found again by the next run (about a
+minute on two idle cores).
 """
 
 from __future__ import annotations
@@ -58,9 +59,7 @@ def _operations() -> list[tuple[str, str]]:
 
 
 @pytest.mark.parametrize(("method", "path"), _operations())
-def test_no_generated_request_gets_a_server_error_or_an_answer_outside_the_schema(
-    fuzz_app, fuzz_headers, method, path
-):
+def test_no_generated_request_gets_a_server_error_or_an_answer_outside_the_schema(fuzz_app, fuzz_headers, method, path):
     operation = schemathesis.openapi.from_asgi("/openapi.json", fuzz_app)[path][method]
 
     @given(case=operation.as_strategy())
@@ -68,7 +67,7 @@ def test_no_generated_request_gets_a_server_error_or_an_answer_outside_the_schem
         max_examples=EXAMPLES,
         derandomize=True,
         deadline=None,
-        phases=[Phase.explicit, Phase.generate],
+        phases=[Phase.generate],
         suppress_health_check=list(HealthCheck),
         database=None,
     )
