@@ -159,8 +159,9 @@ def run(repo: Path, backend: str, tmp: Path) -> None:
     partial = [b for b in ledger.batches if 0 < len(set(b) & stored) < len(b)]
     print(f"{backend}: {POSTERS} posters, kills: {', '.join(kills)}; answers {dict(sorted(ledger.answers.items()))}, "
           f"{ledger.errors} connection errors retried")  # fmt: skip
-    print(f"{backend}: {len(ledger.acknowledged):,} shots acknowledged, {len(stored - {'p99-0000'}):,} stored "
-          f"({evaluated:,} evaluations); lost: {len(lost)}; batches partly stored: {len(partial)} of {len(ledger.batches)}")  # fmt: skip
+    kept = len(stored - {"p99-0000"})
+    print(f"{backend}: {len(ledger.acknowledged):,} shots acknowledged, {kept:,} stored ({evaluated:,} evaluations)")
+    print(f"{backend}: lost: {len(lost)}; batches partly stored: {len(partial)} of {len(ledger.batches)}")
     if job is not None:
         print(f"{backend}: the detailed run whose workers were killed: {job['state']} after {job['attempts']} attempts")
 
