@@ -146,6 +146,7 @@ def worker(args: argparse.Namespace, settings: Settings) -> int:
             lease=timedelta(seconds=settings.job_lease_seconds),
             heartbeat_s=settings.job_heartbeat_seconds,
             poll_s=settings.worker_poll_seconds,
+            checkpoint_s=settings.job_checkpoint_seconds,
         )
         if args.drain:
             print(f"ran {runner.drain()} job(s)", file=sys.stderr)

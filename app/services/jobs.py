@@ -71,6 +71,7 @@ class JobContext:
     attempt: int
     checkpoint: bytes | None
     report: Callable[[dict[str, Any]], None]  # writes job fields while this worker holds the lease
+    checkpoint_interval_s: float = 10.0  # how often a long job should keep a checkpoint
     stop: threading.Event = field(default_factory=threading.Event)
     stop_reason: list[str] = field(default_factory=list)
 

@@ -44,6 +44,7 @@ log = logging.getLogger(__name__)
 DEFAULT_LEASE = timedelta(seconds=30)
 DEFAULT_HEARTBEAT_S = 5.0
 DEFAULT_POLL_S = 1.0
+DEFAULT_CHECKPOINT_S = 10.0
 
 
 class WorkerStopping(BaseException):
@@ -75,6 +76,7 @@ class Worker:
         lease: timedelta = DEFAULT_LEASE,
         heartbeat_s: float = DEFAULT_HEARTBEAT_S,
         poll_s: float = DEFAULT_POLL_S,
+        checkpoint_s: float = DEFAULT_CHECKPOINT_S,
     ) -> None:
         self.factory = factory
         self.kinds = dict(kinds)
@@ -82,6 +84,7 @@ class Worker:
         self.lease = lease
         self.heartbeat_s = heartbeat_s
         self.poll_s = poll_s
+        self.checkpoint_s = checkpoint_s
         self._stop_requested = False
         self._in_job = False
 
@@ -202,6 +205,7 @@ class Worker:
             attempt=claim.attempts,
             checkpoint=claim.checkpoint,
             report=lambda values: self._report(ctx, values),
+            checkpoint_interval_s=self.checkpoint_s,
         )
         finished = threading.Event()
         beat = threading.Thread(target=self._heartbeat, args=(ctx, finished), name="job-heartbeat", daemon=True)

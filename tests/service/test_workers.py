@@ -96,12 +96,17 @@ def test_a_job_whose_worker_died_is_taken_over_once_its_lease_has_run_out(app):
     assert _job(app, job_id).state == "succeeded"
 
 
-def test_a_worker_killed_mid_run_loses_its_lease_and_another_finishes_the_run(
+def _checkpointed(app, job_id: str) -> bool:
+    job = _job(app, job_id)
+    return job is not None and job.checkpoint is not None
+
+
+def test_a_worker_killed_mid_run_loses_its_lease_and_another_resumes_the_run_from_its_checkpoint(
     app, client, campaign, ingest_headers, viewer_headers, make_shot, job_worker
 ):
     job_id = _slow_run(client, campaign, ingest_headers, make_shot)
-    first = job_worker(job_lease_seconds=2, job_heartbeat_seconds=0.5)
-    _until(lambda: 2 <= _job_api(client, job_id, viewer_headers)["done"] <= 80, 120, "the run getting under way")
+    first = job_worker(job_lease_seconds=2, job_heartbeat_seconds=0.5, job_checkpoint_seconds=0.5)
+    _until(lambda: _checkpointed(app, job_id), 120, "the run's first checkpoint")
     os.kill(first.pid, signal.SIGKILL)
     first.wait(timeout=30)
     assert _job_api(client, job_id, viewer_headers)["state"] == "running"  # the lease has not run out yet
@@ -112,6 +117,7 @@ def test_a_worker_killed_mid_run_loses_its_lease_and_another_finishes_the_run(
         "the second worker finishing the run",
     )
     assert job["state"] == "succeeded" and job["attempts"] == 2, job
+    assert job["result"]["resumed_from_step"] > 0
     runs = client.get(f"/api/v1/campaigns/{campaign}/shots/slow-1/detailed-runs", headers=viewer_headers).json()
     assert [r["id"] for r in runs["items"]] == [job["result"]["run_id"]]
 
@@ -120,13 +126,14 @@ def test_stopping_a_worker_never_waits_on_its_job_and_hands_it_back(
     app, client, campaign, ingest_headers, viewer_headers, make_shot, job_worker
 ):
     job_id = _slow_run(client, campaign, ingest_headers, make_shot)
-    worker = job_worker()
-    _until(lambda: 1 <= _job_api(client, job_id, viewer_headers)["done"] <= 80, 120, "the run getting under way")
+    worker = job_worker(job_checkpoint_seconds=0.5)
+    _until(lambda: _checkpointed(app, job_id), 120, "the run's first checkpoint")
     worker.send_signal(signal.SIGTERM)
     assert worker.wait(timeout=30) == 0
     job = _job_api(client, job_id, viewer_headers)
     assert job["state"] == "queued" and job["attempts"] == 1 and job["done"] >= 1  # handed back, progress kept
-    assert wait_for_job(client, job_id, viewer_headers, timeout_s=300)["state"] == "succeeded"
+    finished = wait_for_job(client, job_id, viewer_headers, timeout_s=300)
+    assert finished["state"] == "succeeded" and finished["result"]["resumed_from_step"] > 0
 
 
 # --- cancelling ------------------------------------------------------------------------------------

@@ -2,12 +2,15 @@
 
 A run is a background job (kind ``detailed_run``) that solves the shot revision current
 when it was asked for, with the campaign's settings of that moment, and stores the JSON
-result in one transaction at the end: a failed run stores nothing. This module starts
+result in one transaction at the end: a failed run stores nothing. While it solves, the
+job keeps the solver's state as its checkpoint (every ``ctx.checkpoint_interval_s``), so
+a run whose worker died carries on from there, to the same result. This module starts
 runs, is the job, and reads stored runs back (with their figures, for the shot page).
 """
 
 from __future__ import annotations
 
+import io
 import math
 import time
 from collections.abc import Callable, Mapping
@@ -15,6 +18,7 @@ from datetime import UTC, datetime
 from typing import Any
 from urllib.parse import quote
 
+import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 from sqlalchemy.orm import Session
 
@@ -170,8 +174,33 @@ class JobProgress:
         self.report(percent, 100, f"solving the envelope equations: {percent} %")
 
 
+_STATE_ARRAYS = ("x", "y", "vx", "vy", "modulation", "sigma_stored")
+_STATE_NUMBERS = ("step", "n_steps", "next_store", "max_phase")
+
+
+def state_bytes(state: envelope.EnvelopeState) -> bytes:
+    """The solver's state as a job checkpoint (numpy's npz: exact floats)."""
+    out = io.BytesIO()
+    arrays: dict[str, Any] = {name: getattr(state, name) for name in _STATE_ARRAYS}
+    arrays.update({name: np.array(getattr(state, name)) for name in _STATE_NUMBERS})
+    np.savez(out, **arrays)
+    return out.getvalue()
+
+
+def state_of(data: bytes) -> envelope.EnvelopeState:
+    with np.load(io.BytesIO(data)) as saved:
+        return envelope.EnvelopeState(
+            step=int(saved["step"]),
+            n_steps=int(saved["n_steps"]),
+            next_store=int(saved["next_store"]),
+            max_phase=float(saved["max_phase"]),
+            **{name: saved[name] for name in _STATE_ARRAYS},
+        )
+
+
 def run_detailed_job(ctx: jobs.JobContext) -> dict[str, Any]:
-    """Solve, then store the result in one transaction. Safe to restart: a stored run is not stored twice."""
+    """Solve (from the checkpoint, if an earlier attempt kept one), then store the result in
+    one transaction. Safe to restart: a stored run is not stored twice."""
     job_id, p, factory, progress = ctx.job_id, ctx.params, ctx.factory, ctx.progress
     with factory() as session:
         stored = run_store.run_id_for_job(session, job_id)
@@ -180,10 +209,40 @@ def run_detailed_job(ctx: jobs.JobContext) -> dict[str, Any]:
         return {"run_id": stored, "shot_id": p["shot_id"]}
     if payload is None:
         raise LookupError(f"shot {p['shot_id']!r} revision {p['shot_revision']} no longer exists")
-    progress(0, 100, "setting up the slices")
-    result = envelope.simulate_envelope(
-        payload, p["settings"], p["slices_per_wavelength"], p["dz_m"], progress=JobProgress(progress)
-    )
+    resume = state_of(ctx.checkpoint) if ctx.checkpoint else None
+    progress(ctx.done if resume else 0, 100, f"resuming at step {resume.step}" if resume else "setting up the slices")
+    last_saved = [time.monotonic()]
+
+    def keep(state: envelope.EnvelopeState) -> None:
+        if time.monotonic() - last_saved[0] >= ctx.checkpoint_interval_s:
+            ctx.save_checkpoint(state_bytes(state))
+            last_saved[0] = time.monotonic()
+
+    reported = JobProgress(progress)
+    if resume is not None:
+        reported.last_percent = ctx.done - 1  # a resumed run reports on from where it was
+    try:
+        result = envelope.simulate_envelope(
+            payload,
+            p["settings"],
+            p["slices_per_wavelength"],
+            p["dz_m"],
+            progress=reported,
+            resume=resume,
+            checkpoint=keep,
+        )
+    except ValueError:
+        if resume is None:
+            raise
+        result = envelope.simulate_envelope(  # a checkpoint of another grid: solve from the start
+            payload,
+            p["settings"],
+            p["slices_per_wavelength"],
+            p["dz_m"],
+            progress=JobProgress(progress),
+            checkpoint=keep,
+        )
+        resume = None
     progress(100, 100, "storing the result")
     document = envelope.envelope_result_to_json(result)
     with factory() as session:
@@ -202,7 +261,12 @@ def run_detailed_job(ctx: jobs.JobContext) -> dict[str, Any]:
         )
         run_id = run.id
         session.commit()
-    return {"run_id": run_id, "shot_id": p["shot_id"], "valid_until_m": document["valid_until_m"]}
+    return {
+        "run_id": run_id,
+        "shot_id": p["shot_id"],
+        "valid_until_m": document["valid_until_m"],
+        "resumed_from_step": resume.step if resume is not None else None,
+    }
 
 
 # ----------------------------------------------------------------------------- reading
