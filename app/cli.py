@@ -130,6 +130,7 @@ def _worker_args(p: argparse.ArgumentParser) -> None:
 )
 def worker(args: argparse.Namespace, settings: Settings) -> int:
     import logging
+    import os
     from datetime import timedelta
 
     from app.database import make_engine, make_session_factory
@@ -137,6 +138,8 @@ def worker(args: argparse.Namespace, settings: Settings) -> int:
     from app.services.workers import Worker
 
     logging.basicConfig(level=args.log_level.upper(), format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    if settings.worker_niceness:
+        os.nice(settings.worker_niceness)  # the web server on the same host answers first
     engine = make_engine(settings.database_url)
     try:
         runner = Worker(

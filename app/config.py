@@ -43,6 +43,8 @@ class Settings(BaseSettings):
     job_lease_seconds: float = Field(default=30.0, gt=0)
     job_heartbeat_seconds: float = Field(default=5.0, gt=0)
     worker_poll_seconds: float = Field(default=1.0, gt=0)
+    # Workers run at this much lower CPU priority (nice) than the web server on a shared host.
+    worker_niceness: int = Field(default=10, ge=0, le=19)
     # A long job (a detailed run) keeps a checkpoint this often, to resume from after a crash.
     job_checkpoint_seconds: float = Field(default=10.0, gt=0)
     # A shot's taken_at may lie at most this far past the server's clock (clock skew, time zones).
