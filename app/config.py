@@ -5,6 +5,7 @@ from __future__ import annotations
 from datetime import timedelta
 from functools import lru_cache
 
+import limits
 from pydantic import AliasChoices, Field, field_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
@@ -53,9 +54,8 @@ class Settings(BaseSettings):
     @field_validator("rate_limit_writes", "rate_limit_expensive_reads")
     @classmethod
     def _readable_rate(cls, value: str) -> str:
-        from app.services.rate_limits import parse_rate
-
-        parse_rate(value)  # ValueError names the setting
+        if value.strip():
+            limits.parse(value)  # ValueError names the setting
         return value
 
     @property

@@ -654,3 +654,11 @@ def test_phases_either_side_of_plus_minus_pi_get_a_small_spread_on_the_overview(
     figure = figures.phase_figure(db, _campaign(db))
     per_group = next(t for t in figure["data"] if t["name"].startswith("measured shot-to-shot phase jitter"))
     assert per_group["y"] and all(v is not None and v < 0.05 for v in per_group["y"])
+
+
+def test_the_shot_page_lists_the_fields_that_took_their_defaults(viewer_client, campaign, admin_headers, make_shot):
+    shot = make_shot(shot_id="defaults-page", drop=["driver.emittance_n_mm_mrad"])
+    assert viewer_client.post(f"/api/v1/campaigns/{SLUG}/shots", json=shot, headers=admin_headers).status_code == 201
+    page = viewer_client.get(f"/campaigns/{SLUG}/shots/defaults-page").text
+    listed = page.split('id="defaulted-fields"', 1)[1].split("</p>", 1)[0]
+    assert "<code>driver.emittance_n_mm_mrad</code>" in listed and "plasma.density_cm3" not in listed
