@@ -100,7 +100,11 @@ class Worker:
             return run_write(session, txn)
 
     def claim(self) -> _Claim | None:
-        """Take the lease of the next claimable job, or None when there is none."""
+        """Take the lease of the next claimable job, or None when there is none (an idle
+        worker only reads: it takes the write lock when there is something to claim)."""
+        with self.factory() as session:
+            if not job_store.anything_to_claim(session, job_store.now(), list(self.kinds)):
+                return None
 
         def work(session: Session) -> _Claim | None:
             now = job_store.now()

@@ -74,16 +74,24 @@ def set_job(session: Session, job_id: str, **values: Any) -> None:
     session.execute(update(Job).where(Job.id == job_id).values(**values))
 
 
+def _claimable(now: datetime, kinds: Sequence[str]):
+    return (
+        or_(Job.state == "queued", (Job.state == "running") & (Job.lease_expires_at < now)),
+        Job.kind.in_(list(kinds)),
+    )
+
+
+def anything_to_claim(session: Session, now: datetime, kinds: Sequence[str]) -> bool:
+    """A read-only look (no write lock): is a job claimable, or a cancelled one abandoned?"""
+    return session.scalar(select(Job.id).where(*_claimable(now, kinds)).limit(1)) is not None
+
+
 def claim_next(session: Session, owner: str, now: datetime, lease_until: datetime, kinds: Sequence[str]) -> Job | None:
     """Take the lease of the oldest claimable job: queued, or running with a lapsed lease
     (its worker died), not asked to cancel, of a kind this worker knows. Caller commits."""
     candidate = session.scalar(
         select(Job)
-        .where(
-            or_(Job.state == "queued", (Job.state == "running") & (Job.lease_expires_at < now)),
-            Job.cancel_requested_at.is_(None),
-            Job.kind.in_(list(kinds)),
-        )
+        .where(*_claimable(now, kinds), Job.cancel_requested_at.is_(None))
         .order_by(Job.created_at)
         .limit(1)
         .with_for_update(skip_locked=True)
