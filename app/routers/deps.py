@@ -51,10 +51,6 @@ def bearer_token(request: Request) -> str | None:
     return header
 
 
-def has_credentials(request: Request) -> bool:
-    return bool(request.headers.get("authorization") or request.cookies.get(SESSION_COOKIE))
-
-
 def principal_from_request(request: Request) -> TokenInfo | None:
     """Who is calling: a token's identity (from the header, or the browser session of the
     cookie), the anonymous demo viewer, or None. Resolved once per request.
@@ -78,7 +74,7 @@ def principal_from_request(request: Request) -> TokenInfo | None:
     return who
 
 
-def check_csrf(request: Request, who: TokenInfo, sent: str | None) -> None:
+def check_csrf(who: TokenInfo, sent: str | None) -> None:
     """A write through a browser session must carry that session's CSRF token."""
     if who.csrf_token is not None and not auth.csrf_matches(who, sent):
         raise Forbidden(f"a browser request that changes something must send its session's {CSRF_HEADER}")
@@ -101,7 +97,7 @@ def require_role(role: str) -> Callable[[Request], TokenInfo]:
     def dependency(request: Request) -> TokenInfo:
         who = auth.authorize(principal_from_request(request), role)
         if request.method not in SAFE_METHODS:
-            check_csrf(request, who, request.headers.get(CSRF_HEADER))
+            check_csrf(who, request.headers.get(CSRF_HEADER))
             rate_limit(request, who, "write")
         return who
 

@@ -24,7 +24,6 @@ from limits import RateLimitItem, parse, storage, strategies
 
 from app.errors import RateLimited
 
-KINDS = ("write", "expensive_read")
 _WHAT = {"write": "writes", "expensive_read": "downloads and large reads"}
 
 
@@ -56,9 +55,7 @@ class RateLimiter:
             return
         reset_at, _remaining = self.limiter.get_window_stats(rate, kind, key)
         wait = max(1, math.ceil(reset_at - time.time()))
+        period = rate.GRANULARITY.name if rate.multiples == 1 else f"{rate.multiples} {rate.GRANULARITY.name}s"
         raise RateLimited(
-            f"too many {_WHAT[kind]} from this token: at most {rate.amount} per "
-            f"{rate.multiples if rate.multiples > 1 else ''}{' ' if rate.multiples > 1 else ''}"
-            f"{rate.GRANULARITY.name}{'s' if rate.multiples > 1 else ''}; retry in {wait} s",
-            wait,
+            f"too many {_WHAT[kind]} from this token: at most {rate.amount} per {period}; retry in {wait} s", wait
         )
