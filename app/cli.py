@@ -219,7 +219,7 @@ def token_list(args: argparse.Namespace, settings: Settings) -> int:
     from app.times import format_utc
 
     def when(moment) -> str:
-        return format_utc(moment) if moment is not None else "-"
+        return format_utc(moment.replace(microsecond=0)) if moment is not None else "-"
 
     engine = make_engine(settings.database_url)
     try:
