@@ -28,6 +28,7 @@ from app.routers.deps import (
     CSRF_FIELD,
     DB,
     SESSION_COOKIE,
+    ExpensiveRead,
     PathCampaign,
     clear_session_cookie,
     principal_from_request,
@@ -410,7 +411,7 @@ def _table_link(slug: str, params: dict[str, str], changes: dict[str, Any]) -> s
 
 
 @router.get("/campaigns/{slug}/shots.csv")
-def shot_table_csv(slug: str, request: Request, _who: Reader) -> Response:
+def shot_table_csv(slug: str, request: Request, _who: Reader, _budget: ExpensiveRead) -> Response:
     factory = request.app.state.session_factory
     with factory() as session:
         campaign = find_campaign(session, slug)

@@ -212,6 +212,25 @@ def test_past_its_write_budget_a_token_gets_429_with_retry_after(settings, campa
         strict.state.engine.dispose()
 
 
+def test_downloads_have_their_own_budget_per_token(settings, campaign, viewer_token):
+    from starlette.testclient import TestClient
+
+    from app.main import create_app
+
+    strict = create_app(settings.model_copy(update={"rate_limit_expensive_reads": "2/minute"}))
+    try:
+        with TestClient(strict) as limited:
+            summary = f"/api/v1/campaigns/{campaign}/summary?week=2026-W47&format=csv"
+            assert limited.get(summary, headers=_bearer(viewer_token)).status_code == 200
+            sign_in(limited, viewer_token)
+            assert limited.get(f"/campaigns/{campaign}/shots.csv").status_code == 200
+            refused = limited.get(summary, headers=_bearer(viewer_token))
+            assert refused.status_code == 429 and "downloads" in refused.json()["detail"]
+            assert limited.get(f"/api/v1/campaigns/{campaign}", headers=_bearer(viewer_token)).status_code == 200
+    finally:
+        strict.state.engine.dispose()
+
+
 def test_a_large_body_without_a_token_is_refused_before_it_is_read(client, campaign, ingest_headers):
     huge = b"x" * (17 * 1024 * 1024)
     url = f"/api/v1/campaigns/{campaign}/shots/batch"
