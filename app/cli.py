@@ -88,7 +88,20 @@ def _serve_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--log-level", default="info")
 
 
-@command("serve", help="run the API and dashboard (applies migrations first)", configure=_serve_args)
+def _local_worker(settings: Settings, database_url: str):
+    """One worker process beside the server, unless WAKELEDGER_LOCAL_WORKER is false."""
+    from contextlib import nullcontext
+
+    from app.services.workers import LocalWorker
+
+    return LocalWorker(database_url) if settings.local_worker else nullcontext()
+
+
+@command(
+    "serve",
+    help="run the API and dashboard (applies migrations first) with one local job worker",
+    configure=_serve_args,
+)
 def serve(args: argparse.Namespace, settings: Settings) -> int:
     import uvicorn
 
@@ -97,7 +110,53 @@ def serve(args: argparse.Namespace, settings: Settings) -> int:
 
     upgrade_database(settings.database_url)
     app = create_app(settings.model_copy(update={"migrate_on_start": False}))
-    uvicorn.run(app, host=args.host, port=args.port, log_level=args.log_level)
+    with _local_worker(settings, settings.database_url):
+        uvicorn.run(app, host=args.host, port=args.port, log_level=args.log_level)
+    return 0
+
+
+def _worker_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--name", help="how this worker appears in the jobs table (default: host:pid:random)")
+    p.add_argument("--drain", action="store_true", help="run every queued job, then exit (instead of polling)")
+    p.add_argument("--parent-pid", type=int, metavar="PID", help="stop once the process PID has ended")
+    p.add_argument("--log-level", default="info")
+
+
+@command(
+    "worker",
+    help="run background jobs (re-evaluations, detailed runs) from the database's queue until stopped; "
+    "start any number, on any host that reaches the database",
+    configure=_worker_args,
+)
+def worker(args: argparse.Namespace, settings: Settings) -> int:
+    import logging
+    import os
+    from datetime import timedelta
+
+    from app.database import make_engine, make_session_factory
+    from app.services.job_kinds import KINDS
+    from app.services.workers import Worker
+
+    logging.basicConfig(level=args.log_level.upper(), format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    if settings.worker_niceness:
+        os.nice(settings.worker_niceness)  # the web server on the same host answers first
+    engine = make_engine(settings.database_url)
+    try:
+        runner = Worker(
+            make_session_factory(engine),
+            KINDS,
+            name=args.name,
+            lease=timedelta(seconds=settings.job_lease_seconds),
+            heartbeat_s=settings.job_heartbeat_seconds,
+            poll_s=settings.worker_poll_seconds,
+            checkpoint_s=settings.job_checkpoint_seconds,
+        )
+        if args.drain:
+            print(f"ran {runner.drain()} job(s)", file=sys.stderr)
+        else:
+            runner.run_forever(parent_pid=args.parent_pid)
+    finally:
+        engine.dispose()
     return 0
 
 
@@ -110,25 +169,93 @@ def db_upgrade(args: argparse.Namespace, settings: Settings) -> int:
     return 0
 
 
+def _duration(text: str):
+    from app.times import parse_duration
+
+    try:
+        return parse_duration(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
 def _token_args(p: argparse.ArgumentParser) -> None:
     from app.services.auth import ROLES
 
     p.add_argument("--role", required=True, choices=ROLES)
     p.add_argument("--name", required=True, help="who or what uses the token (shown in the audit trail)")
+    p.add_argument(
+        "--expires-in", type=_duration, metavar="DURATION", help="the token stops working after e.g. 90d, 12h, 2w"
+    )
 
 
 @command("token create", help="create an API token; prints only the token", configure=_token_args)
 def token_create(args: argparse.Namespace, settings: Settings) -> int:
     from app.database import make_engine, make_session_factory
+    from app.errors import InvalidInput
     from app.services.auth import create_token
 
     engine = make_engine(settings.database_url)
     try:
         with make_session_factory(engine)() as session:
-            raw = create_token(session, args.role, args.name, actor="cli")
+            raw = create_token(session, args.role, args.name, actor="cli", expires_in=args.expires_in)
+    except InvalidInput as exc:
+        for field, reason in exc.problems:
+            print(f"wakeledger token create: error: --{field.replace('_', '-')} {reason}", file=sys.stderr)
+        return 2
     finally:
         engine.dispose()
     print(raw)
+    return 0
+
+
+def _token_list_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--active", action="store_true", help="only tokens that work now (not revoked or expired)")
+
+
+@command("token list", help="list the tokens: id, name, role, state, expiry, last use", configure=_token_list_args)
+def token_list(args: argparse.Namespace, settings: Settings) -> int:
+    from app.database import make_engine, make_session_factory
+    from app.services.auth import list_tokens
+    from app.times import format_utc
+
+    def when(moment) -> str:
+        return format_utc(moment.replace(microsecond=0)) if moment is not None else "-"
+
+    engine = make_engine(settings.database_url)
+    try:
+        with make_session_factory(engine)() as session:
+            rows = list_tokens(session, include_inactive=not args.active)
+    finally:
+        engine.dispose()
+    print(f"{'id':>5}  {'name':<24} {'role':<7} {'state':<8} {'expires':<21} {'last used':<21} sessions")
+    for t in rows:
+        print(
+            f"{t.id:>5}  {t.name[:24]:<24} {t.role:<7} {t.state:<8} {when(t.expires_at):<21} "
+            f"{when(t.last_used_at):<21} {t.sessions}"
+        )
+    return 0
+
+
+def _token_revoke_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("token_id", type=int, metavar="ID", help="the id shown by `wakeledger token list`")
+
+
+@command("token revoke", help="revoke a token now (its browser sessions end too)", configure=_token_revoke_args)
+def token_revoke(args: argparse.Namespace, settings: Settings) -> int:
+    from app.database import make_engine, make_session_factory
+    from app.errors import NotFound
+    from app.services.auth import revoke_token
+
+    engine = make_engine(settings.database_url)
+    try:
+        with make_session_factory(engine)() as session:
+            revoked = revoke_token(session, args.token_id, actor="cli")
+    except NotFound as exc:
+        print(f"wakeledger token revoke: error: {exc.detail}", file=sys.stderr)
+        return 1
+    finally:
+        engine.dispose()
+    print(f"token {revoked.id} ({revoked.name}, {revoked.role}) is revoked", file=sys.stderr)
     return 0
 
 
@@ -159,7 +286,8 @@ def demo(args: argparse.Namespace, settings: Settings) -> int:
     print(f"admin token: {prepared.admin_token}")
     print(f"invented data. {ADVISORY_CAUTION}")
     sys.stdout.flush()
-    uvicorn.run(prepared.app, host="127.0.0.1", port=args.port, log_level=args.log_level)
+    with _local_worker(settings, prepared.database_url):
+        uvicorn.run(prepared.app, host="127.0.0.1", port=args.port, log_level=args.log_level)
     return 0
 
 

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+from datetime import timedelta
 from functools import lru_cache
 
-from pydantic import AliasChoices, Field
+import limits
+from pydantic import AliasChoices, Field, field_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 
@@ -24,6 +26,45 @@ class Settings(BaseSettings):
     secure_cookies: bool = False
     # Run `db upgrade` at start-up.
     migrate_on_start: bool = True
+    # Per-token budgets (``limits`` rate strings; empty: no limit) and where they are counted
+    # (memory:// per process; a shared store such as redis://host:6379 for several app processes).
+    rate_limit_writes: str = "1200/minute"
+    rate_limit_expensive_reads: str = "300/minute"
+    rate_limit_storage: str = "memory://"
+    # How long a dashboard sign-in lasts (never longer than its token).
+    session_hours: float = Field(default=12.0, gt=0)
+    # `serve` and `demo` start one local `wakeledger worker` beside the server (false: run
+    # workers yourself, on this host or others).
+    local_worker: bool = True
+    # Unfinished (queued or running) jobs a campaign, and a token, may have at once.
+    max_jobs_per_campaign: int = Field(default=20, ge=1)
+    max_jobs_per_token: int = Field(default=10, ge=1)
+    # A worker's claim on a job lasts this long unless its heartbeat renews it; a job whose
+    # worker died is taken over by another once the lease has run out.
+    job_lease_seconds: float = Field(default=30.0, gt=0)
+    job_heartbeat_seconds: float = Field(default=5.0, gt=0)
+    worker_poll_seconds: float = Field(default=1.0, gt=0)
+    # Workers run at this much lower CPU priority (nice) than the web server on a shared host.
+    worker_niceness: int = Field(default=10, ge=0, le=19)
+    # A long job (a detailed run) keeps a checkpoint this often, to resume from after a crash.
+    job_checkpoint_seconds: float = Field(default=10.0, gt=0)
+    # A shot's taken_at may lie at most this far past the server's clock (clock skew, time zones).
+    max_future_hours: float = Field(default=24.0, gt=0)
+
+    @field_validator("rate_limit_writes", "rate_limit_expensive_reads")
+    @classmethod
+    def _readable_rate(cls, value: str) -> str:
+        if value.strip():
+            limits.parse(value)  # ValueError names the setting
+        return value
+
+    @property
+    def max_future(self) -> timedelta:
+        return timedelta(hours=self.max_future_hours)
+
+    @property
+    def session_lifetime(self) -> timedelta:
+        return timedelta(hours=self.session_hours)
 
 
 @lru_cache

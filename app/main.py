@@ -1,7 +1,8 @@
 """The FastAPI application: ``create_app(settings=None)``.
 
-Routers are listed once in ``_include_routers``; add yours there. The job runner is
-attached to the session factory while the app runs (``app.services.jobs``).
+Routers are listed once in ``_include_routers``; add yours there. The app holds no job
+and no state of its own: jobs run in worker processes (``app.services.workers``), so
+several app processes may serve behind one proxy.
 """
 
 from __future__ import annotations
@@ -11,57 +12,16 @@ from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
 from fastapi.staticfiles import StaticFiles
-from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from app.advisory import ADVISORY_CAUTION
 from app.config import Settings, get_settings
 from app.database import make_engine, make_session_factory, upgrade_database
-from app.problems import BODY_TOO_LARGE, ProblemError, install_problem_handlers, problem_response
-from app.routers import api, detailed_runs, pages, plan_pages, plans, summary
+from app.problems import install_problem_handlers
+from app.routers import api, detailed_runs, openapi, pages, plan_pages, plans, summary
+from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, RefuseNulInUrl
 from app.services import reevaluation
-from app.services.job_kinds import KINDS
-from app.services.jobs import ThreadRunner, attach_runner
+from app.services.rate_limits import RateLimiter
 from app.version import VERSION
-
-
-class BodySizeLimit:
-    """413 for bodies over ``limit`` bytes: by Content-Length up front, else while streaming."""
-
-    def __init__(self, app: ASGIApp, limit: int) -> None:
-        self.app, self.limit = app, limit
-
-    def _too_large(self) -> ProblemError:
-        return ProblemError(
-            413, "Content too large", f"the request body exceeds {self.limit} bytes", type_=BODY_TOO_LARGE
-        )
-
-    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
-        if scope["type"] != "http":
-            await self.app(scope, receive, send)
-            return
-        for name, value in scope.get("headers", ()):
-            if name == b"content-length":
-                try:
-                    too_big = int(value) > self.limit
-                except ValueError:
-                    too_big = False
-                if too_big:
-                    await problem_response(self._too_large())(scope, receive, send)
-                    return
-        received = 0
-
-        async def limited_receive() -> Message:
-            nonlocal received
-            message = await receive()
-            if message["type"] == "http.request":
-                received += len(message.get("body", b""))
-                if received > self.limit:
-                    # A ProblemError (an HTTPException) passes through FastAPI's body reader
-                    # and reaches the problem handlers as a 413.
-                    raise self._too_large()
-            return message
-
-        await self.app(scope, limited_receive, send)
 
 
 def _include_routers(app: FastAPI) -> None:
@@ -74,27 +34,23 @@ def _include_routers(app: FastAPI) -> None:
     app.include_router(detailed_runs.router)
     app.include_router(plans.router)
     app.include_router(plan_pages.router)
+    openapi.install_docs(app, pages.PAGE_HEADERS)
 
 
 def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or get_settings()
     engine = make_engine(settings.database_url)
     factory = make_session_factory(engine)
-    runner = ThreadRunner(factory, KINDS)
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
         if settings.migrate_on_start:
             upgrade_database(settings.database_url)
-        # From now on a job starts as soon as the transaction that queued it commits.
-        attach_runner(factory, runner)
-        runner.resume_unfinished()
-        # Shots evaluated by an older model version (wakeledger was upgraded) are re-evaluated.
+        # Shots evaluated by an older model version (wakeledger was upgraded) are re-evaluated
+        # (queued once, under the campaign's lock, however many app processes start).
         with factory() as session:
             reevaluation.queue_model_upgrades(session)
         yield
-        attach_runner(factory, None)
-        runner.join(timeout=5.0)
         engine.dispose()
 
     app = FastAPI(
@@ -103,12 +59,19 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         summary="Shot ledger and self-modulation model check",
         description=ADVISORY_CAUTION,
         lifespan=lifespan,
+        docs_url=None,  # /docs is served from this host's own assets (app.routers.openapi)
+        redoc_url=None,
     )
     app.state.settings = settings
     app.state.engine = engine
     app.state.session_factory = factory
-    app.state.jobs = runner
+    app.state.rate_limiter = RateLimiter.configured(
+        settings.rate_limit_writes, settings.rate_limit_expensive_reads, settings.rate_limit_storage
+    )
     install_problem_handlers(app)
     _include_routers(app)
+    # The last added runs first: NUL check, then authentication, then the size limit.
     app.add_middleware(BodySizeLimit, limit=settings.max_body_bytes)
+    app.add_middleware(AuthenticateBeforeBody)
+    app.add_middleware(RefuseNulInUrl)
     return app

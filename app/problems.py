@@ -20,12 +20,15 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from app.errors import (
     AlreadyExists,
+    Conflict,
     DomainError,
     FieldProblem,
     Forbidden,
     InvalidInput,
     NotFound,
+    RateLimited,
     ShotConflict,
+    TooManyJobs,
     Unauthorized,
     Unavailable,
 )
@@ -43,6 +46,11 @@ UNAUTHORIZED = "/problems/unauthorized"
 FORBIDDEN = "/problems/forbidden"
 BODY_TOO_LARGE = "/problems/body-too-large"
 ALREADY_EXISTS = "/problems/already-exists"
+CONFLICT = "/problems/conflict"
+MALFORMED_BODY = "/problems/malformed-body"
+UNSUPPORTED_MEDIA_TYPE = "/problems/unsupported-media-type"
+RATE_LIMITED = "/problems/rate-limited"
+TOO_MANY_JOBS = "/problems/too-many-jobs"
 INTERNAL = "/problems/internal-error"
 
 
@@ -81,8 +89,13 @@ class ProblemError(HTTPException):
 
 def invalid_input(problems: Sequence[FieldProblem], detail: str | None = None) -> ProblemError:
     """422 naming every failing field."""
-    error = InvalidInput(problems, detail)
-    return ProblemError(422, "Invalid input", error.detail, type_=INVALID_INPUT, errors=error.problems)
+    return _invalid(InvalidInput(problems, detail))
+
+
+def _invalid(error: InvalidInput) -> ProblemError:
+    """422 naming the failing fields; a capped list says how many problems there were."""
+    extra = {"error_count": error.total, "errors_truncated": True} if error.truncated else None
+    return ProblemError(422, "Invalid input", error.detail, type_=INVALID_INPUT, errors=error.problems, extra=extra)
 
 
 def problem_response(exc: ProblemError) -> JSONResponse:
@@ -96,21 +109,34 @@ _DOMAIN: list[tuple[type[DomainError], int, str, str, dict[str, str] | None]] = 
     (NotFound, 404, "Not found", NOT_FOUND, None),
     (ShotConflict, 409, "Shot conflict", SHOT_CONFLICT, None),
     (AlreadyExists, 409, "Already exists", ALREADY_EXISTS, None),
+    (Conflict, 409, "Conflict", CONFLICT, None),
     (Unauthorized, 401, "Unauthorized", UNAUTHORIZED, _BEARER),
     (Forbidden, 403, "Forbidden", FORBIDDEN, None),
+    (TooManyJobs, 429, "Too many jobs", TOO_MANY_JOBS, None),
     (Unavailable, 503, "Service unavailable", "about:blank", None),
 ]
 
 
 def problem_of(error: DomainError) -> ProblemError:
     """The problem document of a domain error."""
+    if isinstance(error, InvalidInput):
+        return _invalid(error)
+    if isinstance(error, RateLimited):
+        return ProblemError(
+            429,
+            "Too many requests",
+            error.detail,
+            type_=RATE_LIMITED,
+            headers={"Retry-After": str(error.retry_after_s)},
+            extra={"retry_after_s": error.retry_after_s},
+        )
     for kind, status, title, type_, headers in _DOMAIN:
         if isinstance(error, kind):
             return ProblemError(status, title, error.detail, type_=type_, errors=error.problems, headers=headers)
     return ProblemError(500, "Internal server error", "the error was logged", type_=INTERNAL)
 
 
-_STATUS_TITLES = {
+STATUS_TITLES = {
     400: "Bad request",
     401: "Unauthorized",
     403: "Forbidden",
@@ -120,6 +146,8 @@ _STATUS_TITLES = {
     413: "Content too large",
     415: "Unsupported media type",
     422: "Invalid input",
+    429: "Too many requests",
+    503: "Service unavailable",
     500: "Internal server error",
 }
 
@@ -135,7 +163,7 @@ def _as_problem(exc: Exception) -> ProblemError:
     if isinstance(exc, ShotInputError):
         return invalid_input([(str(f), str(r)) for f, r in exc.problems])
     if isinstance(exc, StarletteHTTPException):
-        title = _STATUS_TITLES.get(exc.status_code, "Error")
+        title = STATUS_TITLES.get(exc.status_code, "Error")
         detail = exc.detail if isinstance(exc.detail, str) else title
         return ProblemError(exc.status_code, title, detail, headers=getattr(exc, "headers", None))
     log.exception("unhandled error", exc_info=exc)

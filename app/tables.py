@@ -20,6 +20,7 @@ from sqlalchemy import (
     ForeignKey,
     Index,
     Integer,
+    LargeBinary,
     String,
     Text,
     TypeDecorator,
@@ -165,6 +166,8 @@ class Evaluation(Base):
     settings_version: Mapped[int] = mapped_column(Integer)
     status: Mapped[str] = mapped_column(String(16))
     evaluated_at: Mapped[datetime] = mapped_column(_utc_dt())
+    # Input paths the shot left out that took their model defaults (listed on the shot's answer and page).
+    defaulted_fields: Mapped[list[str]] = mapped_column(JSON, default=list)
 
     plasma_frequency_ghz: Mapped[float | None] = mapped_column(Float)
     plasma_wavelength_mm: Mapped[float | None] = mapped_column(Float)
@@ -233,6 +236,28 @@ class ApiToken(Base):
     token_sha256: Mapped[str] = mapped_column(String(64), unique=True)
     created_at: Mapped[datetime] = mapped_column(_utc_dt())
     revoked_at: Mapped[datetime | None] = mapped_column(_utc_dt())
+    # None: the token does not expire.
+    expires_at: Mapped[datetime | None] = mapped_column(_utc_dt())
+    # Written at most once a minute per token (app.services.auth.LAST_USED_RESOLUTION).
+    last_used_at: Mapped[datetime | None] = mapped_column(_utc_dt())
+    created_by: Mapped[str] = mapped_column(String(200), default="")
+
+
+class BrowserSession(Base):
+    """A signed-in browser: the cookie holds a random id whose sha256 is kept here, tied to
+    the token that signed in (revoking the token ends its sessions)."""
+
+    __tablename__ = "browser_sessions"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    session_sha256: Mapped[str] = mapped_column(String(64), unique=True)
+    token_id: Mapped[int] = mapped_column(ForeignKey("api_tokens.id", ondelete="CASCADE"), index=True)
+    # Sent back by every state-changing form and script request of this session.
+    csrf_token: Mapped[str] = mapped_column(String(64))
+    created_at: Mapped[datetime] = mapped_column(_utc_dt())
+    expires_at: Mapped[datetime] = mapped_column(_utc_dt())
+    last_seen_at: Mapped[datetime] = mapped_column(_utc_dt())
+    revoked_at: Mapped[datetime | None] = mapped_column(_utc_dt())
 
 
 class AuditEntry(Base):
@@ -248,14 +273,19 @@ class AuditEntry(Base):
 
 
 class Job(Base):
-    """A background job (re-evaluation, detailed solver run) and its progress."""
+    """A background job (re-evaluation, detailed solver run) and its progress.
+
+    A worker claims a queued job (or a running one whose lease ran out) by taking its lease:
+    ``lease_owner`` and ``lease_expires_at``, renewed by the worker's heartbeat.
+    """
 
     __tablename__ = "jobs"
+    __table_args__ = (Index("ix_jobs_state_created", "state", "created_at"),)
 
     id: Mapped[str] = mapped_column(String(36), primary_key=True)
     kind: Mapped[str] = mapped_column(String(32))
     campaign_id: Mapped[int | None] = mapped_column(ForeignKey("campaigns.id", ondelete="CASCADE"))
-    # queued | running | succeeded | failed
+    # queued | running | succeeded | failed | cancelled
     state: Mapped[str] = mapped_column(String(16))
     done: Mapped[int] = mapped_column(Integer, default=0)
     total: Mapped[int] = mapped_column(Integer, default=0)
@@ -264,6 +294,17 @@ class Job(Base):
     created_at: Mapped[datetime] = mapped_column(_utc_dt())
     started_at: Mapped[datetime | None] = mapped_column(_utc_dt())
     finished_at: Mapped[datetime | None] = mapped_column(_utc_dt())
+    # Who asked for it: the audit actor, and the token (the per-token queue limit, cancelling).
+    submitted_by: Mapped[str] = mapped_column(String(200), default="")
+    submitter_token_id: Mapped[int | None] = mapped_column(ForeignKey("api_tokens.id", ondelete="SET NULL"))
+    lease_owner: Mapped[str | None] = mapped_column(String(200))
+    lease_expires_at: Mapped[datetime | None] = mapped_column(_utc_dt())
+    heartbeat_at: Mapped[datetime | None] = mapped_column(_utc_dt())
+    # How many times a worker has started it (1 + the resumptions after a lost lease).
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    cancel_requested_at: Mapped[datetime | None] = mapped_column(_utc_dt())
+    # Where a resumed job picks up (its kind reads it: e.g. the solver's state).
+    checkpoint: Mapped[bytes | None] = mapped_column(LargeBinary)
 
 
 class DetailedRun(Base):

@@ -24,6 +24,10 @@ log = logging.getLogger(__name__)
 
 UTC_ZONE = ZoneInfo("UTC")
 LOCAL_FORMAT = "%Y-%m-%d %H:%M:%S"
+# No shot is older than this (the service refuses earlier taken_at values), so weeks
+# before its year hold nothing; the last ISO year keeps every week's bounds representable.
+EARLIEST_SHOT_TIME = datetime(1990, 1, 1, tzinfo=UTC)
+WEEK_YEARS = (EARLIEST_SHOT_TIME.year, 9998)
 
 
 @lru_cache(maxsize=256)
@@ -50,10 +54,11 @@ def as_utc(moment: datetime | None) -> datetime | None:
 
 
 def format_utc(moment: datetime) -> str:
-    """ISO 8601 in UTC with a Z suffix; milliseconds (or microseconds) only when present."""
+    """ISO 8601 / RFC 3339 in UTC with a Z suffix (four-digit year); milliseconds (or
+    microseconds) only when present."""
     when = as_utc(moment)
     assert when is not None
-    text = when.strftime("%Y-%m-%dT%H:%M:%S")
+    text = f"{when.year:04d}-{when.month:02d}-{when.day:02d}T{when.hour:02d}:{when.minute:02d}:{when.second:02d}"
     if when.microsecond % 1000:
         text += f".{when.microsecond:06d}"
     elif when.microsecond:
@@ -101,6 +106,10 @@ class IsoWeek:
         if not match:
             raise WeekFormatError(f"week {text!r} is not an ISO week; write it as YYYY-Www, e.g. 2026-W47")
         year, week = int(match.group(1)), int(match.group(2))
+        if not WEEK_YEARS[0] <= year <= WEEK_YEARS[1]:
+            raise WeekFormatError(
+                f"week {text!r} is outside the years {WEEK_YEARS[0]} to {WEEK_YEARS[1]} this service keeps shots for"
+            )
         try:
             date.fromisocalendar(year, week, 1)
         except ValueError:
@@ -143,3 +152,15 @@ class IsoWeek:
 def current_week(zone: ZoneInfo, now: datetime | None = None) -> IsoWeek:
     """The ISO week that ``now`` (default: this moment) falls in, in ``zone``."""
     return IsoWeek.containing(now or datetime.now(UTC), zone)
+
+
+_DURATION_RE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*(s|m|h|d|w)?\s*$", re.IGNORECASE)
+_DURATION_UNITS = {"s": 1, "m": 60, "h": 3600, "d": 86400, "w": 604800}
+
+
+def parse_duration(text: str) -> timedelta:
+    """``90d``, ``12h``, ``30m``, ``45s``, ``2w`` (a bare number is seconds); ValueError otherwise."""
+    match = _DURATION_RE.match(text) if isinstance(text, str) else None
+    if not match:
+        raise ValueError(f"{text!r} is not a duration; write e.g. 90d, 12h, 30m or 2w")
+    return timedelta(seconds=float(match.group(1)) * _DURATION_UNITS[(match.group(2) or "s").lower()])

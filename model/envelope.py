@@ -234,13 +234,38 @@ class EnvelopeRun:
     betatron_phase_steps: np.ndarray  # per step: dz sqrt(max |focusing|), the fastest slice's betatron phase advance
 
 
+@dataclass
+class EnvelopeState:
+    """Where an integration stands at the start of step `step`: enough to carry it on to the
+    same result (the focusing at `step` is recomputed from x, y: the same numbers)."""
+
+    step: int
+    n_steps: int
+    x: np.ndarray
+    y: np.ndarray
+    vx: np.ndarray
+    vy: np.ndarray
+    modulation: np.ndarray  # steps 0 .. step-1
+    sigma_stored: np.ndarray  # slices x the first next_store stored z
+    next_store: int
+    phase_steps: np.ndarray  # betatron phase advance of steps 0 .. step-1
+
+
 def integrate_envelope(
     setup: EnvelopeSetup,
     dz_m: float,
     n_stored: int,
     progress: Callable[[float], None] | None = None,
+    *,
+    resume: EnvelopeState | None = None,
+    checkpoint: Callable[[EnvelopeState], None] | None = None,
+    checkpoint_every: int = 10,
 ) -> EnvelopeRun:
-    """Advance every slice along z: velocity Verlet on the planar point (x, y) of radius sigma (MODEL.md section 10)."""
+    """Advance every slice along z: velocity Verlet on the planar point (x, y) of radius sigma (MODEL.md section 10).
+
+    `checkpoint(state)` is called every `checkpoint_every` steps with a copy of the state;
+    `resume` carries on from such a state (same setup, dz and n_stored) to the same result.
+    """
     grid = setup.grid
     n_steps = max(1, int(math.ceil(setup.length_m / dz_m - 1e-9)))
     if n_steps > MAX_STEPS or n_steps * setup.grid.zeta_m.size > MAX_SLICE_STEPS:
@@ -270,9 +295,33 @@ def integrate_envelope(
     next_store = 0
     phase_steps = np.empty(n_steps)
     report_every = max(1, n_steps // 100)
+    first = 0
+    if resume is not None:
+        if resume.n_steps != n_steps or resume.x.shape != (n,) or resume.sigma_stored.shape[0] != n:
+            raise ValueError("the saved state belongs to another grid or step")
+        first, next_store = resume.step, resume.next_store
+        x, y, vx, vy = (np.array(a, dtype=float) for a in (resume.x, resume.y, resume.vx, resume.vy))
+        modulation[:first] = resume.modulation
+        phase_steps[:first] = resume.phase_steps
+        sigma_stored[:, :next_store] = resume.sigma_stored
 
-    g, kp = focusing(0.0, x, y)
-    for step in range(n_steps + 1):
+    g, kp = focusing(first * dz, x, y)
+    for step in range(first, n_steps + 1):
+        if checkpoint is not None and step > first and step % checkpoint_every == 0:
+            checkpoint(
+                EnvelopeState(
+                    step,
+                    n_steps,
+                    x.copy(),
+                    y.copy(),
+                    vx.copy(),
+                    vy.copy(),
+                    modulation[:step].copy(),
+                    sigma_stored[:, :next_store].copy(),
+                    next_store,
+                    phase_steps[:step].copy(),
+                )
+            )
         sigma = np.hypot(x, y)
         modulation[step] = modulation_amplitude(grid.zeta_m, sigma, setup.reference_zeta_m, kp)
         if step == stored_steps[next_store]:
@@ -505,11 +554,14 @@ def simulate_envelope(
     line_profile: str = "gaussian",
     zeta_tail_m: float | None = None,
     max_stored_z: int = MAX_STORED_Z,
+    resume: EnvelopeState | None = None,
+    checkpoint: Callable[[EnvelopeState], None] | None = None,
 ) -> dict[str, Any]:
     """Envelope solution sigma(zeta, z) of one shot: delta at the reference slice, the closed form beside (MODEL.md 10).
 
     line_profile "uniform" replaces the Gaussian line density by its peak value on the whole
     grid and zeta_tail_m moves the grid's tail (both for checks of the long-beam theory).
+    checkpoint and resume are integrate_envelope's (a run carried on from a saved state).
     """
     clean = validate_shot(shot)
     s = resolve_settings(settings)
@@ -540,7 +592,7 @@ def simulate_envelope(
     step = default_step(setup, closed) if dz_m is None else float(dz_m)
     n_slices = setup.grid.zeta_m.size
     n_stored = int(min(max_stored_z, max(MIN_STORED_Z, MAX_STORED_VALUES // n_slices)))
-    run = integrate_envelope(setup, step, n_stored, progress)
+    run = integrate_envelope(setup, step, n_stored, progress, resume=resume, checkpoint=checkpoint)
 
     z_all, delta_all = run.z_steps_m, run.modulation_steps
     sat = setup.saturation_modulation

@@ -17,6 +17,10 @@ App
 - ``app``: ``create_app(settings)``; ``client``: a starlette TestClient (lifespan run).
 - ``live_server``: base URL ("http://127.0.0.1:<port>") of a real uvicorn serving ``app``
   on a free loopback port, stopped after the test.
+- ``job_worker``: ``start(**settings) -> Popen`` starts a ``wakeledger worker`` process on
+  ``database_url`` (settings as WAKELEDGER_* environment, e.g. ``job_lease_seconds=2``);
+  every process it started is killed and reaped after the test. In-process tests run
+  the queue with ``tests.support.jobs.run_queued_jobs`` instead.
 - ``admin_token``, ``ingest_token``, ``viewer_token``: raw tokens of each role;
   ``admin_headers``, ``ingest_headers``, ``viewer_headers``: {"Authorization": "Bearer ..."}.
 - ``campaign``: slug of a campaign created through the API ("test-campaign", default settings).
@@ -196,7 +200,6 @@ def app(settings):
 
     application = create_app(settings)
     yield application
-    application.state.jobs.join(timeout=10)
     application.state.engine.dispose()
 
 
@@ -237,6 +240,31 @@ def live_server(app) -> Iterator[str]:
         server.should_exit = True
         thread.join(timeout=10)
         sock.close()
+
+
+@pytest.fixture
+def job_worker(database_url: str) -> Iterator[Callable[..., Any]]:
+    import subprocess
+    import sys
+
+    started: list[subprocess.Popen[bytes]] = []
+
+    def start(**settings: Any) -> subprocess.Popen[bytes]:
+        env = {**os.environ, "WAKELEDGER_WORKER_POLL_SECONDS": "0.2"}
+        env.update({f"WAKELEDGER_{k.upper()}": str(v) for k, v in settings.items()})
+        command = [sys.executable, "-m", "app.cli", "--database-url", database_url, "worker", "--log-level", "warning"]
+        command += ["--parent-pid", str(os.getpid())]  # gone with the test run, whatever ends it
+        process = subprocess.Popen(command, env=env, cwd=REPO)
+        started.append(process)
+        return process
+
+    try:
+        yield start
+    finally:
+        for process in started:
+            if process.poll() is None:
+                process.kill()
+            process.wait(timeout=30)
 
 
 def _token(app, role: str) -> str:

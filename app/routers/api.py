@@ -8,34 +8,41 @@ from __future__ import annotations
 
 from typing import Annotated, Any, Literal
 
-from fastapi import APIRouter, Body, Depends, Query, Request, Response
+from fastapi import APIRouter, Body, Depends, Path, Query, Request, Response
 from fastapi.responses import PlainTextResponse
-from pydantic import AwareDatetime
 
 from app.config import Settings
 from app.errors import InvalidInput
 from app.routers.deps import DB, Admin, Ingester, Viewer, get_settings
+from app.routers.json_body import StrictJSONRoute
 from app.schemas import (
+    AuditPage,
     BatchIn,
     BatchItemOut,
     BatchOut,
     CampaignCreate,
     CampaignList,
     CampaignOut,
+    Instant,
+    JobList,
     JobOut,
     RevisionList,
     SettingsChangeOut,
     ShotPage,
+    TokenCreate,
+    TokenCreated,
+    TokenList,
+    TokenOut,
 )
+from app.services import administration, health, metrics
 from app.services import campaigns as campaign_service
-from app.services import health, metrics
 from app.services import jobs as job_service
 from app.services import shots as shot_service
 from app.services.campaign_settings import change_settings
 from app.services.ingest import correct_shot, ingest_shots
 
-router = APIRouter(prefix="/api/v1", tags=["api"])
-ops_router = APIRouter(tags=["operations"])
+router = APIRouter(prefix="/api/v1", tags=["api"], route_class=StrictJSONRoute)
+ops_router = APIRouter(tags=["operations"], route_class=StrictJSONRoute)
 
 ShotBody = Annotated[dict[str, Any], Body(description="a shot in the API JSON shape; unknown fields are kept")]
 
@@ -75,18 +82,75 @@ def patch_settings(
     )
 
 
+@router.get("/jobs", response_model=JobList)
+def list_jobs(session: DB, _who: Admin) -> JobList:
+    """Queued and running jobs (oldest first), then the latest finished ones."""
+    return JobList(items=job_service.job_list(session))
+
+
 @router.get("/jobs/{job_id}", response_model=JobOut)
 def get_job(job_id: str, session: DB, _who: Viewer) -> JobOut:
     return job_service.job_detail(session, job_id)
+
+
+@router.delete("/jobs/{job_id}", response_model=JobOut)
+def cancel_job(job_id: str, session: DB, who: Viewer) -> JobOut:
+    """Cancel a job (the token that queued it, or an admin): a queued job at once, a running
+    one at its next progress report (``cancel_requested`` until then); 409 once it has finished."""
+    return job_service.cancel_job(session, job_id, who)
+
+
+# --- tokens and the audit trail (admins) ----------------------------------------------------------
+
+
+@router.get("/tokens", response_model=TokenList)
+def list_tokens(session: DB, _who: Admin) -> TokenList:
+    """Every token with its state, expiry, last use (to the minute) and open browser sessions."""
+    return administration.token_list(session)
+
+
+@router.post("/tokens", status_code=201, response_model=TokenCreated)
+def create_token(data: TokenCreate, session: DB, who: Admin, response: Response) -> TokenCreated:
+    """A new token; the answer is the only place it is ever shown."""
+    created = administration.create_token(session, data, who)
+    response.headers["Location"] = f"/api/v1/tokens/{created.id}"
+    return created
+
+
+@router.delete("/tokens/{token_id}", response_model=TokenOut)
+def revoke_token(token_id: Annotated[int, Path(ge=1, le=2**31 - 1)], session: DB, who: Admin) -> TokenOut:
+    """Revoke a token now; its browser sessions end with it."""
+    return administration.revoke_token(session, token_id, who)
+
+
+@router.get("/audit", response_model=AuditPage)
+def audit_trail(
+    session: DB,
+    _who: Admin,
+    campaign: str | None = None,
+    action: Annotated[str | None, Query(description="an action, or a prefix ending in '.' (e.g. token.)")] = None,
+    actor: str | None = None,
+    before: Annotated[int | None, Query(ge=1, le=2**63 - 1, description="entries older than this id")] = None,
+    limit: Annotated[int, Query(ge=1, le=administration.MAX_AUDIT_PAGE)] = 100,
+) -> AuditPage:
+    """Every write, newest first: who, what, which campaign, when."""
+    return administration.audit_page(session, campaign=campaign, action=action, actor=actor, before=before, limit=limit)
 
 
 # --- shots ---------------------------------------------------------------------------------------
 
 
 @router.post("/campaigns/{slug}/shots", status_code=201)
-def post_shot(slug: str, payload: ShotBody, session: DB, who: Ingester, response: Response) -> dict[str, Any]:
+def post_shot(
+    slug: str,
+    payload: ShotBody,
+    session: DB,
+    who: Ingester,
+    response: Response,
+    settings: Annotated[Settings, Depends(get_settings)],
+) -> dict[str, Any]:
     """Store and evaluate one shot: 201 when new, 200 when the identical shot is already stored."""
-    result = ingest_shots(session, slug, [payload], who.actor, batch=False)
+    result = ingest_shots(session, slug, [payload], who.actor, batch=False, max_future=settings.max_future)
     [item] = result.items
     if item.outcome != "created":
         response.status_code = 200
@@ -107,7 +171,7 @@ def post_batch(
     """All or nothing: 422 lists every failing shot index and field; 409 on a conflicting replay."""
     if len(batch.shots) > settings.max_batch_shots:
         raise InvalidInput([("shots", f"at most {settings.max_batch_shots} shots per batch, got {len(batch.shots)}")])
-    result = ingest_shots(session, slug, batch.shots, who.actor, batch=True)
+    result = ingest_shots(session, slug, batch.shots, who.actor, batch=True, max_future=settings.max_future)
     created = result.count("created")
     if created == 0:
         response.status_code = 200
@@ -135,8 +199,8 @@ def list_shots(
         list[str] | None, Query(description="nominal, marginal, outside (repeat or comma-separate)")
     ] = None,
     flag: Annotated[list[str] | None, Query(description="flag code(s); a shot matches if any fired")] = None,
-    taken_from: Annotated[AwareDatetime | None, Query(alias="from", description="taken_at >= from")] = None,
-    taken_to: Annotated[AwareDatetime | None, Query(alias="to", description="taken_at < to")] = None,
+    taken_from: Annotated[Instant | None, Query(alias="from", description="taken_at >= from (ISO 8601)")] = None,
+    taken_to: Annotated[Instant | None, Query(alias="to", description="taken_at < to (ISO 8601)")] = None,
     seed_method: Annotated[list[str] | None, Query()] = None,
     order: Literal["asc", "desc"] = "asc",
     cursor: str | None = None,
@@ -168,10 +232,11 @@ def put_shot(
     payload: ShotBody,
     session: DB,
     who: Ingester,
+    settings: Annotated[Settings, Depends(get_settings)],
     reason: Annotated[str, Query(max_length=2000, description="why the shot is corrected")] = "",
 ) -> dict[str, Any]:
     """Store a correction as a new revision (re-evaluated); an identical body changes nothing."""
-    correct_shot(session, slug, shot_id, payload, who.actor, reason)
+    correct_shot(session, slug, shot_id, payload, who.actor, reason, max_future=settings.max_future)
     return shot_service.shot_detail(session, slug, shot_id)
 
 

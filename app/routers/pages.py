@@ -11,20 +11,24 @@ installed plotly package; the palette's CSS custom properties from /assets/palet
 from __future__ import annotations
 
 import re
-from pathlib import Path
+import secrets
+from pathlib import Path as FilePath
 from typing import Annotated, Any
 from urllib.parse import quote, urlencode, urlsplit
 
 import plotly
-from fastapi import APIRouter, Depends, Form, Request
+from fastapi import APIRouter, Depends, Form, Path, Query, Request
 from fastapi.responses import FileResponse, HTMLResponse, RedirectResponse, Response
 
-from app.errors import DomainError, InvalidInput, NotFound
+from app.errors import Conflict, DomainError, Forbidden, InvalidInput, NotFound
 from app.presentation.csv_writer import csv_lines
 from app.presentation.palette import GLYPHS, css_variables
 from app.presentation.templates import environment
 from app.routers.deps import (
+    CSRF_FIELD,
     DB,
+    SESSION_COOKIE,
+    ExpensiveRead,
     PathCampaign,
     clear_session_cookie,
     principal_from_request,
@@ -32,16 +36,18 @@ from app.routers.deps import (
     set_session_cookie,
 )
 from app.routers.responses import json_response, streamed_file
-from app.services import auth
+from app.schemas import TokenCreate
+from app.services import administration, auth
+from app.services import jobs as job_service
 from app.services.auth import TokenInfo
 from app.services.campaigns import Campaign, find_campaign
 from app.services.dashboard import overview, settings_form, shot_page, table
 from app.services.detailed_runs import lifecycle as detailed_runs
 from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
 
-APP_DIR = Path(__file__).resolve().parent.parent
+APP_DIR = FilePath(__file__).resolve().parent.parent
 STATIC_DIR = APP_DIR / "static"
-PLOTLY_JS = Path(plotly.__file__).resolve().parent / "package_data" / "plotly.min.js"
+PLOTLY_JS = FilePath(plotly.__file__).resolve().parent / "package_data" / "plotly.min.js"
 
 CONTENT_SECURITY_POLICY = "; ".join(
     (
@@ -74,8 +80,10 @@ router = APIRouter(include_in_schema=False)
 
 
 def render(request: Request, name: str, context: dict[str, Any], status_code: int = 200) -> Response:
+    principal: TokenInfo | None = getattr(request.state, "principal", None)
     context = {
-        "principal": getattr(request.state, "principal", None),
+        "principal": principal,
+        "csrf_token": principal.csrf_token if principal is not None else None,
         "campaign": None,
         "active": "",
         "phase_window_shots": NEIGHBOUR_WINDOW_SHOTS,
@@ -166,6 +174,26 @@ def _refuse_cross_site(request: Request) -> Response:
     )
 
 
+def _refused_form(request: Request, sent_csrf: Any) -> Response | None:
+    """The refusal page of a state-changing form post that is cross-site or lacks the
+    session's CSRF token, or None when the post may go ahead."""
+    if _cross_site(request):
+        return _refuse_cross_site(request)
+    who: TokenInfo | None = getattr(request.state, "principal", None)
+    if who is None or not auth.csrf_matches(who, sent_csrf if isinstance(sent_csrf, str) else None):
+        return render(
+            request,
+            "error.html",
+            {
+                "title": "Refused",
+                "message": "This form's security token does not match your sign-in (the page may be "
+                "older than your session), so nothing was changed. Reload the page and try again.",
+            },
+            403,
+        )
+    return None
+
+
 def install_page_handlers(app: Any) -> None:
     """Signed-out visitors go to the sign-in page; missing things get the not-found page."""
 
@@ -206,27 +234,62 @@ def home(request: Request) -> Response:
     return RedirectResponse("/campaigns" if _principal(request) else "/sign-in", status_code=303)
 
 
+# The sign-in form carries a one-off value that must match this cookie (double submit): a
+# page on another site cannot sign a browser in with a token of its choosing.
+SIGN_IN_COOKIE = "wakeledger_sign_in"
+
+
+def _sign_in_page(request: Request, next_path: str, error: str | None, status_code: int = 200) -> Response:
+    nonce = secrets.token_urlsafe(24)
+    response = render(request, "sign_in.html", {"next": next_path, "error": error, "nonce": nonce}, status_code)
+    response.set_cookie(
+        SIGN_IN_COOKIE,
+        nonce,
+        httponly=True,
+        samesite="strict",
+        secure=request.app.state.settings.secure_cookies,
+        path="/sign-in",
+        max_age=3600,
+    )
+    return response
+
+
 @router.get("/sign-in")
 def sign_in_form(request: Request, next: str = "/campaigns") -> Response:
-    return render(request, "sign_in.html", {"next": _safe_next(next), "error": None})
+    return _sign_in_page(request, _safe_next(next), None)
 
 
 @router.post("/sign-in")
-def sign_in(request: Request, session: DB, token: str = Form(""), next: str = Form("/campaigns")) -> Response:
-    info = auth.resolve_token(session, token.strip())
-    if info is None:
-        return render(
-            request, "sign_in.html", {"next": _safe_next(next), "error": "That token is unknown or revoked."}, 401
+def sign_in(
+    request: Request,
+    session: DB,
+    token: str = Form(""),
+    next: str = Form("/campaigns"),
+    nonce: str = Form(""),
+) -> Response:
+    if _cross_site(request):
+        return _refuse_cross_site(request)
+    expected = request.cookies.get(SIGN_IN_COOKIE)
+    if not expected or not secrets.compare_digest(expected, nonce):
+        return _sign_in_page(
+            request, _safe_next(next), "The sign-in form had expired; please paste the token again.", 400
         )
+    settings = request.app.state.settings
+    new = auth.start_session(session, token.strip(), settings.session_lifetime)
+    if new is None:
+        return _sign_in_page(request, _safe_next(next), "That token is unknown, revoked or expired.", 401)
     response = RedirectResponse(_safe_next(next), status_code=303)
-    set_session_cookie(response, token.strip(), request.app.state.settings)
+    set_session_cookie(response, new, settings)
+    response.delete_cookie(SIGN_IN_COOKIE, path="/sign-in")
     return response
 
 
 @router.post("/sign-out")
-def sign_out(request: Request) -> Response:
-    if _cross_site(request):
-        return _refuse_cross_site(request)
+async def sign_out(request: Request, _who: Reader, session: DB) -> Response:
+    refused = _refused_form(request, (await request.form()).get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    auth.end_session(session, request.cookies.get(SESSION_COOKIE))
     response = RedirectResponse("/sign-in", status_code=303)
     clear_session_cookie(response)
     return response
@@ -281,7 +344,13 @@ def chart_feed(name: str, _who: FeedReader, campaign: PathCampaign, session: DB)
 
 
 @router.get("/campaigns/{slug}/live")
-def live_feed(_who: FeedReader, campaign: PathCampaign, session: DB, since: int = 0, fields: str = "") -> Response:
+def live_feed(
+    _who: FeedReader,
+    campaign: PathCampaign,
+    session: DB,
+    since: Annotated[int, Query(ge=0, le=2**63 - 1)] = 0,
+    fields: str = "",
+) -> Response:
     shot_url = f"/campaigns/{quote(campaign.slug)}/shots/{{shot_id}}"
     return json_response(overview.live_update(session, campaign, since, shot_url, overview.live_extra(fields)))
 
@@ -342,7 +411,7 @@ def _table_link(slug: str, params: dict[str, str], changes: dict[str, Any]) -> s
 
 
 @router.get("/campaigns/{slug}/shots.csv")
-def shot_table_csv(slug: str, request: Request, _who: Reader) -> Response:
+def shot_table_csv(slug: str, request: Request, _who: Reader, _budget: ExpensiveRead) -> Response:
     factory = request.app.state.session_factory
     with factory() as session:
         campaign = find_campaign(session, slug)
@@ -382,7 +451,7 @@ def shot_detail(shot_id: str, request: Request, campaign: PageCampaign, session:
 # ------------------------------------------------------------------------ settings
 
 
-def _admins_only(request: Request) -> Response | None:
+def _admins_only(request: Request, what: str = "Changing the limits and model settings") -> Response | None:
     """The page that refuses a signed-in viewer or ingester (403), or None for an admin."""
     who: TokenInfo = request.state.principal
     if who.can("admin"):
@@ -390,10 +459,7 @@ def _admins_only(request: Request) -> Response | None:
     return render(
         request,
         "error.html",
-        {
-            "title": "Admins only",
-            "message": f"Changing the limits and model settings needs the admin role; you are signed in as {who.role}.",
-        },
+        {"title": "Admins only", "message": f"{what} needs the admin role; you are signed in as {who.role}."},
         403,
     )
 
@@ -420,9 +486,11 @@ async def settings_save(request: Request, campaign: PageCampaign, session: DB) -
     refused = _admins_only(request)
     if refused is not None:
         return refused
-    if _cross_site(request):
-        return _refuse_cross_site(request)
-    submitted = {k: v for k, v in (await request.form()).items() if isinstance(v, str)}
+    form = await request.form()
+    refused = _refused_form(request, form.get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    submitted = {k: v for k, v in form.items() if isinstance(v, str) and k != CSRF_FIELD}
     outcome = settings_form.save_settings(session, campaign, submitted, request.state.principal.actor)
     if outcome.errors:
         return render(
@@ -441,3 +509,93 @@ async def settings_save(request: Request, campaign: PageCampaign, session: DB) -
     return RedirectResponse(
         f"/campaigns/{quote(campaign.slug)}/settings?job={quote(outcome.job_id or '')}", status_code=303
     )
+
+
+# ------------------------------------------------------------------------ administration
+
+
+def _admin_page(
+    request: Request,
+    session: DB,
+    *,
+    new_token: Any = None,
+    errors: list[tuple[str, str]] | None = None,
+    status_code: int = 200,
+) -> Response:
+    params = request.query_params
+    before = params.get("before")
+    audit_filter = {"campaign": params.get("campaign") or None, "action": params.get("action") or None}
+    audit = administration.audit_page(
+        session,
+        campaign=audit_filter["campaign"],
+        action=audit_filter["action"],
+        before=int(before) if before and before.isdigit() and len(before) < 19 else None,
+    )
+    older = {k: v for k, v in audit_filter.items() if v} | {"before": str(audit.next_before)}
+    return render(
+        request,
+        "admin.html",
+        {
+            "tokens": administration.token_list(session).items,
+            "jobs": job_service.job_list(session),
+            "audit": audit,
+            "audit_filter": audit_filter,
+            "older_link": "/admin?" + urlencode(older) + "#audit",
+            "roles": auth.ROLES,
+            "new_token": new_token,
+            "errors": errors or [],
+            "active": "admin",
+        },
+        status_code,
+    )
+
+
+@router.get("/admin")
+def admin_page(request: Request, _who: Reader, session: DB) -> Response:
+    return _admins_only(request, "The administration page") or _admin_page(request, session)
+
+
+@router.post("/admin/tokens")
+async def admin_create_token(request: Request, who: Reader, session: DB) -> Response:
+    form = await request.form()
+    refused = _admins_only(request, "Creating tokens") or _refused_form(request, form.get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    days = str(form.get("expires_in_days") or "").strip()
+    try:
+        data = TokenCreate(
+            name=str(form.get("name") or "").strip(),
+            role=str(form.get("role") or ""),  # type: ignore[arg-type]
+            expires_in_days=float(days) if days else None,
+        )
+    except (ValueError, TypeError) as exc:
+        problems = exc.errors() if hasattr(exc, "errors") else []
+        listed = [(".".join(str(p) for p in e["loc"]), e["msg"]) for e in problems] or [("expires_in_days", str(exc))]
+        return _admin_page(request, session, errors=listed, status_code=422)
+    created = administration.create_token(session, data, who)
+    return _admin_page(request, session, new_token=created)
+
+
+@router.post("/admin/tokens/{token_id}/revoke")
+async def admin_revoke_token(
+    token_id: Annotated[int, Path(ge=1, le=2**31 - 1)], request: Request, who: Reader, session: DB
+) -> Response:
+    form = await request.form()
+    refused = _admins_only(request, "Revoking tokens") or _refused_form(request, form.get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    administration.revoke_token(session, token_id, who)
+    return RedirectResponse("/admin#tokens", status_code=303)
+
+
+@router.post("/admin/jobs/{job_id}/cancel")
+async def admin_cancel_job(job_id: str, request: Request, who: Reader, session: DB) -> Response:
+    form = await request.form()
+    refused = _admins_only(request, "Cancelling jobs") or _refused_form(request, form.get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    try:
+        job_service.cancel_job(session, job_id, who)
+    except (Conflict, Forbidden) as exc:
+        return _admin_page(request, session, errors=[("job", exc.detail)], status_code=409)
+    return RedirectResponse("/admin#jobs", status_code=303)

@@ -11,6 +11,12 @@ from fastapi.responses import Response, StreamingResponse
 from app.presentation.json_text import json_bytes, json_text
 
 NO_STORE = {"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"}
+# A file shown in the browser tab (the weekly HTML report) runs nothing and loads nothing:
+# its styles are inline and its charts inline SVG.
+REPORT_CONTENT_SECURITY_POLICY = (
+    "default-src 'none'; style-src 'unsafe-inline'; img-src data:; base-uri 'none'; "
+    "form-action 'none'; frame-ancestors 'none'; sandbox allow-popups allow-popups-to-escape-sandbox"
+)
 
 
 def json_response(value: Any, status_code: int = 200) -> Response:
@@ -25,7 +31,11 @@ def numeric_json_response(value: Any, status_code: int = 200) -> Response:
 
 
 def _disposition(filename: str, inline: bool) -> dict[str, str]:
-    return {"Content-Disposition": f'{"inline" if inline else "attachment"}; filename="{filename}"', **NO_STORE}
+    headers = {"Content-Disposition": f'{"inline" if inline else "attachment"}; filename="{filename}"', **NO_STORE}
+    if inline:
+        headers["Content-Security-Policy"] = REPORT_CONTENT_SECURITY_POLICY
+        headers["Referrer-Policy"] = "same-origin"
+    return headers
 
 
 def file_response(body: bytes, media_type: str, filename: str, *, inline: bool = False) -> Response:

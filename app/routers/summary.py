@@ -6,12 +6,13 @@ from typing import Annotated
 
 from fastapi import APIRouter, Query, Response
 
-from app.routers.deps import DB, Viewer
+from app.routers.deps import DB, ExpensiveRead, Viewer
+from app.routers.json_body import StrictJSONRoute
 from app.routers.responses import file_response
 from app.services.weekly import exports
 from app.services.weekly.table import MEDIA_TYPES
 
-router = APIRouter(prefix="/api/v1", tags=["summary"])
+router = APIRouter(prefix="/api/v1", tags=["summary"], route_class=StrictJSONRoute)
 
 # HTML opens in the browser tab (the dashboard links to it); the others download.
 _INLINE = {"html", "json"}
@@ -25,6 +26,7 @@ def weekly_summary(
     slug: str,
     session: DB,
     _who: Viewer,
+    _budget: ExpensiveRead,
     week: Annotated[
         str | None,
         Query(description="ISO week in the campaign's time zone, e.g. 2026-W47 (default: the current week)"),

@@ -45,7 +45,7 @@ def change_settings(session: Session, slug: str, patch: Mapping[str, Any], actor
             target=slug,
             detail={"patch": dict(patch), "settings_version": version},
         )
-        job = reevaluation.queue(session, campaign.id, version)
+        job = reevaluation.queue(session, campaign.id, version, actor)
         session.flush()
         session.refresh(campaign)
         return campaign, job

@@ -1,7 +1,9 @@
-"""Every kind of background job, by name: the mapping a job runner is given.
+"""Every kind of background job, by name: the mapping a worker is given.
 
-Listed here, explicitly, so that ``app.services.jobs`` stays infrastructure and any
-runner (the server's threads today, a worker process later) knows every kind.
+Listed here, explicitly, so that ``app.services.jobs`` stays infrastructure and every
+worker knows every kind. A new kind (e.g. delivering a webhook) is a function
+``run(ctx: JobContext) -> dict`` (``app.services.jobs``) registered below under its
+name, and queued with ``queue_job(session, NAME, campaign_id, params)``.
 """
 
 from __future__ import annotations

@@ -1,62 +1,127 @@
 """Background jobs: infrastructure only (the kinds live with the work they do).
 
-- ``queue_job(session, kind, campaign_id, params)`` is the one way to ask for work: it
-  inserts a queued row in the caller's transaction. When that transaction commits, the
-  session factory's runner (if one is attached) is notified and starts the job; with no
-  runner attached (a CLI process, or a server that has not started yet) the row waits
-  in the table until a runner resumes it. Nobody calls a runner directly.
-- A runner (``JobRunner``) runs queued jobs; ``ThreadRunner`` runs each on a daemon
-  thread of this process. A job is a function ``run(factory, job_id, progress) -> result``
-  looked up by kind in the mapping the runner is given (``app.services.job_kinds``).
-  Progress and results are written to the ``jobs`` table, so any process can read them.
-- Jobs left queued or running by a stopped process are resumed when a runner starts,
-  so every kind must be safe to restart.
+- ``queue_job(session, kind, campaign_id, params, ...)`` is the one way to ask for work:
+  it inserts a queued row in the caller's transaction (refusing past the queue limits
+  of the campaign and of the submitting token). Nothing runs in the process that queues:
+  worker processes (``app.services.workers``, ``wakeledger worker``) claim queued rows
+  from the table, on any host that reaches the database.
+- A job kind is a function ``run(ctx: JobContext) -> result`` registered by name in
+  ``app.services.job_kinds``. It reports progress through ``ctx.progress``, may keep a
+  checkpoint (``ctx.save_checkpoint`` / ``ctx.checkpoint``) and must be safe to resume:
+  a job whose worker died is claimed again, with its checkpoint and its progress so far.
+- ``cancel_job``: a queued job is cancelled at once; a running one is asked to stop and
+  its worker ends it at the next progress report or heartbeat.
 """
 
 from __future__ import annotations
 
-import logging
 import threading
 import uuid
 from collections.abc import Callable, Mapping
-from typing import Any, Protocol
+from dataclasses import dataclass, field
+from typing import Any
 
-from sqlalchemy import event
 from sqlalchemy.orm import Session, sessionmaker
 
-from app.database import begin_write
-from app.errors import NotFound
+from app.database import begin_write, run_write
+from app.errors import Conflict, Forbidden, NotFound, TooManyJobs
 from app.schemas import JobOut
+from app.services.auth import TokenInfo
+from app.store import audit
 from app.store import campaigns as campaign_store
 from app.store import jobs as job_store
 from app.tables import Job
 
-log = logging.getLogger(__name__)
-
 Progress = Callable[[int, int, str], None]  # (done, total, message)
-JobRun = Callable[[sessionmaker[Session], str, Progress], dict[str, Any]]
-
-_QUEUED = "wakeledger.queued_jobs"  # session.info: ids queued in the open transaction
-_RUNNER = "wakeledger.job_runner"  # session.info (set by the factory): the runner to notify
 
 
-class JobRunner(Protocol):
-    """What runs queued jobs. The thread runner is the one in use; a worker loop that
-    claims jobs from the table can take its place behind the same three calls."""
+@dataclass(frozen=True)
+class JobLimits:
+    """How many unfinished jobs a campaign, and a token, may have at once (None: no limit)."""
 
-    def start(self, job_id: str) -> None:
-        """A queued job was committed: run it (a no-op if it already runs)."""
-
-    def resume_unfinished(self) -> None:
-        """Run every job left queued or running."""
-
-    def join(self, timeout: float = 10.0) -> None:
-        """Wait (bounded) for the jobs this runner started."""
+    per_campaign: int | None = None
+    per_token: int | None = None
 
 
-def queue_job(session: Session, kind: str, campaign_id: int | None, params: Mapping[str, Any] | None = None) -> Job:
-    """Insert a queued job row in the caller's transaction; it starts once that commits."""
-    job = job_store.add_job(
+NO_LIMITS = JobLimits()
+
+
+class JobStopped(Exception):
+    """Raised inside a running job when it must stop now: ``reason`` is "cancelled",
+    "lease lost" (another worker took it over) or "worker stopping"."""
+
+    def __init__(self, reason: str) -> None:
+        super().__init__(reason)
+        self.reason = reason
+
+
+@dataclass
+class JobContext:
+    """What a running job sees: its row's parameters, progress so far and checkpoint, and
+    the calls that report progress and keep a checkpoint (each raises JobStopped once the
+    job must stop)."""
+
+    factory: sessionmaker[Session]
+    job_id: str
+    kind: str
+    campaign_id: int | None
+    params: dict[str, Any]
+    done: int  # progress recorded before this attempt (a resumed job keeps its figures)
+    total: int
+    attempt: int
+    checkpoint: bytes | None
+    report: Callable[[dict[str, Any]], None]  # writes job fields while this worker holds the lease
+    checkpoint_interval_s: float = 10.0  # how often a long job should keep a checkpoint
+    stop: threading.Event = field(default_factory=threading.Event)
+    stop_reason: list[str] = field(default_factory=list)
+
+    def check(self) -> None:
+        """Raise JobStopped if the job was cancelled, lost its lease or the worker is stopping."""
+        if self.stop.is_set():
+            raise JobStopped(self.stop_reason[0] if self.stop_reason else "worker stopping")
+
+    def progress(self, done: int, total: int, message: str) -> None:
+        self.check()
+        self.done, self.total = done, total
+        self.report({"done": done, "total": total, "message": message[:2000]})
+
+    def save_checkpoint(self, data: bytes) -> None:
+        self.check()
+        self.checkpoint = data
+        self.report({"checkpoint": data})
+
+
+JobRun = Callable[[JobContext], dict[str, Any]]
+
+
+def queue_job(
+    session: Session,
+    kind: str,
+    campaign_id: int | None,
+    params: Mapping[str, Any] | None = None,
+    *,
+    submitter: TokenInfo | None = None,
+    actor: str = "",
+    limits: JobLimits = NO_LIMITS,
+) -> Job:
+    """Insert a queued job row in the caller's transaction (a worker starts it once it commits).
+
+    TooManyJobs when the campaign or the submitting token already has ``limits`` unfinished jobs.
+    """
+    token_id = submitter.token_id if submitter is not None else None
+    if limits.per_campaign is not None and campaign_id is not None:
+        if job_store.count_unfinished(session, campaign_id=campaign_id) >= limits.per_campaign:
+            raise TooManyJobs(
+                f"the campaign already has {limits.per_campaign} queued or running jobs; "
+                "wait for one to finish or cancel one"
+            )
+    if limits.per_token is not None and token_id is not None:
+        if job_store.count_unfinished(session, token_id=token_id) >= limits.per_token:
+            raise TooManyJobs(
+                f"this token already has {limits.per_token} queued or running jobs; "
+                "wait for one to finish or cancel one"
+            )
+    return job_store.add_job(
         session,
         Job(
             id=str(uuid.uuid4()),
@@ -68,43 +133,11 @@ def queue_job(session: Session, kind: str, campaign_id: int | None, params: Mapp
             message="queued",
             result={"params": dict(params or {})},
             created_at=job_store.now(),
+            submitted_by=actor or (submitter.actor if submitter is not None else ""),
+            submitter_token_id=token_id,
+            attempts=0,
         ),
     )
-    session.info.setdefault(_QUEUED, []).append(job.id)
-    return job
-
-
-@event.listens_for(Session, "after_commit")
-def _notify_runner(session: Session) -> None:
-    queued = session.info.pop(_QUEUED, None)
-    runner: JobRunner | None = session.info.get(_RUNNER)
-    if queued and runner is not None:
-        for job_id in queued:
-            runner.start(job_id)
-
-
-@event.listens_for(Session, "after_rollback")
-def _forget_queued(session: Session) -> None:
-    session.info.pop(_QUEUED, None)
-
-
-def attach_runner(factory: sessionmaker[Session], runner: JobRunner | None) -> None:
-    """Sessions of ``factory`` notify ``runner`` of the jobs they commit (None: detach)."""
-    info = dict(factory.kw.get("info") or {})
-    if runner is None:
-        info.pop(_RUNNER, None)
-    else:
-        info[_RUNNER] = runner
-    factory.configure(info=info)
-
-
-def job_detail(session: Session, job_id: str) -> JobOut:
-    """A job as the API shows it, or NotFound."""
-    job = job_store.get_job(session, job_id)
-    if job is None:
-        raise NotFound(f"job {job_id!r}")
-    campaign = campaign_store.get_campaign_by_id(session, job.campaign_id) if job.campaign_id else None
-    return job_out(job, campaign.slug if campaign else None)
 
 
 def job_params(job: Job) -> dict[str, Any]:
@@ -124,70 +157,71 @@ def job_out(job: Job, campaign_slug: str | None) -> JobOut:
         created_at=job.created_at,
         started_at=job.started_at,
         finished_at=job.finished_at,
+        submitted_by=job.submitted_by or "",
+        attempts=job.attempts or 0,
+        cancel_requested=job.cancel_requested_at is not None,
     )
 
 
-class ThreadRunner:
-    """Runs each job on a daemon thread of this process."""
+def _slug(session: Session, job: Job) -> str | None:
+    campaign = campaign_store.get_campaign_by_id(session, job.campaign_id) if job.campaign_id else None
+    return campaign.slug if campaign else None
 
-    def __init__(self, factory: sessionmaker[Session], kinds: Mapping[str, JobRun]) -> None:
-        self._factory = factory
-        self._kinds = kinds
-        self._threads: dict[str, threading.Thread] = {}
-        self._lock = threading.Lock()
 
-    def start(self, job_id: str) -> None:
-        with self._lock:
-            if job_id in self._threads and self._threads[job_id].is_alive():
-                return
-            thread = threading.Thread(target=self._run, args=(job_id,), name=f"job-{job_id[:8]}", daemon=True)
-            self._threads[job_id] = thread
-            thread.start()
+def job_detail(session: Session, job_id: str) -> JobOut:
+    """A job as the API shows it, or NotFound."""
+    job = job_store.get_job(session, job_id)
+    if job is None:
+        raise NotFound(f"job {job_id!r}")
+    return job_out(job, _slug(session, job))
 
-    def resume_unfinished(self) -> None:
-        with self._factory() as session:
-            ids = job_store.unfinished_job_ids(session)
-        for job_id in ids:
-            self.start(job_id)
 
-    def join(self, timeout: float = 10.0) -> None:
-        for thread in list(self._threads.values()):
-            thread.join(timeout)
+def job_list(session: Session, limit: int = 50) -> list[JobOut]:
+    """Queued and running jobs, then the latest finished ones (the admin page)."""
+    return [job_out(job, _slug(session, job)) for job in job_store.recent_jobs(session, limit)]
 
-    def _update(self, job_id: str, merge_result: dict[str, Any] | None = None, **values: Any) -> str | None:
-        """Write job fields in their own transaction; returns the job kind (None if gone)."""
-        with self._factory() as session:
-            begin_write(session)  # read-then-write: take the SQLite write lock first
-            job = job_store.get_job(session, job_id)
-            if job is None:
-                return None
-            if merge_result is not None:
-                values["result"] = {**(job.result or {}), **merge_result}
-            job_store.set_job(session, job_id, **values)
-            session.commit()
-            return job.kind
 
-    def _run(self, job_id: str) -> None:
-        kind = self._update(job_id, state="running", started_at=job_store.now(), message="running")
-        if kind is None:
-            return
+def may_cancel(who: TokenInfo, job: Job) -> bool:
+    """The submitter (the same token) or an admin may cancel a job."""
+    return who.can("admin") or (who.token_id is not None and who.token_id == job.submitter_token_id)
 
-        def progress(done: int, total: int, message: str) -> None:
-            self._update(job_id, done=done, total=total, message=message)
 
-        try:
-            run = self._kinds.get(kind)
-            if run is None:
-                raise LookupError(f"unknown job kind {kind!r}")
-            result = run(self._factory, job_id, progress)
-        except Exception as exc:  # the job fails, the process carries on
-            log.exception("job %s failed", job_id)
-            self._update(
-                job_id,
-                merge_result={"error": type(exc).__name__},
-                state="failed",
-                finished_at=job_store.now(),
-                message=f"{type(exc).__name__}: {exc}"[:2000],
+def cancel_job(session: Session, job_id: str, who: TokenInfo) -> JobOut:
+    """Cancel a queued job now, or ask a running one to stop (its worker ends it shortly).
+
+    Forbidden for anyone but the submitter or an admin; Conflict for a finished job.
+    Cancelling a cancelled job changes nothing.
+    """
+
+    def work() -> Job:
+        begin_write(session)
+        job = job_store.get_job(session, job_id)
+        if job is None:
+            raise NotFound(f"job {job_id!r}")
+        if not may_cancel(who, job):
+            raise Forbidden("only the token that queued the job, or an admin, may cancel it")
+        if job.state == "cancelled" or job.cancel_requested_at is not None:
+            return job
+        if job.state not in job_store.UNFINISHED:
+            raise Conflict(f"the job has already {job.state}")
+        now = job_store.now()
+        if job.state == "queued":
+            job_store.set_job(
+                session, job_id, state="cancelled", finished_at=now, cancel_requested_at=now, message="cancelled"
             )
-            return
-        self._update(job_id, merge_result=result, state="succeeded", finished_at=job_store.now(), message="done")
+        else:
+            job_store.set_job(session, job_id, cancel_requested_at=now, message="cancelling")
+        audit.record(
+            session,
+            who.actor,
+            "job.cancel",
+            campaign_slug=_slug(session, job),
+            target=job_id,
+            detail={"kind": job.kind},
+        )
+        session.flush()
+        session.refresh(job)
+        return job
+
+    job = run_write(session, work)
+    return job_out(job, _slug(session, job))

@@ -30,9 +30,14 @@ CHUNK = 2000
 MODEL_UPGRADE_ACTOR = "wakeledger (model upgrade)"
 
 
-def queue(session: Session, campaign_id: int, settings_version: int) -> Job:
-    """Queue the campaign's re-evaluation in the caller's transaction (it starts on commit)."""
-    return jobs.queue_job(session, KIND, campaign_id, {"settings_version": settings_version})
+def queue(session: Session, campaign_id: int, settings_version: int, actor: str = "") -> Job:
+    """Queue the campaign's re-evaluation in the caller's transaction (a worker starts it once
+    it commits). A re-evaluation still queued is that job: it reads the campaign's current
+    settings when it runs. (A running one may be past its last chunk, so a new one is queued.)"""
+    waiting = job_store.unfinished_job(session, KIND, campaign_id)
+    if waiting is not None and waiting.state == "queued":
+        return waiting
+    return jobs.queue_job(session, KIND, campaign_id, {"settings_version": settings_version}, actor=actor)
 
 
 def queue_model_upgrades(session: Session, actor: str = MODEL_UPGRADE_ACTOR) -> list[str]:
@@ -55,7 +60,7 @@ def queue_model_upgrades(session: Session, actor: str = MODEL_UPGRADE_ACTOR) -> 
             current = campaign_store.get_campaign_by_id(session, campaign_id)
             if current is None:
                 return None
-            job = queue(session, campaign_id, current.settings_version)
+            job = queue(session, campaign_id, current.settings_version, actor)
             audit.record(
                 session,
                 actor,
@@ -99,12 +104,17 @@ def reevaluate_stale_chunk(session: Session, campaign_slug: str, chunk: int = CH
     return n
 
 
-def reevaluate_campaign(factory: sessionmaker[Session], campaign_slug: str, progress: jobs.Progress) -> int:
-    """Re-evaluate every stale shot of the campaign, chunk by chunk; returns how many."""
+def reevaluate_campaign(
+    factory: sessionmaker[Session], campaign_slug: str, progress: jobs.Progress, done: int = 0, total: int = 0
+) -> int:
+    """Re-evaluate every stale shot of the campaign, chunk by chunk; returns how many in all.
+
+    ``done`` and ``total``: the progress of an earlier attempt of the same job (a resumed
+    job keeps its total: the chunks already done are no longer stale).
+    """
     with factory() as session:
-        total = count_stale(session, campaign_slug)
-    progress(0, total, f"re-evaluating {total} shots")
-    done = 0
+        total = max(total, done + count_stale(session, campaign_slug))
+    progress(done, total, f"re-evaluating {total - done} shots" if not done else f"resumed at {done} of {total} shots")
     while True:
         with factory() as session:
             n = reevaluate_stale_chunk(session, campaign_slug)
@@ -115,15 +125,16 @@ def reevaluate_campaign(factory: sessionmaker[Session], campaign_slug: str, prog
         progress(done, total, f"re-evaluated {done} of {total} shots")
 
 
-def run_job(factory: sessionmaker[Session], job_id: str, progress: jobs.Progress) -> dict[str, Any]:
-    """The "reevaluate" job: every stale shot of the job's campaign."""
-    with factory() as session:
-        job = job_store.get_job(session, job_id)
-        campaign = campaign_store.get_campaign_by_id(session, job.campaign_id) if job and job.campaign_id else None
+def run_job(ctx: jobs.JobContext) -> dict[str, Any]:
+    """The "reevaluate" job: every stale shot of the job's campaign. Its checkpoint is the
+    stored evaluations themselves: each chunk commits, so a resumed job re-evaluates only
+    what is still stale."""
+    with ctx.factory() as session:
+        campaign = campaign_store.get_campaign_by_id(session, ctx.campaign_id) if ctx.campaign_id else None
         if campaign is None:
-            raise LookupError(f"job {job_id} names no campaign")
+            raise LookupError(f"job {ctx.job_id} names no campaign")
         slug = campaign.slug
-    return {"reevaluated": reevaluate_campaign(factory, slug, progress)}
+    return {"reevaluated": reevaluate_campaign(ctx.factory, slug, ctx.progress, ctx.done, ctx.total)}
 
 
 def run_now(factory: sessionmaker[Session], slug: str, actor: str, progress: jobs.Progress) -> int:

@@ -37,6 +37,7 @@ def evaluation_out(evaluation: Evaluation | None, flags: Sequence[Flag]) -> dict
     out.update(
         status=evaluation.status,
         flags=[flag_out(f) for f in flags],
+        defaulted_fields=list(evaluation.defaulted_fields or []),
         model_version=evaluation.model_version,
         settings_version=evaluation.settings_version,
         evaluated_at=format_utc(evaluation.evaluated_at),

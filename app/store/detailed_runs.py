@@ -51,7 +51,12 @@ def unfinished_jobs(session: Session, kind: str, campaign_id: int) -> list[Job]:
     """Queued or running jobs of one kind in a campaign, oldest first (their params say which shot)."""
     stmt = (
         select(Job)
-        .where(Job.kind == kind, Job.campaign_id == campaign_id, Job.state.in_(("queued", "running")))
+        .where(
+            Job.kind == kind,
+            Job.campaign_id == campaign_id,
+            Job.state.in_(("queued", "running")),
+            Job.cancel_requested_at.is_(None),
+        )
         .order_by(Job.created_at)
     )
     return list(session.scalars(stmt))

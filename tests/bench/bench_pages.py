@@ -148,8 +148,8 @@ def main() -> None:
     from starlette.testclient import TestClient
 
     from app.main import create_app
-    from app.routers.deps import SESSION_COOKIE
     from app.services.auth import create_token
+    from tests.support.sessions import sign_in
 
     with tempfile.TemporaryDirectory() as tmp:
         path = args.db or Path(tmp) / "bench.db"
@@ -162,7 +162,7 @@ def main() -> None:
         with TestClient(app) as client:
             with app.state.session_factory() as session:
                 token = create_token(session, "viewer", "bench", actor="bench")
-            client.cookies.set(SESSION_COOKIE, token)
+            sign_in(client, token)
             paths = [
                 "/campaigns",
                 "/campaigns/bench",

@@ -2,7 +2,7 @@
 
 The server is the ``live_server`` fixture of tests/conftest.py (127.0.0.1, free port,
 temp SQLite); ``page_server`` seeds it through the API with the shots of
-tests/support/page_shots.py. Screenshots go to test-artifacts/ (gitignored).
+tests/support/page_shots.py and starts a job worker beside it. Screenshots go to test-artifacts/ (gitignored).
 """
 
 from __future__ import annotations
@@ -16,6 +16,7 @@ import httpx
 import pytest
 
 from tests.support.page_shots import page_shots
+from tests.support.sessions import new_session
 
 CHROMIUM = Path("/usr/bin/chromium")
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
@@ -59,7 +60,8 @@ def backend() -> str:
 
 
 @pytest.fixture
-def page_server(live_server: str, admin_token: str, make_shot) -> dict[str, Any]:
+def page_server(app, live_server: str, admin_token: str, make_shot, job_worker) -> dict[str, Any]:
+    job_worker()  # the jobs the pages start run in a worker process, as beside `wakeledger serve`
     headers = {"Authorization": f"Bearer {admin_token}"}
     with httpx.Client(base_url=live_server, headers=headers, timeout=30) as api:
         r = api.post(
@@ -73,6 +75,7 @@ def page_server(live_server: str, admin_token: str, make_shot) -> dict[str, Any]
     return {
         "base": live_server,
         "token": admin_token,
+        "session": new_session(app, admin_token).cookie_value,  # a signed-in browser's cookie
         "slug": "browser-run",
         "headers": headers,
         "make_shot": make_shot,

@@ -6,6 +6,7 @@ import httpx
 import pytest
 
 from app.presentation.numbers import format_number
+from app.routers.deps import SESSION_COOKIE
 
 pytestmark = pytest.mark.browser
 
@@ -99,7 +100,7 @@ def test_shift_physicist_signs_in_filters_to_outside_shots_and_opens_one_with_it
 def test_a_new_shot_appears_on_the_open_overview_and_table_without_a_reload(browser, page_server, artifacts):
     base, slug = page_server["base"], page_server["slug"]
     context = browser.new_context(viewport={"width": 1360, "height": 900})
-    context.add_cookies([{"name": "wakeledger_token", "value": page_server["token"], "url": base}])
+    context.add_cookies([{"name": SESSION_COOKIE, "value": page_server["session"], "url": base}])
     overview = context.new_page()
     problems = _watch_console(overview)
     overview.goto(f"{base}/campaigns/{slug}")
@@ -140,7 +141,7 @@ def test_a_new_shot_appears_on_the_open_overview_and_table_without_a_reload(brow
 def test_admin_changes_a_limit_and_watches_the_reevaluation_finish(browser, page_server, artifacts):
     base, slug = page_server["base"], page_server["slug"]
     context = browser.new_context(viewport={"width": 1360, "height": 900})
-    context.add_cookies([{"name": "wakeledger_token", "value": page_server["token"], "url": base}])
+    context.add_cookies([{"name": SESSION_COOKIE, "value": page_server["session"], "url": base}])
     page = context.new_page()
     problems = _watch_console(page)
     page.goto(f"{base}/campaigns/{slug}/settings")

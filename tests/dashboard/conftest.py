@@ -6,8 +6,8 @@ from typing import Any
 
 import pytest
 
-from app.routers.deps import SESSION_COOKIE
 from tests.support.page_shots import page_shots as make_page_shots
+from tests.support.sessions import sign_in
 
 
 @pytest.fixture
@@ -27,13 +27,15 @@ def seeded(client, campaign, admin_headers, page_shots) -> str:
 
 @pytest.fixture
 def viewer_client(client, viewer_token):
-    client.cookies.set(SESSION_COOKIE, viewer_token)
+    """The test client signed in as a viewer (``client.csrf_token``: its session's CSRF token)."""
+    client.csrf_token = sign_in(client, viewer_token)
     return client
 
 
 @pytest.fixture
 def admin_client(client, admin_token):
-    client.cookies.set(SESSION_COOKIE, admin_token)
+    """The test client signed in as an admin (``client.csrf_token``: its session's CSRF token)."""
+    client.csrf_token = sign_in(client, admin_token)
     return client
 
 

@@ -21,6 +21,8 @@ from app.services.campaigns import find_campaign
 from app.services.dashboard import figures, overview, settings_form, shot_page, table
 from app.store import dashboard as store
 from tests.support import shot_to_shot_reference as reference
+from tests.support.jobs import run_queued_jobs
+from tests.support.sessions import page_csrf, sign_in_form
 
 SLUG = "test-campaign"
 
@@ -42,24 +44,35 @@ def test_signed_out_visitor_is_sent_to_sign_in_and_back_to_the_page_afterwards(c
     response = client.get(f"/campaigns/{SLUG}/shots?status=outside", follow_redirects=False)
     assert response.status_code == 303
     assert response.headers["location"].startswith("/sign-in?next=")
-    response = client.post(
-        "/sign-in",
-        data={"token": viewer_token, "next": f"/campaigns/{SLUG}/shots?status=outside"},
-        follow_redirects=False,
-    )
+    response = sign_in_form(client, viewer_token, f"/campaigns/{SLUG}/shots?status=outside")
     assert response.status_code == 303
     assert response.headers["location"] == f"/campaigns/{SLUG}/shots?status=outside"
 
 
-def test_sign_in_sets_an_httponly_samesite_lax_cookie_and_sign_out_clears_it(client, viewer_token):
-    response = client.post("/sign-in", data={"token": viewer_token}, follow_redirects=False)
+def test_sign_in_keeps_a_random_session_id_in_an_httponly_cookie_never_the_token(client, viewer_token):
+    response = sign_in_form(client, viewer_token)
     cookie = response.headers["set-cookie"]
     assert cookie.startswith(f"{SESSION_COOKIE}=")
+    assert viewer_token not in cookie and viewer_token.removeprefix("wlt_") not in cookie
     assert "HttpOnly" in cookie and "samesite=lax" in cookie.lower() and "Secure" not in cookie
     assert client.get("/campaigns").status_code == 200
-    response = client.post("/sign-out", follow_redirects=False)
+
+
+def test_sign_out_ends_the_session_on_the_server_too(client, viewer_token):
+    sign_in_form(client, viewer_token)
+    session_id = client.cookies.get(SESSION_COOKIE)
+    response = client.post("/sign-out", data={"csrf_token": page_csrf(client)}, follow_redirects=False)
     assert response.status_code == 303
     assert "Max-Age=0" in response.headers["set-cookie"] or "expires=" in response.headers["set-cookie"].lower()
+    client.cookies.set(SESSION_COOKIE, session_id)  # a copied cookie no longer signs anyone in
+    response = client.get("/campaigns", follow_redirects=False)
+    assert response.status_code == 303 and response.headers["location"].startswith("/sign-in")
+
+
+def test_sign_out_without_the_pages_csrf_token_changes_nothing(client, viewer_token):
+    sign_in_form(client, viewer_token)
+    assert client.post("/sign-out", data={}, follow_redirects=False).status_code == 403
+    assert client.get("/campaigns").status_code == 200
 
 
 def test_sign_in_cookie_is_secure_when_the_settings_ask_for_it(settings, viewer_token, app):
@@ -68,28 +81,38 @@ def test_sign_in_cookie_is_secure_when_the_settings_ask_for_it(settings, viewer_
     from app.main import create_app
 
     secure_app = create_app(settings.model_copy(update={"secure_cookies": True}))
-    with TestClient(secure_app) as secure_client:
-        response = secure_client.post("/sign-in", data={"token": viewer_token}, follow_redirects=False)
+    with TestClient(secure_app, base_url="https://testserver") as secure_client:
+        response = sign_in_form(secure_client, viewer_token)
         assert "Secure" in response.headers["set-cookie"]
     secure_app.state.engine.dispose()
 
 
 def test_sign_in_with_an_unknown_token_is_refused_with_a_clear_message(client):
-    response = client.post("/sign-in", data={"token": "wlt_not-a-token"}, follow_redirects=False)
+    response = sign_in_form(client, "wlt_not-a-token")
     assert response.status_code == 401
-    assert "unknown or revoked" in response.text
-    assert "set-cookie" not in response.headers
+    assert "unknown, revoked or expired" in response.text
+    assert SESSION_COOKIE not in response.headers.get("set-cookie", "")
+
+
+def test_sign_in_posted_from_another_site_is_refused(client, viewer_token):
+    response = sign_in_form(client, viewer_token, Origin="http://elsewhere.invalid")
+    assert response.status_code == 403
+    assert SESSION_COOKIE not in response.headers.get("set-cookie", "")
+
+
+def test_sign_in_without_the_forms_one_off_value_is_refused(client, viewer_token):
+    response = client.post("/sign-in", data={"token": viewer_token}, follow_redirects=False)
+    assert response.status_code == 400
+    assert SESSION_COOKIE not in response.headers.get("set-cookie", "")
 
 
 def test_sign_in_never_redirects_to_another_site(client, viewer_token):
-    response = client.post(
-        "/sign-in", data={"token": viewer_token, "next": "//elsewhere.invalid/x"}, follow_redirects=False
-    )
+    response = sign_in_form(client, viewer_token, "//elsewhere.invalid/x")
     assert response.headers["location"] == "/campaigns"
 
 
 def test_a_revoked_or_stale_cookie_counts_as_signed_out(client):
-    client.cookies.set(SESSION_COOKIE, "wlt_stale")
+    client.cookies.set(SESSION_COOKIE, "made-up-session-id")
     response = client.get("/campaigns", follow_redirects=False)
     assert response.status_code == 303 and response.headers["location"].startswith("/sign-in")
 
@@ -504,6 +527,7 @@ def test_settings_page_is_for_admins_only(viewer_client, seeded):
 def test_settings_form_rejects_bad_values_with_clear_errors_and_saves_nothing(admin_client, seeded, db):
     form = {f.name: f.text for f in settings_form.settings_form(db, _campaign(db)).model_fields}
     form["setting.noise_floor"] = "lots"
+    form["csrf_token"] = admin_client.csrf_token
     response = admin_client.post(f"/campaigns/{SLUG}/settings", data=form)
     assert response.status_code == 422
     assert "noise_floor must be a finite number" in response.text and 'value="lots"' in response.text
@@ -519,6 +543,7 @@ def test_settings_form_rejects_bad_values_with_clear_errors_and_saves_nothing(ad
 def test_settings_posted_from_another_site_are_refused(admin_client, seeded, db):
     form = {f.name: f.text for f in settings_form.settings_form(db, _campaign(db)).model_fields}
     form["limit.HOSING_RISK.outside"] = "1000"
+    form["csrf_token"] = admin_client.csrf_token
     response = admin_client.post(
         f"/campaigns/{SLUG}/settings", data=form, headers={"Origin": "http://elsewhere.invalid"}
     )
@@ -527,13 +552,25 @@ def test_settings_posted_from_another_site_are_refused(admin_client, seeded, db)
     assert _campaign(db).settings_version == 1
 
 
+def test_settings_posted_without_the_sessions_csrf_token_are_refused(admin_client, seeded, db):
+    form = {f.name: f.text for f in settings_form.settings_form(db, _campaign(db)).model_fields}
+    form["limit.HOSING_RISK.outside"] = "1000"
+    form["csrf_token"] = "guessed"
+    assert admin_client.post(f"/campaigns/{SLUG}/settings", data=form).status_code == 403
+    del form["csrf_token"]
+    assert admin_client.post(f"/campaigns/{SLUG}/settings", data=form).status_code == 403
+    db.rollback()
+    assert _campaign(db).settings_version == 1
+
+
 def test_saving_settings_starts_the_reevaluation_and_shows_its_progress(admin_client, seeded, db, app, admin_headers):
     form = {f.name: f.text for f in settings_form.settings_form(db, _campaign(db)).model_fields}
     form["limit.HOSING_RISK.outside"] = "1000"
+    form["csrf_token"] = admin_client.csrf_token
     response = admin_client.post(f"/campaigns/{SLUG}/settings", data=form, follow_redirects=False)
     assert response.status_code == 303
     job_id = response.headers["location"].split("job=")[1]
-    app.state.jobs.join(timeout=30)
+    run_queued_jobs(app)  # what a worker process does
     job = admin_client.get(f"/api/v1/jobs/{job_id}").json()  # the page polls this with the cookie
     assert job["state"] == "succeeded" and job["kind"] == "reevaluate"
     db.rollback()  # end the read snapshot taken before the request
@@ -619,3 +656,11 @@ def test_phases_either_side_of_plus_minus_pi_get_a_small_spread_on_the_overview(
     figure = figures.phase_figure(db, _campaign(db))
     per_group = next(t for t in figure["data"] if t["name"].startswith("measured shot-to-shot phase jitter"))
     assert per_group["y"] and all(v is not None and v < 0.05 for v in per_group["y"])
+
+
+def test_the_shot_page_lists_the_fields_that_took_their_defaults(viewer_client, campaign, admin_headers, make_shot):
+    shot = make_shot(shot_id="defaults-page", drop=["driver.emittance_n_mm_mrad"])
+    assert viewer_client.post(f"/api/v1/campaigns/{SLUG}/shots", json=shot, headers=admin_headers).status_code == 201
+    page = viewer_client.get(f"/campaigns/{SLUG}/shots/defaults-page").text
+    listed = page.split('id="defaulted-fields"', 1)[1].split("</p>", 1)[0]
+    assert "<code>driver.emittance_n_mm_mrad</code>" in listed and "plasma.density_cm3" not in listed

@@ -7,6 +7,7 @@ import re
 
 from app.services.detailed_runs import figures as run_figures
 from tests.support.detailed_runs import post_quick_shot, run_quick_detailed_run
+from tests.support.sessions import sign_in
 
 
 def _panel_config(html: str) -> dict:
@@ -22,7 +23,7 @@ def test_shot_page_shows_the_latest_detailed_run_with_its_three_charts_and_valid
     run_quick_detailed_run(client, campaign, admin_headers, shot)
     job = run_quick_detailed_run(client, campaign, admin_headers, shot)  # the second one is the latest
 
-    client.cookies.set("wakeledger_token", viewer_token)
+    sign_in(client, viewer_token)
     response = client.get(f"/campaigns/{campaign}/shots/{shot}")
     assert response.status_code == 200
     html = response.text
@@ -48,7 +49,7 @@ def test_shot_page_without_a_run_says_so_and_offers_the_start_button_to_ingest_a
     client, campaign, admin_headers, ingest_token, make_shot
 ):
     shot = post_quick_shot(client, campaign, admin_headers, make_shot)
-    client.cookies.set("wakeledger_token", ingest_token)
+    sign_in(client, ingest_token)
     html = client.get(f"/campaigns/{campaign}/shots/{shot}").text
     assert "No detailed run has been stored for this shot yet." in html
     assert 'id="detailed-run-form"' in html

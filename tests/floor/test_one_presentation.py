@@ -19,8 +19,8 @@ from sqlalchemy import update
 
 from app.presentation import palette
 from app.presentation.numbers import MISSING, format_delta, format_number
-from app.routers.deps import SESSION_COOKIE
 from app.tables import Campaign
+from tests.support.sessions import sign_in
 
 SLUG = "test-campaign"
 WEEK = "2026-W47"
@@ -90,7 +90,7 @@ def test_a_number_reads_the_same_in_a_served_row_a_live_row_and_the_report(clien
     # Measured before: 5.8e+14 served, 5.800e+14 live; 1.2346e-4 read 0.0001235 served,
     # 1.235e-4 live and 0.000123 in the report; a missing value was an em dash on the
     # dashboard and an en dash in the report.
-    client.cookies.set(SESSION_COOKIE, admin_token)
+    sign_in(client, admin_token)
     served = _cells(client.get(f"/campaigns/{SLUG}/shots").text, "odd-1")
     unseeded = _cells(client.get(f"/campaigns/{SLUG}/shots").text, "odd-2")
     live = {s["shot_id"]: s["text"] for s in client.get(f"/campaigns/{SLUG}/live", params={"since": 0}).json()["shots"]}
@@ -106,7 +106,7 @@ def test_a_number_reads_the_same_in_a_served_row_a_live_row_and_the_report(clien
 
 
 def test_the_csv_files_carry_the_stored_number_unrounded_and_identically(client, odd_numbers, admin_token):
-    client.cookies.set(SESSION_COOKIE, admin_token)
+    sign_in(client, admin_token)
     table = list(csv.DictReader(io.StringIO(client.get(f"/campaigns/{SLUG}/shots.csv").text)))
     weekly = list(
         csv.DictReader(
@@ -145,7 +145,7 @@ def test_one_palette_feeds_the_page_css_the_page_script_and_the_report(client, o
     hexes |= {"#9a6a00", "#8a6500", "#b34a00", "#a34400", "#7d5600"}
     assert not [h for h in hexes if h in css or h in script.lower()]
     assert not [g for g in palette.GLYPHS.values() if g in script or g.encode("unicode_escape").decode() in script]
-    client.cookies.set(SESSION_COOKIE, admin_token)
+    sign_in(client, admin_token)
     page = client.get(f"/campaigns/{SLUG}").text
     block = re.search(r'<script type="application/json" id="presentation">(.*?)</script>', page, re.S).group(1)
     assert json.loads(block) == {"glyphs": palette.GLYPHS}
@@ -164,7 +164,7 @@ def test_a_campaign_with_an_unknown_time_zone_reads_in_utc_on_the_dashboard_and_
     # Measured before: the dashboard fell back to UTC while the summary raised (a 500).
     with app.state.session_factory() as session, session.begin():
         session.execute(update(Campaign).where(Campaign.slug == SLUG).values(timezone="Mars/Olympus_Mons"))
-    client.cookies.set(SESSION_COOKIE, admin_token)
+    sign_in(client, admin_token)
     for path in (
         f"/campaigns/{SLUG}",
         f"/campaigns/{SLUG}/shots",
@@ -188,7 +188,7 @@ def test_a_campaign_with_an_unknown_time_zone_reads_in_utc_on_the_dashboard_and_
 def test_the_table_download_and_the_weekly_csv_follow_one_convention(client, odd_numbers, admin_token):
     # Measured before: the table download joined flags with ';' and had no units in its
     # headers; the weekly CSV joined them with '; ' and had units.
-    client.cookies.set(SESSION_COOKIE, admin_token)
+    sign_in(client, admin_token)
     table = list(csv.reader(io.StringIO(client.get(f"/campaigns/{SLUG}/shots.csv").text)))
     weekly = list(
         csv.reader(
@@ -232,7 +232,7 @@ def _assert_defused(rows: list[dict[str, str]]) -> None:
 def test_no_csv_export_lets_a_spreadsheet_run_a_note_or_a_tag_as_a_formula(
     client, hostile_notes, admin_token, database_url, tmp_path
 ):
-    client.cookies.set(SESSION_COOKIE, admin_token)
+    sign_in(client, admin_token)
     _assert_defused(list(csv.DictReader(io.StringIO(client.get(f"/campaigns/{SLUG}/shots.csv").text))))
     api = client.get(f"/api/v1/campaigns/{SLUG}/summary", params={"week": WEEK, "format": "csv"})
     _assert_defused(list(csv.DictReader(io.StringIO(api.text))))
@@ -251,7 +251,7 @@ def test_the_sections_a_daq_adds_stay_with_the_shot_in_every_export(
 ):
     _post(client, admin_headers, make_shot, "daq-1", 0, {}, daq={"run": 4711, "crate": "B2", "ok": True})
     _post(client, admin_headers, make_shot, "daq-2", 5, {}, operator="night shift")
-    client.cookies.set(SESSION_COOKIE, admin_token)
+    sign_in(client, admin_token)
     params = {"week": WEEK}
     rows = {
         r["shot_id"]: r

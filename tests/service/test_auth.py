@@ -5,9 +5,9 @@ from __future__ import annotations
 from sqlalchemy import select
 
 from app.cli import main
-from app.routers.deps import SESSION_COOKIE
 from app.services.auth import hash_token
 from app.tables import ApiToken
+from tests.support.sessions import sign_in
 
 
 def test_a_request_without_a_token_gets_401_with_www_authenticate(client, campaign):
@@ -55,7 +55,7 @@ def test_an_ingest_token_can_read_too(client, campaign, ingest_headers):
 
 
 def test_the_dashboard_cookie_carries_the_token_for_reads(client, campaign, viewer_token):
-    client.cookies.set(SESSION_COOKIE, viewer_token)
+    sign_in(client, viewer_token)
     try:
         assert client.get(f"/api/v1/campaigns/{campaign}").status_code == 200
     finally:

@@ -9,8 +9,9 @@ from pathlib import Path
 import pytest
 
 from app.services.detailed_runs import lifecycle as run_service
+from app.store import jobs as job_store
 from tests.support.detailed_runs import post_quick_shot, run_quick_detailed_run
-from tests.support.jobs import wait_for_job
+from tests.support.jobs import run_queued_jobs, wait_for_job
 
 RUNS = "/api/v1/campaigns/{campaign}/shots/{shot}/detailed-runs"
 
@@ -62,19 +63,25 @@ def test_a_restarted_detailed_run_job_does_not_store_its_run_twice(
 ):
     shot = post_quick_shot(client, campaign, ingest_headers, make_shot)
     job = run_quick_detailed_run(client, campaign, ingest_headers, shot)
-    again = run_service.run_detailed_job(app.state.session_factory, job["id"], lambda *_: None)
-    assert again["run_id"] == job["result"]["run_id"]
+    # As if its worker died after storing the run but before marking the job done: queued again.
+    with app.state.session_factory() as session:
+        job_store.set_job(session, job["id"], state="queued", lease_owner=None)
+        session.commit()
+    assert run_queued_jobs(app) == 1
+    again = client.get(f"/api/v1/jobs/{job['id']}", headers=viewer_headers).json()
+    assert again["state"] == "succeeded" and again["attempts"] == 2
+    assert again["result"]["run_id"] == job["result"]["run_id"]
     assert len(client.get(_runs(campaign, shot), headers=viewer_headers).json()["items"]) == 1
 
 
 def test_the_same_run_asked_twice_while_it_waits_is_one_job(client, campaign, ingest_headers, make_shot):
     shot = post_quick_shot(client, campaign, ingest_headers, make_shot)
-    with run_service._SOLVER_SLOT:  # hold the solver: the first job waits in "running"
-        first = client.post(_runs(campaign, shot), headers=ingest_headers).json()["job_id"]
-        second = client.post(_runs(campaign, shot), json={}, headers=ingest_headers).json()["job_id"]
-        other = client.post(_runs(campaign, shot), json={"slices_per_wavelength": 17}, headers=ingest_headers).json()[
-            "job_id"
-        ]
+    # No worker runs here, so the first job waits in the queue.
+    first = client.post(_runs(campaign, shot), headers=ingest_headers).json()["job_id"]
+    second = client.post(_runs(campaign, shot), json={}, headers=ingest_headers).json()["job_id"]
+    other = client.post(_runs(campaign, shot), json={"slices_per_wavelength": 17}, headers=ingest_headers).json()[
+        "job_id"
+    ]
     assert first == second != other
     for job_id in (first, other):
         assert wait_for_job(client, job_id, ingest_headers)["state"] == "succeeded"

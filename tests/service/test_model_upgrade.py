@@ -73,7 +73,6 @@ def test_a_campaign_evaluated_by_an_older_model_is_re_evaluated_when_the_service
             [job] = _reevaluation_jobs(factory, campaign)
             finished = wait_for_job(again, job.id, viewer_headers, timeout_s=20)
     finally:
-        restarted.state.jobs.join(timeout=10)
         restarted.state.engine.dispose()
     assert finished["state"] == "succeeded", finished
     assert (finished["done"], finished["total"], finished["result"]["reevaluated"]) == (12, 12, 12)
@@ -100,7 +99,6 @@ def test_a_campaign_already_on_the_current_model_gets_no_job_at_start_up(
             [job] = _reevaluation_jobs(factory, campaign)
             wait_for_job(again, job.id, viewer_headers, timeout_s=20)
     finally:
-        restarted.state.jobs.join(timeout=10)
         restarted.state.engine.dispose()
     assert _reevaluation_jobs(factory, "current") == []
     assert _model_versions(factory, "current") == {model.MODEL_VERSION}
@@ -125,7 +123,6 @@ def test_start_up_queues_no_second_job_when_a_re_evaluation_is_already_queued(
         with test_client(restarted) as again:
             finished = wait_for_job(again, queued.id, viewer_headers, timeout_s=20)
     finally:
-        restarted.state.jobs.join(timeout=10)
         restarted.state.engine.dispose()
     assert [j.id for j in _reevaluation_jobs(factory, campaign)] == [queued.id]
     assert finished["result"]["reevaluated"] == 4  # the resumed job also covers the older model's shots

@@ -1,4 +1,9 @@
-"""Waiting for a background job through the API, shared by every test that starts one."""
+"""Running and waiting for background jobs in tests.
+
+Nothing runs jobs inside the app: in-process tests run the queue deterministically in the
+test's own thread (``run_queued_jobs``, a worker's ``drain``); tests of real worker
+processes use the ``job_worker`` fixture (tests/conftest.py) and wait on the API.
+"""
 
 from __future__ import annotations
 
@@ -6,12 +11,27 @@ import time
 from typing import Any
 
 
+def run_queued_jobs(app) -> int:
+    """Run every queued job of the app's database in this thread; returns how many ran."""
+    from app.services.job_kinds import KINDS
+    from app.services.workers import Worker
+
+    return Worker(app.state.session_factory, KINDS, name="tests-drain").drain()
+
+
 def wait_for_job(client, job_id: str, headers: dict[str, str], timeout_s: float = 60.0) -> dict[str, Any]:
-    """Poll GET /api/v1/jobs/{id} until the job has succeeded or failed (bounded: timeout_s)."""
+    """The job once it has ended (succeeded, failed or cancelled).
+
+    A TestClient's app runs its queue here first; otherwise (a live server) a worker
+    process must be running, and the API is polled (bounded: timeout_s).
+    """
+    app = getattr(client, "app", None)
+    if app is not None and hasattr(app, "state"):
+        run_queued_jobs(app)
     deadline = time.monotonic() + timeout_s
     while True:
         job = client.get(f"/api/v1/jobs/{job_id}", headers=headers).json()
-        if job["state"] in ("succeeded", "failed"):
+        if job["state"] in ("succeeded", "failed", "cancelled"):
             return job
         if time.monotonic() > deadline:
             raise AssertionError(f"job {job_id} did not finish within {timeout_s} s: {job}")

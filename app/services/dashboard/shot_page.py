@@ -30,6 +30,7 @@ class InputRow:
     unit: str
     description: str
     valid_range: str
+    defaulted: bool = False  # the shot left it out: the value is the model's default
 
 
 @dataclass(frozen=True)
@@ -278,9 +279,15 @@ def shot_detail(session: Session, campaign: Campaign, shot_id: str) -> ShotDetai
         return None
     shot, evaluation = found
     known = {spec.path for spec in model.INPUT_FIELDS}
+    defaulted = set(evaluation.defaulted_fields or []) if evaluation is not None else set()
     inputs = [
         InputRow(
-            spec.path, getattr(shot, model.column_name(spec.path), None), spec.unit, spec.description, spec.range_text
+            spec.path,
+            getattr(shot, model.column_name(spec.path), None),
+            spec.unit,
+            spec.description,
+            spec.range_text,
+            spec.path in defaulted,
         )
         for spec in model.INPUT_FIELDS
     ]

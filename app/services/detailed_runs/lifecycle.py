@@ -2,33 +2,36 @@
 
 A run is a background job (kind ``detailed_run``) that solves the shot revision current
 when it was asked for, with the campaign's settings of that moment, and stores the JSON
-result in one transaction at the end: a failed run stores nothing. This module starts
+result in one transaction at the end: a failed run stores nothing. While it solves, the
+job keeps the solver's state as its checkpoint (every ``ctx.checkpoint_interval_s``), so
+a run whose worker died carries on from there, to the same result. This module starts
 runs, is the job, and reads stored runs back (with their figures, for the shot page).
 """
 
 from __future__ import annotations
 
+import io
 import math
-import threading
 import time
 from collections.abc import Callable, Mapping
 from datetime import UTC, datetime
 from typing import Any
 from urllib.parse import quote
 
+import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
-from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy.orm import Session
 
 import model
 from app.database import begin_write, run_write
 from app.errors import FieldProblem, InvalidInput, NotFound
 from app.schemas import pydantic_problems
 from app.services import jobs
+from app.services.auth import TokenInfo
 from app.services.campaigns import require_campaign
 from app.services.detailed_runs.figures import CHART_TITLES, run_facts, run_figures
 from app.store import audit
 from app.store import detailed_runs as run_store
-from app.store import jobs as job_store
 from app.store import shots as shot_store
 from app.tables import Campaign, DetailedRun, Job, Shot
 from app.times import format_utc
@@ -37,8 +40,6 @@ from model import envelope
 RUN_KIND = "detailed_run"
 MAX_SLICES_PER_WAVELENGTH = 128  # 8x the default grid: a run stays within minutes
 PROGRESS_INTERVAL_S = 0.5  # the job row is written at most this often while the solver runs
-# One solver at a time per process: the runs are CPU-bound and the service has few cores.
-_SOLVER_SLOT = threading.BoundedSemaphore(1)
 
 
 class RunParameters(BaseModel):
@@ -74,12 +75,13 @@ def step_problems(params: RunParameters, plasma_length_m: float) -> list[FieldPr
     """A requested step must keep the run within the solver's step limit (model.envelope.MAX_STEPS)."""
     if params.dz_m is None:
         return []
-    steps = math.ceil(plasma_length_m / params.dz_m - 1e-9)
+    ratio = plasma_length_m / params.dz_m  # a subnormal dz_m makes this infinite
+    steps = math.ceil(ratio - 1e-9) if math.isfinite(ratio) else math.inf
     if steps > envelope.MAX_STEPS:
         return [
             (
                 "dz_m",
-                f"{plasma_length_m:g} m of plasma in steps of {params.dz_m:g} m is {steps} steps; "
+                f"{plasma_length_m:g} m of plasma in steps of {params.dz_m:g} m is {steps:.4g} steps; "
                 f"the solver takes at most {envelope.MAX_STEPS} "
                 f"(use dz_m >= {plasma_length_m / envelope.MAX_STEPS:.3g})",
             )
@@ -102,9 +104,18 @@ def _same_request(a: Mapping[str, Any], b: Mapping[str, Any]) -> bool:
     return all(a.get(k) == b.get(k) for k in keys)
 
 
-def start_run(session: Session, slug: str, shot_id: str, params: RunParameters, actor: str) -> Job:
+def start_run(
+    session: Session,
+    slug: str,
+    shot_id: str,
+    params: RunParameters,
+    who: TokenInfo,
+    limits: jobs.JobLimits = jobs.NO_LIMITS,
+) -> Job:
     """Queue a run of the shot's current revision. Asked again while an identical run is still
-    queued or running, it returns that job instead of starting a second one."""
+    queued or running, it returns that job instead of starting a second one; past the queue
+    limits of the campaign or of the token, TooManyJobs."""
+    actor = who.actor
 
     def work() -> Job:
         begin_write(session)
@@ -125,7 +136,7 @@ def start_run(session: Session, slug: str, shot_id: str, params: RunParameters, 
         for job in run_store.unfinished_jobs(session, RUN_KIND, campaign.id):
             if _same_request(jobs.job_params(job), wanted):
                 return job
-        job = jobs.queue_job(session, RUN_KIND, campaign.id, wanted)
+        job = jobs.queue_job(session, RUN_KIND, campaign.id, wanted, submitter=who, limits=limits)
         audit.record(
             session,
             actor,
@@ -163,25 +174,74 @@ class JobProgress:
         self.report(percent, 100, f"solving the envelope equations: {percent} %")
 
 
-def run_detailed_job(factory: sessionmaker[Session], job_id: str, progress: jobs.Progress) -> dict[str, Any]:
-    """Solve, then store the result in one transaction. Safe to restart: a stored run is not stored twice."""
+_STATE_ARRAYS = ("x", "y", "vx", "vy", "modulation", "sigma_stored", "phase_steps")
+_STATE_NUMBERS = ("step", "n_steps", "next_store")
+
+
+def state_bytes(state: envelope.EnvelopeState) -> bytes:
+    """The solver's state as a job checkpoint (numpy's npz: exact floats)."""
+    out = io.BytesIO()
+    arrays: dict[str, Any] = {name: getattr(state, name) for name in _STATE_ARRAYS}
+    arrays.update({name: np.array(getattr(state, name)) for name in _STATE_NUMBERS})
+    np.savez(out, **arrays)
+    return out.getvalue()
+
+
+def state_of(data: bytes) -> envelope.EnvelopeState:
+    with np.load(io.BytesIO(data)) as saved:
+        return envelope.EnvelopeState(
+            step=int(saved["step"]),
+            n_steps=int(saved["n_steps"]),
+            next_store=int(saved["next_store"]),
+            **{name: saved[name] for name in _STATE_ARRAYS},
+        )
+
+
+def run_detailed_job(ctx: jobs.JobContext) -> dict[str, Any]:
+    """Solve (from the checkpoint, if an earlier attempt kept one), then store the result in
+    one transaction. Safe to restart: a stored run is not stored twice."""
+    job_id, p, factory, progress = ctx.job_id, ctx.params, ctx.factory, ctx.progress
     with factory() as session:
-        job = job_store.get_job(session, job_id)
-        if job is None:
-            raise LookupError(f"job {job_id} does not exist")
-        p = jobs.job_params(job)
         stored = run_store.run_id_for_job(session, job_id)
         payload = run_store.revision_payload(session, p["shot_pk"], p["shot_revision"]) if stored is None else None
     if stored is not None:
         return {"run_id": stored, "shot_id": p["shot_id"]}
     if payload is None:
         raise LookupError(f"shot {p['shot_id']!r} revision {p['shot_revision']} no longer exists")
-    progress(0, 100, "waiting for the solver")
-    with _SOLVER_SLOT:
-        progress(0, 100, "setting up the slices")
+    resume = state_of(ctx.checkpoint) if ctx.checkpoint else None
+    progress(ctx.done if resume else 0, 100, f"resuming at step {resume.step}" if resume else "setting up the slices")
+    last_saved = [time.monotonic()]
+
+    def keep(state: envelope.EnvelopeState) -> None:
+        if time.monotonic() - last_saved[0] >= ctx.checkpoint_interval_s:
+            ctx.save_checkpoint(state_bytes(state))
+            last_saved[0] = time.monotonic()
+
+    reported = JobProgress(progress)
+    if resume is not None:
+        reported.last_percent = ctx.done - 1  # a resumed run reports on from where it was
+    try:
         result = envelope.simulate_envelope(
-            payload, p["settings"], p["slices_per_wavelength"], p["dz_m"], progress=JobProgress(progress)
+            payload,
+            p["settings"],
+            p["slices_per_wavelength"],
+            p["dz_m"],
+            progress=reported,
+            resume=resume,
+            checkpoint=keep,
         )
+    except ValueError:
+        if resume is None:
+            raise
+        result = envelope.simulate_envelope(  # a checkpoint of another grid: solve from the start
+            payload,
+            p["settings"],
+            p["slices_per_wavelength"],
+            p["dz_m"],
+            progress=JobProgress(progress),
+            checkpoint=keep,
+        )
+        resume = None
     progress(100, 100, "storing the result")
     document = envelope.envelope_result_to_json(result)
     with factory() as session:
@@ -200,7 +260,12 @@ def run_detailed_job(factory: sessionmaker[Session], job_id: str, progress: jobs
         )
         run_id = run.id
         session.commit()
-    return {"run_id": run_id, "shot_id": p["shot_id"], "valid_until_m": document["valid_until_m"]}
+    return {
+        "run_id": run_id,
+        "shot_id": p["shot_id"],
+        "valid_until_m": document["valid_until_m"],
+        "resumed_from_step": resume.step if resume is not None else None,
+    }
 
 
 # ----------------------------------------------------------------------------- reading

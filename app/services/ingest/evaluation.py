@@ -47,8 +47,13 @@ def evaluation_columns(
     campaign_id: int,
     settings_version: int,
     now: datetime,
+    defaulted: Sequence[list[str]] | None = None,
 ) -> tuple[dict[str, list[Any]], dict[str, list[Any]]]:
-    """Evaluation and flag table columns for the table's shots (in order)."""
+    """Evaluation and flag table columns for the table's shots (in order).
+
+    ``defaulted`` lists, per shot, the input fields that took their defaults; without it
+    (a re-evaluation of stored inputs) the stored lists are left as they are.
+    """
     n = len(shot_pks)
     evals: dict[str, list[Any]] = {name: float_list(table[name]) for name in model.OUTPUT_NAMES}
     evals.update(
@@ -59,6 +64,8 @@ def evaluation_columns(
         evaluated_at=[now] * n,
         status=[model.STATUSES[rank] for rank in table["status"].tolist()],
     )
+    if defaulted is not None:
+        evals["defaulted_fields"] = [list(d) for d in defaulted]
     names = ("shot_pk", "campaign_id", "code", "severity", "value", "limit_value", "message")
     flags: dict[str, list[Any]] = {k: [] for k in names}
     for code in model.FLAG_CODES:
@@ -91,7 +98,8 @@ def evaluation_rows(
     campaign_id: int,
     settings_version: int,
     now: datetime,
+    defaulted: Sequence[list[str]] | None = None,
 ) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
     """Evaluation rows and flag rows for the table's shots (in order)."""
-    evals, flags = evaluation_columns(table, shot_pks, campaign_id, settings_version, now)
+    evals, flags = evaluation_columns(table, shot_pks, campaign_id, settings_version, now, defaulted)
     return as_rows(evals), as_rows(flags)

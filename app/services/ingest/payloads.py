@@ -1,31 +1,50 @@
-"""Shot bodies before storing: validation, the payload digest and differences.
+"""Shot bodies before storing: validation, the service's field policy, the payload digest
+and differences.
 
 ``prepare_all`` checks every body of a request (the envelope with pydantic, the physics
-inputs with the model's table validator) and names every failing field; the valid
-shots come out as ``PreparedShot`` rows and their model inputs as validated dotted-path
-columns (``PreparedBatch.inputs``), which stay columns until the store boundary.
+inputs with the model's table validator, the field policy below) and names the failing
+fields, the first ``MAX_PROBLEMS`` of them (a payload is not walked further once the cap
+is reached; every invalid shot is still counted). The valid shots come out as
+``PreparedShot`` rows and their model inputs as validated dotted-path columns
+(``PreparedBatch.inputs``), which stay columns until the store boundary.
+
+The field policy is the service's, stricter than the model (which keeps unknown fields):
+inside ``driver``, ``plasma``, ``seed`` and ``measured`` only the fields of
+``model.INPUT_FIELDS`` are taken (a typo would otherwise leave the real field at its
+default), each unknown key named with a "did you mean" suggestion; other top-level
+sections (e.g. ``daq``) are kept verbatim. ``taken_at`` must lie between 1990 and a
+little past the server's clock. The fields that took their defaults are listed.
 """
 
 from __future__ import annotations
 
+import difflib
 import hashlib
 import json
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
-from datetime import UTC, datetime
+from dataclasses import dataclass, field
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 import numpy as np
-from pydantic import TypeAdapter, ValidationError
+from pydantic import AwareDatetime, TypeAdapter, ValidationError
 
 import model
-from app.errors import FieldProblem, InvalidInput
+from app.errors import FieldProblem, InvalidInput, ProblemList
 from app.schemas import ShotEnvelope, pydantic_problems
 from app.services import metrics
-from app.times import format_utc
+from app.times import EARLIEST_SHOT_TIME, format_utc
 
 _ENVELOPE = TypeAdapter(ShotEnvelope)
+_STORED_TIME = TypeAdapter(AwareDatetime)  # stored payloads were checked when they came in
+DEFAULT_MAX_FUTURE = timedelta(days=1)
+# Known keys of each physics section, from the model's field table.
+KNOWN_FIELDS: dict[str, tuple[str, ...]] = {
+    section: tuple(f.path.split(".", 1)[1] for f in model.INPUT_FIELDS if f.path.startswith(section + "."))
+    for section in model.SECTIONS
+}
+_DEFAULTED = tuple(f for f in model.INPUT_FIELDS if f.default is not None)
 _FLOAT_MAX = 1.7976931348623157e308
 _NUMBER_OR_ABSENT = (int, float, type(None))
 _CHECK_CHUNK = 64  # rows per vectorised check; a failing chunk is re-checked shot by shot
@@ -91,7 +110,7 @@ def comparable_payload(payload: Mapping[str, Any], taken_at: datetime) -> dict[s
 
 def stored_comparable(payload: Mapping[str, Any]) -> dict[str, Any]:
     """``comparable_payload`` of a stored (valid) payload."""
-    return comparable_payload(payload, _ENVELOPE.validate_python(payload).taken_at)
+    return comparable_payload(payload, _STORED_TIME.validate_python(payload["taken_at"]))
 
 
 def payload_digest(comparable: Mapping[str, Any]) -> str:
@@ -129,6 +148,49 @@ def differing_paths(old: Any, new: Any, prefix: str = "") -> list[str]:
     return [] if same else [prefix or "(document)"]
 
 
+# --- the field policy -------------------------------------------------------------------------------
+
+
+def unknown_field_problems(payload: Mapping[str, Any], prefix: str = "") -> list[FieldProblem]:
+    """Keys inside a physics section that the model does not know, each with the closest known name."""
+    problems: list[FieldProblem] = []
+    for section, known in KNOWN_FIELDS.items():
+        block = payload.get(section)
+        if not isinstance(block, Mapping):
+            continue
+        for key in block:
+            if key in known:
+                continue
+            reason = f"unknown field of {section}"
+            close = difflib.get_close_matches(str(key), known, n=1, cutoff=0.6)
+            if close:
+                reason += f"; did you mean {section}.{close[0]}?"
+            problems.append((prefixed(prefix, f"{section}.{key}"), reason))
+    return problems
+
+
+def defaulted_fields(payload: Mapping[str, Any]) -> list[str]:
+    """Input fields with a default that the shot leaves out (or sets to null)."""
+    out = []
+    for f in _DEFAULTED:
+        section, name = f.path.split(".", 1)
+        block = payload.get(section)
+        if not isinstance(block, Mapping) or block.get(name) is None:
+            out.append(f.path)
+    return out
+
+
+def taken_at_problems(taken_at: datetime, now: datetime, max_future: timedelta, prefix: str = "") -> list[FieldProblem]:
+    """A shot time before 1990 or more than ``max_future`` past the server's clock is a mistake."""
+    path = prefixed(prefix, "taken_at")
+    if taken_at < EARLIEST_SHOT_TIME:
+        return [(path, f"is before {format_utc(EARLIEST_SHOT_TIME)}, earlier than any shot this service takes")]
+    if taken_at > now + max_future:
+        hours = max_future.total_seconds() / 3600
+        return [(path, f"is more than {hours:g} h ahead of the server's clock ({format_utc(now)})")]
+    return []
+
+
 # --- validation -----------------------------------------------------------------------------------
 
 
@@ -145,6 +207,7 @@ class PreparedShot:
     position: int  # row in PreparedBatch.inputs
     comparable: dict[str, Any]
     sha256: str
+    defaulted: list[str] = field(default_factory=list)  # input paths that took their defaults
 
 
 @dataclass
@@ -159,53 +222,81 @@ class PreparedBatch:
         return {path: values[positions] for path, values in self.inputs.items()}
 
 
-def _non_finite_paths(value: Any, prefix: str = "") -> list[FieldProblem]:
+def _non_finite_paths(value: Any, prefix: str, out: ProblemList) -> None:
+    """NaN and infinity anywhere in the value; the walk stops once ``out`` is full."""
     if isinstance(value, float):
-        return [] if math.isfinite(value) else [(prefix, "NaN or infinity is not allowed")]
-    if isinstance(value, Mapping):
-        out: list[FieldProblem] = []
+        if not math.isfinite(value):
+            out.add(prefix, "NaN or infinity is not allowed")
+    elif isinstance(value, Mapping):
         for k, v in value.items():
-            out += _non_finite_paths(v, f"{prefix}.{k}" if prefix else str(k))
-        return out
-    if isinstance(value, list):
-        out = []
+            if out.full:
+                return
+            _non_finite_paths(v, f"{prefix}.{k}" if prefix else str(k), out)
+    elif isinstance(value, list):
         for i, v in enumerate(value):
-            out += _non_finite_paths(v, f"{prefix}.{i}" if prefix else str(i))
-        return out
-    return []
+            if out.full:
+                return
+            _non_finite_paths(v, f"{prefix}.{i}" if prefix else str(i), out)
 
 
 def prefixed(prefix: str, path: str) -> str:
     return f"{prefix}.{path}" if prefix else path
 
 
-def physics_problems(payload: Mapping[str, Any], prefix: str = "") -> list[FieldProblem]:
-    """Non-finite numbers anywhere (unknown fields too), and the section-1 inputs as the model checks them."""
-    own = _non_finite_paths(payload) + _unrepresentable_inputs(payload)
-    problems = [(prefixed(prefix, p), r) for p, r in own]
-    if _unrepresentable_inputs(payload):
-        return problems  # the model cannot take such a number at all
+def _physics(payload: Mapping[str, Any], prefix: str, out: ProblemList, non_finite: bool) -> None:
+    """Add the shot's non-finite numbers and its section-1 inputs as the model checks them.
+
+    Past the cap the payload is not walked: a shot known to hold a non-finite number
+    counts once, and the model's check is skipped for a shot already found invalid.
+    """
+    start = out.total
+    if out.full and non_finite:
+        out.add(prefix or "body", "NaN or infinity is not allowed")
+        return
+    own = ProblemList(max(1, out.limit - len(out.items)))
+    _non_finite_paths(payload, prefix, own)
+    unrepresentable = _unrepresentable_inputs(payload)
+    own.extend([(prefixed(prefix, p), r) for p, r in unrepresentable])
+    out.extend(own.items)
+    out.total += own.total - len(own.items)
+    if unrepresentable or (out.full and out.total > start):
+        return  # the model cannot take such a number at all / the cap is reached
     try:
         model.validate_shot(payload)
     except model.ShotInputError as exc:
-        seen = {p for p, _ in own}
-        problems += [(prefixed(prefix, str(p)), str(r)) for p, r in exc.problems if str(p) not in seen]
-    return problems
+        seen = {p for p, _ in own.items}
+        out.extend(
+            [(prefixed(prefix, str(p)), str(r)) for p, r in exc.problems if prefixed(prefix, str(p)) not in seen]
+        )
+
+
+def physics_problems(payload: Mapping[str, Any], prefix: str = "") -> list[FieldProblem]:
+    """Unknown section fields, non-finite numbers anywhere, and the section-1 inputs as the model checks them."""
+    out = ProblemList()
+    out.extend(unknown_field_problems(payload, prefix))
+    _physics(payload, prefix, out, non_finite=False)
+    return out.items
 
 
 def check_shot_body(payload: Any) -> None:
-    """What-if and simulate: one shot body the model can evaluate, or InvalidInput naming every field."""
+    """What-if and simulate: one shot body the model can evaluate, or InvalidInput naming the fields."""
     if not isinstance(payload, Mapping):
         raise InvalidInput([("body", "a shot must be a JSON object")])
-    problems = physics_problems(payload)
-    if problems:
-        raise InvalidInput(problems)
+    out = ProblemList()
+    out.extend(unknown_field_problems(payload))
+    _physics(payload, "", out, non_finite=False)
+    if out:
+        raise InvalidInput(out.items, total=out.total, truncated=out.full)
 
 
 def _checked_inputs(
-    payloads: Sequence[Mapping[str, Any]], prefixes: Sequence[str], non_finite: Sequence[bool]
-) -> tuple[Mapping[str, np.ndarray], list[FieldProblem]]:
-    """Validated input columns of every shot, or the problems naming each failing field.
+    payloads: Sequence[Mapping[str, Any]],
+    prefixes: Sequence[str],
+    non_finite: Sequence[bool],
+    out: ProblemList,
+) -> tuple[Mapping[str, np.ndarray], set[int]]:
+    """Validated input columns of every shot, or the positions of the failing shots (their
+    problems added to ``out``).
 
     The vectorised check (model.validate_columns) clears the usual all-valid case in one
     call; when it fails, chunks locate the failing shots, and those (with shots only the
@@ -215,7 +306,7 @@ def _checked_inputs(
     single = [bad or needs_single_check(p) for p, bad in zip(payloads, non_finite, strict=True)]
     if not any(single):
         try:
-            return model.validate_columns(payload_columns(payloads)), []
+            return model.validate_columns(payload_columns(payloads)), set()
         except (model.ShotInputError, OverflowError):  # OverflowError: an integer beyond float range
             pass
     suspects = [i for i, flag in enumerate(single) if flag]
@@ -227,59 +318,80 @@ def _checked_inputs(
             model.validate_columns(payload_columns([payloads[i] for i in rows]))
         except (model.ShotInputError, OverflowError):
             suspects += rows
-    problems: list[FieldProblem] = []
+    failing: set[int] = set()
     for i in sorted(suspects):
-        problems += physics_problems(payloads[i], prefixes[i])
-    if problems:
-        return {}, problems
+        before = out.total
+        _physics(payloads[i], prefixes[i], out, non_finite[i])
+        if out.total > before:
+            failing.add(i)
+    if failing:
+        return {}, failing
     # Every suspect passed on its own: check the whole set (a ShotInputError here still 422s).
-    return model.validate_columns(payload_columns(payloads)), []
+    return model.validate_columns(payload_columns(payloads)), set()
 
 
-def _reject(count: int, problems: list[FieldProblem], batch: bool) -> InvalidInput:
+def _reject(count: int, failing: int, out: ProblemList, batch: bool) -> InvalidInput:
     metrics.SHOTS_REJECTED.inc(count, reason="invalid")
-    failing = {p.split(".", 2)[1] for p, _ in problems if p.startswith("shots.")}
+    listed = "; the first problems are listed" if out.full else ""
     if batch:
-        detail = f"{len(failing) or count} of {count} shots are invalid; nothing was stored"
+        detail = f"{failing} of {count} shots are invalid; nothing was stored{listed}"
     else:
-        detail = f"the shot is invalid ({len(problems)} problem(s)); nothing was stored"
-    return InvalidInput(problems, detail)
+        detail = f"the shot is invalid ({out.total} problem(s)); nothing was stored{listed}"
+    problems = out.items
+    if batch:  # in request order
+        problems = sorted(problems, key=lambda p: int(p[0].split(".", 2)[1]) if p[0].startswith("shots.") else -1)
+    return InvalidInput(problems, detail, total=out.total, truncated=out.full)
 
 
-def prepare_all(payloads: Sequence[Any], batch: bool) -> PreparedBatch:
-    """Validate every body; InvalidInput naming every failing field (``shots.<i>.<path>`` in a batch)."""
-    problems: list[FieldProblem] = []
+def prepare_all(
+    payloads: Sequence[Any],
+    batch: bool,
+    *,
+    now: datetime | None = None,
+    max_future: timedelta = DEFAULT_MAX_FUTURE,
+) -> PreparedBatch:
+    """Validate every body; InvalidInput naming the failing fields (``shots.<i>.<path>`` in a batch)."""
+    now = now or datetime.now(UTC)
+    out = ProblemList()
+    failing: set[int] = set()
     valid: dict[int, tuple[ShotEnvelope, dict[str, Any], str]] = {}
     objects: list[int] = []
     non_finite: list[bool] = []
     for i, payload in enumerate(payloads):
         prefix = f"shots.{i}" if batch else ""
+        before = out.total
         if not isinstance(payload, Mapping):
-            problems.append((prefix or "body", "a shot must be a JSON object"))
+            out.add(prefix or "body", "a shot must be a JSON object")
+            failing.add(i)
             continue
         objects.append(i)
         envelope = None
         try:
             envelope = _ENVELOPE.validate_python(payload)
         except ValidationError as exc:
-            problems += pydantic_problems(exc.errors(include_url=False), prefix)
+            out.extend(pydantic_problems(exc.errors(include_url=False), prefix))
+        if envelope is not None:
+            timing = taken_at_problems(envelope.taken_at, now, max_future, prefix)
+            out.extend(timing)
+            envelope = None if timing else envelope
+        out.extend(unknown_field_problems(payload, prefix))
+        if out.total > before:
+            failing.add(i)
         comparable = comparable_payload(payload, envelope.taken_at) if envelope else dict(payload)
         try:
             digest = payload_digest(comparable)
-        except ValueError:  # NaN or infinity somewhere; physics_problems names where
+        except ValueError:  # NaN or infinity somewhere; _physics names where
             non_finite.append(True)
             continue
         non_finite.append(False)
-        if envelope is not None:
+        if envelope is not None and i not in failing:
             valid[i] = (envelope, comparable, digest)
-    inputs, physics = _checked_inputs(
-        [payloads[i] for i in objects], [f"shots.{i}" if batch else "" for i in objects], non_finite
+    inputs, physics_failing = _checked_inputs(
+        [payloads[i] for i in objects], [f"shots.{i}" if batch else "" for i in objects], non_finite, out
     )
-    problems += physics
-    if problems:
-        if batch:  # in request order
-            problems.sort(key=lambda p: int(p[0].split(".", 2)[1]) if p[0].startswith("shots.") else -1)
-        raise _reject(len(payloads), problems, batch)
+    failing |= {objects[j] for j in physics_failing}
+    if out:
+        raise _reject(len(payloads), len(failing), out, batch)
     prepared: list[PreparedShot] = []
     for position, i in enumerate(objects):
         envelope, comparable, digest = valid[i]
@@ -294,6 +406,7 @@ def prepare_all(payloads: Sequence[Any], batch: bool) -> PreparedBatch:
                 position=position,
                 comparable=comparable,
                 sha256=digest,
+                defaulted=defaulted_fields(payloads[i]),
             )
         )
     return PreparedBatch(prepared, inputs)

@@ -17,7 +17,7 @@ import threading
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 import numpy as np
@@ -31,6 +31,7 @@ from app.services import metrics
 from app.services.campaigns import campaign_lock, require_campaign
 from app.services.ingest.evaluation import as_rows, evaluate_inputs, evaluation_columns, evaluation_rows
 from app.services.ingest.payloads import (
+    DEFAULT_MAX_FUTURE,
     PreparedBatch,
     PreparedShot,
     differing_paths,
@@ -145,19 +146,28 @@ class IngestResult:
 
 
 def ingest_shots(
-    session: Session, campaign_slug: str, payloads: Sequence[Any], actor: str, *, batch: bool = True
+    session: Session,
+    campaign_slug: str,
+    payloads: Sequence[Any],
+    actor: str,
+    *,
+    batch: bool = True,
+    max_future: timedelta = DEFAULT_MAX_FUTURE,
 ) -> IngestResult:
     """Store and evaluate shots all-or-nothing, committed before returning.
 
-    ``batch`` only changes how failing fields are named (``shots.<i>.<path>`` or ``<path>``).
+    ``batch`` only changes how failing fields are named (``shots.<i>.<path>`` or ``<path>``);
+    ``max_future`` is how far past the server's clock a ``taken_at`` may lie.
     Raises NotFound (campaign), InvalidInput (invalid shots), ShotConflict (conflicting payloads).
     """
     with cyclic_gc_paused():
-        return _ingest(session, campaign_slug, payloads, actor, batch)
+        return _ingest(session, campaign_slug, payloads, actor, batch, max_future)
 
 
-def _ingest(session: Session, campaign_slug: str, payloads: Sequence[Any], actor: str, batch: bool) -> IngestResult:
-    prepared = prepare_all(payloads, batch)
+def _ingest(
+    session: Session, campaign_slug: str, payloads: Sequence[Any], actor: str, batch: bool, max_future: timedelta
+) -> IngestResult:
+    prepared = prepare_all(payloads, batch, max_future=max_future)
 
     def prefix(i: int) -> str:
         return f"shots.{i}" if batch else ""
@@ -208,7 +218,9 @@ def _ingest(session: Session, campaign_slug: str, payloads: Sequence[Any], actor
             table = evaluate_inputs(
                 prepared.inputs_of(new), campaign.model_settings or {}, "batch" if batch else "single"
             )
-            evals, flags = evaluation_columns(table, pks, campaign.id, campaign.settings_version, now)
+            evals, flags = evaluation_columns(
+                table, pks, campaign.id, campaign.settings_version, now, [s.defaulted for s in new]
+            )
             shot_store.insert_evaluations(session, evals)
             shot_store.insert_flags(session, flags)
             result.items += [
@@ -246,13 +258,20 @@ def _ingest(session: Session, campaign_slug: str, payloads: Sequence[Any], actor
 
 
 def correct_shot(
-    session: Session, campaign_slug: str, shot_id: str, payload: Any, actor: str, reason: str = ""
+    session: Session,
+    campaign_slug: str,
+    shot_id: str,
+    payload: Any,
+    actor: str,
+    reason: str = "",
+    *,
+    max_future: timedelta = DEFAULT_MAX_FUTURE,
 ) -> tuple[Shot, bool]:
     """Store a corrected shot as a new revision and re-evaluate it; (shot, changed).
 
     Earlier revisions stay in shot_revisions; an identical payload changes nothing.
     """
-    prepared = prepare_all([payload], batch=False)
+    prepared = prepare_all([payload], batch=False, max_future=max_future)
     [shot] = prepared.shots
     if shot.shot_id != shot_id:
         raise InvalidInput([("shot_id", f"must match the shot id in the path ({shot_id!r})")])
@@ -277,7 +296,9 @@ def correct_shot(
         shot_store.update_shot(session, current.id, values)
         shot_store.insert_revisions(session, revision_columns([current.id], [shot], revision, reason, actor, now))
         table = evaluate_inputs(prepared.inputs, campaign.model_settings or {}, "single")
-        evals, flags = evaluation_rows(table, [current.id], campaign.id, campaign.settings_version, now)
+        evals, flags = evaluation_rows(
+            table, [current.id], campaign.id, campaign.settings_version, now, [shot.defaulted]
+        )
         shot_store.replace_evaluations(session, evals, flags)
         audit.record(
             session,

@@ -12,6 +12,14 @@
 
   function byId(id) { return document.getElementById(id); }
 
+  // A write through the browser session carries the session's CSRF token (a meta tag of the page).
+  function writeHeaders() {
+    var meta = document.querySelector("meta[name=csrf-token]");
+    var headers = { "Content-Type": "application/json", Accept: "application/json" };
+    if (meta) headers["X-CSRF-Token"] = meta.getAttribute("content");
+    return headers;
+  }
+
   function readConfig() {
     var block = byId("detailed-run-config");
     if (!block) return null;
@@ -63,13 +71,25 @@
   function follow(cfg, jobId) {
     var box = byId("detailed-run-job"), bar = byId("detailed-run-bar"), text = byId("detailed-run-job-text");
     var button = document.querySelector("#detailed-run-form button");
+    var cancel = byId("detailed-run-cancel");
     var polls = 0;
     box.hidden = false;
     if (button) button.disabled = true;
+    if (cancel) {
+      cancel.hidden = false;
+      cancel.disabled = false;
+      cancel.onclick = function () {
+        cancel.disabled = true;
+        fetch("/api/v1/jobs/" + encodeURIComponent(jobId), { method: "DELETE", credentials: "same-origin", headers: writeHeaders() })
+          .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); text.textContent = "Cancelling the run\u2026"; })
+          .catch(function (err) { cancel.disabled = false; text.textContent = "The run was not cancelled (" + err.message + ")."; });
+      };
+    }
 
     function finish(message) {
       text.textContent = message;
       if (button) button.disabled = false;
+      if (cancel) cancel.hidden = true;
     }
 
     function poll() {
@@ -84,6 +104,7 @@
               .then(function (view) { showRun(view); finish("Detailed run finished: run #" + view.run.id + " is shown above."); });
           }
           if (job.state === "failed") return finish("The detailed run failed: " + job.message);
+          if (job.state === "cancelled") return finish("The detailed run was cancelled.");
           if (polls < MAX_POLLS) window.setTimeout(poll, POLL_MS);
           else finish("Still running; reload the page later to see the result.");
         })
@@ -108,7 +129,7 @@
       text.textContent = "Starting the detailed run\u2026";
       fetch(cfg.runs_url, {
         method: "POST", credentials: "same-origin",
-        headers: { "Content-Type": "application/json", Accept: "application/json" },
+        headers: writeHeaders(),
         body: JSON.stringify(body)
       })
         .then(function (r) {

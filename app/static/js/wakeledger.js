@@ -333,8 +333,19 @@
     var bar = document.getElementById("job-bar");
     var text = document.getElementById("job-text");
     var url = "/api/v1/jobs/" + encodeURIComponent(cfg.job_id);
+    var cancel = document.getElementById("job-cancel");
     var polls = 0;
     panel.hidden = false;
+    if (cancel) {
+      cancel.addEventListener("click", function () {
+        var meta = document.querySelector("meta[name=csrf-token]");
+        cancel.disabled = true;
+        fetch(url, { method: "DELETE", credentials: "same-origin",
+                     headers: { Accept: "application/json", "X-CSRF-Token": meta ? meta.getAttribute("content") : "" } })
+          .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); })
+          .catch(function (err) { cancel.disabled = false; text.textContent = "Not cancelled (" + err.message + ")."; });
+      });
+    }
 
     function poll() {
       polls += 1;
@@ -342,9 +353,11 @@
         .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); return r.json(); })
         .then(function (job) {
           var pct = job.total ? Math.round(100 * job.done / job.total) : (job.state === "succeeded" ? 100 : 0);
+          var open = job.state === "queued" || job.state === "running";
           bar.style.width = pct + "%";
           text.textContent = "Re-evaluation " + job.state + ": " + job.done + " of " + job.total + " shots (" + pct + " %)" + (job.message ? " \u2014 " + job.message : "");
-          if ((job.state === "queued" || job.state === "running") && polls < 2000) window.setTimeout(poll, 1500);
+          if (cancel) cancel.hidden = !open || job.cancel_requested;
+          if (open && polls < 2000) window.setTimeout(poll, 1500);
         })
         .catch(function (err) { text.textContent = "Could not read the job (" + err.message + ")."; });
     }
