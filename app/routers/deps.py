@@ -86,28 +86,34 @@ def rate_limit(request: Request, who: TokenInfo, kind: str) -> None:
     limiter.check(kind, key)
 
 
-def require_role(role: str) -> Callable[[Request], TokenInfo]:
+def require_role(role: str, changes: bool = True) -> Callable[[Request], TokenInfo]:
     """Dependency: the caller must hold ``role`` or a higher one (401 / 403 problem details).
 
     A request that changes something also passes the CSRF check (browser sessions) and
-    counts against the caller's write budget.
+    counts against the caller's write budget. ``changes=False`` is for POSTs that only ask
+    a question (the planner): no CSRF token needed, counted as an expensive read.
     """
     auth.check_role(role)
 
     def dependency(request: Request) -> TokenInfo:
         who = auth.authorize(principal_from_request(request), role)
         if request.method not in SAFE_METHODS:
-            check_csrf(who, request.headers.get(CSRF_HEADER))
-            rate_limit(request, who, "write")
+            if changes:
+                check_csrf(who, request.headers.get(CSRF_HEADER))
+                rate_limit(request, who, "write")
+            else:
+                rate_limit(request, who, "expensive_read")
         return who
 
-    dependency.__name__ = f"require_{role}"
+    dependency.__name__ = f"require_{role}" if changes else f"require_{role}_question"
     return dependency
 
 
 Viewer = Annotated[TokenInfo, Depends(require_role("viewer"))]
 Ingester = Annotated[TokenInfo, Depends(require_role("ingest"))]
 Admin = Annotated[TokenInfo, Depends(require_role("admin"))]
+# A viewer's POST that stores nothing (the planner's questions).
+ViewerQuestion = Annotated[TokenInfo, Depends(require_role("viewer", changes=False))]
 
 
 def expensive_read(request: Request) -> None:

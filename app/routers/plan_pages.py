@@ -13,8 +13,8 @@ from urllib.parse import quote
 
 from fastapi import APIRouter, Request, Response
 
-from app.routers.deps import DB, PathCampaign
-from app.routers.pages import FeedReader, PageCampaign, PageNotFound, render
+from app.routers.deps import DB, PathCampaign, ViewerQuestion
+from app.routers.pages import PageCampaign, PageNotFound, render
 from app.routers.plan_schemas import MapIn, PanelsIn, PointIn
 from app.routers.responses import numeric_json_response
 from app.services.planner import answers
@@ -34,19 +34,19 @@ def plan_page(request: Request, campaign: PageCampaign, session: DB, shot: str |
 
 
 @router.post("/campaigns/{slug}/plan/map")
-def plan_map(body: MapIn, _who: FeedReader, campaign: PathCampaign, session: DB) -> Response:
+def plan_map(body: MapIn, _who: ViewerQuestion, campaign: PathCampaign, session: DB) -> Response:
     base = answers.resolve_base(session, body.base, campaign.slug)
     axes = [a.model_dump() for a in body.axes]
     return numeric_json_response(planner_page.map_view(base, axes, body.contour, body.curves))
 
 
 @router.post("/campaigns/{slug}/plan/panels")
-def plan_panels(body: PanelsIn, _who: FeedReader, campaign: PathCampaign, session: DB) -> Response:
+def plan_panels(body: PanelsIn, _who: ViewerQuestion, campaign: PathCampaign, session: DB) -> Response:
     base = answers.resolve_base(session, body.base, campaign.slug)
     return numeric_json_response(planner_page.panels_view(base, body.vary))
 
 
 @router.post("/campaigns/{slug}/plan/point")
-def plan_point(body: PointIn, _who: FeedReader, campaign: PathCampaign, session: DB) -> Response:
+def plan_point(body: PointIn, _who: ViewerQuestion, campaign: PathCampaign, session: DB) -> Response:
     base = answers.resolve_base(session, body.base, campaign.slug)
     return numeric_json_response(planner_page.point_view(base, body.values))

@@ -13,7 +13,7 @@ from typing import Any
 
 from fastapi import APIRouter, Response
 
-from app.routers.deps import DB, Viewer
+from app.routers.deps import DB, ViewerQuestion
 from app.routers.plan_schemas import (
     NearestIn,
     NearestOut,
@@ -37,7 +37,7 @@ PROBLEMS: dict[int | str, dict[str, Any]] = {
 
 
 @router.post("/scan", response_model=ScanOut, responses=PROBLEMS)
-def plan_scan(request: ScanIn, session: DB, _who: Viewer) -> Response:
+def plan_scan(request: ScanIn, session: DB, _who: ViewerQuestion) -> Response:
     """Evaluate the base over a grid of one or two input fields (every point the base with those values)."""
     base = answers.resolve_base(session, request.base, request.campaign)
     axes = [a.model_dump() for a in request.axes]
@@ -45,21 +45,21 @@ def plan_scan(request: ScanIn, session: DB, _who: Viewer) -> Response:
 
 
 @router.post("/window", response_model=WindowsOut, responses=PROBLEMS)
-def plan_window(request: WindowIn, session: DB, _who: Viewer) -> Response:
+def plan_window(request: WindowIn, session: DB, _who: ViewerQuestion) -> Response:
     """The interval of each field around the base value (others fixed) where the status is nominal."""
     base = answers.resolve_base(session, request.base, request.campaign)
     return numeric_json_response(answers.window_answer(base, answers.windows(base, request.fields)))
 
 
 @router.post("/nearest", response_model=NearestOut, responses=PROBLEMS)
-def plan_nearest(request: NearestIn, session: DB, _who: Viewer) -> Response:
+def plan_nearest(request: NearestIn, session: DB, _who: ViewerQuestion) -> Response:
     """The nominal shot nearest to the base, varying one to four positive fields within a factor 10."""
     base = answers.resolve_base(session, request.base, request.campaign)
     return numeric_json_response(answers.nearest_answer(base, answers.nearest(base, request.vary)))
 
 
 @router.post("/sensitivities", response_model=SensitivitiesOut, responses=PROBLEMS)
-def plan_sensitivities(request: SensitivitiesIn, session: DB, _who: Viewer) -> Response:
+def plan_sensitivities(request: SensitivitiesIn, session: DB, _who: ViewerQuestion) -> Response:
     """d ln(output)/d ln(input) of the key outputs for every positive input the base sets, largest first."""
     base = answers.resolve_base(session, request.base, request.campaign)
     return numeric_json_response(answers.sensitivity_answer(base, answers.sensitivities(base)))

@@ -30,6 +30,10 @@ API_ROUTES = {
     ("PUT", "/api/v1/campaigns/{slug}/shots/{shot_id}"): "ingest",
     ("GET", "/api/v1/campaigns/{slug}/shots/{shot_id}/revisions"): "viewer",
     ("POST", "/api/v1/evaluate"): "viewer",
+    ("POST", "/api/v1/plans/scan"): "viewer",
+    ("POST", "/api/v1/plans/window"): "viewer",
+    ("POST", "/api/v1/plans/nearest"): "viewer",
+    ("POST", "/api/v1/plans/sensitivities"): "viewer",
     ("GET", "/api/v1/campaigns/{slug}/summary"): "viewer",
     ("POST", "/api/v1/campaigns/{slug}/shots/{shot_id}/detailed-runs"): "ingest",
     ("GET", "/api/v1/campaigns/{slug}/shots/{shot_id}/detailed-runs"): "viewer",
@@ -43,6 +47,9 @@ API_ROUTES = {
     ("GET", "/campaigns/{slug}/regime.json"): "viewer",
     ("GET", "/campaigns/{slug}/charts/{name}.json"): "viewer",
     ("GET", "/campaigns/{slug}/live"): "viewer",
+    ("POST", "/campaigns/{slug}/plan/map"): "viewer",
+    ("POST", "/campaigns/{slug}/plan/panels"): "viewer",
+    ("POST", "/campaigns/{slug}/plan/point"): "viewer",
 }
 PAGE_ROUTES = {
     ("GET", "/"): "public",
@@ -57,6 +64,7 @@ PAGE_ROUTES = {
     ("GET", "/campaigns/{slug}/shots"): "viewer",
     ("GET", "/campaigns/{slug}/shots.csv"): "viewer",
     ("GET", "/campaigns/{slug}/shots/{shot_id}"): "viewer",
+    ("GET", "/campaigns/{slug}/plan"): "viewer",
     ("GET", "/campaigns/{slug}/settings"): "admin",
     ("POST", "/campaigns/{slug}/settings"): "admin",
     ("GET", "/admin"): "admin",
