@@ -213,7 +213,7 @@ def test_a_dry_run_lists_every_failing_row_with_its_field_and_stores_nothing(
     shots[1]["plasma"]["density_cm3"] = -4e14
     shots[3]["taken_at"] = "yesterday"
     shots[3]["driver"]["sigma_z_mm"] = "long"
-    del shots[4]["shot_id"]
+    shots[4]["shot_id"] = ""  # an empty cell
     path = write_format("csv", tmp_path / "bad", shots)
     assert run(database_url, "import", "--campaign", "line-b", "--dry-run", str(path)) == 1
     out = capsys.readouterr().out.splitlines()
@@ -273,14 +273,15 @@ def test_a_changed_row_is_reported_as_a_conflict_and_nothing_is_overwritten(
 
 def test_a_map_file_renames_a_foreign_files_columns(database_url, campaigns, make_shot, tmp_path, capsys):
     shots = plain_shots(make_shot, 3)
-    names = [c for c in flat(shots[0]) if c not in ("shot_id", "taken_at", "plasma_density_cm3")]
+    every = dict.fromkeys(c for s in shots for c in flat(s))
+    names = [c for c in every if c not in ("shot_id", "taken_at", "plasma_density_cm3")]
     path = tmp_path / "logbook.csv"
     with path.open("w", newline="") as handle:
         writer = csv.writer(handle)
         writer.writerow(["Shot", "Time (UTC)", "ne [cm-3]", "operator", *names])
         for s in shots:
             row = flat(s)
-            writer.writerow([s["shot_id"], s["taken_at"], s["plasma"]["density_cm3"], "A. Nonymous", *(row[n] for n in names)])
+            writer.writerow([s["shot_id"], s["taken_at"], s["plasma"]["density_cm3"], "A. Nonymous", *(row.get(n, "") for n in names)])
     mapping = tmp_path / "map.toml"
     mapping.write_text(
         'ignore = ["operator"]\n[columns]\nShot = "shot_id"\n"Time (UTC)" = "taken_at"\nne = "plasma.density_cm3"\n'

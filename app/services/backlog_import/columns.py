@@ -90,7 +90,7 @@ def default_target(name: str) -> Target:
     bare = without_unit(name)
     if bare in ENVELOPE_KEYS:
         return Target("envelope", bare)
-    if bare in DERIVED:
+    if bare in DERIVED or bare.split(".", 1)[0] in DERIVED:  # "evaluation.status" of flattened JSON too
         return IGNORED
     if bare in INPUT_BY_COLUMN:
         return Target("input", INPUT_BY_COLUMN[bare])

@@ -88,31 +88,45 @@ def _index_and_field(path: str) -> tuple[int, str]:
     return int(index), name or "(row)"
 
 
+def _one_by_one(
+    bodies: Sequence[dict[str, Any]], max_future: timedelta
+) -> tuple[list[tuple[int, PreparedShot]], dict[int, list[tuple[str, str]]]]:
+    valid: list[tuple[int, PreparedShot]] = []
+    failing: dict[int, list[tuple[str, str]]] = {}
+    for i, body in enumerate(bodies):
+        try:
+            valid.append((i, prepare_all([body], batch=False, max_future=max_future).shots[0]))
+        except InvalidInput as one:
+            failing[i] = [("(row)" if p == "body" else p, r) for p, r in one.problems]
+            if one.truncated:
+                failing[i].append(("(row)", f"and {one.total - len(one.problems)} more problem(s)"))
+    return valid, failing
+
+
 def _validate(
     bodies: Sequence[dict[str, Any]], max_future: timedelta
 ) -> tuple[list[tuple[int, PreparedShot]], dict[int, list[tuple[str, str]]]]:
-    """(position, prepared shot) of the valid bodies and the problems of the others, by position."""
+    """(position, prepared shot) of the valid bodies and the problems of the others, by
+    position. The batch is checked at once; past the ingest cap of problems, body by body."""
     try:
         batch = prepare_all(bodies, batch=True, max_future=max_future)
         return [(s.index, s) for s in batch.shots], {}
     except InvalidInput as exc:
+        if exc.truncated:
+            return _one_by_one(bodies, max_future)
         failing: dict[int, list[tuple[str, str]]] = {}
-        if exc.truncated:  # the cap was reached: check each body alone to list every failing row
-            for i, body in enumerate(bodies):
-                try:
-                    prepare_all([body], batch=False, max_future=max_future)
-                except InvalidInput as one:
-                    failing[i] = [("(row)" if p == "body" else p, r) for p, r in one.problems]
-                    if one.truncated:
-                        failing[i].append(("(row)", f"{one.total - len(one.problems)} more problem(s)"))
-        else:
-            for path, reason in exc.problems:
-                i, name = _index_and_field(path)
-                failing.setdefault(i, []).append((name, reason))
+        for path, reason in exc.problems:
+            i, name = _index_and_field(path)
+            failing.setdefault(i, []).append((name, reason))
+        if -1 in failing:  # a problem of no one row
+            return _one_by_one(bodies, max_future)
     valid = [i for i in range(len(bodies)) if i not in failing]
     if not valid:
         return [], failing
-    batch = prepare_all([bodies[i] for i in valid], batch=True, max_future=max_future)
+    try:
+        batch = prepare_all([bodies[i] for i in valid], batch=True, max_future=max_future)
+    except InvalidInput:
+        return _one_by_one(bodies, max_future)
     return [(valid[s.index], s) for s in batch.shots], failing
 
 
@@ -156,39 +170,64 @@ def import_rows(
                 RowProblem(numbers[position], f, r, plan.column_of(f)) for f, r in failing[position]
             ]
         # Rows of shot ids met earlier in the file, then the stored shots.
-        fresh: list[tuple[int, PreparedShot]] = []
+        fresh: list[tuple[int, PreparedShot]] = []  # the first row of its shot id in the file
+        first_in_batch: dict[str, tuple[int, PreparedShot]] = {}
+        repeats: list[tuple[int, str]] = []  # identical to a first row of this batch: its outcome
         for position, shot in valid:
             number = numbers[position]
-            first = seen.get(shot.shot_id)
+            earlier = seen.get(shot.shot_id)
+            if earlier is not None:
+                same = earlier.sha256 == shot.sha256
+                paths = [] if same else differing_paths(comparable_of_row(earlier.row), shot.comparable)
+                if paths:
+                    report.conflicts.append(RowConflict(number, shot.shot_id, paths, f"row {earlier.row}"))
+                elif earlier.conflict is not None:
+                    report.conflicts.append(
+                        RowConflict(number, shot.shot_id, earlier.conflict.fields, earlier.conflict.against)
+                    )
+                else:
+                    report.unchanged += 1
+                continue
+            first = first_in_batch.get(shot.shot_id)
             if first is None:
+                first_in_batch[shot.shot_id] = (number, shot)
                 fresh.append((number, shot))
                 continue
-            paths = [] if first.sha256 == shot.sha256 else differing_paths(comparable_of_row(first.row), shot.comparable)
+            same = first[1].sha256 == shot.sha256
+            paths = [] if same else differing_paths(first[1].comparable, shot.comparable)
             if paths:
-                report.conflicts.append(RowConflict(number, shot.shot_id, paths, f"row {first.row}"))
-            elif first.conflict is not None:
-                report.conflicts.append(RowConflict(number, shot.shot_id, first.conflict.fields, first.conflict.against))
+                report.conflicts.append(RowConflict(number, shot.shot_id, paths, f"row {first[0]}"))
             else:
-                report.unchanged += 1
+                repeats.append((number, shot.shot_id))
         stored = shot_store.digests_by_shot_id(session, campaign_id, [s.shot_id for _, s in fresh])
-        old = shot_store.raw_payloads(
-            session, [stored[s.shot_id].shot_pk for _, s in fresh if s.shot_id in stored and stored[s.shot_id].payload_sha256 != s.sha256]
-        )
+        mismatched = [
+            stored[s.shot_id].shot_pk
+            for _, s in fresh
+            if s.shot_id in stored and stored[s.shot_id].payload_sha256 != s.sha256
+        ]
+        old = shot_store.raw_payloads(session, mismatched)
         session.rollback()
         new: list[tuple[int, PreparedShot]] = []
         for number, shot in fresh:
             conflict = None
-            if shot.shot_id in stored:
-                digest = stored[shot.shot_id]
-                paths = [] if digest.payload_sha256 == shot.sha256 else differing_paths(stored_comparable(old[digest.shot_pk]), shot.comparable)
+            digest = stored.get(shot.shot_id)
+            if digest is None:
+                new.append((number, shot))
+            else:
+                same = digest.payload_sha256 == shot.sha256
+                paths = [] if same else differing_paths(stored_comparable(old[digest.shot_pk]), shot.comparable)
                 if paths:
                     conflict = RowConflict(number, shot.shot_id, paths, "the stored shot")
                     report.conflicts.append(conflict)
                 else:
                     report.unchanged += 1
-            else:
-                new.append((number, shot))
             seen[shot.shot_id] = _FirstSeen(number, shot.sha256, conflict)
+        for number, shot_id in repeats:
+            first_conflict = seen[shot_id].conflict
+            if first_conflict is not None:
+                report.conflicts.append(RowConflict(number, shot_id, first_conflict.fields, first_conflict.against))
+            else:
+                report.unchanged += 1
         if dry_run:
             report.stored += len(new)
         else:
