@@ -43,7 +43,12 @@ def backlog(make_shot) -> list[dict[str, Any]]:
     shots = []
     for i in range(12):
         shot = make_shot(i % 5, shot_id=f"bk-{i:03d}", taken_at=f"2026-11-1{7 + i % 3}T0{i % 10}:15:0{i % 7}.25Z")
-        shot["daq"] = {"run": 700 + i, "operator": "night crew", "cfg": {"gain": i, "chan": [1, 2]}, "armed": i % 2 == 0}
+        shot["daq"] = {
+            "run": 700 + i,
+            "operator": "night crew",
+            "cfg": {"gain": i, "chan": [1, 2]},
+            "armed": i % 2 == 0,
+        }
         if i % 3 == 0:
             shot["beamline"] = "test line 2"
             shot["tags"] = ["-3dB", "scan"]
@@ -200,7 +205,12 @@ def test_a_weekly_export_imports_into_another_campaign_unchanged(
             assert b[shot_id][part] == a[shot_id][part], (shot_id, part)
     assert b["bk-000"]["notes"] == "=not a formula, with a comma"
     assert b["bk-000"]["tags"] == ["-3dB", "scan"]
-    assert b["bk-003"]["other"]["daq"] == {"run": 703, "operator": "night crew", "cfg": {"gain": 3, "chan": [1, 2]}, "armed": False}
+    assert b["bk-003"]["other"]["daq"] == {
+        "run": 703,
+        "operator": "night crew",
+        "cfg": {"gain": 3, "chan": [1, 2]},
+        "armed": False,
+    }
     # and the import of its own export changes nothing in the second campaign
     assert run(database_url, "import", "--campaign", "line-b", str(out)) == 0
     assert "line-b: stored 0, unchanged 12, conflicts 0" in capsys.readouterr().out
@@ -234,14 +244,20 @@ def test_a_dry_run_past_the_ingest_problem_cap_still_lists_every_failing_row(
     for shot in shots:
         shot["plasma"]["density_cm3"] = -1.0
         shot["plasma"]["length_m"] = -1.0
-    assert run(database_url, "import", "--campaign", "line-b", "--dry-run", str(write_jsonl(tmp_path / "n.jsonl", shots))) == 1
+    assert (
+        run(database_url, "import", "--campaign", "line-b", "--dry-run", str(write_jsonl(tmp_path / "n.jsonl", shots)))
+        == 1
+    )
     out = capsys.readouterr().out.splitlines()
     assert sorted({int(line.split(":")[0][4:]) for line in out if line.startswith("row ")}) == list(range(1, 151))
     assert out[-1].endswith("failed 150 (of 150 rows)")
 
 
 def test_a_rerun_is_idempotent_and_prints_the_progress_bar(database_url, campaigns, make_shot, tmp_path, capsys):
-    shots = [make_shot(i % 5, shot_id=f"r-{i:04d}", taken_at=f"2026-11-18T10:{i // 60 % 60:02d}:{i % 60:02d}Z") for i in range(1200)]
+    shots = [
+        make_shot(i % 5, shot_id=f"r-{i:04d}", taken_at=f"2026-11-18T10:{i // 60 % 60:02d}:{i % 60:02d}Z")
+        for i in range(1200)
+    ]
     path = write_jsonl(tmp_path / "many.jsonl", shots)
     assert run(database_url, "import", "--campaign", "line-b", "--batch-size", "500", str(path)) == 0
     first = capsys.readouterr()
@@ -265,7 +281,9 @@ def test_a_changed_row_is_reported_as_a_conflict_and_nothing_is_overwritten(
     capsys.readouterr()
     assert run(database_url, "import", "--campaign", "line-b", str(write_jsonl(tmp_path / "b.jsonl", shots))) == 1
     out = capsys.readouterr().out.splitlines()
-    assert "row 3: conflict: shot 'f-002' differs from the stored shot in plasma.density_cm3; nothing overwritten" in out
+    assert (
+        "row 3: conflict: shot 'f-002' differs from the stored shot in plasma.density_cm3; nothing overwritten" in out
+    )
     assert "row 5: conflict: shot 'f-000' differs from row 1 in notes; nothing overwritten" in out
     assert out[-1] == "line-b: stored 0, unchanged 3, conflicts 2, failed 0 (of 5 rows)"
     assert stored(database_url, "line-b") == before
@@ -281,7 +299,15 @@ def test_a_map_file_renames_a_foreign_files_columns(database_url, campaigns, mak
         writer.writerow(["Shot", "Time (UTC)", "ne [cm-3]", "operator", *names])
         for s in shots:
             row = flat(s)
-            writer.writerow([s["shot_id"], s["taken_at"], s["plasma"]["density_cm3"], "A. Nonymous", *(row.get(n, "") for n in names)])
+            writer.writerow(
+                [
+                    s["shot_id"],
+                    s["taken_at"],
+                    s["plasma"]["density_cm3"],
+                    "A. Nonymous",
+                    *(row.get(n, "") for n in names),
+                ]
+            )
     mapping = tmp_path / "map.toml"
     mapping.write_text(
         'ignore = ["operator"]\n[columns]\nShot = "shot_id"\n"Time (UTC)" = "taken_at"\nne = "plasma.density_cm3"\n'
@@ -305,14 +331,19 @@ def test_a_map_naming_a_field_that_does_not_exist_is_refused_with_a_suggestion(
     assert stored(database_url, "line-b") == {}
 
 
-def test_a_misspelt_column_fails_every_row_naming_the_field_it_meant(database_url, campaigns, make_shot, tmp_path, capsys):
+def test_a_misspelt_column_fails_every_row_naming_the_field_it_meant(
+    database_url, campaigns, make_shot, tmp_path, capsys
+):
     shots = plain_shots(make_shot, 2)
     for s in shots:
         s["plasma"]["densty_cm3"] = s["plasma"].pop("density_cm3")
     path = write_format("csv", tmp_path / "typo", shots)
     assert run(database_url, "import", "--campaign", "line-b", str(path)) == 1
     out = capsys.readouterr().out
-    assert "row 1: plasma.densty_cm3 (column 'plasma_densty_cm3'): unknown field of plasma; did you mean plasma.density_cm3?" in out
+    assert (
+        "row 1: plasma.densty_cm3 (column 'plasma_densty_cm3'): "
+        "unknown field of plasma; did you mean plasma.density_cm3?" in out
+    )
     assert "stored 0, unchanged 0, conflicts 0, failed 2 (of 2 rows)" in out
 
 

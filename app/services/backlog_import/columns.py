@@ -149,7 +149,9 @@ def load_map(path: Path) -> ColumnMap:
     columns = document.get("columns", {})
     ignore = document.get("ignore", [])
     if not isinstance(columns, Mapping):
-        raise SourceError(f"the map's 'columns' must be an object of file column -> field, not {type(columns).__name__}")
+        raise SourceError(
+            f"the map's 'columns' must be an object of file column -> field, not {type(columns).__name__}"
+        )
     if not isinstance(ignore, list) or not all(isinstance(c, str) for c in ignore):
         raise SourceError("the map's 'ignore' must be a list of column names")
     return ColumnMap({str(k): _map_target(str(k), v) for k, v in columns.items()}, frozenset(ignore))

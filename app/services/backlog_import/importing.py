@@ -166,9 +166,7 @@ def import_rows(
             bodies.append(shot_body(row, plan, source))
         valid, failing = _validate(bodies, max_future)
         for position in sorted(failing):
-            report.problems += [
-                RowProblem(numbers[position], f, r, plan.column_of(f)) for f, r in failing[position]
-            ]
+            report.problems += [RowProblem(numbers[position], f, r, plan.column_of(f)) for f, r in failing[position]]
         # Rows of shot ids met earlier in the file, then the stored shots.
         fresh: list[tuple[int, PreparedShot]] = []  # the first row of its shot id in the file
         first_in_batch: dict[str, tuple[int, PreparedShot]] = {}
@@ -257,7 +255,9 @@ def _store(
     shot_ids = {number: shot.shot_id for number, shot in new}
     while pending:
         try:
-            result = ingest_shots(session, campaign_slug, [b for _, b in pending], actor, batch=True, max_future=max_future)
+            result = ingest_shots(
+                session, campaign_slug, [b for _, b in pending], actor, batch=True, max_future=max_future
+            )
         except ShotConflict as exc:
             differing: dict[int, list[str]] = {}
             for path, _reason in exc.problems:

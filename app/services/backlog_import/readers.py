@@ -243,8 +243,8 @@ def _read_hdf5(path: Path, table: str | None) -> SourceTable:
         columns: dict[str, list[Any]] = {}
         if compound:
             if len(compound) > 1:
-                names = ", ".join(repr(n) for n, _ in compound)
-                raise SourceError(f"{path.name!r} holds several tables ({names}); choose one with --table")
+                tables = ", ".join(repr(n) for n, _ in compound)
+                raise SourceError(f"{path.name!r} holds several tables ({tables}); choose one with --table")
             name, ds = compound[0]
             if ds.ndim != 1:
                 raise SourceError(f"the table {name!r} is not one-dimensional (shape {ds.shape})")

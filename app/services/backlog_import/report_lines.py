@@ -28,7 +28,8 @@ def summary_line(report: ImportReport) -> str:
 
 def lines(report: ImportReport, plan: ColumnPlan) -> Iterator[str]:
     if plan.ignored:
-        yield f"ignored {len(plan.ignored)} column(s) that wakeledger derives or the map leaves out: {_listed(plan.ignored)}"
+        listed = _listed(plan.ignored)
+        yield f"ignored {len(plan.ignored)} column(s) that wakeledger derives or the map leaves out: {listed}"
     for p in report.problems:
         column = f" (column {p.column!r})" if p.column and p.column != p.field else ""
         yield f"row {p.row}: {p.field}{column}: {p.reason}"
