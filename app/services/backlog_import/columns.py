@@ -165,7 +165,13 @@ class ColumnPlan:
 
     @property
     def ignored(self) -> list[str]:
-        return [c for c, t in self.targets.items() if t.kind == "ignored"]
+        """The ignored columns; a derived object flattened from JSON (``evaluation.status``, ...) once."""
+        names = (
+            c.split(".", 1)[0] if c.split(".", 1)[0] in DERIVED else c
+            for c, t in self.targets.items()
+            if t.kind == "ignored"
+        )
+        return list(dict.fromkeys(names))
 
     def column_of(self, path: str) -> str | None:
         """The file column that filled ``path`` (or the nearest enclosing field)."""

@@ -12,13 +12,14 @@ rows are left out and reported; a dry run stores nothing and says what a run wou
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import timedelta
 from typing import Any
 
 from sqlalchemy.orm import Session
 
+import model
 from app.errors import InvalidInput, ShotConflict
 from app.services.backlog_import.columns import ColumnPlan, shot_body
 from app.services.backlog_import.readers import SourceTable
@@ -34,6 +35,7 @@ from app.services.ingest.storing import ingest_shots
 from app.store import shots as shot_store
 
 DEFAULT_BATCH = 1000
+_DEFAULTS = {f.path: f.default for f in model.INPUT_FIELDS}
 Progress = Callable[[int, int], None]  # (rows done, rows in the file)
 
 
@@ -86,6 +88,31 @@ def _index_and_field(path: str) -> tuple[int, str]:
     if head != "shots" or not index.isdigit():
         return -1, path
     return int(index), name or "(row)"
+
+
+def _effective(document: Mapping[str, Any], path: str) -> Any:
+    section, name = path.split(".", 1)
+    block = document.get(section)
+    value = block.get(name) if isinstance(block, Mapping) else None
+    return _DEFAULTS[path] if value is None else value
+
+
+def differences(old: Mapping[str, Any], new: Mapping[str, Any]) -> list[str]:
+    """``differing_paths`` of two comparable payloads, where an input left out (it took its
+    default) and the same default written out are the same: our exports write every input
+    as the shot was evaluated, so an export imported back into its own campaign is unchanged."""
+    out = []
+    for path in differing_paths(old, new):
+        if path in model.SECTIONS:
+            fields = [p for p in _DEFAULTS if p.startswith(path + ".")]
+        elif path in _DEFAULTS:
+            fields = [path]
+        else:
+            out.append(path)
+            continue
+        if any(differing_paths(_effective(old, p), _effective(new, p)) for p in fields):
+            out.append(path)
+    return out
 
 
 def _one_by_one(
@@ -176,7 +203,7 @@ def import_rows(
             earlier = seen.get(shot.shot_id)
             if earlier is not None:
                 same = earlier.sha256 == shot.sha256
-                paths = [] if same else differing_paths(comparable_of_row(earlier.row), shot.comparable)
+                paths = [] if same else differences(comparable_of_row(earlier.row), shot.comparable)
                 if paths:
                     report.conflicts.append(RowConflict(number, shot.shot_id, paths, f"row {earlier.row}"))
                 elif earlier.conflict is not None:
@@ -192,7 +219,7 @@ def import_rows(
                 fresh.append((number, shot))
                 continue
             same = first[1].sha256 == shot.sha256
-            paths = [] if same else differing_paths(first[1].comparable, shot.comparable)
+            paths = [] if same else differences(first[1].comparable, shot.comparable)
             if paths:
                 report.conflicts.append(RowConflict(number, shot.shot_id, paths, f"row {first[0]}"))
             else:
@@ -213,7 +240,7 @@ def import_rows(
                 new.append((number, shot))
             else:
                 same = digest.payload_sha256 == shot.sha256
-                paths = [] if same else differing_paths(stored_comparable(old[digest.shot_pk]), shot.comparable)
+                paths = [] if same else differences(stored_comparable(old[digest.shot_pk]), shot.comparable)
                 if paths:
                     conflict = RowConflict(number, shot.shot_id, paths, "the stored shot")
                     report.conflicts.append(conflict)

@@ -32,7 +32,8 @@ def lines(report: ImportReport, plan: ColumnPlan) -> Iterator[str]:
         yield f"ignored {len(plan.ignored)} column(s) that wakeledger derives or the map leaves out: {listed}"
     for p in report.problems:
         column = f" (column {p.column!r})" if p.column and p.column != p.field else ""
-        yield f"row {p.row}: {p.field}{column}: {p.reason}"
+        field = "" if p.field == "(row)" else f"{p.field}{column}: "
+        yield f"row {p.row}: {field}{p.reason}"
     for c in report.conflicts:
         yield (
             f"row {c.row}: conflict: shot {c.shot_id!r} differs from {c.against} in {_listed(c.fields)}; "
