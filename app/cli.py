@@ -386,7 +386,7 @@ def export(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _import_args(p: argparse.ArgumentParser) -> None:
-    from app.services.backlog_import.importing import DEFAULT_BATCH
+    from app.services.backlog_import import DEFAULT_BATCH
     from app.services.backlog_import.readers import FORMATS
 
     p.add_argument("file", metavar="FILE", help="CSV, Parquet, JSON lines (.jsonl), JSON or HDF5 (.h5) file of shots")

@@ -8,3 +8,5 @@
 - ``importing`` — validation with the ingest service's own checks, replays and
   conflicts, and storing in batches through ``ingest_shots`` (each batch all or nothing).
 """
+
+DEFAULT_BATCH = 1000  # shots per ingest call (the API's batch takes at most 5,000)

@@ -21,6 +21,7 @@ from sqlalchemy.orm import Session
 
 import model
 from app.errors import InvalidInput, ShotConflict
+from app.services.backlog_import import DEFAULT_BATCH
 from app.services.backlog_import.columns import ColumnPlan, shot_body
 from app.services.backlog_import.readers import SourceTable
 from app.services.campaigns import require_campaign
@@ -34,7 +35,6 @@ from app.services.ingest.payloads import (
 from app.services.ingest.storing import ingest_shots
 from app.store import shots as shot_store
 
-DEFAULT_BATCH = 1000
 _DEFAULTS = {f.path: f.default for f in model.INPUT_FIELDS}
 Progress = Callable[[int, int], None]  # (rows done, rows in the file)
 
