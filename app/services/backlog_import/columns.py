@@ -36,6 +36,7 @@ import tomllib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
@@ -173,6 +174,17 @@ class ColumnPlan:
         )
         return list(dict.fromkeys(names))
 
+    @cached_property
+    def filled(self) -> list[tuple[str, Target, str, str | None]]:
+        """(column, target, top-level key, key inside it or None) of every column that fills a field."""
+        out: list[tuple[str, Target, str, str | None]] = []
+        for column, target in self.targets.items():
+            if target.kind == "ignored":
+                continue
+            head, dot, rest = target.path.partition(".")
+            out.append((column, target, head, rest if dot and target.kind != "envelope" else None))
+        return out
+
     def column_of(self, path: str) -> str | None:
         """The file column that filled ``path`` (or the nearest enclosing field)."""
         by_path = {t.path: c for c, t in self.targets.items() if t.kind != "ignored"}
@@ -294,14 +306,13 @@ def _cell_value(target: Target, cell: Any, typed: bool, json_text: bool) -> Any:
 def shot_body(row: Mapping[str, Any], plan: ColumnPlan, source: SourceTable) -> dict[str, Any]:
     """One row as a shot body (only the cells with a value)."""
     body: dict[str, Any] = {}
-    for column, target in plan.targets.items():
-        if target.kind == "ignored" or column not in row:
+    for column, target, head, rest in plan.filled:
+        if column not in row:
             continue
         value = _cell_value(target, row[column], source.typed, column in source.json_columns)
         if value is None:
             continue
-        head, dot, rest = target.path.partition(".")
-        if target.kind == "envelope" or not dot:
+        if rest is None:
             body[target.path] = value
         else:
             section = body.setdefault(head, {})
