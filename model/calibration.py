@@ -18,6 +18,8 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import stats
 
+from model.evaluate import evaluate_table
+
 #: Confidence of every interval.
 CONFIDENCE = 0.95
 #: Seed of every bootstrap: the same shots give the same interval.
@@ -308,3 +310,15 @@ def group_medians(ratios: ArrayLike, groups: Sequence[str], seed: int = BOOTSTRA
     for i, label in enumerate(labels.tolist()):
         order.setdefault(label, []).append(i)
     return [(label, median_interval(c[idx], seed)) for label, idx in order.items()]
+
+
+def density_scale_ratios(columns: Mapping[str, ArrayLike], settings: Mapping[str, object] | None = None) -> np.ndarray:
+    """c_i = (f_meas,i / f_ref(n_set,i))^2, f_ref of MODEL.md section 6 with density_scale = 1 (the
+    campaign's other settings kept), so c is relative to the logged density; NaN without f_meas."""
+    unscaled = dict(settings or {})
+    unscaled["density_scale"] = 1.0
+    table = evaluate_table(columns, unscaled)
+    return density_scale_ratio(
+        np.asarray(columns["measured.modulation_freq_ghz"], dtype=float),
+        np.asarray(columns["measured.modulation_freq_ghz"], dtype=float) / (1.0 + table["frequency_mismatch_pct"] / 100.0),
+    )
