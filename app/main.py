@@ -32,6 +32,7 @@ def _include_routers(app: FastAPI) -> None:
     app.mount("/static", StaticFiles(directory=pages.STATIC_DIR), name="static")
     app.include_router(summary.router)
     app.include_router(calibration.router)
+    app.include_router(calibration.page_router)
     app.include_router(detailed_runs.router)
     app.include_router(plans.router)
     app.include_router(plan_pages.router)
