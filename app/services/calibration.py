@@ -353,3 +353,16 @@ def run_calibrate(
                 raise InvalidInput([("campaign", "no shot of the period has a measured modulation frequency")])
             job_id = apply_scale(session, slug, estimate, actor)
     return result, job_id
+
+
+def parse_instant(text: str | None, name: str) -> datetime | None:
+    """An ISO 8601 instant with a UTC offset (``Z`` too) from the command line; None for none."""
+    if text is None or not text.strip():
+        return None
+    try:
+        moment = datetime.fromisoformat(text.strip().replace("Z", "+00:00"))
+    except ValueError:
+        raise InvalidInput([(name, f"{text!r} is not an ISO 8601 instant (e.g. 2026-11-20T00:00:00Z)")]) from None
+    if moment.tzinfo is None:
+        raise InvalidInput([(name, f"{text!r} has no UTC offset (add Z or +01:00)")])
+    return moment
