@@ -112,8 +112,11 @@ def measure(
     start: datetime | None = None,
     end: datetime | None = None,
     progress: Progress | None = None,
+    *,
+    drivers: bool = True,
 ) -> Calibration:
-    """Everything the model-against-measurement answer shows, for shots taken in [start, end)."""
+    """Everything the model-against-measurement answer shows, for shots taken in [start, end)
+    (without the driver ranking when not ``drivers``)."""
     if start is not None and end is not None and end <= start:
         raise InvalidInput([("to", "must be later than from")])
     campaign = require_campaign(session, slug)
@@ -143,7 +146,7 @@ def measure(
     result.scaling = _scaling_checks(columns, outputs, list(rows["shot_id"]), days)
     outcomes = {**{p: columns[p] for p in MEASURED_DIAGNOSTICS}, "efolds_exit": outputs["efolds_exit"]}
     inputs = {p: columns[p] for p in DRIVER_INPUTS}
-    for name in DRIVER_OUTCOMES:
+    for name in DRIVER_OUTCOMES if drivers else ():
         ranking, used = cal.rank_drivers(outcomes[name], inputs)
         result.drivers.append((name, ranking[:TOP_DRIVERS], used))
     return result
@@ -366,3 +369,20 @@ def parse_instant(text: str | None, name: str) -> datetime | None:
     if moment.tzinfo is None:
         raise InvalidInput([(name, f"{text!r} has no UTC offset (add Z or +01:00)")])
     return moment
+
+
+def week_figures(session: Session, slug: str, start: datetime, end: datetime) -> dict[str, Any]:
+    """The weekly summary's part: the week's density scale with its interval, the changes found in
+    the week and the scaling exponents (the API's fields, without drivers and shot lists)."""
+    full = answer(measure(session, slug, start, end, drivers=False))
+    return {
+        "density_scale": full["density_scale"],
+        "applied_density_scale": full["applied_density_scale"],
+        "frequency_mismatch_pct": full["frequency_mismatch_pct"],
+        "changes": full["changes"],
+        "scaling": [
+            {k: s[k] for k in ("diagnostic", "proxy", "exponent", "exponent_low", "exponent_high", "expected_exponent", "spearman", "shots")}
+            | {"outliers": len(s["outliers"])}
+            for s in full["scaling"]
+        ],
+    }

@@ -14,6 +14,7 @@ from collections.abc import Iterable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from typing import Any
 
 import numpy as np
 from sqlalchemy.orm import Session
@@ -22,6 +23,7 @@ import model
 from app.database import snapshot_read
 from app.plain import finite_or_none
 from app.presentation.fields import unit_of
+from app.services.calibration import week_figures
 from app.services.export_table import NOT_EVALUATED, ShotTable
 from app.services.phase_spread import phase_jitter
 from app.store import exports as export_store
@@ -145,6 +147,9 @@ class WeeklySummary:
     previous: WeekComparison
     model_versions: list[str]
     shots: ShotTable = field(repr=False)
+    # The week's model against measurement (app.services.calibration.week_figures): density
+    # scale with its interval, changes, scaling exponents.
+    model_check: dict[str, Any] = field(default_factory=dict)
 
     @property
     def is_empty(self) -> bool:
@@ -357,4 +362,5 @@ def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, n
         previous=_previous_week(session, campaign, week, figures),
         model_versions=sorted({v for v in shots.model_version if v}),
         shots=shots,
+        model_check=week_figures(session, campaign.slug, start_local.astimezone(UTC), end_local.astimezone(UTC)),
     )
