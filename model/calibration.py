@@ -124,24 +124,35 @@ class ScaleChange:
     standard_errors: float  # |ln after - ln before| / combined standard error
 
 
-def _sign_cusum_split(x: np.ndarray) -> tuple[int, float]:
-    """Best split of x by the CUSUM of signs about its median, and the statistic max|S_k|/√n."""
-    signs = np.sign(x - np.median(x))
-    n = signs.size
-    cusum = np.cumsum(signs)
-    k = np.arange(1, n + 1)
-    bridge = np.abs(cusum - k * (cusum[-1] / n))
+def _bridge(values: np.ndarray) -> np.ndarray:
+    """|S_k - k S_n / n| for k = 1..n: the CUSUM bridge of a series."""
+    cusum = np.cumsum(values)
+    k = np.arange(1, values.size + 1)
+    return np.abs(cusum - k * (cusum[-1] / values.size))
+
+
+def _cusum_split(x: np.ndarray) -> tuple[int, float]:
+    """Where to split x, and the sign CUSUM statistic sup|S_k - k S_n/n| / √n of the signs about the
+    median (which tests it). The place is the CUSUM peak of x clipped at its median ± 3 normalised MADs:
+    as robust, and sharper than the signs at locating the step."""
+    n = x.size
     lo, hi = CHANGE_MIN_SEGMENT - 1, n - CHANGE_MIN_SEGMENT - 1
     if hi < lo:
         return -1, 0.0
-    j = lo + int(np.argmax(bridge[lo : hi + 1]))
-    spread = float(np.sqrt(max(np.mean(signs**2), 1e-300)))
-    return j + 1, float(bridge[j] / (spread * np.sqrt(n)))
+    median = np.median(x)
+    signs = np.sign(x - median)
+    spread = MAD_TO_SIGMA * float(np.median(np.abs(x - median)))
+    clipped = np.clip(x, median - OUTLIER_SPREADS * spread, median + OUTLIER_SPREADS * spread) if spread > 0 else signs
+    sign_bridge = _bridge(signs)
+    statistic = float(np.max(sign_bridge[lo : hi + 1]) / (np.sqrt(max(np.mean(signs**2), 1e-300)) * np.sqrt(n)))
+    j = lo + int(np.argmax(_bridge(clipped)[lo : hi + 1]))
+    return j + 1, statistic
 
 
 def scale_changes(ratios: ArrayLike, seed: int = BOOTSTRAP_SEED) -> list[ScaleChange]:
     """Changes of the scale along time-ordered c_i (NaN skipped): binary segmentation of ln c by
-    a two-sided sign CUSUM (split where sup|S_k - k S_n/n|/√n passes scipy.stats.kstwobign at 1 %),
+    a two-sided sign CUSUM (split where sup|S_k - k S_n/n|/√n passes scipy.stats.kstwobign at 1 %,
+    at the CUSUM peak of the clipped ln c),
     each change kept only when the medians either side differ by ≥ 3 combined standard errors."""
     c = np.asarray(ratios, dtype=float)
     where = np.flatnonzero(np.isfinite(c) & (c > 0))
@@ -153,7 +164,7 @@ def scale_changes(ratios: ArrayLike, seed: int = BOOTSTRAP_SEED) -> list[ScaleCh
         start, stop = pending.pop()
         if stop - start < 2 * CHANGE_MIN_SEGMENT:
             continue
-        at, statistic = _sign_cusum_split(x[start:stop])
+        at, statistic = _cusum_split(x[start:stop])
         if at < 0 or statistic <= critical:
             continue
         splits.append(start + at)
