@@ -288,7 +288,7 @@ def calibration_page(session: Session, slug: str, start: datetime | None, end: d
         scaling=scaling,
         drivers_figure=_drivers_figure(ans),
         apply_value=editable_number(scale["estimate"]) if scale["estimate"] is not None else None,
-        apply_text=_n(scale["estimate"]),
+        apply_text=_n(scale["estimate"], 5),
         config={
             "settings_url": f"/api/v1/campaigns/{quote(slug, safe='')}/settings",
             "shot_base": f"/campaigns/{quote(slug, safe='')}/shots/",
