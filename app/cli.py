@@ -602,7 +602,10 @@ def calibrate(args: argparse.Namespace, settings: Settings) -> int:
     bar.close()
     print(table_text(result))
     if job_id is not None:
-        print(f"density_scale of {args.campaign} set to {result['density_scale']['estimate']!r}; re-evaluation job {job_id}")
+        print(
+            f"density_scale of {args.campaign} set to {result['density_scale']['estimate']!r}; "
+            f"re-evaluation job {job_id}"
+        )
     return 0
 
 

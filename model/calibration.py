@@ -313,7 +313,9 @@ def rank_drivers(
     return ranking, int(pick.size)
 
 
-def group_medians(ratios: ArrayLike, groups: Sequence[str], seed: int = BOOTSTRAP_SEED) -> list[tuple[str, MedianInterval]]:
+def group_medians(
+    ratios: ArrayLike, groups: Sequence[str], seed: int = BOOTSTRAP_SEED
+) -> list[tuple[str, MedianInterval]]:
     """Median of c_i with its interval per group label, groups in order of first appearance."""
     c = np.asarray(ratios, dtype=float)
     labels = np.asarray(groups, dtype=object)
@@ -331,5 +333,6 @@ def density_scale_ratios(columns: Mapping[str, ArrayLike], settings: Mapping[str
     table = evaluate_table(columns, unscaled)
     return density_scale_ratio(
         np.asarray(columns["measured.modulation_freq_ghz"], dtype=float),
-        np.asarray(columns["measured.modulation_freq_ghz"], dtype=float) / (1.0 + table["frequency_mismatch_pct"] / 100.0),
+        np.asarray(columns["measured.modulation_freq_ghz"], dtype=float)
+        / (1.0 + table["frequency_mismatch_pct"] / 100.0),
     )

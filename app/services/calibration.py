@@ -18,7 +18,6 @@ import numpy as np
 from sqlalchemy.orm import Session, sessionmaker
 
 import model
-from model import calibration as cal
 from app.errors import InvalidInput
 from app.plain import finite_or_none
 from app.presentation.numbers import format_number
@@ -29,6 +28,7 @@ from app.services.phase_spread import phase_jitter
 from app.store import calibration as store
 from app.tables import Campaign
 from app.times import campaign_zone, format_utc
+from model import calibration as cal
 
 Progress = Callable[[int, int, str], None]  # (done, total, message)
 
@@ -184,7 +184,9 @@ def _scaling_checks(
         ),
     ]
     checks = [
-        ScalingCheck(diag, proxy, unit, b, label, "shots", cal.power_law_fit(x, columns[diag]), x, columns[diag], shot_ids)
+        ScalingCheck(
+            diag, proxy, unit, b, label, "shots", cal.power_law_fit(x, columns[diag]), x, columns[diag], shot_ids
+        )
         for diag, proxy, unit, b, label, x in per_shot
     ]
     # Phase: per day, the measured shot-to-shot jitter against the jitter the density jitter implies.
@@ -233,7 +235,11 @@ def answer(result: Calibration) -> dict[str, Any]:
         "shots": result.shots,
         "applied_density_scale": result.applied_scale,
         "settings_version": result.campaign.settings_version,
-        "density_scale": {**_interval(result.scale), "shots": result.scale.shots, "interval_method": result.scale.method},
+        "density_scale": {
+            **_interval(result.scale),
+            "shots": result.scale.shots,
+            "interval_method": result.scale.method,
+        },
         "frequency_mismatch_pct": {**_interval(result.mismatch), "shots": result.mismatch.shots},
         "changes": [
             {
@@ -319,7 +325,11 @@ def table_text(result: dict[str, Any]) -> str:
             f"{_text(c['after']['estimate'])} [{_text(c['after']['low'])}, {_text(c['after']['high'])}] "
             f"({c['shots_after']} shots)"
         )
-    lines += ["", f"{'scaling check':<36} {'exponent':>9} {'95 % interval':>20} {'expect':>6} {'rho':>6} {'points':>7} {'outliers':>8}"]
+    lines += [
+        "",
+        f"{'scaling check':<36} {'exponent':>9} {'95 % interval':>20} {'expect':>6} {'rho':>6} "
+        f"{'points':>7} {'outliers':>8}",
+    ]
     for s in result["scaling"]:
         interval = f"[{_text(s['exponent_low'], 3)}, {_text(s['exponent_high'], 3)}]"
         lines.append(
@@ -381,7 +391,19 @@ def week_figures(session: Session, slug: str, start: datetime, end: datetime) ->
         "frequency_mismatch_pct": full["frequency_mismatch_pct"],
         "changes": full["changes"],
         "scaling": [
-            {k: s[k] for k in ("diagnostic", "proxy", "exponent", "exponent_low", "exponent_high", "expected_exponent", "spearman", "shots")}
+            {
+                k: s[k]
+                for k in (
+                    "diagnostic",
+                    "proxy",
+                    "exponent",
+                    "exponent_low",
+                    "exponent_high",
+                    "expected_exponent",
+                    "spearman",
+                    "shots",
+                )
+            }
             | {"outliers": len(s["outliers"])}
             for s in full["scaling"]
         ],

@@ -60,7 +60,6 @@ def main() -> None:
     from app.services import calibration
     from app.services.auth import create_token
     from app.services.ingest.evaluation import model_columns
-    from app.store import calibration as store
     from model import calibration as cal
     from tests.bench import bench_pages
 
@@ -84,7 +83,10 @@ def main() -> None:
                     return calibration.calibration_answer(session, "bench")
 
             wall, cpu, answer = _timed(whole, args.repeat)
-            print(f"{'calibration answer (service, in-process)':52s} {wall:8.3f} {cpu:8.3f}  {'yes' if wall < TARGET_SECONDS else 'NO'}")
+            print(
+                f"{'calibration answer (service, in-process)':52s} {wall:8.3f} {cpu:8.3f}  "
+                f"{'yes' if wall < TARGET_SECONDS else 'NO'}"
+            )
 
             def read():
                 with factory() as session:
@@ -104,16 +106,27 @@ def main() -> None:
             wall, cpu, _ = _timed(lambda: cal.rank_drivers(outcome, inputs), args.repeat)
             print(f"{'  drivers of one outcome (of 6)':52s} {wall:8.3f} {cpu:8.3f}")
             headers = {"Authorization": f"Bearer {token}"}
-            wall, cpu, response = _timed(lambda: client.get("/api/v1/campaigns/bench/calibration", headers=headers), args.repeat)
-            print(f"{'GET /api/v1/campaigns/bench/calibration':52s} {wall:8.3f} {cpu:8.3f}  {len(response.content):,d} bytes")
+            wall, cpu, response = _timed(
+                lambda: client.get("/api/v1/campaigns/bench/calibration", headers=headers), args.repeat
+            )
+            print(
+                f"{'GET /api/v1/campaigns/bench/calibration':52s} {wall:8.3f} {cpu:8.3f}  "
+                f"{len(response.content):,d} bytes"
+            )
             scale = answer["density_scale"]
             print(
                 f"\nshots {answer['shots']:,}; scale {scale['estimate']:.5f} [{scale['low']:.5f}, {scale['high']:.5f}] "
                 f"({scale['interval_method']}); changes at "
-                + ", ".join(f"{c['shot_id']} ({c['before']['estimate']:.4f} -> {c['after']['estimate']:.4f})" for c in answer["changes"])
+                + ", ".join(
+                    f"{c['shot_id']} ({c['before']['estimate']:.4f} -> {c['after']['estimate']:.4f})"
+                    for c in answer["changes"]
+                )
             )
             for s in answer["scaling"]:
-                print(f"  {s['diagnostic']:36s} b = {s['exponent']:.3f} [{s['exponent_low']:.3f}, {s['exponent_high']:.3f}], {len(s['outliers'])} outliers")
+                print(
+                    f"  {s['diagnostic']:36s} b = {s['exponent']:.3f} "
+                    f"[{s['exponent_low']:.3f}, {s['exponent_high']:.3f}], {len(s['outliers'])} outliers"
+                )
             print(f"target: under {TARGET_SECONDS} s for the whole answer")
 
 

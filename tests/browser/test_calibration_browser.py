@@ -25,7 +25,10 @@ def calibration_server(live_server: str, admin_token: str, reference_cases, job_
     columns["measured.halo_radius_mm"][[77]] *= 3.0
     shots = shots_from_columns(columns, datetime(2026, 11, 16, 8, tzinfo=UTC), every_s=900)
     with httpx.Client(base_url=live_server, headers={"Authorization": f"Bearer {admin_token}"}, timeout=60) as api:
-        assert api.post("/api/v1/campaigns", json={"slug": SLUG, "name": "Calibration run", "timezone": "UTC"}).status_code == 201
+        assert (
+            api.post("/api/v1/campaigns", json={"slug": SLUG, "name": "Calibration run", "timezone": "UTC"}).status_code
+            == 201
+        )
         assert api.post(f"/api/v1/campaigns/{SLUG}/shots/batch", json={"shots": shots}).status_code == 201
     return {"base": live_server, "token": admin_token}
 

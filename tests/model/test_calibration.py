@@ -116,7 +116,11 @@ def test_the_driver_of_an_outcome_comes_first_with_an_interval_around_its_rho():
     rng = np.random.default_rng(8)
     n = 3000
     density = rng.uniform(1, 2, n)
-    inputs = {"plasma.density_cm3": density, "driver.population": rng.uniform(1, 2, n), "plasma.length_m": np.full(n, 10.0)}
+    inputs = {
+        "plasma.density_cm3": density,
+        "driver.population": rng.uniform(1, 2, n),
+        "plasma.length_m": np.full(n, 10.0),
+    }
     outcome = density**0.5 * np.exp(0.05 * rng.standard_normal(n))
     ranking, used = cal.rank_drivers(outcome, inputs)
     assert used == cal.DRIVER_MAX_SHOTS

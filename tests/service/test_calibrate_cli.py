@@ -19,7 +19,10 @@ def test_calibrate_prints_the_table_and_apply_sets_the_scale(
     shots = shots_from_columns(columns, datetime(2026, 11, 16, 8, tzinfo=UTC))
     response = client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": shots}, headers=ingest_headers)
     assert response.status_code == 201
-    assert main(["--database-url", database_url, "calibrate", "--campaign", campaign, "--from", "2026-11-16T00:00:00Z"]) == 0
+    assert (
+        main(["--database-url", database_url, "calibrate", "--campaign", campaign, "--from", "2026-11-16T00:00:00Z"])
+        == 0
+    )
     out = capsys.readouterr().out
     assert "density scale  1.02" in out and "changes of the scale: none found" in out
     assert "measured.halo_radius_mm" in out and "correlation is not cause" in out

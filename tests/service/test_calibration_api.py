@@ -22,7 +22,9 @@ START = datetime(2026, 11, 16, 8, tzinfo=UTC)
 
 def _post(client, campaign, headers, shots):
     for i in range(0, len(shots), 500):
-        response = client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": shots[i : i + 500]}, headers=headers)
+        response = client.post(
+            f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": shots[i : i + 500]}, headers=headers
+        )
         assert response.status_code == 201, response.text
 
 

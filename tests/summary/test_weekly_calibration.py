@@ -18,7 +18,12 @@ def test_the_week_carries_its_density_scale_changes_and_exponents_in_every_summa
 ):
     columns = synthetic_columns(reference_cases[0]["input"], 300, scale=1.015, scale_after=1.03, step_at=150, seed=4)
     shots = shots_from_columns(columns, datetime(2026, 11, 17, 8, tzinfo=UTC), every_s=600)  # ISO week 2026-W47
-    assert client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": shots}, headers=ingest_headers).status_code == 201
+    assert (
+        client.post(
+            f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": shots}, headers=ingest_headers
+        ).status_code
+        == 201
+    )
     url = f"/api/v1/campaigns/{campaign}/summary"
     document = client.get(url, params={"week": "2026-W47", "format": "json"}, headers=viewer_headers).json()
     check = document["summary"]["model_check"]

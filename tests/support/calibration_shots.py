@@ -60,11 +60,19 @@ def synthetic_columns(
     true_density = columns["plasma.density_cm3"] * truth
     at_truth = model.evaluate_table({**columns, "plasma.density_cm3": true_density})
     as_logged = model.evaluate_table(columns)
-    columns["measured.modulation_freq_ghz"] = at_truth["plasma_frequency_ghz"] * (1 + frequency_noise * rng.standard_normal(n))
-    kick = kick_angle_proxy(as_logged["wakefield_estimate_mv_m"], columns["plasma.length_m"], columns["driver.momentum_gev"])
+    columns["measured.modulation_freq_ghz"] = at_truth["plasma_frequency_ghz"] * (
+        1 + frequency_noise * rng.standard_normal(n)
+    )
+    kick = kick_angle_proxy(
+        as_logged["wakefield_estimate_mv_m"], columns["plasma.length_m"], columns["driver.momentum_gev"]
+    )
     columns["measured.halo_radius_mm"] = HALO_PREFACTOR * kick**HALO_EXPONENT * np.exp(0.03 * rng.standard_normal(n))
-    gain = energy_gain_proxy(as_logged["wakefield_estimate_mv_m"], columns["plasma.length_m"], as_logged["saturation_length_m"])
-    columns["measured.witness_energy_mev"] = WITNESS_PREFACTOR * gain**WITNESS_EXPONENT * np.exp(0.03 * rng.standard_normal(n))
+    gain = energy_gain_proxy(
+        as_logged["wakefield_estimate_mv_m"], columns["plasma.length_m"], as_logged["saturation_length_m"]
+    )
+    columns["measured.witness_energy_mev"] = (
+        WITNESS_PREFACTOR * gain**WITNESS_EXPONENT * np.exp(0.03 * rng.standard_normal(n))
+    )
     columns["measured.modulation_phase_rad"] = 0.4 + 0.1 * rng.standard_normal(n)
     columns["measured.microbunch_count"] = np.round(columns["driver.sigma_z_mm"] / as_logged["plasma_wavelength_mm"])
     return columns
@@ -77,7 +85,10 @@ def shots_from_columns(
     n = len(next(iter(columns.values())))
     shots = []
     for i in range(n):
-        shot: dict[str, Any] = {"shot_id": f"cal-{i:05d}", "taken_at": (start + timedelta(seconds=i * every_s)).isoformat()}
+        shot: dict[str, Any] = {
+            "shot_id": f"cal-{i:05d}",
+            "taken_at": (start + timedelta(seconds=i * every_s)).isoformat(),
+        }
         for path, values in columns.items():
             value = values[i]
             if value is None or (isinstance(value, float) and not np.isfinite(value)):

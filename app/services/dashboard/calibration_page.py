@@ -76,7 +76,12 @@ def _series_figure(result: Calibration, ans: dict[str, Any]) -> dict[str, Any]:
             "name": "per day (95 % interval)",
             "x": days,
             "y": rounded_list(est),
-            "error_y": {"type": "data", "symmetric": False, "array": rounded_list(upper), "arrayminus": rounded_list(lower)},
+            "error_y": {
+                "type": "data",
+                "symmetric": False,
+                "array": rounded_list(upper),
+                "arrayminus": rounded_list(lower),
+            },
             "marker": {"color": SERIES, "size": 8},
             "hovertext": text,
             "hoverinfo": "text",
@@ -189,7 +194,11 @@ def _scaling_panel(i: int, check: calibration.ScalingCheck, entry: dict[str, Any
         if trace.get("customdata") is None:
             trace.pop("customdata", None)
     facts = [
-        ("exponent b", f"{_n(fit.exponent, 3)} [{_n(fit.exponent_low, 3)}, {_n(fit.exponent_high, 3)}] (expected {_n(check.expected_exponent, 2)})"),
+        (
+            "exponent b",
+            f"{_n(fit.exponent, 3)} [{_n(fit.exponent_low, 3)}, {_n(fit.exponent_high, 3)}] "
+            f"(expected {_n(check.expected_exponent, 2)})",
+        ),
         ("prefactor a", _n(fit.prefactor, 3)),
         ("Spearman ρ", _n(fit.spearman, 3)),
         (check.points, f"{fit.shots} (fit on {fit.fitted_shots})"),
@@ -233,7 +242,9 @@ def _drivers_figure(ans: dict[str, Any]) -> dict[str, Any]:
                     "type": "data",
                     "symmetric": False,
                     "array": rounded_list([(r["high"] - r["rho"]) if r["high"] is not None else None for r in ranking]),
-                    "arrayminus": rounded_list([(r["rho"] - r["low"]) if r["low"] is not None else None for r in ranking]),
+                    "arrayminus": rounded_list(
+                        [(r["rho"] - r["low"]) if r["low"] is not None else None for r in ranking]
+                    ),
                     "color": INK,
                 },
                 "marker": {"color": colours[i % len(colours)]},
