@@ -45,6 +45,8 @@ FIT_MAX_SHOTS = 600
 #: The driver ranking uses at most this many shots, evenly spaced in time.
 DRIVER_MAX_SHOTS = 500
 DRIVER_RESAMPLES = 199
+#: z_0.975: the half width of a 95 % interval in standard errors.
+Z_INTERVAL = float(stats.norm.ppf(0.5 + CONFIDENCE / 2))
 
 
 @dataclass(frozen=True)
@@ -97,8 +99,7 @@ def median_interval(values: ArrayLike, seed: int = BOOTSTRAP_SEED) -> MedianInte
         return MedianInterval(median, low, high, float(result.standard_error), n, "bootstrap")
     ci = stats.quantile_test(v, q=median, p=0.5).confidence_interval(CONFIDENCE)
     low, high = float(ci.low), float(ci.high)
-    z = float(stats.norm.ppf(0.5 + CONFIDENCE / 2))
-    return MedianInterval(median, low, high, (high - low) / (2 * z), n, "order statistics")
+    return MedianInterval(median, low, high, (high - low) / (2 * Z_INTERVAL), n, "order statistics")
 
 
 def scale_interval(ratios: ArrayLike, seed: int = BOOTSTRAP_SEED) -> MedianInterval:
@@ -110,8 +111,7 @@ def _log_standard_error(m: MedianInterval) -> float:
     """Standard error of ln(median) from the interval on ln c (half width over z)."""
     if m.low is None or m.high is None or m.low <= 0 or m.high <= 0:
         return float("inf")
-    z = float(stats.norm.ppf(0.5 + CONFIDENCE / 2))
-    return (np.log(m.high) - np.log(m.low)) / (2 * z)
+    return float((np.log(m.high) - np.log(m.low)) / (2 * Z_INTERVAL))
 
 
 @dataclass(frozen=True)
@@ -313,16 +313,12 @@ def rank_drivers(
     return ranking, int(pick.size)
 
 
-def group_medians(
-    ratios: ArrayLike, groups: Sequence[str], seed: int = BOOTSTRAP_SEED
+def segment_medians(
+    ratios: ArrayLike, segments: Sequence[tuple[str, int, int]], seed: int = BOOTSTRAP_SEED
 ) -> list[tuple[str, MedianInterval]]:
-    """Median of c_i with its interval per group label, groups in order of first appearance."""
+    """Median of c_i with its interval over each (label, start, stop) slice of the time-ordered values."""
     c = np.asarray(ratios, dtype=float)
-    labels = np.asarray(groups, dtype=object)
-    order: dict[str, list[int]] = {}
-    for i, label in enumerate(labels.tolist()):
-        order.setdefault(label, []).append(i)
-    return [(label, median_interval(c[idx], seed)) for label, idx in order.items()]
+    return [(label, median_interval(c[start:stop], seed)) for label, start, stop in segments]
 
 
 def density_scale_ratios(columns: Mapping[str, ArrayLike], settings: Mapping[str, object] | None = None) -> np.ndarray:

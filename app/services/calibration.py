@@ -11,8 +11,9 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from datetime import datetime
+from datetime import datetime, time, timedelta
 from typing import Any
+from zoneinfo import ZoneInfo
 
 import numpy as np
 from sqlalchemy.orm import Session, sessionmaker
@@ -85,25 +86,35 @@ class Calibration:
 
 
 def _floats(values: list[Any]) -> np.ndarray:
-    return np.array([np.nan if v is None else v for v in values], dtype=float)
+    return np.array(values, dtype=float)  # None reads as NaN
 
 
 def _read(
     session: Session, campaign: Campaign, start: datetime | None, end: datetime | None, progress: Progress | None
 ) -> dict[str, list[Any]]:
-    total = store.count_calibration_rows(session, campaign.id, start, end)
-    rows: dict[str, list[Any]] = {}
-    done = 0
+    total = store.count_calibration_rows(session, campaign.id, start, end) if progress is not None else 0
+    keys = store.CALIBRATION_KEYS
+    rows: list[Any] = []
     for part in store.iter_calibration_rows(session, campaign.id, start, end):
-        for key, values in part.items():
-            rows.setdefault(key, []).extend(values)
-        done += len(part["shot_id"])
+        rows += part
         if progress is not None:
-            progress(done, total, "reading shots")
+            progress(len(rows), total, "reading shots")
     if not rows:
-        keys = ("shot_id", "taken_at", *store.SHOT_INPUT_COLUMNS, *store.CALIBRATION_OUTPUTS)
-        rows = {key: [] for key in keys}
-    return rows
+        return {key: [] for key in keys}
+    return {key: list(values) for key, values in zip(keys, zip(*rows, strict=True), strict=True)}
+
+
+def day_segments(taken_at: list[datetime], zone: ZoneInfo) -> list[tuple[str, int, int]]:
+    """(day of ``zone``, first index, end index) of time-ordered instants, days with shots only."""
+    if not taken_at:
+        return []
+    stamps = np.array([moment.timestamp() for moment in taken_at])
+    first, last = taken_at[0].astimezone(zone).date(), taken_at[-1].astimezone(zone).date()
+    days = [first + timedelta(days=i) for i in range((last - first).days + 1)]
+    starts = [datetime.combine(d, time(0), tzinfo=zone).timestamp() for d in days]
+    bounds = [*np.searchsorted(stamps, starts, side="left").tolist(), len(taken_at)]
+    bounds[0] = 0
+    return [(d.isoformat(), lo, hi) for d, lo, hi in zip(days, bounds[:-1], bounds[1:], strict=True) if hi > lo]
 
 
 def measure(
@@ -137,10 +148,8 @@ def measure(
     result.ratios = ratios
     result.scale = cal.scale_interval(ratios)
     result.mismatch = cal.median_interval(_floats(rows["frequency_mismatch_pct"]))
-    zone = campaign_zone(campaign.timezone)
-    days = [moment.astimezone(zone).date().isoformat() for moment in rows["taken_at"]]
-    have_ratio = np.isfinite(ratios)
-    result.series = cal.group_medians(ratios[have_ratio], [d for d, ok in zip(days, have_ratio, strict=True) if ok])
+    days = day_segments(result.taken_at, campaign_zone(campaign.timezone))
+    result.series = [(day, m) for day, m in cal.segment_medians(ratios, days) if m.shots]
     result.changes = cal.scale_changes(ratios)
     outputs = {name: _floats(rows[name]) for name in store.CALIBRATION_OUTPUTS}
     result.scaling = _scaling_checks(columns, outputs, list(rows["shot_id"]), days)
@@ -153,7 +162,10 @@ def measure(
 
 
 def _scaling_checks(
-    columns: Mapping[str, np.ndarray], outputs: Mapping[str, np.ndarray], shot_ids: list[str], days: list[str]
+    columns: Mapping[str, np.ndarray],
+    outputs: Mapping[str, np.ndarray],
+    shot_ids: list[str],
+    days: list[tuple[str, int, int]],
 ) -> list[ScalingCheck]:
     wake = outputs["wakefield_estimate_mv_m"]
     length, momentum = columns["plasma.length_m"], columns["driver.momentum_gev"]
@@ -195,11 +207,8 @@ def _scaling_checks(
     labels: list[str] = []
     expected: list[float] = []
     measured: list[float] = []
-    day_rows: dict[str, list[int]] = {}
-    for i, day in enumerate(days):
-        day_rows.setdefault(day, []).append(i)
-    for day, idx in day_rows.items():
-        jitter = phase_jitter(phases[idx], density[idx], per_pct[idx])
+    for day, lo, hi in days:
+        jitter = phase_jitter(phases[lo:hi], density[lo:hi], per_pct[lo:hi])
         if jitter.measured_phase_std_rad and jitter.expected_phase_jitter_rad:
             labels.append(day)
             measured.append(jitter.measured_phase_std_rad)

@@ -24,6 +24,9 @@ CALIBRATION_OUTPUTS: tuple[str, ...] = (
     "frequency_mismatch_pct",
 )
 
+#: The keys of a row of iter_calibration_rows, in order.
+CALIBRATION_KEYS: tuple[str, ...] = ("shot_id", "taken_at", *SHOT_INPUT_COLUMNS, *CALIBRATION_OUTPUTS)
+
 
 def _window(campaign_id: int, start_utc: datetime | None, end_utc: datetime | None) -> list[ColumnElement[bool]]:
     conditions = [Shot.campaign_id == campaign_id]
@@ -48,11 +51,10 @@ def count_calibration_rows(
 
 
 def iter_calibration_rows(
-    session: Session, campaign_id: int, start_utc: datetime | None, end_utc: datetime | None, chunk: int = 5000
-) -> Iterator[dict[str, list[Any]]]:
+    session: Session, campaign_id: int, start_utc: datetime | None, end_utc: datetime | None, chunk: int = 20000
+) -> Iterator[list[Any]]:
     """The campaign's evaluated shots taken in [start_utc, end_utc) (open ends: all), by taken_at,
-    ``chunk`` rows at a time: shot_id, taken_at, every input column and CALIBRATION_OUTPUTS,
-    column-wise."""
+    ``chunk`` rows at a time, each row in the order of CALIBRATION_KEYS."""
     columns = [
         Shot.shot_id,
         Shot.taken_at,
@@ -65,7 +67,6 @@ def iter_calibration_rows(
         .where(*_window(campaign_id, start_utc, end_utc))
         .order_by(Shot.taken_at, Shot.id)
     )
-    result = session.connection().execution_options(yield_per=chunk).execute(stmt)
-    keys = list(result.keys())
-    for part in result.partitions():
-        yield {key: list(values) for key, values in zip(keys, zip(*part, strict=True), strict=True)}
+    result = session.connection().execute(stmt)
+    while part := result.fetchmany(chunk):
+        yield list(part)
