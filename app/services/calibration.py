@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from datetime import datetime, time, timedelta
+from datetime import UTC, datetime, time, timedelta
 from typing import Any
 from zoneinfo import ZoneInfo
 
@@ -75,7 +75,7 @@ class Calibration:
     applied_scale: float
     shots: int
     shot_ids: list[str] = field(default_factory=list)
-    taken_at: list[datetime] = field(default_factory=list)
+    taken_at: np.ndarray = field(default_factory=lambda: np.zeros(0))  # seconds since 1970, UTC
     ratios: np.ndarray = field(default_factory=lambda: np.zeros(0))
     scale: cal.MedianInterval = cal.MedianInterval(None, None, None, None, 0, "none")
     mismatch: cal.MedianInterval = cal.MedianInterval(None, None, None, None, 0, "none")
@@ -104,15 +104,19 @@ def _read(
     return {key: list(values) for key, values in zip(keys, zip(*rows, strict=True), strict=True)}
 
 
-def day_segments(taken_at: list[datetime], zone: ZoneInfo) -> list[tuple[str, int, int]]:
-    """(day of ``zone``, first index, end index) of time-ordered instants, days with shots only."""
-    if not taken_at:
+def instant(seconds: float) -> datetime:
+    """A taken_at of the result (seconds since 1970) as an aware UTC datetime."""
+    return datetime.fromtimestamp(float(seconds), UTC)
+
+
+def day_segments(stamps: np.ndarray, zone: ZoneInfo) -> list[tuple[str, int, int]]:
+    """(day of ``zone``, first index, end index) of time-ordered instants (seconds since 1970), days with shots only."""
+    if not stamps.size:
         return []
-    stamps = np.array([moment.timestamp() for moment in taken_at])
-    first, last = taken_at[0].astimezone(zone).date(), taken_at[-1].astimezone(zone).date()
+    first, last = instant(stamps[0]).astimezone(zone).date(), instant(stamps[-1]).astimezone(zone).date()
     days = [first + timedelta(days=i) for i in range((last - first).days + 1)]
     starts = [datetime.combine(d, time(0), tzinfo=zone).timestamp() for d in days]
-    bounds = [*np.searchsorted(stamps, starts, side="left").tolist(), len(taken_at)]
+    bounds = [*np.searchsorted(stamps, starts, side="left").tolist(), int(stamps.size)]
     bounds[0] = 0
     return [(d.isoformat(), lo, hi) for d, lo, hi in zip(days, bounds[:-1], bounds[1:], strict=True) if hi > lo]
 
@@ -135,7 +139,7 @@ def measure(
     rows = _read(session, campaign, start, end, progress)
     n = len(rows["shot_id"])
     result = Calibration(campaign, start, end, float(settings["density_scale"]), n)
-    result.shot_ids, result.taken_at = list(rows["shot_id"]), list(rows["taken_at"])
+    result.shot_ids, result.taken_at = list(rows["shot_id"]), store.taken_at_seconds(rows["taken_at"])
     if n == 0:
         return result
     columns = model_columns(rows)
@@ -253,7 +257,7 @@ def answer(result: Calibration) -> dict[str, Any]:
         "changes": [
             {
                 "shot_id": result.shot_ids[c.index],
-                "taken_at": format_utc(result.taken_at[c.index]),
+                "taken_at": format_utc(instant(result.taken_at[c.index])),
                 "before": _interval(c.before),
                 "after": _interval(c.after),
                 "shots_before": c.before.shots,

@@ -4,11 +4,12 @@ with (Core statements, no ORM objects; times in UTC)."""
 
 from __future__ import annotations
 
-from collections.abc import Iterator
-from datetime import datetime
+from collections.abc import Iterator, Sequence
+from datetime import UTC, datetime
 from typing import Any
 
-from sqlalchemy import ColumnElement, func, select
+import numpy as np
+from sqlalchemy import ColumnElement, Text, func, select, type_coerce
 from sqlalchemy.orm import Session
 
 from app.store.exports import SHOT_INPUT_COLUMNS
@@ -57,7 +58,8 @@ def iter_calibration_rows(
     ``chunk`` rows at a time, each row in the order of CALIBRATION_KEYS."""
     columns = [
         Shot.shot_id,
-        Shot.taken_at,
+        # As stored (text on SQLite): taken_at_seconds reads a whole column at once.
+        type_coerce(Shot.taken_at, Text).label("taken_at"),
         *(Shot.__table__.c[name] for name in SHOT_INPUT_COLUMNS),
         *(Evaluation.__table__.c[name] for name in CALIBRATION_OUTPUTS),
     ]
@@ -70,3 +72,13 @@ def iter_calibration_rows(
     result = session.connection().execute(stmt)
     while part := result.fetchmany(chunk):
         yield list(part)
+
+
+def taken_at_seconds(values: Sequence[Any]) -> np.ndarray:
+    """The taken_at column of iter_calibration_rows as seconds since 1970 (UTC): SQLite's stored
+    UTC text parsed by numpy in one go, a driver's aware datetimes converted one by one."""
+    if not values:
+        return np.zeros(0)
+    if isinstance(values[0], str):
+        return np.array(values, dtype="datetime64[us]").astype(np.int64) / 1e6
+    return np.array([v.astimezone(UTC).timestamp() for v in values], dtype=float)

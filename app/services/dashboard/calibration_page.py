@@ -140,7 +140,7 @@ def _series_figure(result: Calibration, ans: dict[str, Any]) -> dict[str, Any]:
 
 
 def _day(result: Calibration, index: int) -> str:
-    moment: datetime = result.taken_at[index]
+    moment = calibration.instant(result.taken_at[index])
     return moment.astimezone(campaign_zone(result.campaign.timezone)).date().isoformat()
 
 
