@@ -33,7 +33,7 @@ def calibration_server(live_server: str, admin_token: str, reference_cases, job_
     return {"base": live_server, "token": admin_token}
 
 
-def _wait_until(page, function: str, arg=None, timeout_s: float = 30.0) -> None:
+def _wait_until(page, function: str, arg=None, timeout_s: float = 120.0) -> None:
     """Poll a condition in the page (wait_for_function would evaluate a string, which the page's CSP forbids)."""
     deadline = time.monotonic() + timeout_s
     while not page.evaluate(function, arg):
@@ -62,7 +62,7 @@ def test_the_page_draws_its_charts_opens_an_odd_shot_and_applies_the_scale_after
     page.goto(f"{base}/sign-in?next={path}")
     page.fill("input[name=token]", calibration_server["token"])
     page.click("button[type=submit]")
-    page.wait_for_url(f"{base}{path}")
+    page.wait_for_url(f"{base}{path}", timeout=120000)
     _wait_until(page, "() => document.body.dataset.chartsDrawn === '6'")
     assert page.locator("#calib-changes tbody tr").count() == 1
     assert page.locator("nav a[aria-current=page]").inner_text() == "Calibration"
@@ -77,9 +77,9 @@ def test_the_page_draws_its_charts_opens_an_odd_shot_and_applies_the_scale_after
     box = halo.bounding_box()
     page.mouse.move(box["x"] + point["px"], box["y"] + point["py"])
     page.mouse.click(box["x"] + point["px"], box["y"] + point["py"])
-    page.wait_for_url(f"{base}/campaigns/{SLUG}/shots/cal-00077")
+    page.wait_for_url(f"{base}/campaigns/{SLUG}/shots/cal-00077", timeout=120000)
     page.go_back()
-    page.wait_for_url(f"{base}{path}")
+    page.wait_for_url(f"{base}{path}", timeout=120000)
     _wait_until(page, "() => document.body.dataset.chartsDrawn === '6'")
 
     # dismissing the confirmation changes nothing; accepting it applies the estimate through the settings
