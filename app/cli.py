@@ -632,5 +632,47 @@ def plan(args: argparse.Namespace, settings: Settings) -> int:
     return 0
 
 
+def _calibrate_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--campaign", required=True, metavar="SLUG")
+    p.add_argument("--from", dest="taken_from", metavar="ISO", help="shots taken at or after (ISO 8601 with an offset)")
+    p.add_argument("--to", dest="taken_to", metavar="ISO", help="shots taken before (ISO 8601 with an offset)")
+    p.add_argument("--apply", action="store_true", help="make the estimate the campaign's density_scale (re-evaluates)")
+
+
+@command(
+    "calibrate",
+    help="the density scale with its interval and changes, the scaling checks and the drivers of a campaign",
+    configure=_calibrate_args,
+)
+def calibrate(args: argparse.Namespace, settings: Settings) -> int:
+    from app.database import make_engine, make_session_factory
+    from app.errors import InvalidInput, NotFound
+    from app.services.calibration import parse_instant, run_calibrate, table_text
+
+    engine = make_engine(settings.database_url)
+    bar = TextProgressBar(f"{args.campaign} calibration", minimum_total=20000)
+    try:
+        start, end = parse_instant(args.taken_from, "--from"), parse_instant(args.taken_to, "--to")
+        result, job_id = run_calibrate(
+            make_session_factory(engine), args.campaign, start, end, args.apply, "cli", lambda d, t, _m: bar(d, t)
+        )
+    except (InvalidInput, NotFound) as exc:
+        bar.close()
+        lines = [f"{field}: {reason}" for field, reason in exc.problems] or [exc.detail]
+        for line in lines:
+            print(f"wakeledger calibrate: error: {line}", file=sys.stderr)
+        return 1 if isinstance(exc, NotFound) else 2
+    finally:
+        engine.dispose()
+    bar.close()
+    print(table_text(result))
+    if job_id is not None:
+        print(
+            f"density_scale of {args.campaign} set to {result['density_scale']['estimate']!r}; "
+            f"re-evaluation job {job_id}"
+        )
+    return 0
+
+
 if __name__ == "__main__":  # pragma: no cover
     raise SystemExit(main())

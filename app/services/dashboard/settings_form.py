@@ -26,6 +26,8 @@ SETTING_HELP = {
     "noise_floor": "floor of the relative noise \u03b7",
     "phase_tolerance_rad": "allowed phase jitter \u0394\u03c8_tol [rad], sets density_tolerance_pct",
     "saturation_modulation": "saturation level \u03b4_sat of the relative radius modulation",
+    "density_scale": "calibration of the density diagnostic: n_0 = density_scale \u00d7 logged density "
+    "(estimated on the Calibration page)",
 }
 
 

@@ -28,7 +28,7 @@ def model_columns(stored: Mapping[str, Sequence[Any]]) -> dict[str, np.ndarray]:
             array[:] = values
             columns[f.path] = array
         else:
-            columns[f.path] = np.array([np.nan if v is None else v for v in values], dtype=float)
+            columns[f.path] = np.array(values, dtype=float)  # None reads as NaN
     return columns
 
 

@@ -23,6 +23,7 @@ import model
 from app.database import snapshot_read
 from app.plain import finite_or_none
 from app.presentation.fields import unit_of
+from app.services.calibration import week_figures
 from app.services.export_table import NOT_EVALUATED, ShotTable
 from app.services.phase_spread import JITTER_SOURCES, phase_jitter, typical_phase_derivatives
 from app.store import exports as export_store
@@ -150,6 +151,9 @@ class WeeklySummary:
     previous: WeekComparison
     model_versions: list[str]
     shots: ShotTable = field(repr=False)
+    # The week's model against measurement (app.services.calibration.week_figures): density
+    # scale with its interval, changes, scaling exponents.
+    model_check: dict[str, Any] = field(default_factory=dict)
 
     @property
     def is_empty(self) -> bool:
@@ -365,4 +369,5 @@ def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, n
         previous=_previous_week(session, campaign, week, figures),
         model_versions=sorted({v for v in shots.model_version if v}),
         shots=shots,
+        model_check=week_figures(session, campaign.slug, start_local.astimezone(UTC), end_local.astimezone(UTC)),
     )

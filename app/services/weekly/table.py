@@ -72,6 +72,7 @@ def summary_document(summary: WeeklySummary) -> dict[str, Any]:
                 "ranges": [asdict(r) for r in summary.ranges],
                 "phase_stability": asdict(summary.phase_stability),
                 "density_calibration": asdict(summary.density_calibration),
+                "model_check": summary.model_check,
                 "previous_week": {
                     "week": prev.week.label,
                     "shot_count": prev.shot_count,

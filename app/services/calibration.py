@@ -1,0 +1,423 @@
+"""The model against measurement for a campaign or a period of it: the density scale and its
+changes, the scaling checks, what drives the outcome (MODEL.md, "Model against measurement";
+the statistics are ``model.calibration``), applying a scale, and the command line's table.
+
+``measure`` reads the shots once and computes everything; ``answer`` is the API's shape; the
+page (``app.services.dashboard.calibration_page``), the weekly summary and ``wakeledger
+calibrate`` take what they show from the same result.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from datetime import UTC, datetime, time, timedelta
+from typing import Any
+from zoneinfo import ZoneInfo
+
+import numpy as np
+from sqlalchemy.orm import Session, sessionmaker
+
+import model
+from app.errors import InvalidInput
+from app.plain import finite_or_none
+from app.presentation.numbers import format_number
+from app.services.campaign_settings import change_settings
+from app.services.campaigns import effective_settings, require_campaign
+from app.services.ingest.evaluation import model_columns
+from app.services.phase_spread import phase_jitter
+from app.store import calibration as store
+from app.tables import Campaign
+from app.times import campaign_zone, format_utc
+from model import calibration as cal
+
+Progress = Callable[[int, int, str], None]  # (done, total, message)
+
+#: The measured diagnostics, by input path.
+MEASURED_DIAGNOSTICS: tuple[str, ...] = (
+    "measured.modulation_freq_ghz",
+    "measured.modulation_phase_rad",
+    "measured.halo_radius_mm",
+    "measured.witness_energy_mev",
+    "measured.microbunch_count",
+)
+#: Outcomes whose drivers are ranked: the measured diagnostics and the model's e-folds.
+DRIVER_OUTCOMES: tuple[str, ...] = (*MEASURED_DIAGNOSTICS, "efolds_exit")
+#: Numeric conditions a driver may be (inputs of the shot, not measurements).
+DRIVER_INPUTS: tuple[str, ...] = tuple(
+    f.path for f in model.INPUT_FIELDS if f.kind in ("float", "integer") and not f.path.startswith("measured.")
+)
+#: Drivers shown per outcome.
+TOP_DRIVERS = 8
+
+
+@dataclass(frozen=True)
+class ScalingCheck:
+    """One diagnostic against its model counterpart, with the points the page draws."""
+
+    diagnostic: str
+    proxy: str
+    proxy_unit: str
+    expected_exponent: float
+    label: str  # what the proxy is, in words
+    points: str  # "shots" or "days"
+    fit: cal.PowerLawFit
+    x: np.ndarray
+    y: np.ndarray
+    names: list[str]  # shot id (or day) of each point
+
+
+@dataclass
+class Calibration:
+    campaign: Campaign
+    start: datetime | None
+    end: datetime | None
+    applied_scale: float
+    shots: int
+    shot_ids: list[str] = field(default_factory=list)
+    taken_at: np.ndarray = field(default_factory=lambda: np.zeros(0))  # seconds since 1970, UTC
+    ratios: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    scale: cal.MedianInterval = cal.MedianInterval(None, None, None, None, 0, "none")
+    mismatch: cal.MedianInterval = cal.MedianInterval(None, None, None, None, 0, "none")
+    series: list[tuple[str, cal.MedianInterval]] = field(default_factory=list)
+    changes: list[cal.ScaleChange] = field(default_factory=list)
+    scaling: list[ScalingCheck] = field(default_factory=list)
+    drivers: list[tuple[str, list[cal.DriverRank], int]] = field(default_factory=list)
+
+
+def _floats(values: list[Any]) -> np.ndarray:
+    return np.array(values, dtype=float)  # None reads as NaN
+
+
+def _read(
+    session: Session, campaign: Campaign, start: datetime | None, end: datetime | None, progress: Progress | None
+) -> dict[str, list[Any]]:
+    total = store.count_calibration_rows(session, campaign.id, start, end) if progress is not None else 0
+    keys = store.CALIBRATION_KEYS
+    rows: list[Any] = []
+    for part in store.iter_calibration_rows(session, campaign.id, start, end):
+        rows += part
+        if progress is not None:
+            progress(len(rows), total, "reading shots")
+    if not rows:
+        return {key: [] for key in keys}
+    return {key: list(values) for key, values in zip(keys, zip(*rows, strict=True), strict=True)}
+
+
+def instant(seconds: float) -> datetime:
+    """A taken_at of the result (seconds since 1970) as an aware UTC datetime."""
+    return datetime.fromtimestamp(float(seconds), UTC)
+
+
+def day_segments(stamps: np.ndarray, zone: ZoneInfo) -> list[tuple[str, int, int]]:
+    """(day of ``zone``, first index, end index) of time-ordered instants (seconds since 1970), days with shots only."""
+    if not stamps.size:
+        return []
+    first, last = instant(stamps[0]).astimezone(zone).date(), instant(stamps[-1]).astimezone(zone).date()
+    days = [first + timedelta(days=i) for i in range((last - first).days + 1)]
+    starts = [datetime.combine(d, time(0), tzinfo=zone).timestamp() for d in days]
+    bounds = [*np.searchsorted(stamps, starts, side="left").tolist(), int(stamps.size)]
+    bounds[0] = 0
+    return [(d.isoformat(), lo, hi) for d, lo, hi in zip(days, bounds[:-1], bounds[1:], strict=True) if hi > lo]
+
+
+def measure(
+    session: Session,
+    slug: str,
+    start: datetime | None = None,
+    end: datetime | None = None,
+    progress: Progress | None = None,
+    *,
+    drivers: bool = True,
+) -> Calibration:
+    """Everything the model-against-measurement answer shows, for shots taken in [start, end)
+    (without the driver ranking when not ``drivers``)."""
+    if start is not None and end is not None and end <= start:
+        raise InvalidInput([("to", "must be later than from")])
+    campaign = require_campaign(session, slug)
+    settings = effective_settings(campaign)
+    rows = _read(session, campaign, start, end, progress)
+    n = len(rows["shot_id"])
+    result = Calibration(campaign, start, end, float(settings["density_scale"]), n)
+    result.shot_ids, result.taken_at = list(rows["shot_id"]), store.taken_at_seconds(rows["taken_at"])
+    if n == 0:
+        return result
+    columns = model_columns(rows)
+    measured_freq = columns["measured.modulation_freq_ghz"]
+    ratios = np.full(n, np.nan)
+    have = np.flatnonzero(np.isfinite(measured_freq))
+    if have.size:
+        subset = {path: values[have] for path, values in columns.items()}
+        ratios[have] = cal.density_scale_ratios(subset, campaign.model_settings or {})
+    result.ratios = ratios
+    result.scale = cal.scale_interval(ratios)
+    result.mismatch = cal.median_interval(_floats(rows["frequency_mismatch_pct"]))
+    days = day_segments(result.taken_at, campaign_zone(campaign.timezone))
+    result.series = [(day, m) for day, m in cal.segment_medians(ratios, days) if m.shots]
+    result.changes = cal.scale_changes(ratios)
+    outputs = {name: _floats(rows[name]) for name in store.CALIBRATION_OUTPUTS}
+    result.scaling = _scaling_checks(columns, outputs, list(rows["shot_id"]), days)
+    outcomes = {**{p: columns[p] for p in MEASURED_DIAGNOSTICS}, "efolds_exit": outputs["efolds_exit"]}
+    inputs = {p: columns[p] for p in DRIVER_INPUTS}
+    for name in DRIVER_OUTCOMES if drivers else ():
+        ranking, used = cal.rank_drivers(outcomes[name], inputs)
+        result.drivers.append((name, ranking[:TOP_DRIVERS], used))
+    return result
+
+
+def _scaling_checks(
+    columns: Mapping[str, np.ndarray],
+    outputs: Mapping[str, np.ndarray],
+    shot_ids: list[str],
+    days: list[tuple[str, int, int]],
+) -> list[ScalingCheck]:
+    wake = outputs["wakefield_estimate_mv_m"]
+    length, momentum = columns["plasma.length_m"], columns["driver.momentum_gev"]
+    per_shot = [
+        (
+            "measured.modulation_freq_ghz",
+            "plasma_frequency_ghz",
+            "GHz",
+            1.0,
+            "the model's plasma frequency at the entrance",
+            outputs["plasma_frequency_ghz"],
+        ),
+        (
+            "measured.halo_radius_mm",
+            "wakefield_estimate_mv_m × plasma.length_m / driver.momentum_gev",
+            "MV/GeV",
+            1.0,
+            "kick-angle proxy of the saturated wake (a project proxy, not a published law)",
+            cal.kick_angle_proxy(wake, length, momentum),
+        ),
+        (
+            "measured.witness_energy_mev",
+            "wakefield_estimate_mv_m × (plasma.length_m − saturation_length_m)",
+            "MV",
+            1.0,
+            "gain proxy over the length behind saturation, shots that saturate (a project proxy, not a published law)",
+            cal.energy_gain_proxy(wake, length, outputs["saturation_length_m"]),
+        ),
+    ]
+    checks = [
+        ScalingCheck(
+            diag, proxy, unit, b, label, "shots", cal.power_law_fit(x, columns[diag]), x, columns[diag], shot_ids
+        )
+        for diag, proxy, unit, b, label, x in per_shot
+    ]
+    # Phase: per day, the measured shot-to-shot jitter against the jitter the density jitter implies.
+    phases, density = columns["measured.modulation_phase_rad"], columns["plasma.density_cm3"]
+    per_pct = outputs["phase_per_pct_density_rad"]
+    labels: list[str] = []
+    expected: list[float] = []
+    measured: list[float] = []
+    for day, lo, hi in days:
+        jitter = phase_jitter(phases[lo:hi], density[lo:hi], per_pct[lo:hi])
+        if jitter.measured_phase_std_rad and jitter.expected_phase_jitter_rad:
+            labels.append(day)
+            measured.append(jitter.measured_phase_std_rad)
+            expected.append(jitter.expected_phase_jitter_rad)
+    x, y = np.array(expected, dtype=float), np.array(measured, dtype=float)
+    checks.append(
+        ScalingCheck(
+            "phase jitter (measured, per day)",
+            "expected phase jitter (per day)",
+            "rad",
+            1.0,
+            "median phase_per_pct_density_rad × shot-to-shot density jitter (the phase-stability figures)",
+            "days",
+            cal.power_law_fit(x, y),
+            x,
+            y,
+            labels,
+        )
+    )
+    return checks
+
+
+def _interval(m: cal.MedianInterval) -> dict[str, Any]:
+    return {"estimate": m.estimate, "low": m.low, "high": m.high}
+
+
+def answer(result: Calibration) -> dict[str, Any]:
+    """The API's answer (GET /api/v1/campaigns/{slug}/calibration)."""
+    return {
+        "campaign": result.campaign.slug,
+        "from": format_utc(result.start) if result.start else None,
+        "to": format_utc(result.end) if result.end else None,
+        "shots": result.shots,
+        "applied_density_scale": result.applied_scale,
+        "settings_version": result.campaign.settings_version,
+        "density_scale": {
+            **_interval(result.scale),
+            "shots": result.scale.shots,
+            "interval_method": result.scale.method,
+        },
+        "frequency_mismatch_pct": {**_interval(result.mismatch), "shots": result.mismatch.shots},
+        "changes": [
+            {
+                "shot_id": result.shot_ids[c.index],
+                "taken_at": format_utc(instant(result.taken_at[c.index])),
+                "before": _interval(c.before),
+                "after": _interval(c.after),
+                "shots_before": c.before.shots,
+                "shots_after": c.after.shots,
+                "standard_errors": c.standard_errors,
+            }
+            for c in result.changes
+        ],
+        "series": [{"day": day, **_interval(m), "shots": m.shots} for day, m in result.series],
+        "scaling": [
+            {
+                "diagnostic": s.diagnostic,
+                "proxy": s.proxy,
+                "proxy_unit": s.proxy_unit,
+                "proxy_note": s.label,
+                "expected_exponent": s.expected_exponent,
+                "points": s.points,
+                "prefactor": s.fit.prefactor,
+                "exponent": s.fit.exponent,
+                "exponent_low": s.fit.exponent_low,
+                "exponent_high": s.fit.exponent_high,
+                "spearman": s.fit.spearman,
+                "shots": s.fit.shots,
+                "fitted_shots": s.fit.fitted_shots,
+                "outliers": [s.names[i] for i in s.fit.outliers.tolist()],
+            }
+            for s in result.scaling
+        ],
+        "drivers": [
+            {
+                "diagnostic": name,
+                "shots": used,
+                "ranking": [
+                    {"field": d.field, "rho": finite_or_none(d.rho), "low": d.low, "high": d.high} for d in ranking
+                ],
+            }
+            for name, ranking, used in result.drivers
+        ],
+    }
+
+
+def calibration_answer(
+    session: Session, slug: str, start: datetime | None = None, end: datetime | None = None
+) -> dict[str, Any]:
+    """The campaign's (or the period's) model against measurement, in the API's shape."""
+    return answer(measure(session, slug, start, end))
+
+
+def apply_scale(session: Session, slug: str, scale: float, actor: str) -> str:
+    """Make ``scale`` the campaign's density_scale through the settings (new settings version,
+    the re-evaluation queued, audited); returns the job id."""
+    _campaign, job = change_settings(session, slug, {"density_scale": float(scale)}, actor)
+    return job.id
+
+
+def _text(value: float | None, digits: int = 5) -> str:
+    return format_number(value, digits=digits) if value is not None else "–"
+
+
+def table_text(result: dict[str, Any]) -> str:
+    """The command line's table of an answer."""
+    scale = result["density_scale"]
+    lines = [
+        f"campaign {result['campaign']}: {result['shots']} shots"
+        + (f" from {result['from']}" if result["from"] else "")
+        + (f" to {result['to']}" if result["to"] else ""),
+        f"density scale  {_text(scale['estimate'])}  [{_text(scale['low'])}, {_text(scale['high'])}]  "
+        f"({scale['shots']} shots with a measured frequency; applied now: {_text(result['applied_density_scale'])})",
+        f"frequency mismatch now  {_text(result['frequency_mismatch_pct']['estimate'], 3)} %  "
+        f"[{_text(result['frequency_mismatch_pct']['low'], 3)}, {_text(result['frequency_mismatch_pct']['high'], 3)}]",
+        "",
+        "changes of the scale:" if result["changes"] else "changes of the scale: none found",
+    ]
+    for c in result["changes"]:
+        lines.append(
+            f"  at {c['shot_id']} ({c['taken_at']}): {_text(c['before']['estimate'])} "
+            f"[{_text(c['before']['low'])}, {_text(c['before']['high'])}] ({c['shots_before']} shots) -> "
+            f"{_text(c['after']['estimate'])} [{_text(c['after']['low'])}, {_text(c['after']['high'])}] "
+            f"({c['shots_after']} shots)"
+        )
+    lines += [
+        "",
+        f"{'scaling check':<36} {'exponent':>9} {'95 % interval':>20} {'expect':>6} {'rho':>6} "
+        f"{'points':>7} {'outliers':>8}",
+    ]
+    for s in result["scaling"]:
+        interval = f"[{_text(s['exponent_low'], 3)}, {_text(s['exponent_high'], 3)}]"
+        lines.append(
+            f"{s['diagnostic']:<36} {_text(s['exponent'], 3):>9} {interval:>20} {_text(s['expected_exponent'], 2):>6} "
+            f"{_text(s['spearman'], 2):>6} {s['shots']:>7} {len(s['outliers']):>8}"
+        )
+    lines += ["", "what drives the outcome (Spearman rho, 95 % interval; scans dominate, correlation is not cause):"]
+    for d in result["drivers"]:
+        top = ", ".join(
+            f"{r['field']} {_text(r['rho'], 2)} [{_text(r['low'], 2)}, {_text(r['high'], 2)}]" for r in d["ranking"][:3]
+        )
+        lines.append(f"  {d['diagnostic']} ({d['shots']} shots): {top or 'too few shots'}")
+    return "\n".join(lines)
+
+
+def run_calibrate(
+    factory: sessionmaker[Session],
+    slug: str,
+    start: datetime | None,
+    end: datetime | None,
+    apply: bool,
+    actor: str,
+    progress: Progress | None = None,
+) -> tuple[dict[str, Any], str | None]:
+    """``wakeledger calibrate``: the answer, and with ``apply`` the estimate made the campaign's
+    density_scale (the id of the queued re-evaluation)."""
+    with factory() as session:
+        result = answer(measure(session, slug, start, end, progress))
+        session.rollback()
+        job_id = None
+        if apply:
+            estimate = result["density_scale"]["estimate"]
+            if estimate is None:
+                raise InvalidInput([("campaign", "no shot of the period has a measured modulation frequency")])
+            job_id = apply_scale(session, slug, estimate, actor)
+    return result, job_id
+
+
+def parse_instant(text: str | None, name: str) -> datetime | None:
+    """An ISO 8601 instant with a UTC offset (``Z`` too) from the command line; None for none."""
+    if text is None or not text.strip():
+        return None
+    try:
+        moment = datetime.fromisoformat(text.strip().replace("Z", "+00:00"))
+    except ValueError:
+        raise InvalidInput([(name, f"{text!r} is not an ISO 8601 instant (e.g. 2026-11-20T00:00:00Z)")]) from None
+    if moment.tzinfo is None:
+        raise InvalidInput([(name, f"{text!r} has no UTC offset (add Z or +01:00)")])
+    return moment
+
+
+def week_figures(session: Session, slug: str, start: datetime, end: datetime) -> dict[str, Any]:
+    """The weekly summary's part: the week's density scale with its interval, the changes found in
+    the week and the scaling exponents (the API's fields, without drivers and shot lists)."""
+    full = answer(measure(session, slug, start, end, drivers=False))
+    return {
+        "density_scale": full["density_scale"],
+        "applied_density_scale": full["applied_density_scale"],
+        "frequency_mismatch_pct": full["frequency_mismatch_pct"],
+        "changes": full["changes"],
+        "scaling": [
+            {
+                k: s[k]
+                for k in (
+                    "diagnostic",
+                    "proxy",
+                    "exponent",
+                    "exponent_low",
+                    "exponent_high",
+                    "expected_exponent",
+                    "spearman",
+                    "shots",
+                )
+            }
+            | {"outliers": len(s["outliers"])}
+            for s in full["scaling"]
+        ],
+    }
