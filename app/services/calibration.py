@@ -25,7 +25,7 @@ from app.presentation.numbers import format_number
 from app.services.campaign_settings import change_settings
 from app.services.campaigns import effective_settings, require_campaign
 from app.services.ingest.evaluation import model_columns
-from app.services.phase_spread import phase_jitter
+from app.services.phase_spread import JITTER_SOURCES, phase_jitter, typical_phase_derivatives
 from app.store import calibration as store
 from app.tables import Campaign
 from app.times import campaign_zone, format_utc
@@ -156,7 +156,7 @@ def measure(
     result.series = [(day, m) for day, m in cal.segment_medians(ratios, days) if m.shots]
     result.changes = cal.scale_changes(ratios)
     outputs = {name: _floats(rows[name]) for name in store.CALIBRATION_OUTPUTS}
-    result.scaling = _scaling_checks(columns, outputs, list(rows["shot_id"]), days)
+    result.scaling = _scaling_checks(columns, outputs, list(rows["shot_id"]), days, campaign.model_settings or {})
     outcomes = {**{p: columns[p] for p in MEASURED_DIAGNOSTICS}, "efolds_exit": outputs["efolds_exit"]}
     inputs = {p: columns[p] for p in DRIVER_INPUTS}
     for name in DRIVER_OUTCOMES if drivers else ():
@@ -170,6 +170,7 @@ def _scaling_checks(
     outputs: Mapping[str, np.ndarray],
     shot_ids: list[str],
     days: list[tuple[str, int, int]],
+    settings: Mapping[str, Any],
 ) -> list[ScalingCheck]:
     wake = outputs["wakefield_estimate_mv_m"]
     length, momentum = columns["plasma.length_m"], columns["driver.momentum_gev"]
@@ -205,14 +206,22 @@ def _scaling_checks(
         )
         for diag, proxy, unit, b, label, x in per_shot
     ]
-    # Phase: per day, the measured shot-to-shot jitter against the jitter the density jitter implies.
-    phases, density = columns["measured.modulation_phase_rad"], columns["plasma.density_cm3"]
-    per_pct = outputs["phase_per_pct_density_rad"]
+    # Phase: per day, the measured shot-to-shot jitter against the jitter the logged jitters imply
+    # (the phase-stability figures: shots with a measured phase, the campaign's typical derivatives).
+    phases = columns["measured.modulation_phase_rad"]
+    with_phase = np.isfinite(phases)
+    derivatives = (
+        typical_phase_derivatives({p: c[with_phase] for p, c in columns.items()}, settings)
+        if with_phase.any()
+        else dict.fromkeys(JITTER_SOURCES)
+    )
     labels: list[str] = []
     expected: list[float] = []
     measured: list[float] = []
     for day, lo, hi in days:
-        jitter = phase_jitter(phases[lo:hi], density[lo:hi], per_pct[lo:hi])
+        pick = np.flatnonzero(with_phase[lo:hi]) + lo
+        sources = {p: columns[p][pick] for p in JITTER_SOURCES}
+        jitter = phase_jitter(phases[pick], sources, derivatives)
         if jitter.measured_phase_std_rad and jitter.expected_phase_jitter_rad:
             labels.append(day)
             measured.append(jitter.measured_phase_std_rad)
@@ -224,7 +233,8 @@ def _scaling_checks(
             "expected phase jitter (per day)",
             "rad",
             1.0,
-            "median phase_per_pct_density_rad × shot-to-shot density jitter (the phase-stability figures)",
+            "root-sum-square of |dψ/d ln x| × shot-to-shot jitter of density, population, σ_z, σ_r"
+            " (the phase-stability figures)",
             "days",
             cal.power_law_fit(x, y),
             x,
