@@ -330,6 +330,9 @@ class AlertTarget(Base):
     shot of one of ``statuses`` or carrying one of the rule codes ``flags``."""
 
     __tablename__ = "alert_targets"
+    # Ids are never reused (SQLite would hand a deleted target's id to the next one, and a
+    # delivery queued for the deleted target would reach the new one).
+    __table_args__ = {"sqlite_autoincrement": True}
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     campaign_id: Mapped[int] = mapped_column(ForeignKey("campaigns.id", ondelete="CASCADE"), index=True)

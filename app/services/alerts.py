@@ -416,10 +416,11 @@ def run_delivery(ctx: jobs.JobContext) -> dict[str, Any]:
 
             def work() -> None:
                 begin_write(session)
+                exists = alert_store.target_by_id(session, p["target_id"]) is not None  # it may be deleted by now
                 alert_store.log_attempt(
                     session,
                     campaign_id=campaign_id,
-                    target_id=p["target_id"],
+                    target_id=p["target_id"] if exists else None,
                     target_url=p["url"],
                     job_id=ctx.job_id,
                     shot_id=p["shot_id"],

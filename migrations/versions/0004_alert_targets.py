@@ -29,6 +29,7 @@ def upgrade() -> None:
         sa.Column("created_by", sa.String(length=200), nullable=False),
         sa.ForeignKeyConstraint(["campaign_id"], ["campaigns.id"], ondelete="CASCADE"),
         sa.PrimaryKeyConstraint("id"),
+        sqlite_autoincrement=True,
     )
     with op.batch_alter_table("alert_targets", schema=None) as batch_op:
         batch_op.create_index(batch_op.f("ix_alert_targets_campaign_id"), ["campaign_id"], unique=False)
