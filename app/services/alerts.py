@@ -387,8 +387,8 @@ def _send(url: str, body: dict[str, Any], timeout_s: float, delivery_id: str, at
         response = httpx.post(url, json=body, headers=headers, timeout=timeout_s, follow_redirects=False)
     except httpx.TimeoutException:
         return None, f"no answer within {timeout_s:g} s"
-    except httpx.HTTPError as exc:
-        return None, f"{type(exc).__name__}: {exc}"[:ERROR_TEXT_LIMIT] or type(exc).__name__
+    except Exception as exc:  # refused, reset, a name that does not resolve, a URL httpx cannot send...
+        return None, f"{type(exc).__name__}: {exc}"[:ERROR_TEXT_LIMIT]
     if 200 <= response.status_code < 300:
         return response.status_code, ""
     reason = response.reason_phrase or "error"
