@@ -124,8 +124,8 @@ def _worker_args(p: argparse.ArgumentParser) -> None:
 
 @command(
     "worker",
-    help="run background jobs (re-evaluations, detailed runs) from the database's queue until stopped; "
-    "start any number, on any host that reaches the database",
+    help="run background jobs (re-evaluations, detailed runs, alert deliveries) from the database's queue "
+    "until stopped; start any number, on any host that reaches the database",
     configure=_worker_args,
 )
 def worker(args: argparse.Namespace, settings: Settings) -> int:

@@ -50,6 +50,24 @@ class Settings(BaseSettings):
     job_checkpoint_seconds: float = Field(default=10.0, gt=0)
     # A shot's taken_at may lie at most this far past the server's clock (clock skew, time zones).
     max_future_hours: float = Field(default=24.0, gt=0)
+    # The address the crew opens the dashboard at (e.g. https://ledger.example.org): alerts link
+    # to shot pages under it. Empty: the link in an alert is a path only.
+    public_url: str = ""
+    # Alert deliveries (app.services.alerts): the receiver's time to answer, the attempts, the
+    # wait before the first retry (doubling after each further failure), and how many alerts a
+    # single request (e.g. a batch) may queue per target.
+    alert_timeout_seconds: float = Field(default=5.0, gt=0, le=120)
+    alert_attempts: int = Field(default=5, ge=1, le=20)
+    alert_backoff_seconds: float = Field(default=10.0, ge=0)
+    alerts_per_request: int = Field(default=20, ge=1)
+
+    @field_validator("public_url")
+    @classmethod
+    def _http_base(cls, value: str) -> str:
+        value = value.strip()
+        if value and not value.lower().startswith(("http://", "https://")):
+            raise ValueError("WAKELEDGER_PUBLIC_URL must start with http:// or https://")
+        return value.rstrip("/")
 
     @field_validator("rate_limit_writes", "rate_limit_expensive_reads")
     @classmethod

@@ -17,7 +17,7 @@ from app.advisory import ADVISORY_CAUTION
 from app.config import Settings, get_settings
 from app.database import make_engine, make_session_factory, upgrade_database
 from app.problems import install_problem_handlers
-from app.routers import api, calibration, detailed_runs, openapi, pages, plan_pages, plans, summary
+from app.routers import alerts, api, calibration, detailed_runs, openapi, pages, plan_pages, plans, summary
 from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, RefuseNulInUrl
 from app.services import reevaluation
 from app.services.rate_limits import RateLimiter
@@ -36,6 +36,7 @@ def _include_routers(app: FastAPI) -> None:
     app.include_router(detailed_runs.router)
     app.include_router(plans.router)
     app.include_router(plan_pages.router)
+    app.include_router(alerts.router)
     openapi.install_docs(app, pages.PAGE_HEADERS)
 
 

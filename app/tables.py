@@ -1,5 +1,5 @@
 """SQLAlchemy 2 typed table models: campaigns, shots, evaluations, flags, revisions,
-tokens, audit trail, background jobs and detailed solver runs.
+tokens, audit trail, background jobs, detailed solver runs, alert targets and their deliveries.
 
 Shot input columns are the dotted paths of MODEL.md section 1 with '.' replaced by
 '_' (``driver.sigma_z_mm`` -> ``driver_sigma_z_mm``). Evaluation output columns are
@@ -305,6 +305,8 @@ class Job(Base):
     cancel_requested_at: Mapped[datetime | None] = mapped_column(_utc_dt())
     # Where a resumed job picks up (its kind reads it: e.g. the solver's state).
     checkpoint: Mapped[bytes | None] = mapped_column(LargeBinary)
+    # A queued job is not claimed before this instant (a retry waiting out its backoff).
+    not_before: Mapped[datetime | None] = mapped_column(_utc_dt())
 
 
 class DetailedRun(Base):
@@ -321,3 +323,46 @@ class DetailedRun(Base):
     # Arrays as lists (z_m, zeta_m, sigma_r_m, reference_modulation, ez_v_m, ...).
     result: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
     created_at: Mapped[datetime] = mapped_column(_utc_dt())
+
+
+class AlertTarget(Base):
+    """Where a campaign's alerts go: an HTTP(S) URL that receives a JSON body for every stored
+    shot of one of ``statuses`` or carrying one of the rule codes ``flags``."""
+
+    __tablename__ = "alert_targets"
+    # Ids are never reused (SQLite would hand a deleted target's id to the next one, and a
+    # delivery queued for the deleted target would reach the new one).
+    __table_args__ = {"sqlite_autoincrement": True}
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    campaign_id: Mapped[int] = mapped_column(ForeignKey("campaigns.id", ondelete="CASCADE"), index=True)
+    url: Mapped[str] = mapped_column(Text)
+    statuses: Mapped[list[str]] = mapped_column(JSON, default=list)
+    flags: Mapped[list[str]] = mapped_column(JSON, default=list)
+    created_at: Mapped[datetime] = mapped_column(_utc_dt())
+    created_by: Mapped[str] = mapped_column(String(200), default="")
+
+
+class AlertDelivery(Base):
+    """One attempt to deliver one alert (a shot to a target): what the receiver answered.
+
+    The target's URL is copied, so the log still reads after the target is deleted."""
+
+    __tablename__ = "alert_deliveries"
+    __table_args__ = (Index("ix_alert_deliveries_campaign_id", "campaign_id", "id"),)
+
+    id: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)
+    campaign_id: Mapped[int] = mapped_column(ForeignKey("campaigns.id", ondelete="CASCADE"))
+    target_id: Mapped[int | None] = mapped_column(ForeignKey("alert_targets.id", ondelete="SET NULL"))
+    target_url: Mapped[str] = mapped_column(Text)
+    job_id: Mapped[str | None] = mapped_column(String(36))
+    shot_id: Mapped[str] = mapped_column(String(128))
+    shot_revision: Mapped[int] = mapped_column(Integer, default=1)
+    attempt: Mapped[int] = mapped_column(Integer, default=1)
+    attempted_at: Mapped[datetime] = mapped_column(_utc_dt())
+    # The receiver's HTTP status, or None when no answer came (error says why).
+    status_code: Mapped[int | None] = mapped_column(Integer)
+    error: Mapped[str] = mapped_column(Text, default="")
+    # delivered | retrying | failed | skipped
+    outcome: Mapped[str] = mapped_column(String(16))
+    next_attempt_at: Mapped[datetime | None] = mapped_column(_utc_dt())

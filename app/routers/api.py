@@ -34,7 +34,7 @@ from app.schemas import (
     TokenList,
     TokenOut,
 )
-from app.services import administration, health, metrics
+from app.services import administration, alerts, health, metrics
 from app.services import campaigns as campaign_service
 from app.services import jobs as job_service
 from app.services import shots as shot_service
@@ -150,7 +150,15 @@ def post_shot(
     settings: Annotated[Settings, Depends(get_settings)],
 ) -> dict[str, Any]:
     """Store and evaluate one shot: 201 when new, 200 when the identical shot is already stored."""
-    result = ingest_shots(session, slug, [payload], who.actor, batch=False, max_future=settings.max_future)
+    result = ingest_shots(
+        session,
+        slug,
+        [payload],
+        who.actor,
+        batch=False,
+        max_future=settings.max_future,
+        alert_policy=alerts.AlertPolicy.from_settings(settings),
+    )
     [item] = result.items
     if item.outcome != "created":
         response.status_code = 200
@@ -171,7 +179,15 @@ def post_batch(
     """All or nothing: 422 lists every failing shot index and field; 409 on a conflicting replay."""
     if len(batch.shots) > settings.max_batch_shots:
         raise InvalidInput([("shots", f"at most {settings.max_batch_shots} shots per batch, got {len(batch.shots)}")])
-    result = ingest_shots(session, slug, batch.shots, who.actor, batch=True, max_future=settings.max_future)
+    result = ingest_shots(
+        session,
+        slug,
+        batch.shots,
+        who.actor,
+        batch=True,
+        max_future=settings.max_future,
+        alert_policy=alerts.AlertPolicy.from_settings(settings),
+    )
     created = result.count("created")
     if created == 0:
         response.status_code = 200
@@ -236,7 +252,16 @@ def put_shot(
     reason: Annotated[str, Query(max_length=2000, description="why the shot is corrected")] = "",
 ) -> dict[str, Any]:
     """Store a correction as a new revision (re-evaluated); an identical body changes nothing."""
-    correct_shot(session, slug, shot_id, payload, who.actor, reason, max_future=settings.max_future)
+    correct_shot(
+        session,
+        slug,
+        shot_id,
+        payload,
+        who.actor,
+        reason,
+        max_future=settings.max_future,
+        alert_policy=alerts.AlertPolicy.from_settings(settings),
+    )
     return shot_service.shot_detail(session, slug, shot_id)
 
 

@@ -41,7 +41,7 @@ from app.services import administration, auth
 from app.services import jobs as job_service
 from app.services.auth import TokenInfo
 from app.services.campaigns import Campaign, find_campaign
-from app.services.dashboard import overview, settings_form, shot_page, table
+from app.services.dashboard import alert_panel, overview, settings_form, shot_page, table
 from app.services.detailed_runs import lifecycle as detailed_runs
 from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
 
@@ -474,11 +474,30 @@ def settings_page(request: Request, campaign: PageCampaign, session: DB, job: st
         return refused
     form = settings_form.settings_form(session, campaign)
     job_id = job if job and _JOB_ID.fullmatch(job) else form.latest_job_id
-    return render(
-        request,
-        "settings.html",
-        {"campaign": campaign, "form": form, "errors": {}, "saved": False, "job_id": job_id, "active": "settings"},
-    )
+    return _settings_page(request, session, campaign, form, job_id=job_id)
+
+
+def _settings_page(
+    request: Request,
+    session: DB,
+    campaign: Campaign,
+    form: settings_form.SettingsForm,
+    *,
+    errors: dict[str, str] | None = None,
+    job_id: str | None = None,
+    alerts: alert_panel.AlertPanel | None = None,
+    status_code: int = 200,
+) -> Response:
+    context = {
+        "campaign": campaign,
+        "form": form,
+        "errors": errors or {},
+        "saved": False,
+        "job_id": job_id,
+        "alerts": alerts or alert_panel.alert_panel(session, campaign),
+        "active": "settings",
+    }
+    return render(request, "settings.html", context, status_code)
 
 
 @router.post("/campaigns/{slug}/settings")
@@ -493,22 +512,44 @@ async def settings_save(request: Request, campaign: PageCampaign, session: DB) -
     submitted = {k: v for k, v in form.items() if isinstance(v, str) and k != CSRF_FIELD}
     outcome = settings_form.save_settings(session, campaign, submitted, request.state.principal.actor)
     if outcome.errors:
-        return render(
-            request,
-            "settings.html",
-            {
-                "campaign": campaign,
-                "form": outcome.form,
-                "errors": outcome.errors,
-                "saved": False,
-                "job_id": None,
-                "active": "settings",
-            },
-            422,
-        )
+        return _settings_page(request, session, campaign, outcome.form, errors=outcome.errors, status_code=422)
     return RedirectResponse(
         f"/campaigns/{quote(campaign.slug)}/settings?job={quote(outcome.job_id or '')}", status_code=303
     )
+
+
+@router.post("/campaigns/{slug}/settings/webhooks")
+async def settings_add_webhook(request: Request, campaign: PageCampaign, session: DB) -> Response:
+    form = await request.form()
+    refused = _admins_only(request, "Adding alert targets") or _refused_form(request, form.get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    submitted = alert_panel.TargetForm(
+        url=str(form.get("url") or ""),
+        statuses=[v for v in form.getlist("statuses") if isinstance(v, str)],
+        flags=[v for v in form.getlist("flags") if isinstance(v, str)],
+    )
+    errors = alert_panel.add_from_form(session, campaign, submitted, request.state.principal.actor)
+    if errors:
+        panel = alert_panel.alert_panel(session, campaign, submitted, errors)
+        form_view = settings_form.settings_form(session, campaign)
+        return _settings_page(request, session, campaign, form_view, alerts=panel, status_code=422)
+    return RedirectResponse(f"/campaigns/{quote(campaign.slug)}/settings#alerts", status_code=303)
+
+
+@router.post("/campaigns/{slug}/settings/webhooks/{webhook_id}/delete")
+async def settings_delete_webhook(
+    webhook_id: Annotated[int, Path(ge=1, le=2**31 - 1)], request: Request, campaign: PageCampaign, session: DB
+) -> Response:
+    form = await request.form()
+    refused = _admins_only(request, "Deleting alert targets") or _refused_form(request, form.get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    try:
+        alert_panel.delete_from_form(session, campaign, webhook_id, request.state.principal.actor)
+    except NotFound as exc:
+        raise PageNotFound(exc.what.capitalize()) from None
+    return RedirectResponse(f"/campaigns/{quote(campaign.slug)}/settings#alerts", status_code=303)
 
 
 # ------------------------------------------------------------------------ administration

@@ -8,11 +8,12 @@ name, and queued with ``queue_job(session, NAME, campaign_id, params)``.
 
 from __future__ import annotations
 
-from app.services import reevaluation
+from app.services import alerts, reevaluation
 from app.services.detailed_runs import lifecycle as detailed_runs
 from app.services.jobs import JobRun
 
 KINDS: dict[str, JobRun] = {
     reevaluation.KIND: reevaluation.run_job,
     detailed_runs.RUN_KIND: detailed_runs.run_detailed_job,
+    alerts.KIND: alerts.run_delivery,
 }

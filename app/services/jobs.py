@@ -11,6 +11,9 @@
   a job whose worker died is claimed again, with its checkpoint and its progress so far.
 - ``cancel_job``: a queued job is cancelled at once; a running one is asked to stop and
   its worker ends it at the next progress report or heartbeat.
+- ``RetryLater``: a job that should run again after a pause (an alert delivery whose
+  receiver did not answer) raises it; the worker puts the job back in the queue, claimable
+  from the given instant (``jobs.not_before``).
 """
 
 from __future__ import annotations
@@ -19,6 +22,7 @@ import threading
 import uuid
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
+from datetime import datetime
 from typing import Any
 
 from sqlalchemy.orm import Session, sessionmaker
@@ -44,6 +48,21 @@ class JobLimits:
 
 
 NO_LIMITS = JobLimits()
+
+# Kinds the queue limits neither count nor refuse: small jobs the service queues by itself,
+# one per alert (``app.services.alerts``), which must never hold up ingest nor crowd a
+# person's detailed runs out of the campaign's queue.
+UNCOUNTED_KINDS: frozenset[str] = frozenset({"alert_delivery"})
+
+
+class RetryLater(Exception):
+    """Raised by a running job to be run again later: its worker puts it back in the queue,
+    claimable from ``after`` (its attempts so far are kept)."""
+
+    def __init__(self, after: datetime, message: str) -> None:
+        super().__init__(message)
+        self.after = after
+        self.message = message
 
 
 class JobStopped(Exception):
@@ -72,6 +91,7 @@ class JobContext:
     checkpoint: bytes | None
     report: Callable[[dict[str, Any]], None]  # writes job fields while this worker holds the lease
     checkpoint_interval_s: float = 10.0  # how often a long job should keep a checkpoint
+    clock: Callable[[], datetime] = job_store.now  # the worker's clock (tests move it on)
     stop: threading.Event = field(default_factory=threading.Event)
     stop_reason: list[str] = field(default_factory=list)
 
@@ -106,17 +126,21 @@ def queue_job(
 ) -> Job:
     """Insert a queued job row in the caller's transaction (a worker starts it once it commits).
 
-    TooManyJobs when the campaign or the submitting token already has ``limits`` unfinished jobs.
+    TooManyJobs when the campaign or the submitting token already has ``limits`` unfinished jobs
+    (jobs of ``UNCOUNTED_KINDS`` are neither counted nor refused).
     """
     token_id = submitter.token_id if submitter is not None else None
+    if kind in UNCOUNTED_KINDS:
+        limits = NO_LIMITS
+    uncounted = sorted(UNCOUNTED_KINDS)
     if limits.per_campaign is not None and campaign_id is not None:
-        if job_store.count_unfinished(session, campaign_id=campaign_id) >= limits.per_campaign:
+        if job_store.count_unfinished(session, campaign_id=campaign_id, except_kinds=uncounted) >= limits.per_campaign:
             raise TooManyJobs(
                 f"the campaign already has {limits.per_campaign} queued or running jobs; "
                 "wait for one to finish or cancel one"
             )
     if limits.per_token is not None and token_id is not None:
-        if job_store.count_unfinished(session, token_id=token_id) >= limits.per_token:
+        if job_store.count_unfinished(session, token_id=token_id, except_kinds=uncounted) >= limits.per_token:
             raise TooManyJobs(
                 f"this token already has {limits.per_token} queued or running jobs; "
                 "wait for one to finish or cancel one"

@@ -27,16 +27,16 @@ import sys
 import threading
 import time
 import uuid
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
-from datetime import timedelta
+from datetime import datetime, timedelta
 from types import FrameType
 from typing import Any
 
 from sqlalchemy.orm import Session, sessionmaker
 
 from app.database import begin_write, run_write
-from app.services.jobs import JobContext, JobRun, JobStopped
+from app.services.jobs import JobContext, JobRun, JobStopped, RetryLater
 from app.store import jobs as job_store
 
 log = logging.getLogger(__name__)
@@ -77,8 +77,10 @@ class Worker:
         heartbeat_s: float = DEFAULT_HEARTBEAT_S,
         poll_s: float = DEFAULT_POLL_S,
         checkpoint_s: float = DEFAULT_CHECKPOINT_S,
+        clock: Callable[[], datetime] = job_store.now,
     ) -> None:
         self.factory = factory
+        self.clock = clock  # what "now" is for claims and retries (tests move it on)
         self.kinds = dict(kinds)
         self.owner = name or f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
         self.lease = lease
@@ -103,11 +105,11 @@ class Worker:
         """Take the lease of the next claimable job, or None when there is none (an idle
         worker only reads: it takes the write lock when there is something to claim)."""
         with self.factory() as session:
-            if not job_store.anything_to_claim(session, job_store.now(), list(self.kinds)):
+            if not job_store.anything_to_claim(session, self.clock(), list(self.kinds)):
                 return None
 
         def work(session: Session) -> _Claim | None:
-            now = job_store.now()
+            now = self.clock()
             job_store.end_abandoned_cancellations(session, now)
             job = job_store.claim_next(session, self.owner, now, now + self.lease, list(self.kinds))
             if job is None:
@@ -193,6 +195,21 @@ class Worker:
             )
         )
 
+    def _retry_later(self, job_id: str, again: RetryLater) -> None:
+        """Put a job back in the queue, claimable from ``again.after`` (a retry's backoff)."""
+        self._write(
+            lambda session: job_store.update_owned(
+                session,
+                job_id,
+                self.owner,
+                state="queued",
+                lease_owner=None,
+                lease_expires_at=None,
+                not_before=again.after,
+                message=again.message[:2000],
+            )
+        )
+
     def run_one(self) -> bool:
         """Claim one job and run it to its end; False when the queue had nothing claimable."""
         claim = self.claim()
@@ -210,6 +227,7 @@ class Worker:
             checkpoint=claim.checkpoint,
             report=lambda values: self._report(ctx, values),
             checkpoint_interval_s=self.checkpoint_s,
+            clock=self.clock,
         )
         finished = threading.Event()
         beat = threading.Thread(target=self._heartbeat, args=(ctx, finished), name="job-heartbeat", daemon=True)
@@ -223,6 +241,8 @@ class Worker:
             elif stopped.reason == "worker stopping":
                 self._release(claim.job_id)
             # "lease lost": another worker holds the job now; nothing of ours to write.
+        except RetryLater as again:
+            self._retry_later(claim.job_id, again)
         except WorkerStopping:
             self._in_job = False
             self._release(claim.job_id)

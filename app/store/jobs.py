@@ -51,9 +51,17 @@ def unfinished_job(session: Session, kind: str, campaign_id: int) -> Job | None:
     )
 
 
-def count_unfinished(session: Session, *, campaign_id: int | None = None, token_id: int | None = None) -> int:
-    """Queued or running jobs of a campaign, or submitted by a token."""
+def count_unfinished(
+    session: Session,
+    *,
+    campaign_id: int | None = None,
+    token_id: int | None = None,
+    except_kinds: Sequence[str] = (),
+) -> int:
+    """Queued or running jobs of a campaign, or submitted by a token (not counting ``except_kinds``)."""
     stmt = select(func.count()).select_from(Job).where(Job.state.in_(UNFINISHED), Job.cancel_requested_at.is_(None))
+    if except_kinds:
+        stmt = stmt.where(Job.kind.not_in(list(except_kinds)))
     if campaign_id is not None:
         stmt = stmt.where(Job.campaign_id == campaign_id)
     if token_id is not None:
@@ -75,8 +83,9 @@ def set_job(session: Session, job_id: str, **values: Any) -> None:
 
 
 def _claimable(now: datetime, kinds: Sequence[str]):
+    waited = or_(Job.not_before.is_(None), Job.not_before <= now)  # a retry's backoff is over
     return (
-        or_(Job.state == "queued", (Job.state == "running") & (Job.lease_expires_at < now)),
+        or_((Job.state == "queued") & waited, (Job.state == "running") & (Job.lease_expires_at < now)),
         Job.kind.in_(list(kinds)),
     )
 
@@ -87,8 +96,9 @@ def anything_to_claim(session: Session, now: datetime, kinds: Sequence[str]) -> 
 
 
 def claim_next(session: Session, owner: str, now: datetime, lease_until: datetime, kinds: Sequence[str]) -> Job | None:
-    """Take the lease of the oldest claimable job: queued, or running with a lapsed lease
-    (its worker died), not asked to cancel, of a kind this worker knows. Caller commits."""
+    """Take the lease of the oldest claimable job: queued (and past its ``not_before``), or
+    running with a lapsed lease (its worker died), not asked to cancel, of a kind this worker
+    knows. Caller commits."""
     candidate = session.scalar(
         select(Job)
         .where(*_claimable(now, kinds), Job.cancel_requested_at.is_(None))

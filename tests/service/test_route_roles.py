@@ -40,6 +40,10 @@ API_ROUTES = {
     ("GET", "/api/v1/campaigns/{slug}/shots/{shot_id}/detailed-runs"): "viewer",
     ("GET", "/api/v1/campaigns/{slug}/shots/{shot_id}/detailed-runs/{run_id}"): "viewer",
     ("GET", "/api/v1/campaigns/{slug}/shots/{shot_id}/detailed-runs/{run_id}/figures"): "viewer",
+    ("POST", "/api/v1/campaigns/{slug}/webhooks"): "admin",
+    ("GET", "/api/v1/campaigns/{slug}/webhooks"): "admin",
+    ("GET", "/api/v1/campaigns/{slug}/webhooks/deliveries"): "admin",
+    ("DELETE", "/api/v1/campaigns/{slug}/webhooks/{webhook_id}"): "admin",
     ("GET", "/api/v1/healthz"): "public",
     ("GET", "/healthz"): "public",
     ("GET", "/api/v1/metrics"): "viewer",
@@ -69,6 +73,8 @@ PAGE_ROUTES = {
     ("GET", "/campaigns/{slug}/calibration"): "viewer",
     ("GET", "/campaigns/{slug}/settings"): "admin",
     ("POST", "/campaigns/{slug}/settings"): "admin",
+    ("POST", "/campaigns/{slug}/settings/webhooks"): "admin",
+    ("POST", "/campaigns/{slug}/settings/webhooks/{webhook_id}/delete"): "admin",
     ("GET", "/admin"): "admin",
     ("POST", "/admin/tokens"): "admin",
     ("POST", "/admin/tokens/{token_id}/revoke"): "admin",
@@ -80,6 +86,7 @@ FILLED = {
     "{job_id}": "00000000-0000-0000-0000-000000000000",
     "{run_id}": "1",
     "{token_id}": "1",
+    "{webhook_id}": "1",
     "{name}": "timeline",
 }
 

@@ -8,15 +8,38 @@ processes use the ``job_worker`` fixture (tests/conftest.py) and wait on the API
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
+from datetime import datetime
 from typing import Any
 
 
-def run_queued_jobs(app) -> int:
-    """Run every queued job of the app's database in this thread; returns how many ran."""
+def run_queued_jobs(app, clock: Callable[[], datetime] | None = None) -> int:
+    """Run every claimable job of the app's database in this thread; returns how many ran.
+
+    ``clock`` is the worker's "now" (a test moves it on to see a retry's backoff pass)."""
     from app.services.job_kinds import KINDS
     from app.services.workers import Worker
 
-    return Worker(app.state.session_factory, KINDS, name="tests-drain").drain()
+    if clock is None:
+        return Worker(app.state.session_factory, KINDS, name="tests-drain").drain()
+    return Worker(app.state.session_factory, KINDS, name="tests-drain", clock=clock).drain()
+
+
+class TestClock:
+    """A clock that stands still until a test moves it (``advance_to``); starts at the real now."""
+
+    __test__ = False  # not a test class
+
+    def __init__(self) -> None:
+        from app.store.jobs import now
+
+        self.now = now()
+
+    def __call__(self) -> datetime:
+        return self.now
+
+    def advance_to(self, moment: datetime) -> None:
+        self.now = max(self.now, moment)
 
 
 def wait_for_job(client, job_id: str, headers: dict[str, str], timeout_s: float = 60.0) -> dict[str, Any]:

@@ -27,9 +27,9 @@ import model
 from app.database import begin_write, run_write
 from app.errors import FieldProblem, InvalidInput, NotFound, ShotConflict
 from app.plain import float_list
-from app.services import metrics
+from app.services import alerts, metrics
 from app.services.campaigns import campaign_lock, require_campaign
-from app.services.ingest.evaluation import as_rows, evaluate_inputs, evaluation_columns, evaluation_rows
+from app.services.ingest.evaluation import as_rows, evaluate_inputs, evaluation_columns
 from app.services.ingest.payloads import (
     DEFAULT_MAX_FUTURE,
     PreparedBatch,
@@ -153,19 +153,28 @@ def ingest_shots(
     *,
     batch: bool = True,
     max_future: timedelta = DEFAULT_MAX_FUTURE,
+    alert_policy: alerts.AlertPolicy | None = None,
 ) -> IngestResult:
     """Store and evaluate shots all-or-nothing, committed before returning.
 
     ``batch`` only changes how failing fields are named (``shots.<i>.<path>`` or ``<path>``);
-    ``max_future`` is how far past the server's clock a ``taken_at`` may lie.
+    ``max_future`` is how far past the server's clock a ``taken_at`` may lie; with an
+    ``alert_policy`` (the API's requests), new shots matching the campaign's alert targets
+    queue their deliveries in the same transaction (backlog imports and the demo pass none).
     Raises NotFound (campaign), InvalidInput (invalid shots), ShotConflict (conflicting payloads).
     """
     with cyclic_gc_paused():
-        return _ingest(session, campaign_slug, payloads, actor, batch, max_future)
+        return _ingest(session, campaign_slug, payloads, actor, batch, max_future, alert_policy)
 
 
 def _ingest(
-    session: Session, campaign_slug: str, payloads: Sequence[Any], actor: str, batch: bool, max_future: timedelta
+    session: Session,
+    campaign_slug: str,
+    payloads: Sequence[Any],
+    actor: str,
+    batch: bool,
+    max_future: timedelta,
+    alert_policy: alerts.AlertPolicy | None,
 ) -> IngestResult:
     prepared = prepare_all(payloads, batch, max_future=max_future)
 
@@ -223,6 +232,11 @@ def _ingest(
             )
             shot_store.insert_evaluations(session, evals)
             shot_store.insert_flags(session, flags)
+            if alert_policy is not None and (targets := alerts.campaign_targets(session, campaign.id)):
+                shots = alerts.shots_from_columns(
+                    [s.shot_id for s in new], [1] * len(new), [s.taken_at for s in new], pks, evals["status"], flags
+                )
+                alerts.queue_alerts(session, campaign, targets, shots, "shot.stored", alert_policy)
             result.items += [
                 ItemOutcome(s.index, s.shot_id, "created", pk, status)
                 for s, pk, status in zip(new, pks, evals["status"], strict=True)
@@ -266,10 +280,13 @@ def correct_shot(
     reason: str = "",
     *,
     max_future: timedelta = DEFAULT_MAX_FUTURE,
+    alert_policy: alerts.AlertPolicy | None = None,
 ) -> tuple[Shot, bool]:
     """Store a corrected shot as a new revision and re-evaluate it; (shot, changed).
 
-    Earlier revisions stay in shot_revisions; an identical payload changes nothing.
+    Earlier revisions stay in shot_revisions; an identical payload changes nothing. With an
+    ``alert_policy``, a new revision matching an alert target queues its delivery (event
+    ``shot.corrected``) in the same transaction.
     """
     prepared = prepare_all([payload], batch=False, max_future=max_future)
     [shot] = prepared.shots
@@ -296,10 +313,15 @@ def correct_shot(
         shot_store.update_shot(session, current.id, values)
         shot_store.insert_revisions(session, revision_columns([current.id], [shot], revision, reason, actor, now))
         table = evaluate_inputs(prepared.inputs, campaign.model_settings or {}, "single")
-        evals, flags = evaluation_rows(
+        eval_columns, flag_columns = evaluation_columns(
             table, [current.id], campaign.id, campaign.settings_version, now, [shot.defaulted]
         )
-        shot_store.replace_evaluations(session, evals, flags)
+        shot_store.replace_evaluations(session, as_rows(eval_columns), as_rows(flag_columns))
+        if alert_policy is not None and (targets := alerts.campaign_targets(session, campaign.id)):
+            shots = alerts.shots_from_columns(
+                [shot_id], [revision], [shot.taken_at], [current.id], eval_columns["status"], flag_columns
+            )
+            alerts.queue_alerts(session, campaign, targets, shots, "shot.corrected", alert_policy)
         audit.record(
             session,
             actor,

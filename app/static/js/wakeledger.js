@@ -1,4 +1,4 @@
-/* wakeledger dashboard script: charts, regime map, live updates, job progress.
+/* wakeledger dashboard script: charts, regime map, live updates (and the opt-in notice of outside shots), job progress.
  * Data arrives as JSON (application/json script blocks or same-origin feeds); no user
  * text is ever run as code, and text is inserted with textContent only. */
 (function () {
@@ -290,6 +290,73 @@
     }
   }
 
+  /* ------------------------------------- the overview's notice of outside shots (opt-in) */
+
+  var outsideNotice = null; // set up by setupOutsideNotice on the overview
+
+  function setupOutsideNotice() {
+    var box = document.getElementById("outside-alert");
+    if (!box) return;
+    var mode = document.getElementById("outside-alert-mode");
+    var KEY = "wakeledger.outsideNotice";
+    var audio = null;
+    var canNotify = typeof window.Notification === "function";
+
+    function say(text) { if (mode) mode.textContent = text; }
+    function describe() {
+      if (!box.checked) { say(""); return; }
+      say(canNotify && Notification.permission === "granted" ? "(desktop notice)" : "(a short beep; desktop notices not permitted)");
+    }
+    function prepareSound() {
+      var Ctx = window.AudioContext || window.webkitAudioContext;
+      if (!audio && Ctx) audio = new Ctx(); // made in the click, so the browser lets it sound
+      if (audio && audio.state === "suspended") audio.resume();
+    }
+    function beep() {
+      if (!audio) return;
+      var osc = audio.createOscillator(), gain = audio.createGain(), t = audio.currentTime;
+      osc.frequency.value = 880;
+      gain.gain.setValueAtTime(0.0001, t);
+      gain.gain.exponentialRampToValueAtTime(0.2, t + 0.02);
+      gain.gain.exponentialRampToValueAtTime(0.0001, t + 0.35);
+      osc.connect(gain); gain.connect(audio.destination);
+      osc.start(t); osc.stop(t + 0.4);
+    }
+    function switched() {
+      try { window.localStorage.setItem(KEY, box.checked ? "on" : "off"); } catch (e) { /* private mode */ }
+      if (box.checked) {
+        prepareSound();
+        if (canNotify && Notification.permission === "default") {
+          var asked = Notification.requestPermission(describe);
+          if (asked && asked.then) asked.then(describe);
+        }
+      }
+      describe();
+    }
+    try { box.checked = window.localStorage.getItem(KEY) === "on"; } catch (e) { box.checked = false; }
+    box.addEventListener("change", switched);
+    describe();
+
+    outsideNotice = {
+      on: function () { return box.checked; },
+      shots: function (shots) {
+        var outside = shots.filter(function (s) { return s.status === "outside"; });
+        if (!box.checked || !outside.length) return;
+        var last = outside[outside.length - 1];
+        var codes = last.flags.map(function (f) { return f.code; }).join(", ");
+        box.dataset.noticed = String(Number(box.dataset.noticed || 0) + outside.length); // for the browser tests
+        if (canNotify && Notification.permission === "granted") {
+          var title = outside.length === 1 ? "Outside shot " + last.shot_id : outside.length + " outside shots, the last " + last.shot_id;
+          var notice = new Notification(title, { body: codes, tag: "wakeledger-outside" });
+          notice.onclick = function () { window.focus(); window.location.href = last.url; };
+        } else {
+          prepareSound();
+          beep();
+        }
+      },
+    };
+  }
+
   function setupLive() {
     var cfg = readJson("live-config");
     if (!cfg || !cfg.url) return;
@@ -304,7 +371,8 @@
     }
 
     function poll() {
-      if (busy || document.hidden) return;
+      // A hidden page stops polling, unless it is to give notice of outside shots.
+      if (busy || (document.hidden && !(outsideNotice && outsideNotice.on()))) return;
       busy = true;
       fetch(cfg.url + "?since=" + cursor + extraFields(), { credentials: "same-origin", headers: { Accept: "application/json" } })
         .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); return r.json(); })
@@ -315,6 +383,7 @@
           updateCounts(data);
           if (data.shots.length) {
             if (cfg.page === "overview") extendCharts(data.shots);
+            if (cfg.page === "overview" && outsideNotice) outsideNotice.shots(data.shots);
             if (cfg.page === "table") updateTable(cfg, data.shots);
           }
         })
@@ -368,6 +437,7 @@
     drawEmbeddedCharts();
     drawFeedCharts();
     setupRegime();
+    setupOutsideNotice();
     setupLive();
     setupJob();
   }
