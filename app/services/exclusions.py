@@ -97,15 +97,9 @@ def _change(session: Session, campaign_slug: str, shot_id: str, actor: str, reas
             )
         now = datetime.now(UTC)
         if reason is None:
+            was = {"was_excluded_because": shot.excluded_reason, "was_excluded_by": shot.excluded_by}
             exclusion_store.set_exclusion(session, shot.id, None, None, None)
-            audit.record(
-                session,
-                actor,
-                "shot.restore",
-                campaign_slug=campaign.slug,
-                target=shot_id,
-                detail={"was_excluded_because": shot.excluded_reason, "was_excluded_by": shot.excluded_by},
-            )
+            audit.record(session, actor, "shot.restore", campaign_slug=campaign.slug, target=shot_id, detail=was)
         else:
             exclusion_store.set_exclusion(session, shot.id, now, reason, actor)
             audit.record(session, actor, "shot.exclude", campaign_slug=campaign.slug, target=shot_id, detail={"reason": reason})
