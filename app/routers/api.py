@@ -36,9 +36,8 @@ from app.schemas import (
     TokenList,
     TokenOut,
 )
-from app.services import administration, health, metrics
+from app.services import administration, exclusions, health, metrics
 from app.services import campaigns as campaign_service
-from app.services import exclusions
 from app.services import jobs as job_service
 from app.services import shots as shot_service
 from app.services.campaign_settings import change_settings

@@ -469,9 +469,7 @@ def shot_detail(shot_id: str, request: Request, campaign: PageCampaign, session:
     return _shot_page(request, campaign, session, shot_id)
 
 
-async def _exclusion_form(
-    request: Request, campaign: Campaign, session: DB, shot_id: str, exclude: bool
-) -> Response:
+async def _exclusion_form(request: Request, campaign: Campaign, session: DB, shot_id: str, exclude: bool) -> Response:
     """The shot page's exclude and restore forms (ingest sessions): the change, then back to the page."""
     form = await request.form()
     what = "Excluding shots" if exclude else "Restoring excluded shots"

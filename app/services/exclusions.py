@@ -102,7 +102,9 @@ def _change(session: Session, campaign_slug: str, shot_id: str, actor: str, reas
             audit.record(session, actor, "shot.restore", campaign_slug=campaign.slug, target=shot_id, detail=was)
         else:
             exclusion_store.set_exclusion(session, shot.id, now, reason, actor)
-            audit.record(session, actor, "shot.exclude", campaign_slug=campaign.slug, target=shot_id, detail={"reason": reason})
+            audit.record(
+                session, actor, "shot.exclude", campaign_slug=campaign.slug, target=shot_id, detail={"reason": reason}
+            )
         session.expire(shot)
         return _answer(shot, True)
 

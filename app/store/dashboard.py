@@ -288,7 +288,10 @@ class ShotFilter:
     excluded: str = "omit"  # app.store.exclusions.EXCLUDED_MODES
 
     def conditions(self, campaign_id: int) -> list[ColumnElement[bool]]:
-        out: list[ColumnElement[bool]] = [Shot.campaign_id == campaign_id, *counted(Shot.id, campaign_id, self.excluded)]
+        out: list[ColumnElement[bool]] = [
+            Shot.campaign_id == campaign_id,
+            *counted(Shot.id, campaign_id, self.excluded),
+        ]
         if self.status:
             out.append(Evaluation.status == self.status)
         if self.flag_code:

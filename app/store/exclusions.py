@@ -15,7 +15,7 @@ from datetime import datetime
 from typing import Any, Literal
 
 from sqlalchemy import ColumnElement, Select, select, update
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import QueryableAttribute, Session
 
 from app.tables import Shot
 
@@ -32,7 +32,7 @@ def excluded_shot_pks(campaign_id: int | None = None) -> Select[Any]:
 
 
 def counted(
-    shot_pk: ColumnElement[Any], campaign_id: int | None = None, excluded: str = "omit"
+    shot_pk: ColumnElement[Any] | QueryableAttribute[Any], campaign_id: int | None = None, excluded: str = "omit"
 ) -> list[ColumnElement[bool]]:
     """The conditions (for ``.where(*...)``) that keep excluded shots out (``omit``), let
     them in (``include``: none) or keep only them (``only``); ``shot_pk`` is the shot key

@@ -31,9 +31,7 @@ def _points(figure) -> set[str]:
     return {i for t in figure["data"] if t.get("meta") for i in t.get("customdata") or []}
 
 
-def test_an_excluded_outside_shot_leaves_every_count_and_chart_of_the_overview(
-    seeded, db, client, admin_headers
-):
+def test_an_excluded_outside_shot_leaves_every_count_and_chart_of_the_overview(seeded, db, client, admin_headers):
     [junk, *_] = _outside_shot_ids(client, admin_headers)
     campaign = find_campaign(db, SLUG)
     flags_before = {f.code: f.total for f in figures.flag_code_counts(db, campaign)}
@@ -97,13 +95,13 @@ def test_the_shot_table_lists_excluded_shots_only_when_asked_and_marks_them(
     [junk, *_] = _outside_shot_ids(client, admin_headers)
     _exclude(client, admin_headers, junk, "test pulse")
     default = viewer_client.get(f"/campaigns/{SLUG}/shots").text
-    assert f"/shots/{junk}\"" not in default
+    assert f'/shots/{junk}"' not in default
     assert re.search(r'data-total="35"', default)
     shown = viewer_client.get(f"/campaigns/{SLUG}/shots", params={"excluded": "include"}).text
     assert re.search(r'data-total="36"', shown)
     assert 'class="excluded" title="excluded: test pulse"' in shown
     only = viewer_client.get(f"/campaigns/{SLUG}/shots", params={"excluded": "only"}).text
-    assert re.search(r'data-total="1"', only) and f"/shots/{junk}\"" in only
+    assert re.search(r'data-total="1"', only) and f'/shots/{junk}"' in only
     assert '<option value="only" selected>' in only
     # the CSV link keeps the choice
     assert "shots.csv?excluded=only" in only

@@ -182,7 +182,10 @@ def test_an_exclusion_without_a_usable_reason_is_a_422_naming_the_field_and_chan
 def test_excluding_or_restoring_an_unknown_shot_is_a_404(client, campaign, three_shots, ingest_headers):
     assert client.post(_exclusion(campaign, "no-such"), json={"reason": "x"}, headers=ingest_headers).status_code == 404
     assert client.delete(_exclusion(campaign, "no-such"), headers=ingest_headers).status_code == 404
-    assert client.post(_exclusion("no-campaign", "daq-001"), json={"reason": "x"}, headers=ingest_headers).status_code == 404
+    assert (
+        client.post(_exclusion("no-campaign", "daq-001"), json={"reason": "x"}, headers=ingest_headers).status_code
+        == 404
+    )
 
 
 def test_excluding_twice_with_the_same_reason_is_a_harmless_replay_and_with_another_reason_a_409(
@@ -199,7 +202,10 @@ def test_excluding_twice_with_the_same_reason_is_a_harmless_replay_and_with_anot
     # restoring a shot that is not excluded changes nothing (and is not audited)
     assert client.delete(url, headers=ingest_headers).status_code == 200
     assert client.delete(url, headers=ingest_headers).json()["excluded"] is False
-    actions = [e["action"] for e in client.get("/api/v1/audit", params={"action": "shot."}, headers=admin_headers).json()["items"]]
+    actions = [
+        e["action"]
+        for e in client.get("/api/v1/audit", params={"action": "shot."}, headers=admin_headers).json()["items"]
+    ]
     assert actions == ["shot.restore", "shot.exclude"]
 
 
@@ -266,7 +272,10 @@ def test_an_ingest_session_excludes_a_shot_from_its_page_and_the_page_shows_the_
     )
     assert response.status_code == 303
     assert 'id="excluded-banner"' not in _page(client, campaign, "test-pulse-003").text
-    actions = [e["action"] for e in client.get("/api/v1/audit", params={"action": "shot."}, headers=admin_headers).json()["items"]]
+    actions = [
+        e["action"]
+        for e in client.get("/api/v1/audit", params={"action": "shot."}, headers=admin_headers).json()["items"]
+    ]
     assert actions == ["shot.restore", "shot.exclude"]
 
 
