@@ -205,7 +205,7 @@ def list_shots(
     taken_to: Annotated[Instant | None, Query(alias="to", description="taken_at < to (ISO 8601)")] = None,
     seed_method: Annotated[list[str] | None, Query()] = None,
     excluded: Annotated[
-        Literal["omit", "include", "only"],
+        exclusions.ExcludedMode,
         Query(description="excluded shots: left out (omit, the default), listed with the others, or alone"),
     ] = "omit",
     order: Literal["asc", "desc"] = "asc",

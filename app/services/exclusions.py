@@ -26,7 +26,20 @@ from app.services.campaigns import campaign_lock, require_campaign
 from app.store import audit
 from app.store import exclusions as exclusion_store
 from app.store import shots as shot_store
-from app.store.exclusions import EXCLUDED_MODES
+from app.store.exclusions import EXCLUDED_MODES, ExcludedMode
+
+# The listing modes, re-exported for the routers (which do not import the store).
+__all__ = [
+    "EXCLUDED_MODES",
+    "MAX_REASON_CHARS",
+    "ExcludedMode",
+    "ExclusionOutcome",
+    "exclude_shot",
+    "excluded_mode",
+    "exclusion_reason",
+    "exclusion_state",
+    "restore_shot",
+]
 from app.tables import Shot
 from app.times import format_utc
 

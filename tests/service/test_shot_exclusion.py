@@ -83,6 +83,13 @@ def test_an_excluded_test_shot_leaves_the_counts_the_weekly_summary_and_the_csv_
         f"/api/v1/campaigns/{campaign}/summary", params={"week": WEEK, "format": "csv"}, headers=viewer_headers
     )
     assert "test-pulse-003" not in week_csv.text
+    week_html = client.get(
+        f"/api/v1/campaigns/{campaign}/summary", params={"week": WEEK, "format": "html"}, headers=viewer_headers
+    ).text
+    assert "test-pulse-003" not in week_html
+    assert "1 excluded shot of this week" in week_html
+    metrics = client.get("/metrics", headers=viewer_headers).text
+    assert 'wakeledger_shot_exclusions_total{action="exclude"}' in metrics
     # the shot table's CSV and the API list
     assert [r["shot_id"] for r in _csv_rows(client, campaign, viewer_headers)] == ["daq-002", "daq-001"]
     assert "excluded_reason" not in _csv_rows(client, campaign, viewer_headers)[0]
