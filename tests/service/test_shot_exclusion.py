@@ -294,6 +294,8 @@ def test_the_page_form_refuses_an_empty_reason_and_a_post_without_the_csrf_token
     empty = client.post(url, data={"csrf_token": csrf, "reason": "  "}, follow_redirects=False)
     assert empty.status_code == 422
     assert 'id="exclusion-errors"' in empty.text and "must not be empty" in empty.text
+    nul = client.post(url, data={"csrf_token": csrf, "reason": "junk\x00"}, follow_redirects=False)
+    assert nul.status_code == 422 and "control characters" in nul.text
     forged = client.post(url, data={"reason": "junk"}, follow_redirects=False)
     assert forged.status_code == 403
     assert client.get(f"{_shots(campaign)}/daq-001", headers=viewer_headers).json()["excluded"] is False
