@@ -374,20 +374,15 @@ def shot_table(request: Request, campaign: PageCampaign, session: DB) -> Respons
         slug,
         page.live_cursor if page else 0,
         "table",
-        # New rows only belong at the top of the default view (newest first, no filter); a
-        # new shot is never an excluded one.
-        prepend=bool(page)
-        and page is not None
-        and page.page == 1
-        and query.sort == "taken_at"
-        and query.descending
-        and query.filter.excluded != "only",
+        # New rows only belong at the top of the default view (newest first, no filter).
+        prepend=bool(page) and page is not None and page.page == 1 and query.sort == "taken_at" and query.descending,
         filter={
             "status": query.filter.status,
             "flag": query.filter.flag_code,
             "seed": query.filter.seed_method,
             "text": query.filter.text,
             "bounded": bool(query.filter.taken_to or query.filter.taken_from),
+            "only_excluded": query.filter.excluded == "only",  # a new shot is never an excluded one
         },
     )
     return render(
