@@ -117,7 +117,7 @@ class CampaignOut(BaseModel):
     effective_settings: dict[str, Any] = Field(description="defaults with the overrides applied")
     settings_version: int
     created_at: datetime
-    shot_count: int | None = None
+    shot_count: int | None = Field(default=None, description="stored shots, excluded shots left out")
 
 
 class CampaignList(BaseModel):
@@ -167,6 +167,24 @@ class BatchOut(BaseModel):
 class ShotPage(BaseModel):
     items: list[dict[str, Any]]
     next_cursor: str | None
+
+
+class ExclusionIn(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    reason: str = Field(
+        description="why the shot is left out of counts and summaries (required; one line, at most 500 characters)"
+    )
+
+
+class ExclusionOut(BaseModel):
+    """A shot's exclusion state: an excluded shot is kept and shown, counted nowhere."""
+
+    shot_id: str
+    excluded: bool
+    excluded_at: datetime | None
+    excluded_reason: str | None
+    excluded_by: str | None
 
 
 class RevisionOut(BaseModel):

@@ -25,6 +25,7 @@ from sqlalchemy import (
     Text,
     TypeDecorator,
     UniqueConstraint,
+    text,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
 
@@ -87,6 +88,14 @@ class Shot(Base):
     __table_args__ = (
         UniqueConstraint("campaign_id", "shot_id", name="uq_shots_campaign_shot_id"),
         Index("ix_shots_campaign_taken_at", "campaign_id", "taken_at", "id"),
+        # Excluded shots are few: this partial index finds them without reading the others.
+        Index(
+            "ix_shots_excluded",
+            "campaign_id",
+            "id",
+            sqlite_where=text("excluded_at IS NOT NULL"),
+            postgresql_where=text("excluded_at IS NOT NULL"),
+        ),
     )
 
     id: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)
@@ -102,6 +111,11 @@ class Shot(Base):
     payload_sha256: Mapped[str] = mapped_column(String(64))
     created_at: Mapped[datetime] = mapped_column(_utc_dt())
     updated_at: Mapped[datetime] = mapped_column(_utc_dt())
+    # Set while the shot is excluded (a test or junk shot): kept and shown, left out of every
+    # count, chart and summary (app.store.exclusions). Not a revision of the conditions.
+    excluded_at: Mapped[datetime | None] = mapped_column(_utc_dt())
+    excluded_reason: Mapped[str | None] = mapped_column(Text)
+    excluded_by: Mapped[str | None] = mapped_column(String(200))
 
     driver_species: Mapped[str] = mapped_column(String(16))
     driver_mass_amu: Mapped[float | None] = mapped_column(Float)

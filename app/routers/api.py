@@ -23,6 +23,8 @@ from app.schemas import (
     CampaignCreate,
     CampaignList,
     CampaignOut,
+    ExclusionIn,
+    ExclusionOut,
     Instant,
     JobList,
     JobOut,
@@ -34,7 +36,7 @@ from app.schemas import (
     TokenList,
     TokenOut,
 )
-from app.services import administration, alerts, health, metrics
+from app.services import administration, alerts, exclusions, health, metrics
 from app.services import campaigns as campaign_service
 from app.services import jobs as job_service
 from app.services import shots as shot_service
@@ -218,6 +220,10 @@ def list_shots(
     taken_from: Annotated[Instant | None, Query(alias="from", description="taken_at >= from (ISO 8601)")] = None,
     taken_to: Annotated[Instant | None, Query(alias="to", description="taken_at < to (ISO 8601)")] = None,
     seed_method: Annotated[list[str] | None, Query()] = None,
+    excluded: Annotated[
+        exclusions.ExcludedMode,
+        Query(description="excluded shots: left out (omit, the default), listed with the others, or alone"),
+    ] = "omit",
     order: Literal["asc", "desc"] = "asc",
     cursor: str | None = None,
     limit: Annotated[int, Query(ge=1, le=1000)] = 100,
@@ -231,6 +237,7 @@ def list_shots(
         taken_to=taken_to,
         seed_method=_split(seed_method),
         descending=order == "desc",
+        excluded=excluded,
         cursor=cursor,
         limit=limit,
     )
@@ -268,6 +275,36 @@ def put_shot(
 @router.get("/campaigns/{slug}/shots/{shot_id}/revisions", response_model=RevisionList)
 def list_revisions(slug: str, shot_id: str, session: DB, _who: Viewer) -> dict[str, Any]:
     return {"items": shot_service.revision_list(session, slug, shot_id)}
+
+
+EXCLUSION = "/campaigns/{slug}/shots/{shot_id}/exclusion"
+
+
+@router.post(
+    EXCLUSION,
+    status_code=201,
+    response_model=ExclusionOut,
+    responses={200: {"model": ExclusionOut, "description": "already excluded with the same reason: nothing changed"}},
+)
+def exclude_shot(
+    slug: str, shot_id: str, data: ExclusionIn, session: DB, who: Ingester, response: Response
+) -> dict[str, Any]:
+    """Exclude a shot (a test shot, wrong units) from counts, charts and summaries, with a reason.
+
+    The shot is kept and shown, marked; the shot list and the table's CSV show it with
+    ``excluded=include``. 201 when excluded now, 200 when it already was with the same reason,
+    409 when it already is with another reason (restore it first). Audited as ``shot.exclude``."""
+    outcome = exclusions.exclude_shot(session, slug, shot_id, data.reason, who.actor)
+    if not outcome.changed:
+        response.status_code = 200
+    return outcome.state
+
+
+@router.delete(EXCLUSION, response_model=ExclusionOut)
+def restore_shot(slug: str, shot_id: str, session: DB, who: Ingester) -> dict[str, Any]:
+    """Count an excluded shot again (audited as ``shot.restore``); a shot that is not excluded
+    stays as it is (200 either way)."""
+    return exclusions.restore_shot(session, slug, shot_id, who.actor).state
 
 
 @router.post("/evaluate")

@@ -37,7 +37,7 @@ from app.routers.deps import (
 )
 from app.routers.responses import json_response, streamed_file
 from app.schemas import TokenCreate
-from app.services import administration, auth
+from app.services import administration, auth, exclusions
 from app.services import jobs as job_service
 from app.services.auth import TokenInfo
 from app.services.campaigns import Campaign, find_campaign
@@ -382,6 +382,7 @@ def shot_table(request: Request, campaign: PageCampaign, session: DB) -> Respons
             "seed": query.filter.seed_method,
             "text": query.filter.text,
             "bounded": bool(query.filter.taken_to or query.filter.taken_from),
+            "only_excluded": query.filter.excluded == "only",  # a new shot is never an excluded one
         },
     )
     return render(
@@ -395,6 +396,7 @@ def shot_table(request: Request, campaign: PageCampaign, session: DB) -> Respons
             "live": live,
             "flag_codes": table.FLAG_CODES,
             "seed_methods": table.SEED_METHODS,
+            "excluded_choices": table.EXCLUDED_CHOICES,
             "columns": table.table_columns(),
             "link": lambda **changes: _table_link(slug, query.params, changes),
             "csv_link": f"/campaigns/{quote(slug)}/shots.csv" + (f"?{urlencode(query.params)}" if query.params else ""),
@@ -431,8 +433,14 @@ def shot_table_csv(slug: str, request: Request, _who: Reader, _budget: Expensive
 # ------------------------------------------------------------------------ one shot
 
 
-@router.get("/campaigns/{slug}/shots/{shot_id}")
-def shot_detail(shot_id: str, request: Request, campaign: PageCampaign, session: DB) -> Response:
+def _shot_page(
+    request: Request,
+    campaign: Campaign,
+    session: DB,
+    shot_id: str,
+    exclusion_errors: list[tuple[str, str]] | None = None,
+    status_code: int = 200,
+) -> Response:
     detail = shot_page.shot_detail(session, campaign, shot_id)
     if detail is None:
         raise PageNotFound(f"Shot {shot_id!r} in campaign {campaign.slug!r}")
@@ -444,24 +452,69 @@ def shot_detail(shot_id: str, request: Request, campaign: PageCampaign, session:
             "d": detail,
             "active": "shots",
             "detailed": detailed_runs.shot_panel(session, campaign, detail.shot),
+            "exclusion_errors": exclusion_errors or [],
+            "reason_max": exclusions.MAX_REASON_CHARS,
         },
+        status_code,
     )
+
+
+@router.get("/campaigns/{slug}/shots/{shot_id}")
+def shot_detail(shot_id: str, request: Request, campaign: PageCampaign, session: DB) -> Response:
+    return _shot_page(request, campaign, session, shot_id)
+
+
+async def _exclusion_form(request: Request, campaign: Campaign, session: DB, shot_id: str, exclude: bool) -> Response:
+    """The shot page's exclude and restore forms (ingest sessions): the change, then back to the page."""
+    form = await request.form()
+    what = "Excluding shots" if exclude else "Restoring excluded shots"
+    refused = _role_only(request, "ingest", what) or _refused_form(request, form.get(CSRF_FIELD))
+    if refused is not None:
+        return refused
+    actor = request.state.principal.actor
+    try:
+        if exclude:
+            exclusions.exclude_shot(session, campaign.slug, shot_id, form.get("reason"), actor)
+        else:
+            exclusions.restore_shot(session, campaign.slug, shot_id, actor)
+    except NotFound:
+        raise PageNotFound(f"Shot {shot_id!r} in campaign {campaign.slug!r}") from None
+    except (InvalidInput, Conflict) as exc:
+        problems = exc.problems or [("reason", exc.detail)]
+        return _shot_page(request, campaign, session, shot_id, problems, 409 if isinstance(exc, Conflict) else 422)
+    return RedirectResponse(f"/campaigns/{quote(campaign.slug)}/shots/{quote(shot_id)}", status_code=303)
+
+
+@router.post("/campaigns/{slug}/shots/{shot_id}/exclude")
+async def shot_exclude(shot_id: str, request: Request, campaign: PageCampaign, session: DB) -> Response:
+    return await _exclusion_form(request, campaign, session, shot_id, exclude=True)
+
+
+@router.post("/campaigns/{slug}/shots/{shot_id}/restore")
+async def shot_restore(shot_id: str, request: Request, campaign: PageCampaign, session: DB) -> Response:
+    return await _exclusion_form(request, campaign, session, shot_id, exclude=False)
 
 
 # ------------------------------------------------------------------------ settings
 
 
-def _admins_only(request: Request, what: str = "Changing the limits and model settings") -> Response | None:
-    """The page that refuses a signed-in viewer or ingester (403), or None for an admin."""
+def _role_only(request: Request, role: str, what: str) -> Response | None:
+    """The page that refuses a signed-in session below ``role`` (403), or None."""
     who: TokenInfo = request.state.principal
-    if who.can("admin"):
+    if who.can(role):
         return None
+    title = "Admins only" if role == "admin" else f"The {role} role only"
     return render(
         request,
         "error.html",
-        {"title": "Admins only", "message": f"{what} needs the admin role; you are signed in as {who.role}."},
+        {"title": title, "message": f"{what} needs the {role} role; you are signed in as {who.role}."},
         403,
     )
+
+
+def _admins_only(request: Request, what: str = "Changing the limits and model settings") -> Response | None:
+    """The page that refuses a signed-in viewer or ingester (403), or None for an admin."""
+    return _role_only(request, "admin", what)
 
 
 _JOB_ID = re.compile(r"[0-9a-fA-F-]{1,64}")

@@ -6,7 +6,9 @@ zone, with its offset), ``revision``, ``tags``, ``notes``, every model input und
 column name (``model.column_name``: ``plasma_density_cm3``), ``status``, ``flag_codes``
 (``CODE:severity`` entries), ``model_version``, ``settings_version``, every model output
 under its name, then the shot's other top-level sections (e.g. ``daq``) under their
-dotted paths (``daq.run``), which never collide with ours. CSV headers carry units by
+dotted paths (``daq.run``), which never collide with ours. Excluded shots are in no
+export; the shot table's CSV lists them only when asked (``excluded=include`` or
+``only``), and then carries ``excluded_at`` and ``excluded_reason`` after ``flag_codes``. CSV headers carry units by
 the one label rule (``plasma_density_cm3 [cm^-3]``; ``app.presentation.csv_writer``
 states the rest of the CSV convention); Parquet keeps each unit in the field's metadata
 (and ``encoding: json`` there for a section column written as JSON text);
@@ -19,7 +21,7 @@ from __future__ import annotations
 
 import json
 from collections.abc import Iterable, Iterator, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import datetime
 from typing import Any
 from zoneinfo import ZoneInfo
@@ -84,6 +86,8 @@ class ShotTable:
     outputs: dict[str, np.ndarray]
     flags: list[list[FlagRow]]
     extras: list[dict[str, Any]]  # each shot's other top-level sections
+    excluded_at: list[datetime | None] = field(default_factory=list)  # when fetched (exclusion=True)
+    excluded_reason: list[str | None] = field(default_factory=list)
 
     def __len__(self) -> int:
         return len(self.shot_pk)
@@ -123,6 +127,8 @@ class ShotTable:
             outputs=outputs,
             flags=per_shot,
             extras=[other_sections(p) for p in payloads] if payloads is not None else [{} for _ in range(n)],
+            excluded_at=list(columns.get("excluded_at", ())),
+            excluded_reason=list(columns.get("excluded_reason", ())),
         )
 
     def values(self, key: str) -> np.ndarray:
@@ -168,9 +174,12 @@ def _extra_cell(value: Any) -> Any:
     return value
 
 
-def csv_columns(table: ShotTable, zone: ZoneInfo, extra: Sequence[str] | None = None) -> list[CsvColumn]:
+def csv_columns(
+    table: ShotTable, zone: ZoneInfo, extra: Sequence[str] | None = None, *, exclusion: bool = False
+) -> list[CsvColumn]:
     """The export table as CSV columns (headers with units by the one label rule); ``extra``
-    fixes the other sections' columns when a table is written in chunks."""
+    fixes the other sections' columns when a table is written in chunks; ``exclusion`` adds
+    ``excluded_at`` and ``excluded_reason`` (a listing that shows excluded shots)."""
     columns = [
         CsvColumn("shot_id", list(table.shot_id), text=True),
         CsvColumn("taken_at", [format_utc(t) for t in table.taken_at]),
@@ -184,6 +193,13 @@ def csv_columns(table: ShotTable, zone: ZoneInfo, extra: Sequence[str] | None = 
     columns += [
         CsvColumn("status", [str(s) for s in table.status.tolist()]),
         CsvColumn("flag_codes", [flag_text((f.code, f.severity) for f in flags) for flags in table.flags]),
+    ]
+    if exclusion:
+        columns += [
+            CsvColumn("excluded_at", [None if t is None else format_utc(t) for t in table.excluded_at]),
+            CsvColumn("excluded_reason", list(table.excluded_reason), text=True),
+        ]
+    columns += [
         CsvColumn("model_version", list(table.model_version)),
         CsvColumn("settings_version", list(table.settings_version)),
     ]

@@ -96,6 +96,10 @@ SHOTS_UNCHANGED = Counter(
 )
 SHOTS_REJECTED = Counter("wakeledger_shots_rejected_total", "Shots refused, by reason (invalid, conflict).")
 SHOTS_REEVALUATED = Counter("wakeledger_shots_reevaluated_total", "Shots re-evaluated after a settings change.")
+SHOT_EXCLUSIONS = Counter(
+    "wakeledger_shot_exclusions_total",
+    "Shots excluded from counts and summaries, or restored, by action (exclude, restore).",
+)
 EVALUATION_SECONDS = Histogram(
     "wakeledger_evaluation_seconds",
     "Wall time of one model evaluation call (one call covers a whole batch).",
@@ -107,6 +111,7 @@ REGISTRY: list[Counter | Histogram] = [
     SHOTS_UNCHANGED,
     SHOTS_REJECTED,
     SHOTS_REEVALUATED,
+    SHOT_EXCLUSIONS,
     EVALUATION_SECONDS,
     EVALUATION_SHOTS,
 ]

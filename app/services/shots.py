@@ -13,6 +13,7 @@ import model
 from app.errors import InvalidInput, NotFound
 from app.plain import plain
 from app.services.campaigns import effective_settings, require_campaign
+from app.services.exclusions import excluded_mode, exclusion_state
 from app.services.ingest import check_shot_body
 from app.store import shots as shot_store
 from app.tables import Evaluation, Flag, Shot, ShotRevision
@@ -55,6 +56,7 @@ def shot_out(shot: Shot, evaluation: Evaluation | None, flags: Sequence[Flag]) -
         "payload": shot.raw_payload,
         "created_at": format_utc(shot.created_at),
         "updated_at": format_utc(shot.updated_at),
+        **exclusion_state(shot),
         "evaluation": evaluation_out(evaluation, flags),
     }
 
@@ -93,10 +95,13 @@ def shot_page(
     taken_to: datetime | None = None,
     seed_method: Sequence[str] = (),
     descending: bool = False,
+    excluded: str | None = None,
     cursor: str | None = None,
     limit: int = 100,
 ) -> dict[str, Any]:
-    """One page of shots in (taken_at, id) order; unknown statuses or flag codes are refused."""
+    """One page of shots in (taken_at, id) order, excluded shots left out unless ``excluded``
+    is include or only; unknown statuses or flag codes are refused."""
+    mode = excluded_mode(excluded)
     problems = [("status", f"unknown status {s!r}") for s in status if s not in model.STATUSES]
     problems += [("flag", f"unknown flag code {c!r}") for c in flag if c not in model.FLAG_CODES]
     if problems:
@@ -108,6 +113,7 @@ def shot_page(
         taken_to=taken_to,
         seed_method=tuple(seed_method),
         descending=descending,
+        excluded=mode,
     )
     campaign = require_campaign(session, campaign_slug)
     after = None

@@ -13,6 +13,7 @@ from sqlalchemy import ColumnElement, Text, func, select, type_coerce
 from sqlalchemy.orm import Session
 
 from app.store.exports import SHOT_INPUT_COLUMNS
+from app.store.exclusions import counted
 from app.tables import Evaluation, Shot
 
 #: The stored outputs the checks read (MODEL.md section 8 names).
@@ -30,7 +31,7 @@ CALIBRATION_KEYS: tuple[str, ...] = ("shot_id", "taken_at", *SHOT_INPUT_COLUMNS,
 
 
 def _window(campaign_id: int, start_utc: datetime | None, end_utc: datetime | None) -> list[ColumnElement[bool]]:
-    conditions = [Shot.campaign_id == campaign_id]
+    conditions = [Shot.campaign_id == campaign_id, *counted(Shot.id, campaign_id)]  # excluded shots count nowhere
     if start_utc is not None:
         conditions.append(Shot.taken_at >= start_utc)
     if end_utc is not None:

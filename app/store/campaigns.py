@@ -7,6 +7,7 @@ from typing import Any
 from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session
 
+from app.store.exclusions import counted
 from app.tables import Campaign, Shot
 
 
@@ -23,7 +24,8 @@ def list_campaigns(session: Session) -> list[Campaign]:
 
 
 def shot_counts(session: Session) -> dict[int, int]:
-    rows = session.execute(select(Shot.campaign_id, func.count()).group_by(Shot.campaign_id))
+    """Counted shots per campaign (excluded shots left out)."""
+    rows = session.execute(select(Shot.campaign_id, func.count()).where(*counted(Shot.id)).group_by(Shot.campaign_id))
     return {cid: n for cid, n in rows}
 
 

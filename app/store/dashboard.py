@@ -26,6 +26,7 @@ from sqlalchemy import (
 from sqlalchemy.orm import Session
 
 import model
+from app.store.exclusions import counted
 from app.tables import Campaign, Evaluation, Flag, Job, Shot, ShotRevision
 from app.times import as_utc
 
@@ -51,16 +52,20 @@ NUMERIC_COLUMNS: dict[str, ColumnElement[Any]] = {**INPUT_COLUMNS, **OUTPUT_COLU
 
 
 def campaigns_with_status_counts(session: Session) -> list[tuple[Campaign, dict[str, int], datetime | None]]:
-    """Every campaign, its shot counts by status and the time of its latest shot."""
+    """Every campaign, its counted shots by status and the time of its latest counted shot."""
     campaigns = list(session.scalars(select(Campaign).order_by(Campaign.name, Campaign.slug)))
     counts: dict[int, dict[str, int]] = {c.id: dict.fromkeys(STATUSES, 0) for c in campaigns}
     for campaign_id, status, n in session.execute(
-        select(Evaluation.campaign_id, Evaluation.status, func.count()).group_by(
-            Evaluation.campaign_id, Evaluation.status
-        )
+        select(Evaluation.campaign_id, Evaluation.status, func.count())
+        .where(*counted(Evaluation.shot_pk))
+        .group_by(Evaluation.campaign_id, Evaluation.status)
     ):
         counts.setdefault(campaign_id, dict.fromkeys(STATUSES, 0))[status] = n
-    latest = dict(session.execute(select(Shot.campaign_id, func.max(Shot.taken_at)).group_by(Shot.campaign_id)).all())
+    latest = dict(
+        session.execute(
+            select(Shot.campaign_id, func.max(Shot.taken_at)).where(*counted(Shot.id)).group_by(Shot.campaign_id)
+        ).all()
+    )
     return [(c, counts[c.id], as_utc(latest.get(c.id))) for c in campaigns]
 
 
@@ -70,7 +75,9 @@ def campaigns_with_status_counts(session: Session) -> list[tuple[Campaign, dict[
 def status_counts(session: Session, campaign_id: int) -> dict[str, int]:
     counts = dict.fromkeys(STATUSES, 0)
     rows = session.execute(
-        select(Evaluation.status, func.count()).where(Evaluation.campaign_id == campaign_id).group_by(Evaluation.status)
+        select(Evaluation.status, func.count())
+        .where(Evaluation.campaign_id == campaign_id, *counted(Evaluation.shot_pk, campaign_id))
+        .group_by(Evaluation.status)
     )
     for status, n in rows:
         counts[status] = n
@@ -87,7 +94,7 @@ class FlagCount:
 def flag_counts(session: Session, campaign_id: int) -> list[FlagCount]:
     rows = session.execute(
         select(Flag.code, Flag.severity, func.count())
-        .where(Flag.campaign_id == campaign_id)
+        .where(Flag.campaign_id == campaign_id, *counted(Flag.shot_pk, campaign_id))
         .group_by(Flag.code, Flag.severity)
         .order_by(Flag.code, Flag.severity)
     )
@@ -95,12 +102,32 @@ def flag_counts(session: Session, campaign_id: int) -> list[FlagCount]:
 
 
 def latest_taken_at(session: Session, campaign_id: int) -> datetime | None:
-    """When the campaign's latest shot was taken (UTC), None for an empty campaign."""
-    return as_utc(session.scalar(select(func.max(Shot.taken_at)).where(Shot.campaign_id == campaign_id)))
+    """When the campaign's latest counted shot was taken (UTC), None for a campaign without one."""
+    return as_utc(
+        session.scalar(
+            select(func.max(Shot.taken_at)).where(Shot.campaign_id == campaign_id, *counted(Shot.id, campaign_id))
+        )
+    )
 
 
 def latest_shot_pk(session: Session, campaign_id: int) -> int:
-    return session.scalar(select(func.max(Shot.id)).where(Shot.campaign_id == campaign_id)) or 0
+    """The live cursor: the key of the campaign's last stored counted shot (0 for none)."""
+    return (
+        session.scalar(select(func.max(Shot.id)).where(Shot.campaign_id == campaign_id, *counted(Shot.id, campaign_id)))
+        or 0
+    )
+
+
+def excluded_count(session: Session, campaign_id: int) -> int:
+    """How many of the campaign's shots are excluded (kept, counted nowhere)."""
+    return (
+        session.scalar(
+            select(func.count())
+            .select_from(Shot)
+            .where(Shot.campaign_id == campaign_id, *counted(Shot.id, campaign_id, "only"))
+        )
+        or 0
+    )
 
 
 # ---------------------------------------------------------------------- series (charts)
@@ -121,11 +148,12 @@ class Series:
 def _evaluated(campaign_id: int) -> Select[Any]:
     # The campaign on both sides lets the planner start from whichever index is narrower
     # (evaluations by campaign and status, or shots by campaign and time).
+    # Every chart and figure counts the counted shots only (app.store.exclusions).
     return (
         select()
         .select_from(Shot)
         .join(Evaluation, Evaluation.shot_pk == Shot.id)
-        .where(Shot.campaign_id == campaign_id, Evaluation.campaign_id == campaign_id)
+        .where(Shot.campaign_id == campaign_id, Evaluation.campaign_id == campaign_id, *counted(Shot.id, campaign_id))
     )
 
 
@@ -257,9 +285,13 @@ class ShotFilter:
     taken_to: datetime | None = None
     seed_method: str | None = None
     text: str | None = None
+    excluded: str = "omit"  # app.store.exclusions.EXCLUDED_MODES
 
     def conditions(self, campaign_id: int) -> list[ColumnElement[bool]]:
-        out: list[ColumnElement[bool]] = [Shot.campaign_id == campaign_id]
+        out: list[ColumnElement[bool]] = [
+            Shot.campaign_id == campaign_id,
+            *counted(Shot.id, campaign_id, self.excluded),
+        ]
         if self.status:
             out.append(Evaluation.status == self.status)
         if self.flag_code:
@@ -312,6 +344,11 @@ class ShotRow:
     tags: list[str]
     values: dict[str, float | None]
     flags: list[tuple[str, str]] = field(default_factory=list)  # (code, severity)
+    excluded_reason: str | None = None  # set for an excluded shot (listed on request)
+
+    @property
+    def excluded(self) -> bool:
+        return self.excluded_reason is not None
 
 
 def _table_query(campaign_id: int, flt: ShotFilter) -> Select[Any]:
@@ -335,12 +372,13 @@ def _row_columns(value_columns: Sequence[str]) -> list[Any]:
         Shot.seed_method,
         Shot.notes,
         Shot.tags,
+        Shot.excluded_reason,
         *(NUMERIC_COLUMNS[name].label(name) for name in value_columns),
     ]
 
 
 def _to_row(row: Sequence[Any], value_columns: Sequence[str]) -> ShotRow:
-    pk, shot_id, taken_at, revision, status, species, seed_method, notes, tags = row[:9]
+    pk, shot_id, taken_at, revision, status, species, seed_method, notes, tags, excluded_reason = row[:10]
     return ShotRow(
         pk=pk,
         shot_id=shot_id,
@@ -351,7 +389,8 @@ def _to_row(row: Sequence[Any], value_columns: Sequence[str]) -> ShotRow:
         seed_method=seed_method,
         notes=notes or "",
         tags=list(tags or []),
-        values=dict(zip(value_columns, row[9:], strict=False)),
+        values=dict(zip(value_columns, row[10:], strict=False)),
+        excluded_reason=excluded_reason,
     )
 
 

@@ -18,6 +18,7 @@ from sqlalchemy import ColumnElement, Select, Text, distinct, func, select, type
 from sqlalchemy.orm import Session
 
 import model
+from app.store.exclusions import counted
 from app.tables import Evaluation, Flag, Shot
 
 #: Shot input columns (``model.column_name`` of each input path), in the model's order.
@@ -36,9 +37,22 @@ class FlagRow:
     message: str
 
 
-def in_window(campaign_id: int, start_utc: datetime, end_utc: datetime) -> list[ColumnElement[bool]]:
-    """Shots of the campaign taken in [start_utc, end_utc)."""
-    return [Shot.campaign_id == campaign_id, Shot.taken_at >= start_utc, Shot.taken_at < end_utc]
+def in_window(
+    campaign_id: int, start_utc: datetime, end_utc: datetime, excluded: str = "omit"
+) -> list[ColumnElement[bool]]:
+    """Counted shots of the campaign taken in [start_utc, end_utc) (``excluded``: see
+    ``app.store.exclusions.counted``)."""
+    return [
+        Shot.campaign_id == campaign_id,
+        Shot.taken_at >= start_utc,
+        Shot.taken_at < end_utc,
+        *counted(Shot.id, campaign_id, excluded),
+    ]
+
+
+def count_shots(session: Session, conditions: Sequence[ColumnElement[bool]]) -> int:
+    """How many shots match ``conditions``."""
+    return session.connection().scalar(select(func.count()).select_from(Shot).where(*conditions)) or 0
 
 
 def shot_rows_query(
@@ -49,10 +63,12 @@ def shot_rows_query(
     *,
     details: bool = True,
     payloads: bool = False,
+    exclusion: bool = False,
 ) -> Select[Any]:
     """Shots matching ``conditions`` with their evaluation (None where there is none).
     Keys: shot_pk, status; with ``details`` also shot_id, taken_at, revision, notes, tags,
-    model_version, settings_version; with ``payloads`` the raw payload as JSON text;
+    model_version, settings_version; with ``payloads`` the raw payload as JSON text; with
+    ``exclusion`` excluded_at and excluded_reason (None for a counted shot);
     then the requested input and output columns under their column names."""
     meta: list[Any] = [Shot.id.label("shot_pk"), Evaluation.status]
     if details:
@@ -69,6 +85,8 @@ def shot_rows_query(
         ]
     if payloads:
         meta.append(type_coerce(Shot.raw_payload, Text).label("raw_payload"))
+    if exclusion:
+        meta += [Shot.excluded_at, Shot.excluded_reason]
     shot_cols = [Shot.__table__.c[name] for name in input_columns]
     eval_cols = [Evaluation.__table__.c[name] for name in output_columns]
     return (

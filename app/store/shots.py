@@ -17,6 +17,7 @@ from sqlalchemy import ColumnElement, Select, Table, and_, bindparam, delete, ex
 from sqlalchemy.orm import Session
 
 import model
+from app.store.exclusions import counted
 from app.tables import Evaluation, Flag, Shot, ShotRevision
 
 SHOTS = cast(Table, Shot.__table__)
@@ -163,9 +164,12 @@ def get_shot(session: Session, campaign_id: int, shot_id: str) -> Shot | None:
 
 
 def latest_shot(session: Session, campaign_id: int) -> Shot | None:
-    """The campaign's shot taken last (the highest id among equal times), None for an empty campaign."""
+    """The campaign's counted shot taken last (the highest id among equal times), None for a campaign without one."""
     return session.scalar(
-        select(Shot).where(Shot.campaign_id == campaign_id).order_by(Shot.taken_at.desc(), Shot.id.desc()).limit(1)
+        select(Shot)
+        .where(Shot.campaign_id == campaign_id, *counted(Shot.id, campaign_id))
+        .order_by(Shot.taken_at.desc(), Shot.id.desc())
+        .limit(1)
     )
 
 
@@ -199,6 +203,7 @@ class ShotFilter:
     taken_to: datetime | None = None
     seed_method: Sequence[str] = ()
     descending: bool = False
+    excluded: str = "omit"  # app.store.exclusions.EXCLUDED_MODES
 
 
 def encode_cursor(taken_at: datetime, pk: int, descending: bool) -> str:
@@ -218,7 +223,9 @@ def decode_cursor(cursor: str) -> tuple[datetime, int, bool]:
 
 def _filtered(campaign_id: int, f: ShotFilter) -> Select[Any]:
     stmt: Any = (
-        select(Shot, Evaluation).join(Evaluation, Evaluation.shot_pk == Shot.id).where(Shot.campaign_id == campaign_id)
+        select(Shot, Evaluation)
+        .join(Evaluation, Evaluation.shot_pk == Shot.id)
+        .where(Shot.campaign_id == campaign_id, *counted(Shot.id, campaign_id, f.excluded))
     )
     if f.status:
         stmt = stmt.where(Evaluation.status.in_(list(f.status)))

@@ -2,7 +2,7 @@
 before which a queued job (a delivery waiting out its backoff) is not claimed.
 
 Revision ID: 0004_alert_targets
-Revises: 0002_hardening
+Revises: 0003_shot_exclusion
 Create Date: 2026-12-02
 """
 
@@ -12,7 +12,7 @@ import sqlalchemy as sa
 from alembic import op
 
 revision = "0004_alert_targets"
-down_revision = "0002_hardening"
+down_revision = "0003_shot_exclusion"
 branch_labels = None
 depends_on = None
 

@@ -111,6 +111,7 @@ class Overview:
     regime_options: list[tuple[str, str]]
     regime_axes: tuple[str, str]
     live_cursor: int
+    excluded_count: int = 0  # shots kept but counted nowhere on the page
 
     @property
     def total(self) -> int:
@@ -222,6 +223,7 @@ def overview(session: Session, campaign: Campaign) -> Overview:
         regime_options=regime_options(),
         regime_axes=DEFAULT_REGIME_AXES,
         live_cursor=store.latest_shot_pk(session, campaign.id),
+        excluded_count=store.excluded_count(session, campaign.id),
     )
 
 

@@ -75,6 +75,7 @@ class ShotDetail:
     curve_note: str
     previous_shot_id: str | None
     next_shot_id: str | None
+    excluded_local: str = ""  # when the shot was excluded (empty: it is counted)
 
 
 def _unknown_fields(payload: Mapping[str, Any], known_paths: set[str]) -> dict[str, Any]:
@@ -325,4 +326,5 @@ def shot_detail(session: Session, campaign: Campaign, shot_id: str) -> ShotDetai
         curve_note=note,
         previous_shot_id=previous_id,
         next_shot_id=next_id,
+        excluded_local=local_text(shot.excluded_at, zone),
     )

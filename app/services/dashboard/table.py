@@ -15,6 +15,7 @@ import model
 from app.errors import InvalidInput
 from app.presentation.csv_writer import CsvColumn
 from app.presentation.fields import field_label, short_label
+from app.services.exclusions import excluded_mode
 from app.services.export_table import ShotTable, csv_columns, extra_paths
 from app.store import dashboard as store
 from app.store import exports as export_store
@@ -26,6 +27,8 @@ SEED_METHODS = model.SEED_METHODS
 FLAG_CODES = model.FLAG_CODES
 
 TABLE_PAGE_SIZE = 100
+# The table's ``excluded`` choices (app.store.exclusions.EXCLUDED_MODES) as the form offers them.
+EXCLUDED_CHOICES = (("omit", "left out"), ("include", "shown with the others"), ("only", "only excluded shots"))
 TABLE_VALUE_COLUMNS = (
     "plasma_density_cm3",
     "driver_population",
@@ -82,6 +85,11 @@ def parse_table_query(params: Mapping[str, str], campaign: Campaign) -> TableQue
                 problems.append((name, "write a date and time, e.g. 2026-11-17T09:00"))
     if flt.taken_from and flt.taken_to and flt.taken_from >= flt.taken_to:
         problems.append(("to", "must be later than 'from'"))
+    if "excluded" in given:
+        try:
+            flt.excluded = excluded_mode(given["excluded"])
+        except InvalidInput as exc:
+            problems += exc.problems
     if "q" in given:
         if len(given["q"]) > 200:
             problems.append(("q", "at most 200 characters"))
@@ -168,15 +176,17 @@ def _order(query: TableQuery) -> tuple[Any, Any]:
 
 def csv_chunks(session: Session, campaign: Campaign, query: TableQuery) -> Iterator[list[CsvColumn]]:
     """The filtered set as the export table (``app.services.export_table``), every row,
-    in the table's order, a chunk at a time (memory stays flat)."""
+    in the table's order, a chunk at a time (memory stays flat). Asked to list excluded
+    shots, it carries their ``excluded_at`` and ``excluded_reason``."""
     zone = campaign_zone(campaign.timezone)
     conditions = query.filter.conditions(campaign.id)
+    exclusion = query.filter.excluded != "omit"
     # The other sections' columns must be known before the header is written.
     extra = extra_paths(export_store.iter_payloads(session, conditions))
-    stmt = export_store.shot_rows_query(conditions, _order(query), payloads=True)
+    stmt = export_store.shot_rows_query(conditions, _order(query), payloads=True, exclusion=exclusion)
     for columns in export_store.iter_shot_rows(session, stmt):
         flags = export_store.fetch_flags_of(session, columns["shot_pk"])
-        yield csv_columns(ShotTable.from_columns(columns, flags), zone, extra)
+        yield csv_columns(ShotTable.from_columns(columns, flags), zone, extra, exclusion=exclusion)
 
 
 # --------------------------------------------------------------------- table columns

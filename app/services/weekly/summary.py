@@ -5,6 +5,8 @@ the change against the previous ISO week.
 The week runs from Monday 00:00 local time to the next Monday 00:00 local time
 (``app.times.IsoWeek``), converted to UTC for the query. Statistics are computed with
 numpy over the rows of one joined read (``app.store.exports``), on one snapshot.
+Excluded shots are left out of every figure (``app.store.exclusions``); the summary only
+says how many of the week's shots were excluded.
 """
 
 from __future__ import annotations
@@ -154,6 +156,7 @@ class WeeklySummary:
     # The week's model against measurement (app.services.calibration.week_figures): density
     # scale with its interval, changes, scaling exponents.
     model_check: dict[str, Any] = field(default_factory=dict)
+    excluded_count: int = 0  # the week's excluded shots, in no figure
 
     @property
     def is_empty(self) -> bool:
@@ -282,10 +285,14 @@ def _delta(a: float | None, b: float | None) -> float | None:
 # --- building --------------------------------------------------------------------
 
 
-def load_week_shots(session: Session, campaign: Campaign, week: IsoWeek) -> ShotTable:
-    """Every shot of the week with its evaluation, flags and other sections, in taken_at order."""
+def _week_window(campaign: Campaign, week: IsoWeek, excluded: str = "omit") -> list[Any]:
     start, end = week.bounds_utc(campaign_zone(campaign.timezone))
-    window = export_store.in_window(campaign.id, start, end)
+    return export_store.in_window(campaign.id, start, end, excluded)
+
+
+def load_week_shots(session: Session, campaign: Campaign, week: IsoWeek) -> ShotTable:
+    """Every counted shot of the week with its evaluation, flags and other sections, in taken_at order."""
+    window = _week_window(campaign, week)
     columns = export_store.fetch_shot_rows(session, export_store.shot_rows_query(window, payloads=True))
     return ShotTable.from_columns(columns, export_store.fetch_flags(session, window))
 
@@ -300,8 +307,7 @@ class _WeekFigures:
 
 def _previous_week(session: Session, campaign: Campaign, week: IsoWeek, current: _WeekFigures) -> WeekComparison:
     prev = week.previous()
-    start, end = prev.bounds_utc(campaign_zone(campaign.timezone))
-    window = export_store.in_window(campaign.id, start, end)
+    window = _week_window(campaign, prev)
     keys = KEY_CONDITIONS + KEY_OUTPUTS
     stmt = export_store.shot_rows_query(
         window,
@@ -370,4 +376,5 @@ def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, n
         model_versions=sorted({v for v in shots.model_version if v}),
         shots=shots,
         model_check=week_figures(session, campaign.slug, start_local.astimezone(UTC), end_local.astimezone(UTC)),
+        excluded_count=export_store.count_shots(session, _week_window(campaign, week, "only")),
     )

@@ -67,6 +67,7 @@ def summary_document(summary: WeeklySummary) -> dict[str, Any]:
                 "model_versions": summary.model_versions,
                 "empty": summary.is_empty,
                 "shot_count": summary.shot_count,
+                "excluded_count": summary.excluded_count,
                 "status_counts": summary.status_counts,
                 "flag_counts": summary.flag_counts,
                 "ranges": [asdict(r) for r in summary.ranges],

@@ -228,7 +228,7 @@
 
   function matchesFilter(s, f) {
     if (!f) return true;
-    if (f.bounded) return false;
+    if (f.bounded || f.only_excluded) return false;
     if (f.status && s.status !== f.status) return false;
     if (f.seed && s.seed_method !== f.seed) return false;
     if (f.flag && !s.flags.some(function (x) { return x.code === f.flag; })) return false;
