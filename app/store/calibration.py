@@ -12,8 +12,8 @@ import numpy as np
 from sqlalchemy import ColumnElement, Text, func, select, type_coerce
 from sqlalchemy.orm import Session
 
-from app.store.exports import SHOT_INPUT_COLUMNS
 from app.store.exclusions import counted
+from app.store.exports import SHOT_INPUT_COLUMNS
 from app.tables import Evaluation, Shot
 
 #: The stored outputs the checks read (MODEL.md section 8 names).
