@@ -24,7 +24,8 @@ scenario put there:
   jitter is the density-explained one within about 20 %;
 - halo radius: proportional to the kick-angle proxy wakefield x L / p, and witness energy:
   proportional to the gain proxy wakefield x (L - z_sat) for shots that saturate (both
-  project proxies, issue 14), with lognormal noise and a few outliers.
+  project proxies, issue 14, taken as the campaign evaluates the shot: the logged density),
+  with lognormal noise and a few outliers.
 """
 
 from __future__ import annotations
@@ -401,6 +402,11 @@ def _evaluate_truth(shots: Sequence[_Shot]) -> dict[str, np.ndarray]:
     """The model's outputs for the true machine, its reference frequency, wavenumbers and phase sensitivities."""
     columns = _truth_columns(shots)
     truth = model.evaluate_table(columns)
+    # The halo and witness truths are set on the project proxies as the campaign evaluates them (the
+    # logged density, density_scale 1), so the scaling checks find exactly the exponent put here.
+    logged = model.evaluate_table({**columns, _DENSITY: np.array([s.plasma["density_cm3"] for s in shots])})
+    truth["logged_wakefield_mv_m"] = np.nan_to_num(logged["wakefield_estimate_mv_m"])
+    truth["logged_saturation_length_m"] = logged["saturation_length_m"]
     length = columns["plasma.length_m"]
     z_ref = np.where(np.isfinite(truth["saturation_length_m"]), truth["saturation_length_m"], length)
     f_p = plasma_frequency(columns[_DENSITY] * PER_CM3)
@@ -452,9 +458,8 @@ def _measured(
     length = shot.plasma["length_m"]
     modulation = float(truth["modulation_exit"][i])
     modulation = modulation if math.isfinite(modulation) else 0.0
-    wake_mv_m = float(truth["wakefield_estimate_mv_m"][i])
-    wake_mv_m = wake_mv_m if math.isfinite(wake_mv_m) else 0.0
-    z_sat = float(truth["saturation_length_m"][i])
+    wake_mv_m = float(truth["logged_wakefield_mv_m"][i])
+    z_sat = float(truth["logged_saturation_length_m"][i])
     k_true = float(truth["true_wavenumber"][i])
     measured: dict[str, Any] = {}
     note: str | None = None
@@ -476,6 +481,10 @@ def _measured(
             xi_d = model.DEFAULT_SETTINGS["reference_slice_sigma"] * sc.NOMINAL["sigma_z_mm"] * MM
             phase = sc.PHASE_OFFSET_RAD[method] + float(truth["set_wavenumber"][i]) * xi_d
             phase += sum(float(truth[f"dpsi.{path}"][i]) * shot.jitter.get(path, 0.0) for path in PHASE_SOURCES)
+            # The noise-grown part of the modulation carries a random phase: about e^-S rad of phase
+            # error at a seed S e-folds over the noise (a weak seed, WEAK_SEED, is less reproducible).
+            over_noise = float(truth["seed_to_noise_efolds"][i])
+            phase += min(1.0, math.exp(-over_noise)) * float(rng.standard_normal())
             phase += sc.PHASE_RESOLUTION_RAD * float(rng.standard_normal())
             measured["modulation_phase_rad"] = round(_wrap(phase), 3)
 

@@ -90,8 +90,9 @@ PLAN: dict[date, dict[str, tuple[Block, ...]]] = {
     # 2026-W48
     _d(23): {"early": (Block("production"),), "late": (Block("production"),)},
     _d(24): {"early": (Block("production"),), "late": (Block("density-scan", options={"scan": "fine"}),)},
-    _d(25): {"early": (Block("production"),), "late": (Block("production"),)},
-    _d(26): {"early": (Block("seed-scan", options={"scan": "fine"}),), "late": (Block("production"),)},
+    # After the gauge exchange: unseeded reference shots again, and the gradient scan repeated.
+    _d(25): {"early": (Block("production"),), "late": (Block("unseeded-reference", 25), Block("production"))},
+    _d(26): {"early": (Block("seed-scan", options={"scan": "fine"}),), "late": (Block("gradient-scan"),)},
     _d(27): {"early": (Block("ebunch-seed", options={"scan": False}),), "late": (Block("production"),)},
     _d(28): {"early": (Block("production"),)},
 }
