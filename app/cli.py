@@ -385,6 +385,71 @@ def export(args: argparse.Namespace, settings: Settings) -> int:
     return 0
 
 
+def _import_args(p: argparse.ArgumentParser) -> None:
+    from app.services.backlog_import import DEFAULT_BATCH
+    from app.services.backlog_import.readers import FORMATS
+
+    p.add_argument("file", metavar="FILE", help="CSV, Parquet, JSON lines (.jsonl), JSON or HDF5 (.h5) file of shots")
+    p.add_argument("--campaign", required=True, metavar="SLUG")
+    p.add_argument("--map", metavar="MAP", help="JSON or TOML file renaming the file's columns to our fields")
+    p.add_argument("--format", choices=FORMATS, help="default: from the file's extension")
+    p.add_argument("--table", metavar="PATH", help="HDF5: the compound dataset or the group of datasets to read")
+    p.add_argument("--dry-run", action="store_true", help="check every row and list the failing ones; store nothing")
+    p.add_argument("--batch-size", type=int, default=DEFAULT_BATCH, metavar="N", help="shots per stored batch")
+
+
+@command(
+    "import",
+    help="import a backlog of shots from a file into a campaign (idempotent: re-running changes nothing)",
+    configure=_import_args,
+)
+def import_file(args: argparse.Namespace, settings: Settings) -> int:
+    from pathlib import Path
+
+    from app.database import make_engine, make_session_factory
+    from app.errors import NotFound
+    from app.services.backlog_import import importing, report_lines
+    from app.services.backlog_import.columns import load_map, plan_columns
+    from app.services.backlog_import.readers import SourceError, read_source
+
+    def fail(message: str, code: int = 2) -> int:
+        print(f"wakeledger import: error: {message}", file=sys.stderr)
+        return code
+
+    if not 1 <= args.batch_size <= 5000:
+        return fail("--batch-size must be between 1 and 5000")
+    source_path = Path(args.file)
+    try:
+        column_map = load_map(Path(args.map)) if args.map else None
+        source = read_source(source_path, args.format, args.table)
+        plan = plan_columns(source.columns, column_map)
+    except SourceError as exc:
+        return fail(str(exc))
+    engine = make_engine(settings.database_url)
+    bar = TextProgressBar(f"{args.campaign} import" + (" (dry run)" if args.dry_run else ""), unit="rows")
+    try:
+        with make_session_factory(engine)() as session:
+            report = importing.import_rows(
+                session,
+                args.campaign,
+                source,
+                plan,
+                f"cli:import {source_path.name}",
+                dry_run=args.dry_run,
+                batch_size=args.batch_size,
+                max_future=settings.max_future,
+                progress=bar,
+            )
+    except NotFound as exc:
+        return fail(exc.detail, 1)
+    finally:
+        bar.close()
+        engine.dispose()
+    for line in report_lines.lines(report, plan):
+        print(line)
+    return 0 if report.clean else 1
+
+
 def _reevaluate_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--campaign", required=True, metavar="SLUG")
 

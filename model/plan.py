@@ -63,7 +63,7 @@ from typing import Any, TypeGuard
 import numpy as np
 
 from model.evaluate import evaluate_table
-from model.inputs import FIELDS_BY_PATH, INPUT_FIELDS, InputField, ShotInputError, clean_shot_columns
+from model.inputs import FIELDS_BY_PATH, INPUT_FIELDS, InputField, ShotInputError, clean_shot_columns, refused_rows
 from model.rules import FLAG_CODES, resolve_settings
 from model.sensitivity import evaluate_where_valid, log_sensitivities
 from model.vocabulary import OUTPUT_FIELDS, OUTPUTS_BY_NAME, SEEDED_METHODS, SEVERITY_BY_RANK, STATUSES
@@ -267,6 +267,20 @@ def _parse_axis(raw: Any, i: int, base: PlanBase) -> tuple[Axis | None, list[tup
     return Axis(str(field), float(raw["start"]), float(raw["stop"]), int(steps), str(spacing)), []
 
 
+def _ends_and_corners(base: PlanBase, axes: Sequence[Axis]) -> dict[str, np.ndarray]:
+    """Columns of the axis fields at both ends of each axis (the others at the base) and, for two axes,
+    at the four corners: the points _range_problems checks one by one."""
+    ends = [np.array([a.start, a.stop], dtype=float) for a in axes]
+    if len(axes) == 1:
+        return {axes[0].field: ends[0]}
+    a, b = axes
+    at_base = [np.full(2, float(base.value(f.field))) for f in axes]
+    return {
+        a.field: np.concatenate([ends[0], at_base[0], np.repeat(ends[0], 2)]),
+        b.field: np.concatenate([at_base[1], ends[1], np.tile(ends[1], 2)]),
+    }
+
+
 def _range_problems(base: PlanBase, axes: Sequence[Axis]) -> list[tuple[str, str]]:
     """Validate the ends of each axis and, for two axes, the corners, naming the axis end that is refused."""
 
@@ -275,14 +289,17 @@ def _range_problems(base: PlanBase, axes: Sequence[Axis]) -> list[tuple[str, str
 
     problems: list[tuple[str, str]] = []
     for i, axis in enumerate(axes):
-        for end in ("start", "stop"):
-            value = getattr(axis, end)
-            for path, reason in _problems_at(base, {axis.field: value}):
-                problems.append((f"axes.{i}.{end}", f"{axis.field} = {value:g}: {explain(path, reason, axis)}"))
         if FIELDS_BY_PATH[axis.field].kind == "integer":
             values = axis.values()
             if not np.all(values == np.round(values)):
                 problems.append((f"axes.{i}.steps", f"{axis.field} takes integers; these steps give fractions"))
+    if not problems and not refused_rows(_variant_columns(base, _ends_and_corners(base, axes))).any():
+        return []  # one batched check of every end and corner; the per-point one below names the refusal
+    for i, axis in enumerate(axes):
+        for end in ("start", "stop"):
+            value = getattr(axis, end)
+            for path, reason in _problems_at(base, {axis.field: value}):
+                problems.append((f"axes.{i}.{end}", f"{axis.field} = {value:g}: {explain(path, reason, axis)}"))
     if problems or len(axes) < 2:
         return problems
     a, b = axes

@@ -86,7 +86,7 @@ def render(request: Request, name: str, context: dict[str, Any], status_code: in
         "csrf_token": principal.csrf_token if principal is not None else None,
         "campaign": None,
         "active": "",
-        "phase_window_shots": NEIGHBOUR_WINDOW_SHOTS,
+        "phase_window_shots": NEIGHBOUR_WINDOW_SHOTS - 1,
         "presentation": {"glyphs": GLYPHS},
         **context,
     }

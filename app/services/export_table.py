@@ -8,7 +8,8 @@ column name (``model.column_name``: ``plasma_density_cm3``), ``status``, ``flag_
 under its name, then the shot's other top-level sections (e.g. ``daq``) under their
 dotted paths (``daq.run``), which never collide with ours. CSV headers carry units by
 the one label rule (``plasma_density_cm3 [cm^-3]``; ``app.presentation.csv_writer``
-states the rest of the CSV convention); Parquet keeps each unit in the field's metadata;
+states the rest of the CSV convention); Parquet keeps each unit in the field's metadata
+(and ``encoding: json`` there for a section column written as JSON text);
 JSON nests the inputs by section, as the API takes them, and keeps other sections verbatim.
 An import reads the same table back: the input columns and the other sections are the
 shot; everything else is what wakeledger derived.
@@ -249,8 +250,8 @@ def arrow_table(table: ShotTable, metadata: Mapping[str, str]) -> Any:
     fields: list[Any] = []
     arrays: list[Any] = []
 
-    def add(name: str, array: Any, unit: str = "") -> None:
-        fields.append(pa.field(name, array.type, metadata={"unit": unit} if unit else None))
+    def add(name: str, array: Any, unit: str = "", metadata: dict[str, str] | None = None) -> None:
+        fields.append(pa.field(name, array.type, metadata={"unit": unit} if unit else metadata))
         arrays.append(array)
 
     add("shot_id", pa.array(table.shot_id, type=pa.string()))
@@ -282,28 +283,30 @@ def arrow_table(table: ShotTable, metadata: Mapping[str, str]) -> Any:
     for name in EVALUATION_OUTPUT_COLUMNS:
         add(name, pa.array(table.outputs[name], type=pa.float64(), from_pandas=True), unit_of(name))
     for name, cells in table.extra_cells().items():
-        add(name, _extra_array(cells))
+        array, as_json = _extra_array(cells)
+        add(name, array, metadata={"encoding": "json"} if as_json else None)
     return pa.Table.from_arrays(arrays, schema=pa.schema(fields, metadata=dict(metadata)))
 
 
-def _extra_array(cells: list[Any]) -> Any:
+def _extra_array(cells: list[Any]) -> tuple[Any, bool]:
     """One typed column of another section's values: numbers, text or booleans as they
-    are, anything mixed or nested as JSON text."""
+    are, anything mixed or nested as JSON text (then True: the field's metadata says
+    ``encoding: json``, so that an import reads the values back)."""
     import pyarrow as pa
 
     kinds = {type(v) for v in cells if v is not None}
     if kinds <= {bool}:
-        return pa.array(cells, type=pa.bool_())
+        return pa.array(cells, type=pa.bool_()), False
     if kinds <= {int}:
         try:
-            return pa.array(cells, type=pa.int64())
+            return pa.array(cells, type=pa.int64()), False
         except (OverflowError, pa.ArrowInvalid):
             pass
     if kinds <= {int, float}:
-        return pa.array([None if v is None else float(v) for v in cells], type=pa.float64())
+        return pa.array([None if v is None else float(v) for v in cells], type=pa.float64()), False
     if kinds <= {str}:
-        return pa.array(cells, type=pa.string())
-    return pa.array([None if v is None else _json_cell(v) for v in cells], type=pa.string())
+        return pa.array(cells, type=pa.string()), False
+    return pa.array([None if v is None else _json_cell(v) for v in cells], type=pa.string()), True
 
 
 def _json_cell(value: Any) -> str:

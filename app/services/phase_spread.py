@@ -2,38 +2,75 @@
 
 The figures are shot-to-shot: a campaign (and a week) holds deliberate density scans and
 set-point changes, and the spread over all of them says nothing about the jitter at a
-fixed set point. So each shot is compared with its neighbours in time, a centred window
-of NEIGHBOUR_WINDOW_SHOTS shots (the window is clipped at the ends by repeating the
-first / last shot, scipy's mode="nearest"):
+fixed set point. So each shot is compared with its neighbours in time: the
+NEIGHBOUR_WINDOW_SHOTS - 1 shots around it (half before, half after; mirrored at the ends
+of the series), never including the shot itself, which would pull the centre towards the
+shot and make the spread about 8 % too low for a running median of 15.
 
-- density jitter [%]: robust spread (below) of each density's deviation from the running
-  median of its window, relative to that median, in %;
-- measured phase jitter [rad]: robust spread of each phase's deviation from the running
-  circular mean of its window (angle of the mean of exp(i phase)), each deviation wrapped
-  into (-pi, pi] so phases either side of +-pi are not counted as 2 pi apart;
-- expected jitter (MODEL.md section 5): median(phase_per_pct_density_rad) x density jitter.
+- jitter of a logged condition x (density, population, sigma_z, sigma_r): robust spread
+  (below) of ln x about the median of ln x over the neighbours, divided by
+  sqrt(1 + v_m), v_m the variance of the median of m = NEIGHBOUR_WINDOW_SHOTS - 1 unit
+  Gaussians (the neighbours' median has its own scatter), so Gaussian jitter of
+  standard deviation s reads s;
+- measured phase jitter [rad]: robust spread of each phase's deviation from the circular
+  mean of its neighbours (angle of the mean of exp(i phase)), each deviation wrapped into
+  (-pi, pi], divided by sqrt(1 + 1/m) for the same reason;
+- expected jitter (MODEL.md section 5, issue of model version 2 item 7): the root-sum-square
+  over the sources of |d psi / d ln x| x (jitter of ln x), psi = k_p xi_ref - N(z_ref)/sqrt(3),
+  the derivatives from the model by central differences (model.wake_phase_derivatives, the
+  function the planner's sensitivities use), their median over a sample of the shots.
 
 The robust spread is the normalised median absolute deviation, 1.4826 x median(|d -
 median(d)|), which equals the standard deviation for Gaussian jitter but ignores the few
 shots right at a set-point step (a scan step shorter than half a window would otherwise
-dominate a plain std). With fewer shots than the window the window is all of them: the
-whole-set spread about the mean density / the circular mean. Inputs are aligned per-shot arrays in time order, NaN
-where a value is absent; each figure uses the shots that have its value.
+dominate a plain std). With fewer shots than the window, the neighbours are all the other
+shots and the centre their mean (correction sqrt(n / (n - 1))). Inputs are aligned per-shot
+arrays in time order of the shots with a measured phase (the dashboard and the weekly
+summary select the same way), NaN where a value is absent; each figure uses the shots that
+have its value.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import ArrayLike
-from scipy.ndimage import median_filter, uniform_filter1d
 
-# Shots in the centred running window. Neighbouring shots are almost always at the same
-# set point, so deviations from the window's median / circular mean are the shot-to-shot
-# jitter; a deliberate scan or set-point step moves the window with it and drops out
-# (except for the few shots right at a step). 15 is wide enough for a steady median.
+import model
+
+# Shots in the centred running window (the shot and its neighbours). Neighbouring shots are
+# almost always at the same set point, so deviations from the neighbours' median / circular
+# mean are the shot-to-shot jitter; a deliberate scan or set-point step moves the window
+# with it and drops out (except for the few shots right at a step).
 NEIGHBOUR_WINDOW_SHOTS = 15
+_HALF = NEIGHBOUR_WINDOW_SHOTS // 2
+_NEIGHBOURS = NEIGHBOUR_WINDOW_SHOTS - 1
+
+# Variance of the sample median of 14 unit Gaussians, (X_(7) + X_(8)) / 2: the double integral of the
+# joint density of adjacent order statistics (David & Nagaraja, Order Statistics, 3rd ed. (2003),
+# eq. 2.2.2), evaluated with scipy.integrate.dblquad (tests/summary/test_phase_jitter_budget.py redoes it).
+MEDIAN_OF_NEIGHBOURS_VARIANCE = 0.10216783679607574
+
+# The jitter sources of the expected phase jitter, in the order they are shown.
+JITTER_SOURCES: tuple[str, ...] = model.PHASE_JITTER_SOURCES
+DENSITY = "plasma.density_cm3"
+JITTER_SOURCE_NAMES: dict[str, str] = {
+    "plasma.density_cm3": "plasma density",
+    "driver.population": "bunch population",
+    "driver.sigma_z_mm": "bunch length \u03c3_z",
+    "driver.sigma_r_mm": "bunch radius \u03c3_r",
+}
+
+# Shots whose phase derivatives are computed (evenly spread over the selection): the median
+# of the derivatives is steady long before that, and 9 evaluations per shot stay cheap.
+DERIVATIVE_SAMPLE_SHOTS = 200
+
+# Normalised MAD: 1 / Phi^-1(3/4), so the spread of Gaussian jitter equals its std.
+MAD_TO_SIGMA = 1.482602218505602
 
 
 def _finite(values: ArrayLike) -> np.ndarray:
@@ -47,10 +84,6 @@ def circular_mean_rad(phases: ArrayLike) -> float | None:
     return float(np.angle(np.mean(np.exp(1j * v)))) if v.size else None
 
 
-# Normalised MAD: 1 / Phi^-1(3/4), so the spread of Gaussian jitter equals its std.
-MAD_TO_SIGMA = 1.482602218505602
-
-
 def robust_spread(deviations: np.ndarray) -> float | None:
     """Normalised median absolute deviation of the finite deviations; None below two values."""
     d = deviations[np.isfinite(deviations)]
@@ -59,59 +92,120 @@ def robust_spread(deviations: np.ndarray) -> float | None:
     return float(MAD_TO_SIGMA * np.median(np.abs(d - np.median(d))))
 
 
+def _neighbours(v: np.ndarray) -> np.ndarray:
+    """(n, NEIGHBOUR_WINDOW_SHOTS - 1): each value's neighbours in time, itself left out, mirrored at the ends."""
+    padded = np.pad(v, _HALF, mode="reflect")
+    window = sliding_window_view(padded, NEIGHBOUR_WINDOW_SHOTS)
+    return np.delete(window, _HALF, axis=1)
+
+
+def log_jitter(values: ArrayLike) -> float | None:
+    """Shot-to-shot jitter of ln x: robust spread of ln x about the median of its neighbours' ln x,
+    corrected for the median's own scatter (module docstring); positive values in time order."""
+    v = _finite(values)
+    v = np.log(v[v > 0])
+    n = v.size
+    if n < 2:
+        return None
+    if n <= NEIGHBOUR_WINDOW_SHOTS:
+        centre = (v.sum() - v) / (n - 1)  # the mean of the others
+        correction = np.sqrt(n / (n - 1))
+    else:
+        centre = np.median(_neighbours(v), axis=1)
+        correction = np.sqrt(1.0 + MEDIAN_OF_NEIGHBOURS_VARIANCE)
+    spread = robust_spread(v - centre)
+    return None if spread is None else spread / correction
+
+
 def phase_jitter_rad(phases: ArrayLike) -> float | None:
-    """Shot-to-shot phase jitter: robust spread of each phase about the running circular mean
-    of its NEIGHBOUR_WINDOW_SHOTS neighbours, deviations wrapped to (-pi, pi]; time order."""
+    """Shot-to-shot phase jitter: robust spread of each phase about the circular mean of its neighbours,
+    deviations wrapped to (-pi, pi], corrected for the mean's own scatter (module docstring); time order."""
     v = _finite(phases)
-    if v.size < 2:
+    n = v.size
+    if n < 2:
         return None
     unit = np.exp(1j * v)
-    if v.size < NEIGHBOUR_WINDOW_SHOTS:
-        centre = np.full(v.size, np.mean(unit))
+    if n <= NEIGHBOUR_WINDOW_SHOTS:
+        centre = (unit.sum() - unit) / (n - 1)
+        correction = np.sqrt(n / (n - 1))
     else:
-        centre = uniform_filter1d(unit.real, NEIGHBOUR_WINDOW_SHOTS, mode="nearest") + 1j * uniform_filter1d(
-            unit.imag, NEIGHBOUR_WINDOW_SHOTS, mode="nearest"
-        )
-    return robust_spread(np.angle(unit * np.conj(centre)))
+        centre = _neighbours(unit).mean(axis=1)
+        correction = np.sqrt(1.0 + 1.0 / _NEIGHBOURS)
+    spread = robust_spread(np.angle(unit * np.conj(centre)))
+    return None if spread is None else spread / correction
 
 
 def density_jitter_pct(density: ArrayLike) -> float | None:
-    """Shot-to-shot density jitter: robust spread of each density's deviation from the running
-    median of its NEIGHBOUR_WINDOW_SHOTS neighbours, in % of that median; time order."""
-    v = _finite(density)
-    if v.size < 2:
-        return None
-    if v.size < NEIGHBOUR_WINDOW_SHOTS:
-        centre = np.full(v.size, np.mean(v))
-    else:
-        centre = median_filter(v, size=NEIGHBOUR_WINDOW_SHOTS, mode="nearest")
-    with np.errstate(divide="ignore", invalid="ignore"):
-        relative = 100.0 * (v - centre) / centre
-    return robust_spread(relative)
+    """Shot-to-shot density jitter in % (100 x log_jitter of the densities); time order."""
+    jitter = log_jitter(density)
+    return None if jitter is None else 100.0 * jitter
+
+
+def derivative_sample(count: int) -> np.ndarray:
+    """Indices of at most DERIVATIVE_SAMPLE_SHOTS shots spread evenly over ``count`` shots."""
+    return np.unique(np.linspace(0, count - 1, min(count, DERIVATIVE_SAMPLE_SHOTS)).round().astype(int))
+
+
+def typical_phase_derivatives(
+    inputs: Mapping[str, ArrayLike], settings: Mapping[str, Any] | None
+) -> dict[str, float | None]:
+    """Median d psi/d ln x [rad] of each jitter source over an even sample of the shots (dotted-path model
+    input columns of the selected shots; model.wake_phase_derivatives); None where no shot has one."""
+    n = len(np.asarray(inputs[DENSITY]))
+    if n == 0:
+        return dict.fromkeys(JITTER_SOURCES)
+    pick = derivative_sample(n)
+    sample = {path: np.asarray(column)[pick] for path, column in inputs.items()}
+    derivatives = model.wake_phase_derivatives(sample, settings)
+    typical: dict[str, float | None] = {}
+    for path in JITTER_SOURCES:
+        d = _finite(derivatives[path])
+        typical[path] = float(np.median(d)) if d.size else None
+    return typical
 
 
 @dataclass(frozen=True)
 class PhaseJitter:
     phase_count: int
-    measured_phase_std_rad: float | None  # shot-to-shot, about the running circular mean
+    measured_phase_std_rad: float | None  # shot-to-shot, about the neighbours' circular mean
     density_count: int
-    density_spread_pct: float | None  # shot-to-shot, about the running median
-    phase_per_pct_density_rad: float | None  # median over the shots
-    expected_phase_jitter_rad: float | None
+    density_spread_pct: float | None  # shot-to-shot, about the neighbours' median
+    phase_per_pct_density_rad: float | None  # |d psi/d ln n| / 100: the wake phase change per 1 % density
+    expected_phase_jitter_rad: float | None  # root-sum-square of expected_by_source_rad
+    spread_pct: dict[str, float | None] = field(default_factory=dict)  # source -> shot-to-shot jitter [%]
+    phase_per_ln_rad: dict[str, float | None] = field(default_factory=dict)  # source -> d psi/d ln x [rad]
+    expected_by_source_rad: dict[str, float | None] = field(default_factory=dict)  # source -> its part [rad]
 
 
-def phase_jitter(phases: ArrayLike, density: ArrayLike, phase_per_pct_density_rad: ArrayLike) -> PhaseJitter:
-    """Measured shot-to-shot phase jitter beside the jitter the shot-to-shot density jitter
-    predicts; aligned arrays in time order, NaN values ignored."""
-    phase, dens, per_pct = _finite(phases), _finite(density), _finite(phase_per_pct_density_rad)
-    spread = density_jitter_pct(dens)
-    median = float(np.median(per_pct)) if per_pct.size else None
-    expected = median * spread if median is not None and spread is not None else None
+def phase_jitter(
+    phases: ArrayLike, sources: Mapping[str, ArrayLike], derivatives: Mapping[str, float | None]
+) -> PhaseJitter:
+    """Measured shot-to-shot phase jitter beside the jitter that the logged jitters of the sources predict.
+
+    ``phases`` and each of ``sources`` (path -> values) are aligned arrays in time order (NaN ignored);
+    ``derivatives`` are the typical d psi/d ln x (typical_phase_derivatives). A source whose jitter or
+    derivative is unknown is left out of the total (its part reads None); a constant one adds zero."""
+    spreads = {path: log_jitter(values) for path, values in sources.items()}
+    parts: dict[str, float | None] = {}
+    for path, spread in spreads.items():
+        slope = derivatives.get(path)
+        if spread is None or slope is None:
+            parts[path] = None
+        else:
+            part = model.phase_jitter_budget({path: slope}, {path: spread}).by_source_rad[path]
+            parts[path] = float(part)
+    known = [p for p in parts.values() if p is not None]
+    expected = float(np.sqrt(sum(p * p for p in known))) if known else None
+    density_slope = derivatives.get(DENSITY)
+    density_spread = spreads.get(DENSITY)
     return PhaseJitter(
-        phase_count=int(phase.size),
-        measured_phase_std_rad=phase_jitter_rad(phase),
-        density_count=int(dens.size),
-        density_spread_pct=spread,
-        phase_per_pct_density_rad=median,
+        phase_count=int(_finite(phases).size),
+        measured_phase_std_rad=phase_jitter_rad(phases),
+        density_count=int(_finite(sources[DENSITY]).size) if DENSITY in sources else 0,
+        density_spread_pct=None if density_spread is None else 100.0 * density_spread,
+        phase_per_pct_density_rad=None if density_slope is None else abs(density_slope) / 100.0,
         expected_phase_jitter_rad=expected,
+        spread_pct={path: None if s is None else 100.0 * s for path, s in spreads.items()},
+        phase_per_ln_rad={path: derivatives.get(path) for path in spreads},
+        expected_by_source_rad=parts,
     )

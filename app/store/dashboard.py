@@ -201,29 +201,29 @@ class PhaseRows:
 
     pk: list[int]
     phase: list[float]
-    density: list[float | None]
-    phase_per_pct_density: list[float | None]
+    sources: dict[str, list[float | None]]  # the phase-jitter sources by dotted path (density, population, ...)
     total: int  # shots with a measured phase (before thinning)
     step: int = 1
 
 
-def phase_rows(session: Session, campaign_id: int, *, max_rows: int, upto_pk: int | None = None) -> PhaseRows:
-    """Measured phase, density and phase change per 1 % density of the evaluated shots that
-    have a measured phase, in taken_at order (the shot-to-shot figures compare neighbours in
-    time), at most about ``max_rows`` of them (shot id modulo k past that, so the whole
-    campaign stays covered)."""
+def phase_rows(
+    session: Session, campaign_id: int, sources: Sequence[str], *, max_rows: int, upto_pk: int | None = None
+) -> PhaseRows:
+    """Measured phase and the logged jitter sources (dotted input paths) of the evaluated shots that
+    have a measured phase, in taken_at order (the shot-to-shot figures compare neighbours in time),
+    at most about ``max_rows`` of them (shot id modulo k past that, so the whole campaign stays
+    covered)."""
     phase = Shot.measured_modulation_phase_rad
     base = _evaluated(campaign_id).where(phase.is_not(None), *_upto(upto_pk))
     total = session.scalar(base.with_only_columns(func.count())) or 0
     step = -(-total // max_rows) if total > max_rows else 1
-    stmt = base.with_only_columns(
-        Shot.id, phase, Shot.plasma_density_cm3, Evaluation.phase_per_pct_density_rad
-    ).order_by(Shot.taken_at, Shot.id)
+    columns = [getattr(Shot, model.column_name(path)) for path in sources]
+    stmt = base.with_only_columns(Shot.id, phase, *columns).order_by(Shot.taken_at, Shot.id)
     if step > 1:
         stmt = stmt.where(Shot.id % step == 0)
     rows = session.execute(stmt).all()
-    pk, phases, density, per_pct = [list(c) for c in zip(*rows, strict=False)] if rows else [[], [], [], []]
-    return PhaseRows(pk, phases, density, per_pct, total, step)
+    values = [list(c) for c in zip(*rows, strict=False)] if rows else [[] for _ in range(2 + len(sources))]
+    return PhaseRows(values[0], values[1], dict(zip(sources, values[2:], strict=True)), total, step)
 
 
 def taken_at_of(session: Session, shot_pks: Sequence[int]) -> dict[int, datetime]:

@@ -296,6 +296,15 @@ def stale_inputs(
     return [r[0] for r in rows], {name: [r[i + 1] for r in rows] for i, name in enumerate(names)}
 
 
+def inputs_of(session: Session, shot_pks: Sequence[int]) -> dict[str, list[Any]]:
+    """Input columns (``model.column_name``) of the given shots, in the order of ``shot_pks``."""
+    names = input_columns()
+    rows = session.execute(select(SHOTS.c.id, *[SHOTS.c[name] for name in names]).where(SHOTS.c.id.in_(list(shot_pks))))
+    by_pk = {r[0]: r for r in rows}
+    ordered = [by_pk[pk] for pk in shot_pks if pk in by_pk]
+    return {name: [r[i + 1] for r in ordered] for i, name in enumerate(names)}
+
+
 def campaign_ids_evaluated_by_other_model(session: Session, model_version: str) -> list[int]:
     """Campaigns holding any evaluation made by a model version other than ``model_version``."""
     return list(

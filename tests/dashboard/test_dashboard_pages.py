@@ -19,6 +19,7 @@ from app.routers.deps import SESSION_COOKIE
 from app.routers.pages import CONTENT_SECURITY_POLICY
 from app.services.campaigns import find_campaign
 from app.services.dashboard import figures, overview, settings_form, shot_page, table
+from app.services.phase_spread import JITTER_SOURCES
 from app.store import dashboard as store
 from tests.support import shot_to_shot_reference as reference
 from tests.support.jobs import run_queued_jobs
@@ -262,7 +263,9 @@ def test_regime_feed_needs_a_signed_in_viewer(client, seeded):
     assert response.status_code == 401
 
 
-def test_expected_phase_jitter_is_phase_per_percent_density_times_shot_to_shot_density_jitter(seeded, db, page_shots):
+def test_expected_phase_jitter_is_the_root_sum_square_of_the_logged_jitters_through_the_models_phase_derivatives(
+    seeded, db, page_shots
+):
     summary = figures.phase_summary(db, _campaign(db))
     with_phase = sorted(
         (s for s in page_shots if s.get("measured", {}).get("modulation_phase_rad") is not None),
@@ -270,14 +273,19 @@ def test_expected_phase_jitter_is_phase_per_percent_density_times_shot_to_shot_d
     )
     density = [s["plasma"]["density_cm3"] for s in with_phase]
     phase = [s["measured"]["modulation_phase_rad"] for s in with_phase]
-    jitter_pct = reference.density_jitter_pct(density)
+    j = summary.jitter
     assert summary.shots_with_phase == len(with_phase) >= reference.WINDOW
-    assert summary.density_spread_pct == pytest.approx(jitter_pct, rel=1e-9)
-    assert summary.measured_phase_std_rad == pytest.approx(reference.phase_jitter_rad(phase), rel=1e-9)
-    assert summary.expected_phase_jitter_rad == pytest.approx(summary.phase_per_pct_density_rad * jitter_pct, rel=1e-12)
+    assert j.density_spread_pct == pytest.approx(reference.density_jitter_pct(density), rel=1e-9)
+    assert j.measured_phase_std_rad == pytest.approx(reference.phase_jitter_rad(phase), rel=1e-9)
+    parts = [v for v in j.expected_by_source_rad.values() if v is not None]
+    assert set(j.expected_by_source_rad) == set(JITTER_SOURCES)
+    assert j.expected_phase_jitter_rad == pytest.approx(np.sqrt(sum(v * v for v in parts)), rel=1e-12)
+    assert j.expected_by_source_rad["plasma.density_cm3"] == pytest.approx(
+        abs(j.phase_per_ln_rad["plasma.density_cm3"]) * j.density_spread_pct / 100, rel=1e-12
+    )
     figure = figures.phase_figure(db, _campaign(db))
     names = [t["name"] for t in figure["data"]]
-    assert any("expected from shot-to-shot density jitter" in n for n in names)
+    assert any("expected from the logged jitters" in n for n in names)
     assert any("measured shot-to-shot phase jitter" in n for n in names)
 
 
@@ -303,8 +311,8 @@ def test_a_density_scan_posted_out_of_time_order_shows_the_shot_to_shot_jitter_n
     )
     assert response.status_code == 201, response.text
     summary = figures.phase_summary(db, _campaign(db))
-    assert summary.density_spread_pct == pytest.approx(reference.density_jitter_pct(density), rel=1e-9)
-    assert summary.density_spread_pct == pytest.approx(0.1, rel=0.3)
+    assert summary.jitter.density_spread_pct == pytest.approx(reference.density_jitter_pct(density), rel=1e-9)
+    assert summary.jitter.density_spread_pct == pytest.approx(0.1, rel=0.3)
     assert 100 * np.std(density, ddof=1) / np.mean(density) > 4  # what the spread over all shots would say
 
 
@@ -338,8 +346,9 @@ def test_overview_page_embeds_small_charts_and_loads_the_long_series_from_feeds(
     phase_facts = dict(viewer_client.get(f"/campaigns/{SLUG}/charts/phase.json").json()["facts"])
     assert phase_facts["shots with a measured phase"] == "30"
     assert phase_facts["expected phase jitter (shot-to-shot)"].endswith(" rad")
-    assert any("running circular mean of 15 neighbouring shots" in label for label in phase_facts)
-    assert "each of 15 neighbouring shots" in html
+    assert any("circular mean of 14 neighbouring shots" in label for label in phase_facts)
+    assert any(label.strip().startswith("from plasma density") for label in phase_facts)
+    assert "median of its 14 neighbouring shots" in html
     calibration_facts = dict(viewer_client.get(f"/campaigns/{SLUG}/charts/calibration.json").json()["facts"])
     assert calibration_facts["implied density offset (median)"].endswith(" %")
 
@@ -651,7 +660,7 @@ def test_phases_either_side_of_plus_minus_pi_get_a_small_spread_on_the_overview(
     assert response.status_code == 201, response.text
     summary = figures.phase_summary(db, _campaign(db))
     assert summary.shots_with_phase == 30
-    assert summary.measured_phase_std_rad < 0.05
+    assert summary.jitter.measured_phase_std_rad < 0.05
     assert np.std(phases, ddof=1) > 3  # what a plain std about the plain mean would say
     figure = figures.phase_figure(db, _campaign(db))
     per_group = next(t for t in figure["data"] if t["name"].startswith("measured shot-to-shot phase jitter"))

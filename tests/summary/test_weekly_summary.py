@@ -13,6 +13,7 @@ import pytest
 from sqlalchemy import select
 
 import model
+from app.services.phase_spread import JITTER_SOURCES
 from app.services.weekly.summary import build_weekly_summary
 from app.tables import Evaluation, Flag, Shot
 from app.times import IsoWeek, WeekFormatError
@@ -105,20 +106,23 @@ def test_phase_stability_and_density_calibration_figures(session_factory, zurich
         summary = build_weekly_summary(session, zurich_weeks, WEEK)
         rows = stored_week(session, zurich_weeks, WEEK)
 
+    # The overview's selection: evaluated shots with a measured phase, in time order.
     in_time_order = sorted(rows, key=lambda row: (row[0].taken_at, row[0].id))
-    phases = [
-        s.measured_modulation_phase_rad for s, _, _ in in_time_order if s.measured_modulation_phase_rad is not None
-    ]
-    densities = [s.plasma_density_cm3 for s, _, _ in in_time_order]
-    per_pct = statistics.median(e.phase_per_pct_density_rad for _, e, _ in rows)
-    jitter_pct, phase_jitter = reference.density_jitter_pct(densities), reference.phase_jitter_rad(phases)
+    chosen = [s for s, e, _ in in_time_order if s.measured_modulation_phase_rad is not None and e is not None]
+    phases = [s.measured_modulation_phase_rad for s in chosen]
     p = summary.phase_stability
     assert p.measured_count == len(phases) and len(phases) >= reference.WINDOW
-    assert math.isclose(p.measured_phase_std_rad, phase_jitter, rel_tol=1e-9)
-    assert math.isclose(p.density_spread_pct, jitter_pct, rel_tol=1e-9)
-    assert math.isclose(p.phase_per_pct_density_rad, per_pct, rel_tol=1e-12)
-    assert math.isclose(p.expected_phase_jitter_rad, per_pct * jitter_pct, rel_tol=1e-9)
-    assert math.isclose(p.measured_over_expected, phase_jitter / (per_pct * jitter_pct), rel_tol=1e-9)
+    assert math.isclose(p.measured_phase_std_rad, reference.phase_jitter_rad(phases), rel_tol=1e-9)
+    for path in JITTER_SOURCES:
+        logged = [getattr(s, model.column_name(path)) for s in chosen]
+        assert math.isclose(p.spread_pct[path], 100 * reference.log_jitter(logged), rel_tol=1e-9, abs_tol=1e-12)
+        part = abs(p.phase_per_ln_rad[path]) * p.spread_pct[path] / 100
+        assert math.isclose(p.expected_by_source_rad[path], part, rel_tol=1e-9, abs_tol=1e-15)
+    assert math.isclose(p.density_spread_pct, p.spread_pct["plasma.density_cm3"], rel_tol=1e-12)
+    assert math.isclose(p.phase_per_pct_density_rad, abs(p.phase_per_ln_rad["plasma.density_cm3"]) / 100, rel_tol=1e-12)
+    rss = math.sqrt(sum(v * v for v in p.expected_by_source_rad.values()))
+    assert math.isclose(p.expected_phase_jitter_rad, rss, rel_tol=1e-9)
+    assert math.isclose(p.measured_over_expected, p.measured_phase_std_rad / rss, rel_tol=1e-9)
 
     measured = [(s, e) for s, e, _ in rows if e.implied_density_cm3 is not None]
     mismatch = [e.frequency_mismatch_pct for _, e in measured]

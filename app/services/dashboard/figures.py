@@ -22,8 +22,17 @@ from app.plain import rounded, rounded_list
 from app.presentation.charts import axis, layout, text_for_chart
 from app.presentation.fields import field_label, short_label
 from app.presentation.palette import INK, OKABE_ITO, SEVERITY_STYLES, STATUS_STYLES, rgba
-from app.services.phase_spread import PhaseJitter, circular_mean_rad, phase_jitter
+from app.services.ingest.evaluation import model_columns
+from app.services.phase_spread import (
+    JITTER_SOURCES,
+    PhaseJitter,
+    circular_mean_rad,
+    derivative_sample,
+    phase_jitter,
+    typical_phase_derivatives,
+)
 from app.store import dashboard as store
+from app.store import shots as shot_store
 from app.tables import Campaign, Shot
 from app.times import campaign_zone, chart_time
 
@@ -208,39 +217,38 @@ def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk:
 @dataclass(frozen=True)
 class PhaseSummary:
     shots_with_phase: int
-    measured_phase_std_rad: float | None
-    density_spread_pct: float | None
-    phase_per_pct_density_rad: float | None
-    expected_phase_jitter_rad: float | None
+    jitter: PhaseJitter  # over the (thinned) shots with a measured phase
     thinned_step: int = 1  # the spreads come from about every k-th shot of a large campaign
 
 
 def phase_rows(session: Session, campaign: Campaign, upto_pk: int | None = None) -> store.PhaseRows:
-    return store.phase_rows(session, campaign.id, max_rows=PHASE_MAX_ROWS, upto_pk=upto_pk)
+    return store.phase_rows(session, campaign.id, JITTER_SOURCES, max_rows=PHASE_MAX_ROWS, upto_pk=upto_pk)
 
 
-def _jitter(rows: store.PhaseRows, part: slice = slice(None)) -> PhaseJitter:
+def phase_derivatives(session: Session, campaign: Campaign, rows: store.PhaseRows) -> dict[str, float | None]:
+    """Typical d psi/d ln x of the jitter sources over an even sample of the rows' shots."""
+    sample = shot_store.inputs_of(session, [rows.pk[i] for i in derivative_sample(len(rows.pk))]) if rows.pk else None
+    if not sample or not sample[model.column_name(JITTER_SOURCES[0])]:
+        return dict.fromkeys(JITTER_SOURCES)
+    return typical_phase_derivatives(model_columns(sample), campaign.model_settings or {})
+
+
+def _jitter(rows: store.PhaseRows, derivatives: dict[str, float | None], part: slice = slice(None)) -> PhaseJitter:
     """The shared definition (app.services.phase_spread) over the shots with a measured phase."""
 
     def as_array(values: list[Any]) -> np.ndarray:
         return np.array(values[part], dtype=float)  # None becomes NaN
 
-    return phase_jitter(as_array(rows.phase), as_array(rows.density), as_array(rows.phase_per_pct_density))
+    sources = {path: as_array(values) for path, values in rows.sources.items()}
+    return phase_jitter(as_array(rows.phase), sources, derivatives)
 
 
 def phase_summary(
     session: Session, campaign: Campaign, upto_pk: int | None = None, rows: store.PhaseRows | None = None
 ) -> PhaseSummary:
     rows = rows if rows is not None else phase_rows(session, campaign, upto_pk)
-    jitter = _jitter(rows)
-    return PhaseSummary(
-        shots_with_phase=rows.total,
-        measured_phase_std_rad=jitter.measured_phase_std_rad,
-        density_spread_pct=jitter.density_spread_pct,
-        phase_per_pct_density_rad=jitter.phase_per_pct_density_rad,
-        expected_phase_jitter_rad=jitter.expected_phase_jitter_rad,
-        thinned_step=rows.step,
-    )
+    jitter = _jitter(rows, phase_derivatives(session, campaign, rows))
+    return PhaseSummary(shots_with_phase=rows.total, jitter=jitter, thinned_step=rows.step)
 
 
 @dataclass(frozen=True)
@@ -251,12 +259,13 @@ class PhaseGroup:
     jitter: PhaseJitter
 
 
-def phase_groups(session: Session, rows: store.PhaseRows) -> list[PhaseGroup]:
+def phase_groups(session: Session, campaign: Campaign, rows: store.PhaseRows) -> list[PhaseGroup]:
     """Consecutive shots (taken_at order) in at most PHASE_MAX_BINS groups of at least
     PHASE_MIN_SHOTS_PER_BIN shots where there are enough."""
     n = len(rows.pk)
     if n < 2:
         return []
+    derivatives = phase_derivatives(session, campaign, rows)
     count = max(1, min(PHASE_MAX_BINS, n // PHASE_MIN_SHOTS_PER_BIN))
     edges = np.linspace(0, n, count + 1).round().astype(int).tolist()
     parts = [(lo, hi) for lo, hi in zip(edges[:-1], edges[1:], strict=False) if hi > lo]
@@ -265,7 +274,10 @@ def phase_groups(session: Session, rows: store.PhaseRows) -> list[PhaseGroup]:
     phases = np.array(rows.phase, dtype=float)
     return [
         PhaseGroup(
-            times[rows.pk[lo]], times[rows.pk[hi - 1]], circular_mean_rad(phases[lo:hi]), _jitter(rows, slice(lo, hi))
+            times[rows.pk[lo]],
+            times[rows.pk[hi - 1]],
+            circular_mean_rad(phases[lo:hi]),
+            _jitter(rows, derivatives, slice(lo, hi)),
         )
         for lo, hi in parts
     ]
@@ -274,10 +286,11 @@ def phase_groups(session: Session, rows: store.PhaseRows) -> list[PhaseGroup]:
 def phase_figure(
     session: Session, campaign: Campaign, upto_pk: int | None = None, rows: store.PhaseRows | None = None
 ) -> dict[str, Any]:
-    """Measured modulation phase against shot time, beside the jitter the density jitter predicts.
+    """Measured modulation phase against shot time, beside the jitter the logged jitters predict.
 
     Top: each shot's phase with, per group of consecutive shots, the group's circular mean ±
-    the expected jitter (median phase per % density × shot-to-shot density jitter in %).
+    the expected jitter (root-sum-square over density, population, σ_z and σ_r of the typical
+    d psi/d ln x × the group's shot-to-shot jitter of ln x).
     Bottom: per group, the measured shot-to-shot phase jitter beside that expected jitter
     (both about running windows of neighbouring shots, app.services.phase_spread).
     """
@@ -290,7 +303,7 @@ def phase_figure(
         required=(PHASE_FIELD,),
         upto_pk=upto_pk,
     )
-    groups = phase_groups(session, rows if rows is not None else phase_rows(session, campaign, upto_pk))
+    groups = phase_groups(session, campaign, rows if rows is not None else phase_rows(session, campaign, upto_pk))
     traces: list[dict[str, Any]] = []
     centres, upper, lower, measured_rms, expected = [], [], [], [], []
     for g in groups:
@@ -327,7 +340,7 @@ def phase_figure(
             "line": band,
             "fill": "tonexty",
             "fillcolor": rgba(OKABE_ITO["bluish_green"], 0.15),
-            "name": "group mean \u00b1 jitter expected from shot-to-shot density jitter",
+            "name": "group mean \u00b1 jitter expected from the logged jitters",
             "legendgroup": "band",
             "hoverinfo": "skip",
             "xaxis": "x",

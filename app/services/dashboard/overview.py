@@ -35,7 +35,7 @@ from app.services.dashboard.figures import (
     timeline_figure,
 )
 from app.services.dashboard.table import TABLE_VALUE_COLUMNS
-from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
+from app.services.phase_spread import JITTER_SOURCE_NAMES, JITTER_SOURCES, NEIGHBOUR_WINDOW_SHOTS
 from app.store import dashboard as store
 from app.store.dashboard import ShotRow
 from app.tables import Campaign
@@ -127,22 +127,31 @@ CHART_FEEDS = {
 
 def phase_facts(summary: PhaseSummary) -> list[tuple[str, str]]:
     sample = f" (from 1 in {summary.thinned_step} shots)" if summary.thinned_step > 1 else ""
-    window = NEIGHBOUR_WINDOW_SHOTS
-    return [
+    window = NEIGHBOUR_WINDOW_SHOTS - 1
+    j = summary.jitter
+    facts = [
         ("shots with a measured phase", format_number(summary.shots_with_phase)),
         (
-            "measured shot-to-shot phase jitter (robust spread about a running circular mean "
+            "measured shot-to-shot phase jitter (robust spread about the circular mean "
             f"of {window} neighbouring shots)",
-            f"{format_number(summary.measured_phase_std_rad)} rad{sample}",
+            f"{format_number(j.measured_phase_std_rad)} rad{sample}",
         ),
         (
-            "shot-to-shot density jitter of those shots (robust spread about a running median "
-            f"of {window} neighbouring shots)",
-            f"{format_number(summary.density_spread_pct)} %{sample}",
+            "expected phase jitter (shot-to-shot)",
+            f"{format_number(j.expected_phase_jitter_rad)} rad",
         ),
-        ("phase change per 1 % density (median)", f"{format_number(summary.phase_per_pct_density_rad)} rad/%"),
-        ("expected phase jitter (shot-to-shot)", f"{format_number(summary.expected_phase_jitter_rad)} rad"),
     ]
+    for path in JITTER_SOURCES:
+        if path not in j.spread_pct:
+            continue
+        facts.append(
+            (
+                f"\u2003from {JITTER_SOURCE_NAMES[path]}: {format_number(j.spread_pct[path])} % shot-to-shot "
+                f"\u00d7 {format_number(j.phase_per_ln_rad.get(path))} rad per unit ln",
+                f"{format_number(j.expected_by_source_rad.get(path))} rad",
+            )
+        )
+    return facts
 
 
 def calibration_facts(summary: CalibrationSummary) -> list[tuple[str, str]]:

@@ -10,7 +10,7 @@ import numpy as np
 
 from app.presentation.templates import render
 from app.services.export_table import NOT_EVALUATED
-from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
+from app.services.phase_spread import JITTER_SOURCE_NAMES, NEIGHBOUR_WINDOW_SHOTS
 from app.services.weekly import report_charts as charts
 from app.services.weekly.summary import STATUSES, WeeklySummary, export_file_name
 from app.times import campaign_zone, local_text
@@ -78,6 +78,7 @@ def render_html(summary: WeeklySummary) -> str:
         flagged=flagged,
         flagged_limit=HTML_FLAGGED_LIMIT,
         local=lambda t: local_text(t, zone),
-        phase_window_shots=NEIGHBOUR_WINDOW_SHOTS,
+        phase_window_shots=NEIGHBOUR_WINDOW_SHOTS - 1,
+        jitter_sources=list(JITTER_SOURCE_NAMES.items()),
         file_stem=export_file_name(summary.campaign_slug, summary.week.label, "").rstrip("."),
     )

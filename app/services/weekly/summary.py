@@ -14,6 +14,7 @@ from collections.abc import Iterable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from typing import Any
 
 import numpy as np
 from sqlalchemy.orm import Session
@@ -23,7 +24,7 @@ from app.database import snapshot_read
 from app.plain import finite_or_none
 from app.presentation.fields import unit_of
 from app.services.export_table import NOT_EVALUATED, ShotTable
-from app.services.phase_spread import phase_jitter
+from app.services.phase_spread import JITTER_SOURCES, phase_jitter, typical_phase_derivatives
 from app.store import exports as export_store
 from app.store.exports import FlagRow
 from app.tables import Campaign
@@ -90,16 +91,20 @@ class FlaggedShot:
 
 @dataclass(frozen=True)
 class PhaseStability:
-    """The week's shot-to-shot phase stability (app.services.phase_spread): deviations from
-    a running circular mean / running median of NEIGHBOUR_WINDOW_SHOTS neighbouring shots."""
+    """The week's shot-to-shot phase stability (app.services.phase_spread), over the evaluated shots
+    with a measured phase in time order, as the overview selects them: deviations from the circular
+    mean / median of each shot's NEIGHBOUR_WINDOW_SHOTS - 1 neighbours."""
 
     measured_count: int
     measured_phase_std_rad: float | None  # shot-to-shot phase jitter
     density_count: int
-    density_spread_pct: float | None  # shot-to-shot density jitter, % of the running median
-    phase_per_pct_density_rad: float | None  # median over the week's shots
-    expected_phase_jitter_rad: float | None  # phase_per_pct_density_rad x density_spread_pct
+    density_spread_pct: float | None  # shot-to-shot density jitter [%]
+    phase_per_pct_density_rad: float | None  # |d psi/d ln n| / 100, median over a sample of the shots
+    expected_phase_jitter_rad: float | None  # root-sum-square of expected_by_source_rad
     measured_over_expected: float | None
+    spread_pct: dict[str, float | None] = field(default_factory=dict)  # jitter source -> shot-to-shot [%]
+    phase_per_ln_rad: dict[str, float | None] = field(default_factory=dict)  # source -> d psi/d ln x [rad]
+    expected_by_source_rad: dict[str, float | None] = field(default_factory=dict)  # source -> its part [rad]
 
 
 @dataclass(frozen=True)
@@ -190,12 +195,12 @@ def quantity_range(key: str, values: np.ndarray) -> QuantityRange:
     return QuantityRange(key, unit_of(key), int(v.size), float(v.min()), float(np.median(v)), float(v.max()))
 
 
-def phase_stability(shots: ShotTable) -> PhaseStability:
-    jitter = phase_jitter(
-        shots.inputs["measured.modulation_phase_rad"],
-        shots.inputs["plasma.density_cm3"],
-        shots.outputs["phase_per_pct_density_rad"],
-    )
+def phase_stability(shots: ShotTable, settings: Mapping[str, Any] | None = None) -> PhaseStability:
+    phase = shots.inputs["measured.modulation_phase_rad"]
+    chosen = np.isfinite(phase) & (shots.status != NOT_EVALUATED)  # the overview's selection
+    inputs = {path: column[chosen] for path, column in shots.inputs.items()}
+    derivatives = typical_phase_derivatives(inputs, settings) if chosen.any() else dict.fromkeys(JITTER_SOURCES)
+    jitter = phase_jitter(inputs["measured.modulation_phase_rad"], {p: inputs[p] for p in JITTER_SOURCES}, derivatives)
     measured, expected = jitter.measured_phase_std_rad, jitter.expected_phase_jitter_rad
     ratio = measured / expected if measured is not None and expected else None
     return PhaseStability(
@@ -206,6 +211,9 @@ def phase_stability(shots: ShotTable) -> PhaseStability:
         phase_per_pct_density_rad=jitter.phase_per_pct_density_rad,
         expected_phase_jitter_rad=expected,
         measured_over_expected=finite_or_none(ratio),
+        spread_pct=jitter.spread_pct,
+        phase_per_ln_rad=jitter.phase_per_ln_rad,
+        expected_by_source_rad=jitter.expected_by_source_rad,
     )
 
 
@@ -352,7 +360,7 @@ def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, n
         flag_counts=figures.flag_counts,
         ranges=figures.ranges,
         flagged_shots=flagged_shots(shots),
-        phase_stability=phase_stability(shots),
+        phase_stability=phase_stability(shots, campaign.model_settings or {}),
         density_calibration=density_calibration(shots),
         previous=_previous_week(session, campaign, week, figures),
         model_versions=sorted({v for v in shots.model_version if v}),
