@@ -141,7 +141,7 @@ NOMINAL: dict[str, float] = {
 }
 JITTER: dict[str, float] = {
     "population": 0.03,
-    "sigma_z_mm": 0.012,
+    "sigma_z_mm": 0.001,  # a well-stabilised ring: k_p xi_ref ~ 175 rad makes sigma_z a large phase source
     "sigma_r_mm": 0.02,
     "emittance_n_mm_mrad": 0.04,
     "ebunch_charge_pc": 0.05,
@@ -153,8 +153,7 @@ ANGLE_RMS_MRAD = 0.008
 SEED_TIMING_RMS_MM = 0.6
 FREQUENCY_RESOLUTION = 0.0008  # relative rms of the heterodyne frequency measurement
 PHASE_RESOLUTION_RAD = 0.05
-# Phase of the reference slice at the nominal density, per seed method (the streak camera is
-# timed on the seed, so the phase is read at a fixed delay r_ref x nominal sigma_z behind it).
+# Phase offset of the reference slice per seed method (the streak camera is timed on the seed).
 PHASE_OFFSET_RAD = {"ionization_front": 0.9, "electron_bunch": -0.4}
 
 # Halo and witness (the invented truths of the scaling checks): the halo radius on the screen is
