@@ -1,9 +1,11 @@
 """The invented demo campaign: a fictional facility, its calendar, programme and machine.
 
 Nothing here describes a real facility, experiment, laboratory or person, and the
-machine numbers are our own (invented, plausible for a long proton bunch and a
-laser-ionised vapour cell). The calendar is fixed so that the demo is the same on
-every machine: three ISO weeks, 2026-W46 to 2026-W48, in the campaign's local time zone.
+machine numbers are our own: invented, physical for a long proton bunch in a laser-ionised
+gas column, and deliberately in a corner of parameter space of their own (a 58 GeV/c
+driver, a 190 mm bunch, a 17 m argon column, densities in the 1e13 cm^-3 decade). The
+calendar is fixed so that the demo is the same on every machine: three ISO weeks, 2026-W46
+to 2026-W48, in the campaign's local time zone.
 """
 
 from __future__ import annotations
@@ -30,11 +32,12 @@ CURRENT_WEEK = "2026-W48"
 CAMPAIGN_DESCRIPTION = (
     f"Invented demonstration data for a fictional facility, the {FACILITY_NAME}: a "
     "three-week self-modulation campaign (ISO weeks 2026-W46 to 2026-W48, local time "
-    f"{CAMPAIGN_TIMEZONE}). a long proton bunch is seeded by an ionisation front in a "
-    "laser-ionised krypton cell; the programme has density, seed-position, gradient and "
-    "bunch-population scans, an electron-bunch seeding test, a day of poor alignment, a "
-    "light-ion test and, in the last week, a slow drift of the density gauge calibration. "
-    "the facility, its machine numbers and its crews are made up."
+    f"{CAMPAIGN_TIMEZONE}). a 58 GeV/c proton bunch 190 mm long (rms) is seeded by an "
+    "ionisation front in a 17 m laser-ionised argon column at about 2.4e13 cm^-3; the "
+    "programme has density, seed-position, gradient and bunch-population scans, an "
+    "electron-bunch seeding test, a day of poor alignment and a light-ion test. the density "
+    "gauge reads about 1.5 % low, and about 3 % low after its head is exchanged in the "
+    "access of wednesday 18 november. the facility, its machine numbers and its crews are made up."
 )
 
 # Shifts in local time; no beam outside them.
@@ -87,8 +90,9 @@ PLAN: dict[date, dict[str, tuple[Block, ...]]] = {
     # 2026-W48
     _d(23): {"early": (Block("production"),), "late": (Block("production"),)},
     _d(24): {"early": (Block("production"),), "late": (Block("density-scan", options={"scan": "fine"}),)},
-    _d(25): {"early": (Block("production"),), "late": (Block("production"),)},
-    _d(26): {"early": (Block("seed-scan", options={"scan": "fine"}),), "late": (Block("production"),)},
+    # After the gauge exchange: unseeded reference shots again, and the gradient scan repeated.
+    _d(25): {"early": (Block("production"),), "late": (Block("unseeded-reference", 25), Block("production"))},
+    _d(26): {"early": (Block("seed-scan", options={"scan": "fine"}),), "late": (Block("gradient-scan"),)},
     _d(27): {"early": (Block("ebunch-seed", options={"scan": False}),), "late": (Block("production"),)},
     _d(28): {"early": (Block("production"),)},
 }
@@ -100,114 +104,140 @@ BEAM_STOPS: tuple[tuple[date, time, time], ...] = (
     (_d(25), time(15, 0), time(16, 20)),  # cooling water alarm
 )
 
-# The slow density-gauge calibration drift: the true density runs ahead of the recorded
-# one by DRIFT_END_FRACTION * x**DRIFT_POWER, x going from 0 at the start to 1 at the end.
-DRIFT_START = (_d(20), time(6, 0))
-DRIFT_END = (_d(28), time(14, 0))
-DRIFT_END_FRACTION = 0.11
-DRIFT_POWER = 8.0
+# The density diagnostic's calibration (the invented truth the model-vs-measurement figures
+# should find): the gauge reads low, so the true density is CALIBRATION_SCALE_BEFORE times the
+# logged one; during the maintenance access of Wednesday 18 November the gauge head is exchanged
+# and from the first beam after it (the late shift) it reads lower still, CALIBRATION_SCALE_AFTER.
+# The crews regulate the cell on the gauge, so the logged density stays at the set point and the
+# true density (what the modulation frequency and phase follow) is scale x logged.
+CALIBRATION_SCALE_BEFORE = 1.015
+CALIBRATION_SCALE_AFTER = 1.030
+CALIBRATION_STEP = (_d(18), time(14, 0))
+GAUGE_NOISE = 2e-4  # relative rms of the gauge reading on top of the true shot-to-shot jitter
+# After a fill step the gauge's range filter settles: ln(reading) relaxes to the new set point
+# as exp(-t/GAUGE_SETTLE_S), so the first shots after a large step of the wide density scan
+# log a density between the old and the new one (DENSITY_MISMATCH fires on them).
+GAUGE_SETTLE_S = 50.0
 
-# The machine: invented nominal values and shot-to-shot relative jitter (rms).
+# The machine: invented nominal values and shot-to-shot relative jitter (rms). The corner:
+# a 58 GeV/c proton bunch 190 mm long (rms) in a 17 m laser-ionised argon column at
+# 2.4e13 cm^-3 (lambda_p 6.8 mm, sigma_z/lambda_p 28, k_p sigma_r 0.44): the nominal shot
+# grows from the seed (7 e-folds over the noise) and saturates about 5 m into the plasma.
 NOMINAL: dict[str, float] = {
-    "momentum_gev": 160.0,
-    "population": 1.45e11,
-    "sigma_z_mm": 62.0,
-    "sigma_r_mm": 0.22,
-    "emittance_n_mm_mrad": 1.5,
-    "density_cm3": 5.8e14,
-    "gradient_pct_per_m": 0.30,
-    "length_m": 9.2,
-    "ion_mass_amu": 83.798,  # krypton
-    "seed_position_mm": 24.0,
-    "ebunch_position_mm": 135.0,
-    "ebunch_charge_pc": 180.0,
-    "ebunch_sigma_z_mm": 0.28,
-    "ebunch_sigma_r_mm": 0.21,
-    "witness_injection_mev": 18.0,
+    "momentum_gev": 58.0,
+    "population": 2.6e11,
+    "sigma_z_mm": 190.0,
+    "sigma_r_mm": 0.48,
+    "emittance_n_mm_mrad": 1.7,
+    "density_cm3": 2.4e13,
+    "gradient_pct_per_m": 0.10,
+    "length_m": 17.0,
+    "ion_mass_amu": 39.948,  # argon
+    "seed_position_mm": 75.0,
+    "ebunch_position_mm": 420.0,
+    "ebunch_charge_pc": 400.0,
+    "ebunch_sigma_z_mm": 0.6,
+    "ebunch_sigma_r_mm": 0.45,
 }
 JITTER: dict[str, float] = {
-    "population": 0.04,
-    "sigma_z_mm": 0.015,
-    "sigma_r_mm": 0.025,
+    "population": 0.03,
+    "sigma_z_mm": 0.001,  # a well-stabilised ring: k_p xi_ref ~ 175 rad makes sigma_z a large phase source
+    "sigma_r_mm": 0.02,
     "emittance_n_mm_mrad": 0.04,
     "ebunch_charge_pc": 0.05,
-    "true_density": 0.0012,  # shot-to-shot density jitter of the cell
+    "true_density": 0.0030,  # shot-to-shot density jitter of the cell (the gauge sees it)
 }
 # Absolute rms jitter of alignment and timing.
-OFFSET_RMS_MM = 0.012
-ANGLE_RMS_MRAD = 0.006
-SEED_TIMING_RMS_MM = 0.3
+OFFSET_RMS_MM = 0.025
+ANGLE_RMS_MRAD = 0.008
+SEED_TIMING_RMS_MM = 0.6
 FREQUENCY_RESOLUTION = 0.0008  # relative rms of the heterodyne frequency measurement
 PHASE_RESOLUTION_RAD = 0.05
-PHASE_CALIBRATION_RAD = 0.9  # phase of the reference slice at the recorded density
+# Phase offset of the reference slice per seed method (the streak camera is timed on the seed).
+PHASE_OFFSET_RAD = {"ionization_front": 0.9, "electron_bunch": -0.4}
+
+# Halo and witness (the invented truths of the scaling checks): the halo radius on the screen is
+# HALO_MM_PER_PROXY x the kick-angle proxy wakefield [MV/m] x L [m] / p [GeV/c] (a project proxy),
+# recorded when it clears the beam core; the witness energy is WITNESS_MEV_PER_PROXY x the gain
+# proxy wakefield [MV/m] x (L - z_sat) [m] for shots that saturate. Both with lognormal noise and
+# a few outliers (a saturated screen, stray light, lost injection timing, spectrometer background).
+HALO_MM_PER_PROXY = 0.55
+HALO_NOISE = 0.06
+HALO_VISIBLE_MM = 1.5
+WITNESS_MEV_PER_PROXY = 0.30
+WITNESS_NOISE = 0.04
+OUTLIER_SHARE = 0.005
 
 # Scans: step values, and relative weights (shots per step).
 DENSITY_SCAN_WIDE = (
-    (2.2e12, 0.3),
-    (6.0e12, 0.3),
-    (1.5e13, 0.5),
-    (3.0e13, 0.8),
+    (1.2e11, 0.3),
+    (3.5e11, 0.3),
+    (9.0e11, 0.5),
+    (2.0e12, 0.8),
+    (4.0e12, 1.0),
+    (7.0e12, 1.0),
+    (1.1e13, 1.0),
+    (1.6e13, 1.0),
+    (2.0e13, 1.0),
+    (2.4e13, 1.2),
+    (3.0e13, 1.0),
+    (4.0e13, 1.0),
     (6.0e13, 1.0),
-    (1.2e14, 1.0),
-    (2.2e14, 1.0),
-    (3.5e14, 1.0),
-    (4.6e14, 1.0),
-    (5.8e14, 1.2),
-    (7.0e14, 1.0),
-    (8.5e14, 1.0),
-    (1.05e15, 1.0),
-    (1.35e15, 1.0),
-    (1.8e15, 0.8),
-    (2.4e15, 0.6),
+    (1.0e14, 1.0),
+    (2.2e14, 0.8),
+    (6.0e14, 0.6),
+    (1.4e15, 0.5),
 )
-DENSITY_SCAN_FINE = tuple((5.8e14 * f, 1.0) for f in (0.90, 0.93, 0.96, 0.98, 1.0, 1.02, 1.04, 1.07, 1.10))
+DENSITY_SCAN_FINE = tuple((2.4e13 * f, 1.0) for f in (0.90, 0.93, 0.96, 0.98, 1.0, 1.02, 1.04, 1.07, 1.10))
 SEED_SCAN_WIDE = (
-    (-45.0, 1.0),
-    (-25.0, 1.0),
-    (-10.0, 1.0),
+    (-160.0, 1.0),
+    (-90.0, 1.0),
+    (-35.0, 1.0),
     (0.0, 1.0),
-    (12.0, 1.0),
-    (24.0, 1.2),
-    (36.0, 1.0),
-    (50.0, 1.0),
-    (68.0, 1.0),
-    (90.0, 1.0),
-    (115.0, 0.8),
-    (145.0, 0.6),
-    (180.0, 0.5),
-    (215.0, 0.4),
-    (250.0, 0.3),
+    (40.0, 1.0),
+    (75.0, 1.2),
+    (115.0, 1.0),
+    (160.0, 1.0),
+    (220.0, 1.0),
+    (290.0, 1.0),
+    (370.0, 0.8),
+    (460.0, 0.6),
+    (560.0, 0.5),
+    (660.0, 0.4),
+    (760.0, 0.3),
 )
-SEED_SCAN_FINE = tuple((p, 1.0) for p in (16.0, 18.0, 20.0, 22.0, 24.0, 26.0, 28.0, 30.0, 32.0))
-GRADIENT_SCAN = tuple((g, 1.0) for g in (-1.4, -1.0, -0.6, -0.3, 0.0, 0.15, 0.3, 0.45, 0.6, 0.8, 1.0, 1.3, 1.7, 2.1))
+SEED_SCAN_FINE = tuple((p, 1.0) for p in (55.0, 60.0, 65.0, 70.0, 75.0, 80.0, 85.0, 90.0, 95.0))
+GRADIENT_SCAN = tuple(
+    (g, 1.0) for g in (-1.2, -0.9, -0.6, -0.35, -0.15, 0.0, 0.1, 0.2, 0.35, 0.5, 0.7, 0.95, 1.25, 1.6)
+)
 INTENSITY_SCAN = (
-    (1.6e11, 1.0),
-    (1.3e11, 1.0),
-    (1.0e11, 1.0),
-    (7.5e10, 1.0),
-    (5.5e10, 1.0),
-    (4.0e10, 0.8),
-    (2.5e10, 0.6),
-    (1.4e10, 0.5),
-    (8.0e9, 0.4),
+    (3.0e11, 1.0),
+    (2.3e11, 1.0),
+    (1.7e11, 1.0),
+    (1.2e11, 1.0),
+    (8.5e10, 1.0),
+    (6.0e10, 0.8),
+    (4.0e10, 0.6),
+    (2.5e10, 0.5),
+    (1.5e10, 0.4),
 )
-# Electron-bunch seeding: (charge pC, rms length mm); the long ones seed weakly.
+# Electron-bunch seeding: (charge pC, rms length mm); the weak and the long ones seed weakly.
 EBUNCH_SCAN = (
-    ((180.0, 0.28), 1.2),
-    ((120.0, 0.28), 1.0),
-    ((60.0, 0.28), 1.0),
-    ((25.0, 0.28), 1.0),
-    ((8.0, 0.28), 1.0),
-    ((2.0, 0.28), 0.8),
-    ((0.4, 0.28), 0.6),
-    ((0.12, 0.28), 0.4),
-    ((180.0, 0.45), 1.0),
-    ((180.0, 0.6), 0.8),
-    ((180.0, 0.8), 0.6),
-    ((180.0, 0.95), 0.4),
+    ((400.0, 0.6), 1.2),
+    ((250.0, 0.6), 1.0),
+    ((120.0, 0.6), 1.0),
+    ((50.0, 0.6), 1.0),
+    ((15.0, 0.6), 1.0),
+    ((4.0, 0.6), 0.8),
+    ((1.0, 0.6), 0.6),
+    ((0.3, 0.6), 0.4),
+    ((400.0, 1.2), 1.0),
+    ((400.0, 1.8), 0.8),
+    ((400.0, 2.4), 0.6),
+    ((400.0, 3.0), 0.4),
 )
-ION_TEST = (("helium", 4.0026, 0.6), ("hydrogen", 1.008, 0.4))  # gas, ion mass (u), share
-QUAD_TRIP_SIGMA_R_MM = (0.45, 0.78, 0.92, 0.86, 0.64, 0.38)
+ION_TEST = (("helium", 4.0026, 0.5), ("hydrogen", 1.008, 0.5))  # gas, ion mass (u), share
+QUAD_TRIP_SIGMA_R_MM = (1.0, 1.7, 2.0, 1.85, 1.4, 0.85)
 
 # Proper names used anywhere in the demo data; all invented (tests check nothing else appears).
 INVENTED_NAMES = frozenset({"Quillmarsh"})
