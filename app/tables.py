@@ -87,6 +87,7 @@ class Shot(Base):
     __table_args__ = (
         UniqueConstraint("campaign_id", "shot_id", name="uq_shots_campaign_shot_id"),
         Index("ix_shots_campaign_taken_at", "campaign_id", "taken_at", "id"),
+        Index("ix_shots_campaign_id_id", "campaign_id", "id"),  # the latest shot: one seek
     )
 
     id: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)
