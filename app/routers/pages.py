@@ -426,6 +426,7 @@ def shot_table(request: Request, campaign: PageCampaign, session: DB) -> Respons
             "flag_codes": table.FLAG_CODES,
             "seed_methods": table.SEED_METHODS,
             "columns": table.table_columns(),
+            "table_notes_chars": table.TABLE_NOTES_CHARS,
             "link": lambda **changes: _table_link(slug, query.params, changes),
             "csv_link": f"/campaigns/{quote(slug)}/shots.csv" + (f"?{urlencode(query.params)}" if query.params else ""),
             "active": "shots",

@@ -35,7 +35,7 @@ from app.services.dashboard.figures import (
     regime_figure,
     timeline_figure,
 )
-from app.services.dashboard.table import TABLE_VALUE_COLUMNS
+from app.services.dashboard.table import TABLE_NOTES_CHARS, TABLE_VALUE_COLUMNS
 from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
 from app.store import dashboard as store
 from app.store.dashboard import ShotRow
@@ -300,7 +300,7 @@ def live_rows(rows: Sequence[ShotRow], campaign: Campaign, shot_url: str) -> lis
                 "status": row.status,
                 "seed_method": row.seed_method,
                 "flags": [{"code": c, "severity": s} for c, s in row.flags],
-                "notes": row.notes[:200],
+                "notes": row.notes[:TABLE_NOTES_CHARS],
                 "tags": row.tags,
                 "values": {k: rounded(v) for k, v in row.values.items()},
                 "text": {k: format_number(v) for k, v in row.values.items()},

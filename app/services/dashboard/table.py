@@ -26,6 +26,7 @@ SEED_METHODS = model.SEED_METHODS
 FLAG_CODES = model.FLAG_CODES
 
 TABLE_PAGE_SIZE = 100
+TABLE_NOTES_CHARS = 1000  # notes wrap in their column; longer ones end with a link to the shot
 TABLE_VALUE_COLUMNS = (
     "plasma_density_cm3",
     "driver_population",

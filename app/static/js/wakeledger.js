@@ -298,7 +298,7 @@
     tr.appendChild(td);
     tr.appendChild(el("td", null, s.seed_method));
     columns.forEach(function (c) { tr.appendChild(el("td", "num", s.text[c])); });
-    td = el("td", "notes", s.notes.length > 160 ? s.notes.slice(0, 160) + "\u2026" : s.notes);
+    td = el("td", "notes", s.notes);
     s.tags.forEach(function (t) { td.appendChild(document.createTextNode(" ")); td.appendChild(el("span", "tag", t)); });
     tr.appendChild(td);
     return tr;
