@@ -14,6 +14,8 @@ from sqlalchemy.orm import Session
 
 import model
 from app.errors import InvalidInput
+from app.presentation.fields import unit_of, with_unit
+from app.presentation.numbers import editable_number, format_number
 from app.services import reevaluation
 from app.services.campaign_settings import change_settings
 from app.services.campaigns import effective_settings, merge_patch_between
@@ -29,6 +31,9 @@ SETTING_HELP = {
 }
 
 
+SETTING_UNITS = {"phase_tolerance_rad": "rad"}
+
+
 @dataclass
 class SettingField:
     name: str  # form field name
@@ -38,6 +43,12 @@ class SettingField:
     current: float
     text: str  # what the input shows (the submitted text after an error)
     overridden: bool
+    unit: str = ""
+
+    @property
+    def default_text(self) -> str:
+        """The default, rounded, with its unit (app.presentation.numbers)."""
+        return format_number(self.default, self.unit)
 
 
 @dataclass
@@ -57,11 +68,23 @@ def settings_form(session: Session, campaign: Campaign, submitted: Mapping[str, 
     overrides = campaign.model_settings or {}
     submitted = submitted or {}
 
-    def make(name: str, label: str, help_text: str, default: float, value: float, overridden: bool) -> SettingField:
-        return SettingField(name, label, help_text, default, value, submitted.get(name, repr(float(value))), overridden)
+    def make(
+        name: str, label: str, help_text: str, default: float, value: float, overridden: bool, unit: str = ""
+    ) -> SettingField:
+        # The box shows the fewest digits that read back as the same number (0.3, not 0.30000000000000004).
+        text = submitted.get(name, editable_number(float(value)))
+        return SettingField(name, with_unit(label, unit), help_text, default, value, text, overridden, unit)
 
     model_fields = [
-        make(f"setting.{key}", key, SETTING_HELP.get(key, ""), default, current.get(key, default), key in overrides)
+        make(
+            f"setting.{key}",
+            key,
+            SETTING_HELP.get(key, ""),
+            default,
+            current.get(key, default),
+            key in overrides,
+            SETTING_UNITS.get(key, ""),
+        )
         for key, default in model.DEFAULT_SETTINGS.items()
         if key != "limits"
     ]
@@ -80,6 +103,7 @@ def settings_form(session: Session, campaign: Campaign, submitted: Mapping[str, 
                 default,
                 current["limits"][code][level],
                 level in (overrides.get("limits", {}).get(code, {}) or {}),
+                unit_of(rule.metric) if rule else "",
             )
             for level, default in levels.items()
         ]
