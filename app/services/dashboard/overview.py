@@ -174,10 +174,28 @@ CHART_FACTS = {
 }
 
 
+# Chart feeds by campaign, chart and parameters, kept while the campaign's change marks
+# stand still: every viewer of an overview shares one computation per new shot.
+_FEEDS: dict[tuple[Any, ...], tuple[tuple[Any, ...], dict[str, Any]]] = {}
+_FEEDS_MAX = 64
+
+
 def chart_feed(session: Session, campaign: Campaign, name: str, **params: Any) -> dict[str, Any]:
     """A chart drawn from the shots stored up to now, that cursor for the live feed, and
-    the figures shown beside it."""
-    cursor = store.latest_shot_pk(session, campaign.id)
+    the figures shown beside it (computed once per change of the campaign's marks)."""
+    marks = (*store.change_marks(session, campaign.id), campaign.settings_version)
+    where = (str(session.get_bind().engine.url), campaign.id, name, tuple(sorted(params.items())))
+    cached = _FEEDS.get(where)
+    if cached is not None and cached[0] == marks:
+        return cached[1]
+    feed = _chart_feed(session, campaign, name, marks[0], **params)
+    if len(_FEEDS) >= _FEEDS_MAX:
+        _FEEDS.clear()
+    _FEEDS[where] = (marks, feed)
+    return feed
+
+
+def _chart_feed(session: Session, campaign: Campaign, name: str, cursor: int, **params: Any) -> dict[str, Any]:
     if name == "phase":  # the chart and its figures from one read of the phases
         rows = phase_rows(session, campaign, cursor)
         return {

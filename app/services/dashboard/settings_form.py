@@ -15,7 +15,7 @@ from sqlalchemy.orm import Session
 import model
 from app.errors import InvalidInput
 from app.presentation.fields import unit_of, with_unit
-from app.presentation.numbers import editable_number, format_number
+from app.presentation.numbers import format_number
 from app.services import reevaluation
 from app.services.campaign_settings import change_settings
 from app.services.campaigns import effective_settings, merge_patch_between
@@ -71,8 +71,9 @@ def settings_form(session: Session, campaign: Campaign, submitted: Mapping[str, 
     def make(
         name: str, label: str, help_text: str, default: float, value: float, overridden: bool, unit: str = ""
     ) -> SettingField:
-        # The box shows the fewest digits that read back as the same number (0.3, not 0.30000000000000004).
-        text = submitted.get(name, editable_number(float(value)))
+        # The box shows the value rounded (0.3142, not 0.3141592653589793); saving it unchanged
+        # keeps the exact value (save_settings compares the text with this rounding).
+        text = submitted.get(name, shown_value(value))
         return SettingField(name, with_unit(label, unit), help_text, default, value, text, overridden, unit)
 
     model_fields = [
@@ -120,6 +121,11 @@ class SettingsOutcome:
     changed: bool = False
 
 
+def shown_value(value: float) -> str:
+    """A setting as its box shows it: rounded by the one number formatter, no unit."""
+    return format_number(float(value)).replace(",", "")
+
+
 def _parserounded(text: str) -> float:
     value = float(text.strip())
     if not math.isfinite(value):
@@ -131,12 +137,24 @@ def save_settings(session: Session, campaign: Campaign, submitted: Mapping[str, 
     """Validate the form and send the change as a merge patch (which queues the re-evaluation)."""
     errors: dict[str, str] = {}
     new: dict[str, Any] = {"limits": {}}
+    current = effective_settings(campaign)
+
+    def current_of(name: str) -> float | None:
+        parts = name.split(".")
+        if parts[0] == "setting":
+            return current.get(parts[1])
+        return current["limits"].get(parts[1], {}).get(parts[2])
 
     def changed_value(name: str, default: float, what: str) -> float | None:
-        """The box's number when it differs from the default; an empty box means the default."""
+        """The box's number when it differs from the default; an empty box means the default,
+        and a box left showing the rounded current value keeps the exact current value."""
         text = submitted.get(name, "")
+        now = current_of(name)
         try:
-            value = _parserounded(text) if text.strip() else default
+            if now is not None and text.strip() == shown_value(now):
+                value = float(now)
+            else:
+                value = _parserounded(text) if text.strip() else default
         except ValueError:
             errors[name] = f"{what} must be a finite number, e.g. {default:g}"
             return None
