@@ -186,7 +186,8 @@ _OVERFLOW = """() => {
       if (el.closest('.table-wrap') && el.closest('.table-wrap') !== el) return;  // scrolls inside its own box
       const r = el.getBoundingClientRect();
       if (r.width && r.right > box.right + 1)
-        out.push(el.tagName + (el.id ? '#' + el.id : '') + ' ends at ' + Math.round(r.right) + ' > card ' + Math.round(box.right));
+        out.push(el.tagName + (el.id ? '#' + el.id : '') + ' ends at ' + Math.round(r.right)
+                 + ' > card ' + Math.round(box.right));
     });
   });
   return out.slice(0, 10);

@@ -88,7 +88,7 @@ def test_the_weekly_charts_pin_a_wild_value_instead_of_flattening(wild):
 
     y = np.array([1.0 + 0.01 * i for i in range(40)] + [1606.0])
     svg = str(scatter_svg(np.arange(41.0), y, np.array(["nominal"] * 41), title="t", x_label="x", y_label="y"))
-    assert svg.count("class=\"points pinned marker-triangle-up\"") == 1
+    assert svg.count('class="points pinned marker-triangle-up"') == 1
     assert "1 shot out of range, pinned at the edge" in svg
 
 

@@ -14,6 +14,7 @@ from app.services.export_table import NOT_EVALUATED
 from app.services.phase_spread import NEIGHBOUR_WINDOW_SHOTS
 from app.services.weekly import report_charts as charts
 from app.services.weekly.summary import STATUSES, FlaggedShot, WeeklySummary, export_file_name
+from app.store.exports import FlagRow
 from app.times import campaign_zone, local_text
 
 # Flagged shots listed in the HTML report per status; the CSV/JSON exports list all.
@@ -86,7 +87,8 @@ def sentence_groups(shots: list[FlaggedShot]) -> list[SentenceGroup]:
     group of its own kind (empty code)."""
     groups: dict[tuple[str, str, str], SentenceGroup] = {}
     for shot in shots:
-        for f in shot.reasons or [None]:
+        reasons: list[FlagRow | None] = list(shot.reasons) or [None]
+        for f in reasons:
             key = (f.code, f.severity, f.message) if f is not None else ("", "", "")
             groups.setdefault(key, SentenceGroup(*key)).shots.append(shot)
     return sorted(groups.values(), key=lambda g: (-len(g.shots), g.code, g.message))
