@@ -11,7 +11,7 @@ from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
-from fastapi.staticfiles import StaticFiles
+from starlette.middleware.gzip import GZipMiddleware
 
 from app.advisory import ADVISORY_CAUTION
 from app.config import Settings, get_settings
@@ -29,7 +29,7 @@ def _include_routers(app: FastAPI) -> None:
     app.include_router(api.ops_router)  # /healthz and /metrics at the root as well
     app.include_router(pages.router)
     pages.install_page_handlers(app)
-    app.mount("/static", StaticFiles(directory=pages.STATIC_DIR), name="static")
+    app.mount("/static", pages.VersionedStaticFiles(directory=pages.STATIC_DIR), name="static")
     app.include_router(summary.router)
     app.include_router(calibration.router)
     app.include_router(calibration.page_router)
@@ -77,4 +77,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.add_middleware(BodySizeLimit, limit=settings.max_body_bytes)
     app.add_middleware(AuthenticateBeforeBody)
     app.add_middleware(RefuseNulInUrl)
+    # Pages, JSON feeds and our static files go out gzip-compressed to browsers that accept
+    # it (plotly.min.js is sent pre-compressed, app.routers.pages).
+    app.add_middleware(GZipMiddleware, minimum_size=1000, compresslevel=6)
     return app

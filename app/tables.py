@@ -96,6 +96,7 @@ class Shot(Base):
             sqlite_where=text("excluded_at IS NOT NULL"),
             postgresql_where=text("excluded_at IS NOT NULL"),
         ),
+        Index("ix_shots_campaign_id_id", "campaign_id", "id"),  # the latest shot: one seek
     )
 
     id: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)

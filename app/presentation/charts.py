@@ -6,6 +6,8 @@ from __future__ import annotations
 import html
 from typing import Any
 
+import numpy as np
+
 from app.presentation.palette import GRID, INK
 
 
@@ -33,3 +35,35 @@ def axis(title: str, **extra: Any) -> dict[str, Any]:
 def text_for_chart(value: str) -> str:
     """Plotly renders a few HTML-like tags in hover text: escape user text first."""
     return html.escape(value, quote=False)
+
+
+ROBUST_TAIL = 0.005  # share of the values at each end that may not stretch an axis
+ROBUST_MARGIN = 0.5  # the range kept: the inner quantiles widened by this share of their width
+
+
+def robust_range(values: Any) -> tuple[float, float] | None:
+    """An axis range that one wild value cannot flatten: the 0.5 % and 99.5 % points (at
+    least the second smallest and second largest of 20 or more values), widened by half
+    their width on each side. None when every value lies inside it (let the axis fit all).
+    Common practice (trimmed ranges for display), no source."""
+    v = np.asarray(values, dtype=float)
+    v = np.sort(v[np.isfinite(v)])
+    n = len(v)
+    if n < 20:
+        return None
+    k = max(1, int(ROBUST_TAIL * n))
+    lo, hi = float(v[k]), float(v[n - 1 - k])
+    width = hi - lo
+    if width <= 0:
+        width = abs(hi) * 0.01 or 1.0
+    lo, hi = lo - ROBUST_MARGIN * width, hi + ROBUST_MARGIN * width
+    if v[0] >= lo and v[-1] <= hi:
+        return None
+    return (lo if v[0] < lo else float(v[0])), (hi if v[-1] > hi else float(v[-1]))
+
+
+def padded(limits: tuple[float, float], share: float = 0.03) -> list[float]:
+    """An explicit axis range a little wider than ``limits``, so points pinned at an edge show whole."""
+    lo, hi = limits
+    pad = (hi - lo) * share or abs(hi) * share or 1.0
+    return [lo - pad, hi + pad]

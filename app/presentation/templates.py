@@ -3,11 +3,13 @@
 Autoescaped, strict about undefined names, and with the same filters and globals
 everywhere: ``num`` and ``delta`` (``app.presentation.numbers``), ``localtime``
 (``app.times.local_text``), ``unit``, ``urlpart``, ``json_for_html``, and the globals
-``caution`` (``app.advisory``), ``status_styles``, ``glyphs`` and ``palette_css``.
+``caution`` (``app.advisory``), ``status_styles``, ``glyphs``, ``palette_css`` and
+``asset`` (a static file's URL with its content version).
 """
 
 from __future__ import annotations
 
+import hashlib
 from functools import lru_cache
 from pathlib import Path
 from typing import Any
@@ -24,6 +26,23 @@ from app.presentation.palette import GLYPHS, STATUS_STYLES, css_variables
 from app.times import campaign_zone, local_text
 
 TEMPLATE_DIR = Path(__file__).resolve().parent.parent / "templates"
+STATIC_DIR = Path(__file__).resolve().parent.parent / "static"
+# Asset URLs served from files outside app/static (e.g. Plotly's), registered by their router.
+ASSET_FILES: dict[str, Path] = {}
+
+
+@lru_cache(maxsize=64)
+def _file_version(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()[:12]
+
+
+def asset_url(url: str) -> str:
+    """``{{ asset("/static/js/wakeledger.js") }}``: the URL with ``?v=`` the file's content
+    hash, so browsers may keep it for a year (a changed file is a new URL)."""
+    path = ASSET_FILES.get(url) or (STATIC_DIR / url.removeprefix("/static/") if url.startswith("/static/") else None)
+    if path is None or not path.is_file():
+        return url
+    return f"{url}?v={_file_version(path)}"
 
 
 def _localtime(moment: Any, zone_name: Any = None) -> str:
@@ -63,6 +82,7 @@ def environment() -> jinja2.Environment:
         status_styles=STATUS_STYLES,
         glyphs=GLYPHS,
         palette_css=css_variables(),
+        asset=asset_url,
     )
     return env
 

@@ -27,7 +27,7 @@ from sqlalchemy.orm import Session
 
 import model
 from app.store.exclusions import counted
-from app.tables import Campaign, Evaluation, Flag, Job, Shot, ShotRevision
+from app.tables import AuditEntry, Campaign, Evaluation, Flag, Job, Shot, ShotRevision
 from app.times import as_utc
 
 STATUSES = model.STATUSES
@@ -111,11 +111,20 @@ def latest_taken_at(session: Session, campaign_id: int) -> datetime | None:
 
 
 def latest_shot_pk(session: Session, campaign_id: int) -> int:
-    """The live cursor: the key of the campaign's last stored counted shot (0 for none)."""
-    return (
-        session.scalar(select(func.max(Shot.id)).where(Shot.campaign_id == campaign_id, *counted(Shot.id, campaign_id)))
-        or 0
-    )
+    """The campaign's latest shot id (0 for none): one seek of the (campaign_id, id) index."""
+    stmt = select(Shot.id).where(Shot.campaign_id == campaign_id).order_by(Shot.id.desc()).limit(1)
+    return session.scalar(stmt) or 0
+
+
+def change_marks(session: Session, campaign_id: int) -> tuple[int, int, tuple[tuple[str, int], ...]]:
+    """What moves whenever the campaign's counts may change, from three index seeks: its
+    latest shot id, the latest audited write anywhere (corrections, settings, exclusions),
+    and the progress of its running jobs (a re-evaluation rewrites statuses as it goes)."""
+    latest_audit = session.scalar(select(AuditEntry.id).order_by(AuditEntry.id.desc()).limit(1)) or 0
+    running = session.execute(
+        select(Job.id, Job.done).where(Job.state == "running", Job.campaign_id == campaign_id).order_by(Job.id)
+    ).all()
+    return latest_shot_pk(session, campaign_id), latest_audit, tuple((str(i), int(d or 0)) for i, d in running)
 
 
 def excluded_count(session: Session, campaign_id: int) -> int:
@@ -262,16 +271,17 @@ def taken_at_of(session: Session, shot_pks: Sequence[int]) -> dict[int, datetime
     return {pk: as_utc(t) for pk, t in rows}
 
 
-def median_density_offset(session: Session, campaign_id: int) -> tuple[int, float | None]:
-    """Number of shots with a measured frequency and the median of implied/set density − 1."""
-    ratio = (Evaluation.implied_density_cm3 / Shot.plasma_density_cm3 - 1.0).label("r")
+def density_offsets(session: Session, campaign_id: int, *, max_rows: int) -> tuple[int, list[float], int]:
+    """Shots with a measured frequency, and implied/set density − 1 of at most about
+    ``max_rows`` of them (every k-th by shot id past that: one scan, no sort), and k."""
+    ratio = Evaluation.implied_density_cm3 / Shot.plasma_density_cm3 - 1.0
     base = _evaluated(campaign_id).where(Evaluation.implied_density_cm3.is_not(None))
     n = session.scalar(base.with_only_columns(func.count())) or 0
-    if n == 0:
-        return 0, None
-    middle = list(session.scalars(base.with_only_columns(ratio).order_by(ratio).offset((n - 1) // 2).limit(2 - n % 2)))
-    values = [float(v) for v in middle if v is not None]
-    return n, (sum(values) / len(values) if values else None)
+    step = -(-n // max_rows) if n > max_rows else 1
+    stmt = base.with_only_columns(ratio)
+    if step > 1:
+        stmt = stmt.where(Shot.id % step == 0)
+    return n, [float(v) for v in session.scalars(stmt) if v is not None], step
 
 
 # ------------------------------------------------------------------------------- table

@@ -63,9 +63,14 @@ def test_shift_physicist_signs_in_filters_to_outside_shots_and_opens_one_with_it
     page.wait_for_selector("#chart-calibration .plot-container")
     assert page.locator(".caution").first.inner_text().startswith("Advisory only")
     assert page.locator("[data-count=outside]").inner_text() == "6"
-    assert (
-        page.locator("#chart-timeline .scatterlayer .point").count() == 5 * 36 - 3
-    )  # five panels; 3 unseeded: no seed position
+    # Nominal shots are one line per panel (one SVG path); flagged and pinned shots are markers.
+    markers = page.evaluate(
+        "() => document.getElementById('chart-timeline').data"
+        ".filter(t => t.mode === 'markers').reduce((n, t) => n + t.y.filter(v => v !== null).length, 0)"
+    )
+    assert page.locator("#chart-timeline .scatterlayer .point").count() == markers
+    assert markers <= 5 * 9  # five panels of the 9 flagged shots at most (3 unseeded: no seed position)
+    assert page.locator("#chart-timeline .scatterlayer .js-line").count() >= 5
     assert page.locator("#chart-regime .scatterlayer .point").count() == 36
     assert "not supported" not in page.locator("main").inner_text()
     assert "expected phase jitter" in page.locator("#facts-chart-phase").inner_text()
@@ -120,6 +125,9 @@ def test_a_new_shot_appears_on_the_open_overview_and_table_without_a_reload(brow
         timeout=5000,
     )
     table.wait_for_selector("#shot-rows tr:first-child a:text('pg-live-1')", timeout=5000)
+    # ... and at the top of the overview's latest outside shots, with its flags
+    overview.wait_for_selector("#outside-rows tr:first-child a:text('pg-live-1')", timeout=5000)
+    assert overview.locator("#outside-rows tr:first-child .flag").count() >= 1
     traces = overview.evaluate(
         "() => document.getElementById('chart-timeline').data.filter(t => t.meta && t.meta.status === 'outside')"
         ".map(t => Array.from(t.customdata))"
@@ -159,5 +167,52 @@ def test_admin_changes_a_limit_and_watches_the_reevaluation_finish(browser, page
     assert "36 of 36" in page.locator("#job-text").inner_text()
     page.screenshot(path=str(artifacts / "dashboard-settings-job.png"), full_page=True)
     assert _csp_violations(page) == []
+    assert not problems, problems
+    context.close()
+
+
+# Every element inside a card ends inside the card (its right edge, with a pixel of rounding),
+# and the page itself never scrolls sideways.
+_OVERFLOW = """() => {
+  const out = [];
+  if (document.documentElement.scrollWidth > window.innerWidth + 1)
+    out.push('page scrolls sideways: ' + document.documentElement.scrollWidth + ' > ' + window.innerWidth);
+  document.querySelectorAll('main .card').forEach(card => {
+    const box = card.getBoundingClientRect();
+    if (card.scrollWidth > card.clientWidth + 1)
+      out.push((card.querySelector('h2') || card).textContent.trim().slice(0, 40) + ': scrollWidth '
+               + card.scrollWidth + ' > ' + card.clientWidth);
+    card.querySelectorAll('*').forEach(el => {
+      if (el.closest('.table-wrap') && el.closest('.table-wrap') !== el) return;  // scrolls inside its own box
+      const r = el.getBoundingClientRect();
+      if (r.width && r.right > box.right + 1)
+        out.push(el.tagName + (el.id ? '#' + el.id : '') + ' ends at ' + Math.round(r.right)
+                 + ' > card ' + Math.round(box.right));
+    });
+  });
+  return out.slice(0, 10);
+}"""
+
+
+@pytest.mark.parametrize("width", [1400, 800])
+def test_the_overview_fits_its_cards_at_1400_and_800_pixels(browser, page_server, artifacts, width):
+    base, slug = page_server["base"], page_server["slug"]
+    context = browser.new_context(viewport={"width": width, "height": 900})
+    context.add_cookies([{"name": SESSION_COOKIE, "value": page_server["session"], "url": base}])
+    page = context.new_page()
+    problems = _watch_console(page)
+    page.goto(f"{base}/campaigns/{slug}")
+    page.wait_for_function("() => window.wakeledgerChartsDrawn !== undefined")
+    page.evaluate("() => window.wakeledgerChartsDrawn")
+    page.wait_for_function("() => !document.querySelector('.chart.loading')")
+    facts = page.locator("#facts-chart-phase")
+    assert "expected phase jitter" in facts.inner_text()
+    # The phase card's figures are visible: inside the card, not pushed out of it.
+    card = page.locator("section[aria-labelledby=phase-h]").bounding_box()
+    for dd in facts.locator("dd").all():
+        box = dd.bounding_box()
+        assert box and box["x"] + box["width"] <= card["x"] + card["width"] + 1
+    page.screenshot(path=str(artifacts / f"dashboard-overview-{width}.png"), full_page=True)
+    assert page.evaluate(_OVERFLOW) == []
     assert not problems, problems
     context.close()

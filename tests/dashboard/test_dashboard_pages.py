@@ -201,16 +201,17 @@ def test_overview_counts_shots_by_status_and_by_flag_code(seeded, db, client, ad
 
 def test_timeline_marks_flagged_shots_with_their_own_colour_shape_and_name(seeded, db):
     figure = figures.timeline_figure(db, _campaign(db))
-    points = [t for t in figure["data"] if t.get("meta")]
+    points = [t for t in figure["data"] if t.get("meta") and not t["meta"].get("pinned")]
     assert {t["meta"]["y"] for t in points} == set(figures.TIMELINE_FIELDS)
     by_status = {}
     for trace in points:
         by_status.setdefault(trace["meta"]["status"], trace)
-    assert {s: (t["marker"]["color"], t["marker"]["symbol"]) for s, t in by_status.items()} == {
-        "nominal": ("#0072B2", "circle"),
+    assert {s: (t["marker"]["color"], t["marker"]["symbol"]) for s, t in by_status.items() if s != "nominal"} == {
         "marginal": ("#E69F00", "diamond"),
         "outside": ("#D55E00", "x"),
     }
+    # Nominal shots are one thin line per panel (one SVG path), not a marker each.
+    assert by_status["nominal"]["mode"] == "lines" and "marker" not in by_status["nominal"]
     assert by_status["outside"]["name"].startswith("outside (6)")
     assert len(by_status["outside"]["x"]) == 6 and len(by_status["nominal"]["x"]) == 27
 
@@ -226,7 +227,7 @@ def test_long_timelines_keep_every_kth_nominal_shot_and_all_flagged_shots(seeded
 
 
 def test_flagged_shots_beyond_the_cap_are_thinned_over_the_whole_range(seeded, db, monkeypatch):
-    monkeypatch.setattr(figures, "FLAGGED_POINTS_CAP", 4)
+    monkeypatch.setattr(figures, "TIMELINE_FLAGGED_POINTS", 4)
     figure = figures.timeline_figure(db, _campaign(db))
     outside = next(t for t in figure["data"] if t.get("meta", {}).get("status") == "outside")
     assert 1 <= len(outside["x"]) <= 4 and ", 1 in " in outside["name"]

@@ -27,14 +27,21 @@ def test_shot_page_shows_the_latest_detailed_run_with_its_three_charts_and_valid
     response = client.get(f"/campaigns/{campaign}/shots/{shot}")
     assert response.status_code == 200
     html = response.text
-    assert 'id="detailed-run"' in html and 'src="/static/js/detailed_run.js"' in html
+    assert 'id="detailed-run"' in html and 'src="/static/js/detailed_run.js?v=' in html
     latest = _panel_config(html)["latest"]
     assert latest["run"]["id"] == job["result"]["run_id"]
     assert set(latest["figures"]) == {"map", "growth", "field"}
     assert latest["validity_note"] and latest["validity_note"] in html
     heatmap = latest["figures"]["map"]["data"][0]
     assert heatmap["type"] == "heatmap"
-    assert len(heatmap["y"]) <= run_figures.MAP_MAX_ZETA and len(heatmap["x"]) <= run_figures.MAP_MAX_Z
+    assert len(heatmap["x"]) <= run_figures.MAP_MAX_ZETA and len(heatmap["y"]) <= run_figures.MAP_MAX_Z
+    # Both charts over the bunch read the same way: ζ across, the head to the right.
+    map_x = latest["figures"]["map"]["layout"]["xaxis"]["title"]["text"]
+    field_x = latest["figures"]["field"]["layout"]["xaxis"]["title"]["text"]
+    assert map_x.startswith("ζ along the bunch [mm] (head right") and field_x.startswith(map_x[:30])
+    # The seed's position reads in mm, as bunch positions do on every page.
+    seed = dict(latest["facts"])["seed"] if "facts" in latest else None
+    assert seed is None or " m" not in seed.replace(" mm", "")
     assert latest["figures"]["growth"]["layout"]["yaxis"]["type"] == "log"
     names = [t["name"] for t in latest["figures"]["growth"]["data"]]
     assert "δ(z) envelope solver" in names and "δ(z) closed form" in names

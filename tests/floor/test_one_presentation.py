@@ -151,8 +151,13 @@ def test_one_palette_feeds_the_page_css_the_page_script_and_the_report(client, o
     assert json.loads(block) == {"glyphs": palette.GLYPHS}
     assert '<link rel="stylesheet" href="/assets/palette.css">' in page
     feed = client.get(f"/campaigns/{SLUG}/charts/timeline.json").json()["figure"]
-    colours = {t["meta"]["status"]: t["marker"]["color"] for t in feed["data"] if t.get("meta")}
-    assert colours == {name: s.colour for name, s in palette.STATUS_STYLES.items()}
+    points = [t for t in feed["data"] if t.get("meta") and not t["meta"].get("pinned")]
+    # flagged shots are markers; nominal shots one thin line of the same palette colour
+    colours = {t["meta"]["status"]: t["marker"]["color"] if "marker" in t else t["line"]["color"] for t in points}
+    assert colours == {
+        name: s.colour if name != "nominal" else palette.rgba(s.colour, 0.55)
+        for name, s in palette.STATUS_STYLES.items()
+    }
 
 
 # ---------------------------------------------------------------------- time zone

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from datetime import datetime
+from datetime import UTC, datetime
 from typing import Any
 
 import numpy as np
@@ -19,8 +19,9 @@ from sqlalchemy.orm import Session
 
 import model
 from app.plain import rounded, rounded_list
-from app.presentation.charts import axis, layout, text_for_chart
+from app.presentation.charts import axis, layout, padded, robust_range, text_for_chart
 from app.presentation.fields import field_label, short_label
+from app.presentation.numbers import format_number
 from app.presentation.palette import INK, OKABE_ITO, SEVERITY_STYLES, STATUS_STYLES, rgba
 from app.services.ingest.evaluation import model_columns
 from app.services.phase_spread import (
@@ -41,6 +42,7 @@ from app.times import campaign_zone, chart_time
 # forbids (no 'unsafe-eval'), so every chart is SVG and long series are thinned.
 TIMELINE_NOMINAL_POINTS = 1500
 FLAGGED_POINTS_CAP = 1000  # per flagged status and chart; past it, 1 in k over the whole range
+TIMELINE_FLAGGED_POINTS = 400  # per flagged status on the timeline (five panels of markers)
 SCATTER_NOMINAL_POINTS = 3000
 PHASE_MAX_BINS = 80
 PHASE_MIN_SHOTS_PER_BIN = 5
@@ -110,6 +112,7 @@ def _series_by_status(
     nominal_points: int,
     required: Sequence[str] = (),
     upto_pk: int | None = None,
+    flagged_points: int = FLAGGED_POINTS_CAP,
 ) -> list[_StatusSeries]:
     """Nominal shots thinned to ``nominal_points``; flagged shots all kept up to a cap."""
     wanted: dict[str, Any] = {"shot_id": Shot.shot_id, "taken_at": Shot.taken_at}
@@ -124,7 +127,7 @@ def _series_by_status(
             status,
             wanted,
             total=totals.get(status, 0),
-            max_points=nominal_points if status == "nominal" else FLAGGED_POINTS_CAP,
+            max_points=nominal_points if status == "nominal" else flagged_points,
             required=needed,
             upto_pk=upto_pk,
         )
@@ -136,11 +139,90 @@ def _series_note(item: _StatusSeries) -> str:
     return f", 1 in {item.series.step}" if item.series.step > 1 else ""
 
 
+class _Pins:
+    """Points outside a chart's robust axis ranges, pinned at the edge they passed and drawn
+    as one trace of triangles pointing that way, with hover text giving the true value."""
+
+    def __init__(self, x_lim: tuple[float, float] | None, y_lim: tuple[float, float] | None) -> None:
+        self.x_lim, self.y_lim = x_lim, y_lim
+        self.x: list[Any] = []
+        self.y: list[Any] = []
+        self.ids: list[str] = []
+        self.colours: list[str] = []
+        self.symbols: list[str] = []
+        self.text: list[str] = []
+
+    def keep(self, xs: Sequence[Any], ys: Sequence[Any]) -> list[bool]:
+        """Which of these points (numbers; None for missing) lie inside both ranges."""
+        return [self._inside(x, self.x_lim) and self._inside(y, self.y_lim) for x, y in zip(xs, ys, strict=True)]
+
+    @staticmethod
+    def _inside(v: Any, lim: tuple[float, float] | None) -> bool:
+        return lim is None or v is None or lim[0] <= v <= lim[1]
+
+    @staticmethod
+    def _clamp(v: float, lim: tuple[float, float] | None) -> tuple[float, int]:
+        if lim is None or lim[0] <= v <= lim[1]:
+            return v, 0
+        return (lim[0], -1) if v < lim[0] else (lim[1], 1)
+
+    def add(self, status: str, x: float, y: float, shot_id: str, x_text: str, y_text: str) -> tuple[float, float]:
+        (px, dx), (py, dy) = self._clamp(x, self.x_lim), self._clamp(y, self.y_lim)
+        self.ids.append(shot_id)
+        self.colours.append(STATUS_STYLES[status].colour)
+        self.symbols.append(
+            "triangle-up" if dy > 0 else "triangle-down" if dy < 0 else "triangle-right" if dx > 0 else "triangle-left"
+        )
+        passed = [t for t, d in ((x_text, dx), (y_text, dy)) if d]
+        self.text.append(f"{shot_id} ({status}): out of range, pinned at the edge; " + ", ".join(passed))
+        return px, py
+
+    def trace(self, x: list[Any], y: list[Any], axes: tuple[str, str] = ("x", "y"), showlegend: bool = True) -> dict:
+        return {
+            "type": "scatter",
+            "mode": "markers",
+            "name": f"out of range ({len(x):,}), pinned at the edge",
+            "legendgroup": "out-of-range",
+            "showlegend": showlegend,
+            "x": x,
+            "y": y,
+            "customdata": self.ids,
+            "hovertext": self.text,
+            "xaxis": axes[0],
+            "yaxis": axes[1],
+            "marker": {"color": self.colours, "symbol": self.symbols, "size": 11, "line": {"width": 1, "color": INK}},
+            "hovertemplate": "%{hovertext}<extra>out of range</extra>",
+            "meta": {"status": "out-of-range", "pinned": True},
+        }
+
+
+def _range_text(name: str, value: Any, lim: tuple[float, float]) -> str:
+    return f"{short_label(name)} {format_number(value)} (axis {format_number(lim[0])} to {format_number(lim[1])})"
+
+
+def _line_trace(trace: dict[str, Any]) -> dict[str, Any]:
+    """Nominal shots drawn as one thin line (one SVG path) instead of a marker each."""
+    style = STATUS_STYLES["nominal"]
+    trace = {**trace, "mode": "lines", "line": {"color": rgba(style.colour, 0.55), "width": 1}}
+    trace.pop("marker", None)
+    return trace
+
+
+def _epoch(moment: datetime) -> float:
+    return moment.timestamp()
+
+
 def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, Any]:
-    """Key conditions against time, one panel each, flagged shots marked by shape and colour."""
+    """Key conditions against time, one panel each: nominal shots as a thin line, flagged shots
+    marked by shape and colour, robust ranges (one wild value or date cannot flatten a panel)."""
     zone = campaign_zone(campaign.timezone)
     by_status = _series_by_status(
-        session, campaign, TIMELINE_FIELDS, nominal_points=TIMELINE_NOMINAL_POINTS, upto_pk=upto_pk
+        session,
+        campaign,
+        TIMELINE_FIELDS,
+        nominal_points=TIMELINE_NOMINAL_POINTS,
+        upto_pk=upto_pk,
+        flagged_points=TIMELINE_FLAGGED_POINTS,
     )
     panels = len(TIMELINE_FIELDS)
     gap = 0.04
@@ -148,35 +230,63 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
     traces: list[dict[str, Any]] = []
     figure_layout = layout(height=190 * panels + 90, showlegend=True)
     # The same shots in every panel: their times and labels are written once.
+    epochs = {item.status: [_epoch(t) for t in item.series.columns["taken_at"]] for item in by_status}
     times = {item.status: [chart_time(t, zone) for t in item.series.columns["taken_at"]] for item in by_status}
     labels = {item.status: [text_for_chart(v) for v in item.series.columns["shot_id"]] for item in by_status}
+    t_lim = robust_range([t for values in epochs.values() for t in values])
+    x_range = None if t_lim is None else [chart_time(datetime.fromtimestamp(t, UTC), zone) for t in padded(t_lim)]
     for i, name in enumerate(TIMELINE_FIELDS):
         axis_id = "" if i == 0 else str(i + 1)
+        axes = (f"x{axis_id}", f"y{axis_id}")
         top = 1 - i * (height + gap)
-        figure_layout[f"yaxis{axis_id}"] = axis(short_label(name), domain=[top - height, top], exponentformat="power")
+        y_lim = robust_range([v for item in by_status for v in item.series.columns[name] if v is not None])
+        y_extra = {} if y_lim is None else {"range": padded(y_lim)}
+        figure_layout[f"yaxis{axis_id}"] = axis(
+            short_label(name), domain=[top - height, top], exponentformat="power", **y_extra
+        )
         figure_layout[f"xaxis{axis_id}"] = axis(
             f"taken at ({zone.key})" if i == panels - 1 else "",
             type="date",
             anchor=f"y{axis_id}",
             matches="x" if i else None,
             showticklabels=i == panels - 1,
+            **({"range": x_range} if x_range and i == 0 else {}),
         )
+        pins = _Pins(t_lim, y_lim)
+        pinned_x: list[Any] = []
+        pinned_y: list[Any] = []
         for item in by_status:
             cols = item.series.columns
-            traces.append(
-                _point_trace(
-                    item.status,
-                    times[item.status],
-                    rounded_list(cols[name]),
-                    labels[item.status],
-                    x_field="taken_at",
-                    y_field=name,
-                    total=item.series.total,
-                    axes=(f"x{axis_id}", f"y{axis_id}"),
-                    showlegend=i == 0,
-                    note=_series_note(item),
-                )
+            ys = rounded_list(cols[name])
+            inside = pins.keep(epochs[item.status], ys)
+            for j, ok in enumerate(inside):
+                if not ok and ys[j] is not None:
+                    t, v = epochs[item.status][j], ys[j]
+                    pt, pv = pins.add(
+                        item.status,
+                        t,
+                        v,
+                        labels[item.status][j],
+                        f"taken {chart_time(cols['taken_at'][j], zone)}",
+                        _range_text(name, v, y_lim) if y_lim else "",
+                    )
+                    pinned_x.append(chart_time(datetime.fromtimestamp(pt, UTC), zone))
+                    pinned_y.append(rounded(pv))
+            trace = _point_trace(
+                item.status,
+                [x for x, ok in zip(times[item.status], inside, strict=True) if ok],
+                [y for y, ok in zip(ys, inside, strict=True) if ok],
+                [c for c, ok in zip(labels[item.status], inside, strict=True) if ok],
+                x_field="taken_at",
+                y_field=name,
+                total=item.series.total,
+                axes=axes,
+                showlegend=i == 0,
+                note=_series_note(item),
             )
+            traces.append(_line_trace(trace) if item.status == "nominal" else trace)
+        if pinned_x:
+            traces.append(pins.trace(pinned_x, pinned_y, axes, showlegend=True))
     for key in list(figure_layout):
         if key.startswith("xaxis") and figure_layout[key].get("matches") is None:
             figure_layout[key].pop("matches", None)
@@ -184,7 +294,8 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
 
 
 def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk: int | None = None) -> dict[str, Any]:
-    """Any two conditions or outputs against each other, coloured and shaped by status."""
+    """Any two conditions or outputs against each other, coloured and shaped by status, on
+    robust ranges: a wild value is pinned at the edge and marked, not allowed to flatten the map."""
     by_status = _series_by_status(
         session,
         campaign,
@@ -193,23 +304,49 @@ def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk:
         required=(x, y),
         upto_pk=upto_pk,
     )
-    traces = [
-        _point_trace(
-            item.status,
-            rounded_list(item.series.columns[x]),
-            rounded_list(item.series.columns[y]),
-            [text_for_chart(s) for s in item.series.columns["shot_id"]],
-            x_field=x,
-            y_field=y,
-            total=item.series.total,
-            note=_series_note(item),
+    xs = {item.status: rounded_list(item.series.columns[x]) for item in by_status}
+    ys = {item.status: rounded_list(item.series.columns[y]) for item in by_status}
+    x_lim = robust_range([v for values in xs.values() for v in values if v is not None])
+    y_lim = robust_range([v for values in ys.values() for v in values if v is not None])
+    pins = _Pins(x_lim, y_lim)
+    pinned_x: list[Any] = []
+    pinned_y: list[Any] = []
+    traces = []
+    for item in by_status:
+        ids = [text_for_chart(s) for s in item.series.columns["shot_id"]]
+        inside = pins.keep(xs[item.status], ys[item.status])
+        for j, ok in enumerate(inside):
+            if not ok:
+                vx, vy = xs[item.status][j], ys[item.status][j]
+                px, py = pins.add(
+                    item.status,
+                    vx,
+                    vy,
+                    ids[j],
+                    _range_text(x, vx, x_lim) if x_lim else "",
+                    _range_text(y, vy, y_lim) if y_lim else "",
+                )
+                pinned_x.append(rounded(px))
+                pinned_y.append(rounded(py))
+        traces.append(
+            _point_trace(
+                item.status,
+                [v for v, ok in zip(xs[item.status], inside, strict=True) if ok],
+                [v for v, ok in zip(ys[item.status], inside, strict=True) if ok],
+                [v for v, ok in zip(ids, inside, strict=True) if ok],
+                x_field=x,
+                y_field=y,
+                total=item.series.total,
+                note=_series_note(item),
+            )
         )
-        for item in by_status
-    ]
+    if pinned_x:
+        traces.append(pins.trace(pinned_x, pinned_y))
     figure_layout = layout(
         height=520,
-        xaxis=axis(field_label(x), exponentformat="power"),
-        yaxis=axis(field_label(y), exponentformat="power"),
+        xaxis=axis(field_label(x), exponentformat="power", **({"range": padded(x_lim)} if x_lim else {})),
+        yaxis=axis(field_label(y), exponentformat="power", **({"range": padded(y_lim)} if y_lim else {})),
+        meta={"robust": {"x": list(x_lim) if x_lim else None, "y": list(y_lim) if y_lim else None}},
     )
     return {"data": traces, "layout": figure_layout}
 
@@ -396,15 +533,20 @@ def phase_figure(
     return {"data": traces, "layout": figure_layout}
 
 
+CALIBRATION_MAX_ROWS = 20000  # shots the median offset is taken from; past it, 1 in k
+
+
 @dataclass(frozen=True)
 class CalibrationSummary:
     shots_with_frequency: int
     median_density_offset: float | None  # implied/set density − 1 (a fraction)
+    thinned_step: int = 1  # the median comes from about every k-th shot of a large campaign
 
 
 def calibration_summary(session: Session, campaign: Campaign) -> CalibrationSummary:
-    n, offset = store.median_density_offset(session, campaign.id)
-    return CalibrationSummary(n, offset)
+    n, offsets, step = store.density_offsets(session, campaign.id, max_rows=CALIBRATION_MAX_ROWS)
+    median = float(np.median(offsets)) if offsets else None
+    return CalibrationSummary(n, median, step)
 
 
 def calibration_figure(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, Any]:

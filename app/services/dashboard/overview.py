@@ -9,6 +9,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
+from urllib.parse import quote
 
 from sqlalchemy.orm import Session
 
@@ -34,7 +35,7 @@ from app.services.dashboard.figures import (
     regime_figure,
     timeline_figure,
 )
-from app.services.dashboard.table import TABLE_VALUE_COLUMNS
+from app.services.dashboard.table import TABLE_NOTES_CHARS, TABLE_VALUE_COLUMNS
 from app.services.phase_spread import JITTER_SOURCE_NAMES, JITTER_SOURCES, NEIGHBOUR_WINDOW_SHOTS
 from app.store import dashboard as store
 from app.store.dashboard import ShotRow
@@ -42,6 +43,15 @@ from app.tables import Campaign
 from app.times import IsoWeek, campaign_zone, chart_time, current_week, format_utc, local_text, local_time
 
 LIVE_MAX_ROWS = 200
+LATEST_OUTSIDE_ROWS = 8
+# The values beside each of the latest outside shots (all among the live feed's columns).
+OUTSIDE_VALUE_COLUMNS = (
+    "plasma_density_cm3",
+    "driver_sigma_r_mm",
+    "seed_position_mm",
+    "efolds_exit",
+    "growth_margin_efolds",
+)
 # Everything a live update may need to extend the overview's charts and the table.
 LIVE_VALUE_COLUMNS = tuple(dict.fromkeys((*TIMELINE_FIELDS, *TABLE_VALUE_COLUMNS, PHASE_FIELD, *CALIBRATION_FIELDS)))
 
@@ -111,6 +121,9 @@ class Overview:
     regime_options: list[tuple[str, str]]
     regime_axes: tuple[str, str]
     live_cursor: int
+    latest_outside: list[dict[str, Any]]  # newest first, as live rows (the server's text)
+    outside_columns: list[tuple[str, str]]  # (column, label)
+    outside_rows: int = LATEST_OUTSIDE_ROWS
     excluded_count: int = 0  # shots kept but counted nowhere on the page
 
     @property
@@ -157,9 +170,10 @@ def phase_facts(summary: PhaseSummary) -> list[tuple[str, str]]:
 
 def calibration_facts(summary: CalibrationSummary) -> list[tuple[str, str]]:
     offset = summary.median_density_offset
+    sample = f" (from 1 in {summary.thinned_step} shots)" if summary.thinned_step > 1 else ""
     return [
         ("shots with a measured frequency", format_number(summary.shots_with_frequency)),
-        ("implied density offset (median)", MISSING if offset is None else f"{format_number(100 * offset)} %"),
+        ("implied density offset (median)", MISSING if offset is None else f"{format_number(100 * offset)} %{sample}"),
     ]
 
 
@@ -170,10 +184,28 @@ CHART_FACTS = {
 }
 
 
+# Chart feeds by campaign, chart and parameters, kept while the campaign's change marks
+# stand still: every viewer of an overview shares one computation per new shot.
+_FEEDS: dict[tuple[Any, ...], tuple[tuple[Any, ...], dict[str, Any]]] = {}
+_FEEDS_MAX = 64
+
+
 def chart_feed(session: Session, campaign: Campaign, name: str, **params: Any) -> dict[str, Any]:
     """A chart drawn from the shots stored up to now, that cursor for the live feed, and
-    the figures shown beside it."""
-    cursor = store.latest_shot_pk(session, campaign.id)
+    the figures shown beside it (computed once per change of the campaign's marks)."""
+    marks = (*store.change_marks(session, campaign.id), campaign.settings_version)
+    where = (str(session.get_bind().engine.url), campaign.id, name, tuple(sorted(params.items())))
+    cached = _FEEDS.get(where)
+    if cached is not None and cached[0] == marks:
+        return cached[1]
+    feed = _chart_feed(session, campaign, name, marks[0], **params)
+    if len(_FEEDS) >= _FEEDS_MAX:
+        _FEEDS.clear()
+    _FEEDS[where] = (marks, feed)
+    return feed
+
+
+def _chart_feed(session: Session, campaign: Campaign, name: str, cursor: int, **params: Any) -> dict[str, Any]:
     if name == "phase":  # the chart and its figures from one read of the phases
         rows = phase_rows(session, campaign, cursor)
         return {
@@ -213,16 +245,65 @@ def regime_options() -> list[tuple[str, str]]:
     return [(name, field_label(name)) for name in store.NUMERIC_COLUMNS]
 
 
-def overview(session: Session, campaign: Campaign) -> Overview:
-    flags = flag_code_counts(session, campaign)
+@dataclass(frozen=True)
+class CampaignCounts:
+    """Shots by status and by flag code, with the latest shot id they were counted at."""
+
+    latest_pk: int
+    counts: dict[str, int]
+    flags: list[FlagCodeCount]
+    latest_outside: list[ShotRow]
+
+
+# Counts by campaign, recomputed only when the campaign's change marks move (a new shot, an
+# audited write, a running job's progress), so the steady poll reads three index seeks
+# whatever the campaign's size. Keyed by the database too: one process may serve several.
+_COUNTS: dict[tuple[str, int], tuple[tuple[Any, ...], CampaignCounts]] = {}
+_COUNTS_MAX_CAMPAIGNS = 256
+
+
+def campaign_counts(session: Session, campaign: Campaign) -> CampaignCounts:
+    marks = (*store.change_marks(session, campaign.id), campaign.settings_version)
+    where = (str(session.get_bind().engine.url), campaign.id)
+    cached = _COUNTS.get(where)
+    if cached is not None and cached[0] == marks:
+        return cached[1]
+    fresh = CampaignCounts(
+        marks[0],
+        store.status_counts(session, campaign.id),
+        flag_code_counts(session, campaign),
+        store.shot_page(
+            session,
+            campaign.id,
+            store.ShotFilter(status="outside"),
+            sort="taken_at",
+            descending=True,
+            offset=0,
+            limit=LATEST_OUTSIDE_ROWS,
+            value_columns=OUTSIDE_VALUE_COLUMNS,
+        ),
+    )
+    if len(_COUNTS) >= _COUNTS_MAX_CAMPAIGNS:
+        _COUNTS.clear()
+    _COUNTS[where] = (marks, fresh)
+    return fresh
+
+
+def overview(session: Session, campaign: Campaign, shot_url: str | None = None) -> Overview:
+    counted = campaign_counts(session, campaign)
+    flags = counted.flags
     return Overview(
         campaign=campaign,
-        counts=store.status_counts(session, campaign.id),
+        counts=dict(counted.counts),
         flag_counts=flags,
         figures={"flags": flag_figure(flags)},
         regime_options=regime_options(),
         regime_axes=DEFAULT_REGIME_AXES,
-        live_cursor=store.latest_shot_pk(session, campaign.id),
+        live_cursor=counted.latest_pk,
+        latest_outside=live_rows(
+            counted.latest_outside, campaign, shot_url or f"/campaigns/{quote(campaign.slug)}/shots/{{shot_id}}"
+        ),
+        outside_columns=[(name, field_label(name)) for name in OUTSIDE_VALUE_COLUMNS],
         excluded_count=store.excluded_count(session, campaign.id),
     )
 
@@ -248,7 +329,7 @@ def live_rows(rows: Sequence[ShotRow], campaign: Campaign, shot_url: str) -> lis
                 "status": row.status,
                 "seed_method": row.seed_method,
                 "flags": [{"code": c, "severity": s} for c, s in row.flags],
-                "notes": row.notes[:200],
+                "notes": row.notes[:TABLE_NOTES_CHARS],
                 "tags": row.tags,
                 "values": {k: rounded(v) for k, v in row.values.items()},
                 "text": {k: format_number(v) for k, v in row.values.items()},
@@ -262,13 +343,18 @@ def live_update(
 ) -> dict[str, Any]:
     """Counts now, and the shots stored after the cursor ``since`` (oldest first, bounded)."""
     columns = tuple(dict.fromkeys((*LIVE_VALUE_COLUMNS, *extra_columns)))
-    rows = store.shots_after(session, campaign.id, since, limit=LIVE_MAX_ROWS, value_columns=columns)
-    latest = store.latest_shot_pk(session, campaign.id)
+    counted = campaign_counts(session, campaign)
+    latest = counted.latest_pk
+    rows = (
+        store.shots_after(session, campaign.id, since, limit=LIVE_MAX_ROWS, value_columns=columns)
+        if since < latest
+        else []
+    )
     cursor = rows[-1].pk if rows else max(since, 0)
     if not rows and since > latest:
         cursor = latest  # the cursor ran past the campaign (e.g. a deleted shot): resync
-    flags = flag_code_counts(session, campaign)
-    counts = store.status_counts(session, campaign.id)
+    flags = counted.flags
+    counts = counted.counts
     return {
         "cursor": cursor,
         "more": cursor < latest,

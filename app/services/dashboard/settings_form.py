@@ -14,6 +14,8 @@ from sqlalchemy.orm import Session
 
 import model
 from app.errors import InvalidInput
+from app.presentation.fields import unit_of, with_unit
+from app.presentation.numbers import format_number
 from app.services import reevaluation
 from app.services.campaign_settings import change_settings
 from app.services.campaigns import effective_settings, merge_patch_between
@@ -31,6 +33,9 @@ SETTING_HELP = {
 }
 
 
+SETTING_UNITS = {"phase_tolerance_rad": "rad"}
+
+
 @dataclass
 class SettingField:
     name: str  # form field name
@@ -40,6 +45,12 @@ class SettingField:
     current: float
     text: str  # what the input shows (the submitted text after an error)
     overridden: bool
+    unit: str = ""
+
+    @property
+    def default_text(self) -> str:
+        """The default, rounded, with its unit (app.presentation.numbers)."""
+        return format_number(self.default, self.unit)
 
 
 @dataclass
@@ -59,11 +70,24 @@ def settings_form(session: Session, campaign: Campaign, submitted: Mapping[str, 
     overrides = campaign.model_settings or {}
     submitted = submitted or {}
 
-    def make(name: str, label: str, help_text: str, default: float, value: float, overridden: bool) -> SettingField:
-        return SettingField(name, label, help_text, default, value, submitted.get(name, repr(float(value))), overridden)
+    def make(
+        name: str, label: str, help_text: str, default: float, value: float, overridden: bool, unit: str = ""
+    ) -> SettingField:
+        # The box shows the value rounded (0.3142, not 0.3141592653589793); saving it unchanged
+        # keeps the exact value (save_settings compares the text with this rounding).
+        text = submitted.get(name, shown_value(value))
+        return SettingField(name, with_unit(label, unit), help_text, default, value, text, overridden, unit)
 
     model_fields = [
-        make(f"setting.{key}", key, SETTING_HELP.get(key, ""), default, current.get(key, default), key in overrides)
+        make(
+            f"setting.{key}",
+            key,
+            SETTING_HELP.get(key, ""),
+            default,
+            current.get(key, default),
+            key in overrides,
+            SETTING_UNITS.get(key, ""),
+        )
         for key, default in model.DEFAULT_SETTINGS.items()
         if key != "limits"
     ]
@@ -82,6 +106,7 @@ def settings_form(session: Session, campaign: Campaign, submitted: Mapping[str, 
                 default,
                 current["limits"][code][level],
                 level in (overrides.get("limits", {}).get(code, {}) or {}),
+                unit_of(rule.metric) if rule else "",
             )
             for level, default in levels.items()
         ]
@@ -98,6 +123,11 @@ class SettingsOutcome:
     changed: bool = False
 
 
+def shown_value(value: float) -> str:
+    """A setting as its box shows it: rounded by the one number formatter, no unit."""
+    return format_number(float(value)).replace(",", "")
+
+
 def _parserounded(text: str) -> float:
     value = float(text.strip())
     if not math.isfinite(value):
@@ -109,12 +139,24 @@ def save_settings(session: Session, campaign: Campaign, submitted: Mapping[str, 
     """Validate the form and send the change as a merge patch (which queues the re-evaluation)."""
     errors: dict[str, str] = {}
     new: dict[str, Any] = {"limits": {}}
+    current = effective_settings(campaign)
+
+    def current_of(name: str) -> float | None:
+        parts = name.split(".")
+        if parts[0] == "setting":
+            return current.get(parts[1])
+        return current["limits"].get(parts[1], {}).get(parts[2])
 
     def changed_value(name: str, default: float, what: str) -> float | None:
-        """The box's number when it differs from the default; an empty box means the default."""
+        """The box's number when it differs from the default; an empty box means the default,
+        and a box left showing the rounded current value keeps the exact current value."""
         text = submitted.get(name, "")
+        now = current_of(name)
         try:
-            value = _parserounded(text) if text.strip() else default
+            if now is not None and text.strip() == shown_value(now):
+                value = float(now)
+            else:
+                value = _parserounded(text) if text.strip() else default
         except ValueError:
             errors[name] = f"{what} must be a finite number, e.g. {default:g}"
             return None

@@ -29,6 +29,7 @@ FLAG_CODES = model.FLAG_CODES
 TABLE_PAGE_SIZE = 100
 # The table's ``excluded`` choices (app.store.exclusions.EXCLUDED_MODES) as the form offers them.
 EXCLUDED_CHOICES = (("omit", "left out"), ("include", "shown with the others"), ("only", "only excluded shots"))
+TABLE_NOTES_CHARS = 1000  # notes wrap in their column; longer ones end with a link to the shot
 TABLE_VALUE_COLUMNS = (
     "plasma_density_cm3",
     "driver_population",

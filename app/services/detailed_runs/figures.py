@@ -8,6 +8,7 @@ being valid (saturation) and carries the solver's own validity note.
 from __future__ import annotations
 
 import math
+import re
 import warnings
 from collections.abc import Callable, Mapping
 from typing import Any
@@ -39,6 +40,15 @@ def _text(value: Any, unit: str = "") -> str:
     return format_number(value, unit)
 
 
+_METRES = re.compile(r"(?<![\w.])(-?\d+(?:\.\d*)?(?:[eE][-+]?\d+)?) m\b")
+
+
+def _seed_in_mm(text: str) -> str:
+    """The solver's seed sentence with its positions along the bunch in mm, as every page
+    writes bunch positions (the solver writes SI metres): ``0.035 m`` reads ``35 mm``."""
+    return _METRES.sub(lambda m: format_number(float(m.group(1)) * 1e3, "mm"), text)
+
+
 def run_facts(doc: Mapping[str, Any], run: DetailedRun | None = None) -> list[list[str]]:
     """Label/value pairs of a run's key numbers (the same list on the page and in the HTML file)."""
     n = doc.get("numerics") or {}
@@ -52,7 +62,7 @@ def run_facts(doc: Mapping[str, Any], run: DetailedRun | None = None) -> list[li
             f"\u00d7 {_text(n.get('steps'))} steps of {_text(n.get('dz_m'), 'm')}"
             f"{' (default step)' if n.get('dz_default') else ''}",
         ],
-        ["seed", str(n.get("seed") or MISSING)],
+        ["seed", _seed_in_mm(str(n.get("seed") or MISSING))],
         ["valid until", _text(doc.get("valid_until_m"), "m")],
         [
             "saturation (solver)",
@@ -156,8 +166,18 @@ def _validity_marks(doc: Mapping[str, Any]) -> tuple[list[dict[str, Any]], list[
     return shapes, annotations
 
 
+def _swap_axes(item: dict[str, Any]) -> dict[str, Any]:
+    """A shape or annotation drawn over z across, redrawn for z up (x and y exchanged)."""
+    swap = {"x": "y", "y": "x", "xref": "yref", "yref": "xref", "x0": "y0", "y0": "x0", "x1": "y1", "y1": "x1"}
+    out = {swap.get(k, k): v for k, v in item.items()}
+    if "xanchor" in item or "yanchor" in item:  # an annotation: at the right edge, above its line
+        out.update(x=1.0, xanchor="right", yanchor="bottom")
+    return out
+
+
 def sigma_map_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
-    """σ_r(ζ, z) as a heatmap of log10(σ_r / 1 mm): z across, ζ up (head at the top)."""
+    """σ_r(ζ, z) as a heatmap of log10(σ_r / 1 mm): ζ across with the head right, as in the
+    exit-field chart below it (the two ζ axes read the same way), z up."""
     sigma_mm = _array(doc["sigma_r_m"]) * 1e3  # slices x stored z
     zeta_mm = _array(doc["zeta_m"]) * 1e3
     z_m = _array(doc["z_m"])
@@ -180,26 +200,27 @@ def sigma_map_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
     if len(tick_values) < 3:  # a narrow range: evenly spaced ticks instead of round numbers
         tick_values, tick_digits = np.linspace(lo, hi, 5).tolist(), 4
     grouped = f"; maximum over groups of {bin_size} slices" if bin_size > 1 else ""
-    shapes, annotations = _validity_marks(doc)
+    marks, notes = _validity_marks(doc)
+    shapes, annotations = [_swap_axes(m) for m in marks], [_swap_axes(a) for a in notes]
     zeta_ref = float(doc["reference_zeta_m"]) * 1e3
     shapes.append(
         {
             "type": "line",
-            "xref": "paper",
-            "yref": "y",
-            "x0": 0,
-            "x1": 1,
-            "y0": zeta_ref,
-            "y1": zeta_ref,
+            "xref": "x",
+            "yref": "paper",
+            "x0": zeta_ref,
+            "x1": zeta_ref,
+            "y0": 0,
+            "y1": 1,
             "line": {"color": "#ffffff", "width": 1, "dash": "dot"},
             "layer": "above",
         }
     )
     trace = {
         "type": "heatmap",
-        "x": _plain(z_m[columns]),
-        "y": _plain(zeta),
-        "z": _plain(log_sigma, 4),
+        "x": _plain(zeta),
+        "y": _plain(z_m[columns]),
+        "z": _plain(log_sigma.T, 4),
         "colorscale": "Viridis",
         "zmin": lo,
         "zmax": hi,
@@ -208,13 +229,13 @@ def sigma_map_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
             "tickvals": tick_values,
             "ticktext": [f"{10**v:.{tick_digits}g}" for v in tick_values],
         },
-        "hovertemplate": "z %{x:.3g} m<br>ζ %{y:.4g} mm<br>log₁₀(σ_r / mm) %{z:.3f}<extra></extra>",
+        "hovertemplate": "ζ %{x:.4g} mm<br>z %{y:.3g} m<br>log₁₀(σ_r / mm) %{z:.3f}<extra></extra>",
         "name": "σ_r(ζ, z)",
     }
     figure_layout = layout(
         height=420,
-        xaxis=axis("z along the plasma [m]"),
-        yaxis=axis("ζ along the bunch [mm]"),
+        xaxis=axis("ζ along the bunch [mm] (head right; dotted: reference slice)"),
+        yaxis=axis("z along the plasma [m]"),
         shapes=shapes,
         annotations=[
             *annotations,
@@ -227,7 +248,7 @@ def sigma_map_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
                 "yanchor": "top",
                 "showarrow": False,
                 "font": {"size": 11},
-                "text": f"head up; dotted line: reference slice{grouped}",
+                "text": f"head right, as in the exit-field chart; dotted line: reference slice{grouped}",
             },
         ],
         margin={"l": 70, "r": 20, "t": 40, "b": 80},

@@ -3,6 +3,7 @@ custom properties) and SVG charts, no script, nothing fetched, prints cleanly on
 
 from __future__ import annotations
 
+from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from typing import Any
 
@@ -12,7 +13,8 @@ from app.presentation.templates import render
 from app.services.export_table import NOT_EVALUATED
 from app.services.phase_spread import JITTER_SOURCE_NAMES, NEIGHBOUR_WINDOW_SHOTS
 from app.services.weekly import report_charts as charts
-from app.services.weekly.summary import STATUSES, WeeklySummary, export_file_name
+from app.services.weekly.summary import STATUSES, FlaggedShot, WeeklySummary, export_file_name
+from app.store.exports import FlagRow
 from app.times import campaign_zone, local_text
 
 # Flagged shots listed in the HTML report per status; the CSV/JSON exports list all.
@@ -37,7 +39,8 @@ def _charts(summary: WeeklySummary) -> dict[str, Any]:
     per_day = {g: v for g, v in per_day.items() if g in STATUSES or any(v)}
     density = shots.inputs["plasma.density_cm3"]
     finite_density = density[np.isfinite(density)]
-    density_offset_pct = 100.0 * (density / np.mean(finite_density) - 1.0) if finite_density.size else density
+    # From the median: one wild density (a wrong unit) must not move every offset.
+    density_offset_pct = 100.0 * (density / np.median(finite_density) - 1.0) if finite_density.size else density
     return {
         "per_day": charts.stacked_bars_svg(
             day_labels, per_day, title="Shots per day by status", x_label=f"day ({summary.timezone})", y_label="shots"
@@ -57,7 +60,7 @@ def _charts(summary: WeeklySummary) -> dict[str, Any]:
             shots.inputs["measured.modulation_phase_rad"],
             shots.status,
             title="Measured phase against density offset",
-            x_label="density offset from the week's mean [%]",
+            x_label="density offset from the week's median [%]",
             y_label="measured phase [rad]",
         ),
         "mismatch": charts.histogram_svg(
@@ -68,14 +71,39 @@ def _charts(summary: WeeklySummary) -> dict[str, Any]:
     }
 
 
+@dataclass
+class SentenceGroup:
+    """One flag sentence and every shot of one status that carries it (time order)."""
+
+    code: str
+    severity: str
+    message: str
+    shots: list[FlaggedShot] = field(default_factory=list)
+
+
+def sentence_groups(shots: list[FlaggedShot]) -> list[SentenceGroup]:
+    """The shots grouped by identical flag sentences, the most frequent first: the report
+    says each sentence once, then lists its shots. A shot without a stored flag is a
+    group of its own kind (empty code)."""
+    groups: dict[tuple[str, str, str], SentenceGroup] = {}
+    for shot in shots:
+        reasons: list[FlagRow | None] = list(shot.reasons) or [None]
+        for f in reasons:
+            key = (f.code, f.severity, f.message) if f is not None else ("", "", "")
+            groups.setdefault(key, SentenceGroup(*key)).shots.append(shot)
+    return sorted(groups.values(), key=lambda g: (-len(g.shots), g.code, g.message))
+
+
 def render_html(summary: WeeklySummary) -> str:
     flagged = {status: [s for s in summary.flagged_shots if s.status == status] for status in ("outside", "marginal")}
+    grouped = {status: sentence_groups(rows) for status, rows in flagged.items()}
     zone = campaign_zone(summary.timezone)
     return render(
         "summary_report.html",
         s=summary,
         charts=_charts(summary),
         flagged=flagged,
+        grouped=grouped,
         flagged_limit=HTML_FLAGGED_LIMIT,
         local=lambda t: local_text(t, zone),
         phase_window_shots=NEIGHBOUR_WINDOW_SHOTS - 1,

@@ -16,6 +16,7 @@ import numpy as np
 from markupsafe import Markup
 
 import model
+from app.presentation.charts import robust_range
 from app.presentation.numbers import format_number
 from app.presentation.palette import GROUP_COLOURS, MUTED, STATUS_STYLES
 
@@ -99,6 +100,9 @@ def _marker_path(symbol: str, px: Sequence[float], py: Sequence[float]) -> str:
     r = _MARKER_SIZE
     if symbol == "diamond":
         return "".join(f"M{a:.1f} {b - r:.1f}l{r} {r}l{-r} {r}l{-r} {-r}z" for a, b in zip(px, py, strict=True))
+    if symbol in ("triangle-up", "triangle-down"):
+        h = -r if symbol == "triangle-up" else r
+        return "".join(f"M{a:.1f} {b + h:.1f}l{r} {-2 * h}h{-2 * r}z" for a, b in zip(px, py, strict=True))
     if symbol == "x":
         return "".join(
             f"M{a - r:.1f} {b - r:.1f}l{2 * r} {2 * r}m0 {-2 * r}l{-2 * r} {2 * r}" for a, b in zip(px, py, strict=True)
@@ -150,24 +154,44 @@ def scatter_svg(
     ok = np.isfinite(x) & np.isfinite(y)
     if not ok.any():
         return empty_chart(title, "No shots with these values in this week.")
-    xlo, xhi = x_range or (float(x[ok].min()), float(x[ok].max()))
-    ylo, yhi = float(y[ok].min()), float(y[ok].max())
+    # Robust ranges: a wild value (a wrong unit, a wrong date) is pinned at the edge it
+    # passed and drawn as a triangle pointing that way, instead of flattening the chart.
+    x_lim = None if x_range else robust_range(x[ok])
+    y_lim = robust_range(y[ok])
+    xlo, xhi = x_range or x_lim or (float(x[ok].min()), float(x[ok].max()))
+    ylo, yhi = y_lim or (float(y[ok].min()), float(y[ok].max()))
+    pinned = ok & ((x < xlo) | (x > xhi) | (y < ylo) | (y > yhi))
     yt = nice_ticks(ylo, yhi)
-    if yt:
+    if yt and y_lim is None:
         ylo, yhi = min(ylo, yt[0]), max(yhi, yt[-1])
+    yt = [t for t in yt if ylo <= t <= yhi]
     xs = _Scale(xlo, xhi, _M["left"] + 4, _W - _M["right"] - 4)
     ys = _Scale(ylo, yhi, _H - _M["bottom"] - 4, _M["top"] + 4)
     if x_ticks is None:
-        x_ticks = [(t, _fmt(t)) for t in nice_ticks(xs.lo, xs.hi)]
+        x_ticks = [(t, _fmt(t)) for t in nice_ticks(xs.lo, xs.hi) if xs.lo <= t <= xs.hi]
     out = _frame(title, x_label, y_label) + _axes(xs, ys, x_ticks, yt)
     present = [g for g in group_order if np.any(ok & (groups == g))]
     for g in present:
-        m = ok & (groups == g)
+        m = ok & ~pinned & (groups == g)
         px, py = np.asarray(xs(x[m])), np.asarray(ys(y[m]))
         symbol = _symbol(g)
         d = _marker_path(symbol, px.tolist(), py.tolist())
         out.append(f'<path d="{d}" stroke="{GROUP_COLOURS.get(g, MUTED)}" class="points marker-{symbol}"/>')
+    for i in np.flatnonzero(pinned).tolist():
+        cx, cy = float(np.clip(x[i], xlo, xhi)), float(np.clip(y[i], ylo, yhi))
+        symbol = "triangle-down" if y[i] < ylo else "triangle-up"
+        out.append(
+            f'<path d="{_marker_path(symbol, [float(xs(cx))], [float(ys(cy))])}" '
+            f'stroke="{GROUP_COLOURS.get(str(groups[i]), MUTED)}" class="points pinned marker-{symbol}">'
+            f"<title>out of range, pinned at the edge: x {_fmt(float(x[i]))}, y {_fmt(float(y[i]))}</title></path>"
+        )
     out += _legend(present, {g: int(np.count_nonzero(ok & (groups == g))) for g in present}, shapes=True)
+    if pinned.any():
+        n = int(np.count_nonzero(pinned))
+        out.append(
+            f'<text x="{_M["left"]}" y="{_H - 4}" class="legend">{n} shot{"" if n == 1 else "s"} out of range, '
+            "pinned at the edge (triangles)</text>"
+        )
     out.append("</svg>")
     return Markup("".join(out))
 
@@ -211,6 +235,10 @@ def histogram_svg(values: np.ndarray, *, title: str, x_label: str, bins: int = 3
     v = v[np.isfinite(v)]
     if not v.size:
         return empty_chart(title, "No shots with this value in this week.")
+    lim = robust_range(v)  # wild values are counted in the edge bins, and said so
+    outside = 0 if lim is None else int(np.count_nonzero((v < lim[0]) | (v > lim[1])))
+    if lim is not None:
+        v = np.clip(v, *lim)
     counts, edges = np.histogram(v, bins=bins if np.ptp(v) > 0 else 1)
     lo, hi = float(edges[0]), float(edges[-1])
     if hi <= lo:
@@ -229,5 +257,10 @@ def histogram_svg(values: np.ndarray, *, title: str, x_label: str, bins: int = 3
                 f'<rect x="{x0:.1f}" y="{top:.1f}" width="{max(x1 - x0 - 1, 0.5):.1f}" '
                 f'height="{float(ys(0.0)) - top:.1f}" fill="{colour}"/>'
             )
+    if outside:
+        out.append(
+            f'<text x="{_M["left"]}" y="{_H - 4}" class="legend">{outside} shot{"" if outside == 1 else "s"} '
+            "out of range, counted in the edge bins</text>"
+        )
     out.append("</svg>")
     return Markup("".join(out))

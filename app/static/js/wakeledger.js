@@ -61,6 +61,13 @@
     });
   }
 
+  // This script runs before plotly.min.js (both deferred, this one first) so that the feeds
+  // are asked for while the browser is still parsing Plotly; charts are drawn once it is there.
+  var plotlyReady = new Promise(function (resolve) {
+    if (window.Plotly || document.readyState === "complete") resolve();
+    else document.addEventListener("DOMContentLoaded", function () { resolve(); });
+  });
+
   function drawChart(id, figure, cursor) {
     var div = document.getElementById(id);
     if (!div || !window.Plotly) return null;
@@ -91,12 +98,15 @@
     });
   }
 
+  // Every feed is asked for at once; each chart is drawn as soon as its feed arrives
+  // (no chart waits for another), and window.wakeledgerChartsDrawn resolves when all are.
   function drawFeedCharts() {
     var divs = document.querySelectorAll(".chart[data-feed]");
-    Array.prototype.forEach.call(divs, function (div) {
+    var all = Array.prototype.map.call(divs, function (div) {
       var load = function () {
         chartCursor[div.id] = null; // no live extension while it reloads
         return fetchJson(div.getAttribute("data-feed"))
+          .then(function (feed) { return plotlyReady.then(function () { return feed; }); })
           .then(function (feed) { showFacts(div.id, feed.facts); return drawChart(div.id, feed.figure, feed.cursor); })
           .catch(function (err) {
             div.classList.remove("loading");
@@ -104,8 +114,9 @@
           });
       };
       chartReload[div.id] = load;
-      load();
+      return load();
     });
+    return Promise.all(all);
   }
 
   function drawEmbeddedCharts() {
@@ -128,10 +139,32 @@
     var state = document.getElementById("regime-state");
     var seq = 0;
 
+    // A robust range (meta.robust: the pinned limits) is kept on a log axis as its log10,
+    // when positive; otherwise the axis fits the points.
+    function axisUpdate(name, log, robust) {
+      var update = {};
+      update[name + ".type"] = log ? "log" : "linear";
+      if (robust && (!log || robust[0] > 0)) {
+        var lo = log ? Math.log10(robust[0]) : robust[0], hi = log ? Math.log10(robust[1]) : robust[1];
+        var pad = (hi - lo) * 0.03 || 1;
+        update[name + ".range"] = [lo - pad, hi + pad];
+      } else {
+        update[name + ".autorange"] = true;
+      }
+      return update;
+    }
+
+    function robustOf(figureLayout, name) {
+      var r = figureLayout && figureLayout.meta && figureLayout.meta.robust;
+      return r ? r[name] : null;
+    }
+
     function axisTypes() {
       var div = document.getElementById("chart-regime");
       if (div && div.data) {
-        Plotly.relayout(div, { "xaxis.type": logx.checked ? "log" : "linear", "yaxis.type": logy.checked ? "log" : "linear" });
+        var update = Object.assign(axisUpdate("xaxis", logx.checked, robustOf(div.layout, "x")),
+                                   axisUpdate("yaxis", logy.checked, robustOf(div.layout, "y")));
+        Plotly.relayout(div, update);
       }
     }
 
@@ -140,12 +173,17 @@
       chartCursor["chart-regime"] = null;
       state.textContent = "loading\u2026";
       var url = cfg.url + "?x=" + encodeURIComponent(xs.value) + "&y=" + encodeURIComponent(ys.value);
-      fetchJson(url)
+      return fetchJson(url)
+        .then(function (feed) { return plotlyReady.then(function () { return feed; }); })
         .then(function (feed) {
           if (mine !== seq) return;
           var figure = feed.figure;
-          figure.layout.xaxis.type = logx.checked ? "log" : "linear";
-          figure.layout.yaxis.type = logy.checked ? "log" : "linear";
+          [["xaxis", logx.checked, "x"], ["yaxis", logy.checked, "y"]].forEach(function (a) {
+            var update = axisUpdate(a[0], a[1], robustOf(figure.layout, a[2]));
+            figure.layout[a[0]].type = update[a[0] + ".type"];
+            if (update[a[0] + ".range"]) figure.layout[a[0]].range = update[a[0] + ".range"];
+            else delete figure.layout[a[0]].range;
+          });
           state.textContent = "";
           return drawChart("chart-regime", figure, feed.cursor);
         })
@@ -157,7 +195,7 @@
     logy.addEventListener("change", axisTypes);
     form.addEventListener("submit", function (e) { e.preventDefault(); load(); });
     chartReload["chart-regime"] = load;
-    load();
+    return load();
   }
 
   /* ----------------------------------------------------------- live updates */
@@ -260,10 +298,43 @@
     tr.appendChild(td);
     tr.appendChild(el("td", null, s.seed_method));
     columns.forEach(function (c) { tr.appendChild(el("td", "num", s.text[c])); });
-    td = el("td", "notes", s.notes.length > 160 ? s.notes.slice(0, 160) + "\u2026" : s.notes);
+    td = el("td", "notes", s.notes);
     s.tags.forEach(function (t) { td.appendChild(document.createTextNode(" ")); td.appendChild(el("span", "tag", t)); });
     tr.appendChild(td);
     return tr;
+  }
+
+  // The overview's latest outside shots: new ones at the top, the list kept to its length.
+  function updateOutside(shots) {
+    var body = document.getElementById("outside-rows");
+    var table = document.getElementById("outside-table");
+    if (!body || !table) return;
+    var columns = readJson("outside-columns") || [];
+    var max = Number(table.getAttribute("data-max-rows")) || 8;
+    shots.forEach(function (s) {
+      if (s.status !== "outside") return;
+      var empty = body.querySelector("tr.empty");
+      if (empty) empty.remove();
+      var tr = el("tr", "fresh");
+      var td = el("td", "nowrap");
+      var a = el("a", "mono", s.shot_id);
+      a.href = s.url.replace(/[^/]+$/, encodeURIComponent(s.shot_id));
+      td.appendChild(a);
+      tr.appendChild(td);
+      tr.appendChild(el("td", "mono nowrap", s.taken_local));
+      td = el("td", "flags");
+      s.flags.forEach(function (f) {
+        var chip = el("span", "flag");
+        chip.appendChild(el("span", "mono", f.code));
+        chip.appendChild(document.createTextNode(" "));
+        chip.appendChild(el("span", "sev " + f.severity, f.severity));
+        td.appendChild(chip);
+      });
+      tr.appendChild(td);
+      columns.forEach(function (c) { tr.appendChild(el("td", "num", s.text[c])); });
+      body.insertBefore(tr, body.firstChild);
+    });
+    while (body.rows.length > max) body.deleteRow(body.rows.length - 1);
   }
 
   function updateTable(cfg, shots) {
@@ -382,7 +453,7 @@
           cursor = data.cursor;
           updateCounts(data);
           if (data.shots.length) {
-            if (cfg.page === "overview") extendCharts(data.shots);
+            if (cfg.page === "overview") { extendCharts(data.shots); updateOutside(data.shots); }
             if (cfg.page === "overview" && outsideNotice) outsideNotice.shots(data.shots);
             if (cfg.page === "table") updateTable(cfg, data.shots);
           }
@@ -434,10 +505,11 @@
   }
 
   function start() {
-    drawEmbeddedCharts();
-    drawFeedCharts();
-    setupRegime();
+    plotlyReady.then(drawEmbeddedCharts);
+    var feeds = drawFeedCharts();
+    var regime = setupRegime();
     setupOutsideNotice();
+    window.wakeledgerChartsDrawn = Promise.all([feeds, regime]);
     setupLive();
     setupJob();
   }
