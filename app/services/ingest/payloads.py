@@ -151,7 +151,7 @@ def payload_digest(comparable: Mapping[str, Any]) -> str:
 
 def legacy_payload_digest(comparable: Mapping[str, Any]) -> str:
     """The digest of shots stored before the canonical JSON was orjson's (the standard encoder's text,
-    which writes some floats differently: 1e+16 for 1e16). A re-post of such a shot compares equal to it."""
+    which writes some floats differently: 1.5e-07 for 1.5e-7). A re-post of such a shot compares equal to it."""
     text = json.dumps(comparable, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
     return text_digest(text)
 
