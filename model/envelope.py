@@ -295,7 +295,6 @@ def integrate_envelope(
     stored_steps = list(range(0, n_steps + 1, stride))
     if stored_steps[-1] != n_steps:
         stored_steps.append(n_steps)
-    z_stored = np.array(stored_steps, dtype=float) * dz
     sigma_stored = np.empty((n, len(stored_steps)))
     modulation = np.empty(n_steps + 1)
     next_store = 0

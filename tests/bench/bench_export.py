@@ -65,7 +65,8 @@ def store(url: str, shots: int) -> None:
             shot["taken_at"] = (start + timedelta(seconds=i * step)).isoformat().replace("+00:00", "Z")
         for first in range(0, shots, 5000):
             with factory() as session:
-                ingest_shots(session, "bench-week", payloads[first : first + 5000], "bench", max_future=timedelta(days=30))
+                chunk = payloads[first : first + 5000]
+                ingest_shots(session, "bench-week", chunk, "bench", max_future=timedelta(days=30))
 
 
 def one_format(url: str, fmt: str, out: Path, repeat: int) -> dict:
@@ -124,8 +125,19 @@ def main() -> None:
         for fmt in ("csv", "json", "parquet", "html"):
             out = Path(tmp) / f"week.{fmt}"
             done = subprocess.run(
-                [str(python), str(Path(__file__).resolve()), "--one", fmt, str(out), "--database-url", url,
-                 "--repeat", str(args.repeat), "--repo", str(args.repo)],  # fmt: skip
+                [
+                    str(python),
+                    str(Path(__file__).resolve()),
+                    "--one",
+                    fmt,
+                    str(out),
+                    "--database-url",
+                    url,
+                    "--repeat",
+                    str(args.repeat),
+                    "--repo",
+                    str(args.repo),
+                ],  # fmt: skip
                 check=True,
                 capture_output=True,
                 text=True,

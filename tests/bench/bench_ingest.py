@@ -188,9 +188,7 @@ def _postgres_floor(url: str, source: int, target: int, batch_size: int) -> tupl
         return [n for n, _ in cols], rows
 
     shot_cols, shots = read("shots", "WHERE t.campaign_id = %s", "t.id")
-    rev_cols, revs = read(
-        "shot_revisions", "JOIN shots s ON s.id = t.shot_pk WHERE s.campaign_id = %s", "t.id"
-    )
+    rev_cols, revs = read("shot_revisions", "JOIN shots s ON s.id = t.shot_pk WHERE s.campaign_id = %s", "t.id")
     ev_cols, evals = read("evaluations", "WHERE t.campaign_id = %s", "t.shot_pk")
     fl_cols, flags = read("flags", "WHERE t.campaign_id = %s", "t.id")
     conn.commit()
@@ -255,7 +253,8 @@ def campaign_ids(url: str) -> dict[str, int]:
 
 def run(repo: Path, backend: str, tmp: Path, args: argparse.Namespace) -> None:
     with scratch_database(backend, tmp) as url:
-        served = Served(repo, url, env={"WAKELEDGER_RATE_LIMIT_WRITES": "", "WAKELEDGER_RATE_LIMIT_EXPENSIVE_READS": ""})
+        unlimited = {"WAKELEDGER_RATE_LIMIT_WRITES": "", "WAKELEDGER_RATE_LIMIT_EXPENSIVE_READS": ""}
+        served = Served(repo, url, env=unlimited)
         served.run("db", "upgrade")
         token = served.token("admin", "bench-ingest")
         headers = {"Authorization": f"Bearer {token}", "Content-Type": "application/json"}

@@ -41,8 +41,9 @@ def test_a_run_stops_half_a_metre_past_saturation_and_says_so(runs):
     assert saturation + 0.5 <= stopped["stopped_at_m"] <= saturation + 0.5 + 2 * dz + 1e-12
     assert stopped["z_steps_m"][-1] == stopped["stopped_at_m"] == stopped["z_m"][-1] == stopped["ez_z_m"]
     assert stopped["plasma_length_m"] == 4.0
-    assert "the run stopped at z = " in stopped["validity_note"] and "0.5 m past the saturation point" in (
-        stopped["validity_note"]
+    assert (
+        "the run stopped at z = " in stopped["validity_note"]
+        and "0.5 m past the saturation point" in (stopped["validity_note"])
     )
 
 

@@ -203,9 +203,7 @@ def _ingest(
         begin_write(session, campaign_lock(campaign_slug))
         campaign = require_campaign(session, campaign_slug)
         stored = shot_store.digests_by_shot_id(session, campaign.id, [s.shot_id for s in unique])
-        mismatched = [
-            s for s in unique if s.shot_id in stored and not same_digest(stored[s.shot_id].payload_sha256, s)
-        ]
+        mismatched = [s for s in unique if s.shot_id in stored and not same_digest(stored[s.shot_id].payload_sha256, s)]
         old = shot_store.raw_payloads(session, [stored[s.shot_id].shot_pk for s in mismatched])
         errs: list[FieldProblem] = []
         conflicts = 0
