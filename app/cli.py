@@ -502,6 +502,11 @@ def _simulate_args(p: argparse.ArgumentParser) -> None:
         metavar="DZ",
         help="integration step along the plasma in metres (default: the solver's choice)",
     )
+    p.add_argument(
+        "--whole-plasma",
+        action="store_true",
+        help="integrate to the plasma exit (default: stop 0.5 m past the saturation point)",
+    )
 
 
 @command(
@@ -541,7 +546,13 @@ def simulate(args: argparse.Namespace, settings: Settings) -> int:
         unit="",
     )
     try:
-        params = parse_parameters({"slices_per_wavelength": args.slices_per_wavelength, "dz_m": args.dz_m})
+        params = parse_parameters(
+            {
+                "slices_per_wavelength": args.slices_per_wavelength,
+                "dz_m": args.dz_m,
+                "stop_after_saturation": not args.whole_plasma,
+            }
+        )
         doc = simulate_to_html(shot, params, out, progress=lambda fraction: bar(round(1000 * fraction), 1000))
     except InvalidInput as exc:
         bar.close()

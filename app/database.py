@@ -10,8 +10,10 @@ PostgreSQL is reached through psycopg 3 (``postgresql+psycopg://``).
 from __future__ import annotations
 
 import json
+import threading
 import time
 import zlib
+from collections import deque
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -102,17 +104,103 @@ def snapshot_read(session: Session) -> Iterator[Session]:
         yield read
 
 
+class WriterQueueTimeout(Exception):
+    """A writer waited longer than the busy timeout for its turn (retryable, like SQLite's "database is locked")."""
+
+
+class FifoLock:
+    """A lock handed to its waiters in the order they came (threading.Lock promises no order)."""
+
+    def __init__(self) -> None:
+        self._mutex = threading.Lock()
+        self._waiters: deque[threading.Lock] = deque()
+        self._held = False
+
+    def acquire(self, timeout: float) -> bool:
+        with self._mutex:
+            if not self._held:
+                self._held = True
+                return True
+            turn = threading.Lock()
+            turn.acquire()
+            self._waiters.append(turn)
+        if turn.acquire(timeout=timeout):
+            return True  # handed over by release(): the lock is ours
+        with self._mutex:
+            try:
+                self._waiters.remove(turn)
+            except ValueError:  # handed over just as the wait ran out: ours after all
+                return True
+        return False
+
+    def release(self) -> None:
+        with self._mutex:
+            if self._waiters:
+                self._waiters.popleft().release()  # straight to the next in line; still held
+            else:
+                self._held = False
+
+
+# One writer queue per SQLite database (by URL) in this process; other processes wait in
+# SQLite's busy handler as before.
+_WRITER_QUEUES: dict[str, FifoLock] = {}
+_WRITER_QUEUES_LOCK = threading.Lock()
+_QUEUE_TICKET = "wakeledger_writer_queue"
+WRITER_QUEUE_TIMEOUT_S = 30.0  # as the busy timeout
+
+
+def writer_queue(engine: Engine) -> FifoLock:
+    """The in-process FIFO writer queue of a database."""
+    key = engine.url.render_as_string(hide_password=False)
+    with _WRITER_QUEUES_LOCK:
+        return _WRITER_QUEUES.setdefault(key, FifoLock())
+
+
+@event.listens_for(Session, "after_transaction_end")
+def _leave_writer_queue(session: Session, transaction: Any) -> None:
+    """The queue's turn ends with the session's outermost transaction (commit, rollback or close)."""
+    if transaction.parent is None:
+        queue = session.info.pop(_QUEUE_TICKET, None)
+        if queue is not None:
+            queue.release()
+
+
+def _join_writer_queue(session: Session) -> None:
+    """SQLite: wait in order for the turn to write, held until the transaction ends. Without it,
+    concurrent writers sleep in SQLite's busy backoff and the unlucky ones wait seconds."""
+    if _QUEUE_TICKET in session.info:
+        return  # this transaction has its turn already
+    engine = session.get_bind().engine
+    if engine.dialect.name != "sqlite":
+        return
+    queue = writer_queue(engine)
+    if not queue.acquire(WRITER_QUEUE_TIMEOUT_S):
+        raise WriterQueueTimeout(f"database is locked: no turn to write within {WRITER_QUEUE_TIMEOUT_S:g} s")
+    session.info[_QUEUE_TICKET] = queue
+
+
 def begin_write(session: Session, lock_name: str | None = None) -> None:
     """Start a write transaction that holds the writer lock for ``lock_name``.
 
-    SQLite: ``BEGIN IMMEDIATE`` (only possible as the first statement of the
-    transaction). PostgreSQL: a transaction-scoped advisory lock on the name, so two
-    writers of the same campaign queue instead of racing on unique keys.
+    SQLite: the writers of this process queue in order (``FifoLock``), then
+    ``BEGIN IMMEDIATE`` (only possible as the first statement of the transaction) takes
+    the database's write lock; other processes wait in SQLite's busy handler.
+    PostgreSQL: a transaction-scoped advisory lock on the name, so two writers of the
+    same campaign queue instead of racing on unique keys.
     """
-    if session.in_transaction():
-        conn = session.connection()
-    else:
-        conn = session.connection(execution_options={_SQLITE_BEGIN: "IMMEDIATE"})
+    started = session.in_transaction()
+    _join_writer_queue(session)
+    try:
+        if started:
+            conn = session.connection()
+        else:
+            conn = session.connection(execution_options={_SQLITE_BEGIN: "IMMEDIATE"})
+    except BaseException:
+        if not session.in_transaction():  # no transaction to end: leave the queue here
+            queue = session.info.pop(_QUEUE_TICKET, None)
+            if queue is not None:
+                queue.release()
+        raise
     if conn.dialect.name == "postgresql" and lock_name is not None:
         key = zlib.crc32(lock_name.encode())  # 32-bit, fits pg_advisory_xact_lock(bigint)
         conn.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": key})
@@ -120,7 +208,7 @@ def begin_write(session: Session, lock_name: str | None = None) -> None:
 
 def is_retryable(exc: BaseException) -> bool:
     """Unique-key races, deadlocks, serialization failures and SQLite lock timeouts."""
-    if isinstance(exc, IntegrityError):
+    if isinstance(exc, IntegrityError | WriterQueueTimeout):
         return True
     if isinstance(exc, OperationalError):
         msg = str(exc.orig).lower() if isinstance(exc, DBAPIError) else str(exc).lower()

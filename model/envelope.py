@@ -87,6 +87,7 @@ GROWTH_STEPS_PER_EFOLD = 25
 MIN_STEPS = 200
 FIT_MIN_EFOLDS = 2.0  # below, delta hardly depends on the coupling, so the fit would not see it
 LINEAR_FRACTION = 0.1  # delta below this fraction of delta_sat: the linear range of the step-size report
+STOP_AFTER_SATURATION_M = 0.5  # default: a run ends this far past the saturation point (project reading)
 FIT_MAX_FRACTION = 0.5  # fit below half the saturation level: the linear regime
 
 
@@ -232,6 +233,7 @@ class EnvelopeRun:
     sigma_stored_m: np.ndarray  # slices x stored z
     final_sigma_m: np.ndarray
     betatron_phase_steps: np.ndarray  # per step: dz sqrt(max |focusing|), the fastest slice's betatron phase advance
+    stopped_early: bool = False  # ended past saturation (stop_after_saturation_m), before the plasma exit
 
 
 @dataclass
@@ -260,11 +262,15 @@ def integrate_envelope(
     resume: EnvelopeState | None = None,
     checkpoint: Callable[[EnvelopeState], None] | None = None,
     checkpoint_every: int = 10,
+    stop_after_saturation_m: float | None = None,
 ) -> EnvelopeRun:
     """Advance every slice along z: velocity Verlet on the planar point (x, y) of radius sigma (MODEL.md section 10).
 
     `checkpoint(state)` is called every `checkpoint_every` steps with a copy of the state;
     `resume` carries on from such a state (same setup, dz and n_stored) to the same result.
+    `stop_after_saturation_m`: end the run that far past the step where the saturation point
+    (`saturation_point`: delta reaches the saturation level, or its first peak) is known,
+    instead of at the plasma exit (project reading, MODEL.md "Project readings").
     """
     grid = setup.grid
     n_steps = max(1, int(math.ceil(setup.length_m / dz_m - 1e-9)))
@@ -289,7 +295,6 @@ def integrate_envelope(
     stored_steps = list(range(0, n_steps + 1, stride))
     if stored_steps[-1] != n_steps:
         stored_steps.append(n_steps)
-    z_stored = np.array(stored_steps, dtype=float) * dz
     sigma_stored = np.empty((n, len(stored_steps)))
     modulation = np.empty(n_steps + 1)
     next_store = 0
@@ -304,6 +309,14 @@ def integrate_envelope(
         modulation[:first] = resume.modulation
         phase_steps[:first] = resume.phase_steps
         sigma_stored[:, :next_store] = resume.sigma_stored
+
+    watch = _SaturationWatch(setup.saturation_modulation)
+    for k in range(first):  # a resumed run knows what the steps before it saw
+        watch.see(k, float(modulation[k]))
+    stop_step = n_steps
+    extra_steps = None if stop_after_saturation_m is None else int(math.ceil(stop_after_saturation_m / dz - 1e-9))
+    if extra_steps is not None and watch.known_at is not None:
+        stop_step = min(n_steps, watch.known_at + extra_steps)
 
     g, kp = focusing(first * dz, x, y)
     for step in range(first, n_steps + 1):
@@ -324,10 +337,12 @@ def integrate_envelope(
             )
         sigma = np.hypot(x, y)
         modulation[step] = modulation_amplitude(grid.zeta_m, sigma, setup.reference_zeta_m, kp)
-        if step == stored_steps[next_store]:
+        if extra_steps is not None and watch.known_at is None and watch.see(step, float(modulation[step])):
+            stop_step = min(n_steps, step + extra_steps)
+        if step == stored_steps[next_store] or step == stop_step:
             sigma_stored[:, next_store] = sigma
             next_store += 1
-        if step == n_steps:
+        if step == stop_step:
             break
         phase_steps[step] = dz * math.sqrt(float(np.abs(g).max()))
         half = 0.5 * dz
@@ -343,13 +358,37 @@ def integrate_envelope(
     if progress is not None:
         progress(1.0)
     return EnvelopeRun(
-        z_steps_m=np.arange(n_steps + 1) * dz,
-        modulation_steps=modulation,
-        z_stored_m=z_stored,
-        sigma_stored_m=sigma_stored,
+        z_steps_m=np.arange(stop_step + 1) * dz,
+        modulation_steps=modulation[: stop_step + 1],
+        z_stored_m=np.array([k for k in stored_steps if k < stop_step] + [stop_step], dtype=float) * dz,
+        sigma_stored_m=sigma_stored[:, :next_store],
         final_sigma_m=np.hypot(x, y),
-        betatron_phase_steps=phase_steps,
+        betatron_phase_steps=phase_steps[:stop_step],
+        stopped_early=stop_step < n_steps,
     )
+
+
+class _SaturationWatch:
+    """Step by step, the step at which `saturation_point` of the steps so far is settled: delta
+    reaches the level, or falls after it reached a tenth of it (its first peak)."""
+
+    def __init__(self, level: float) -> None:
+        self.level = level
+        self.high = False
+        self.last = math.nan
+        self.known_at: int | None = None
+
+    def see(self, step: int, delta: float) -> bool:
+        """Take the next step's delta; True the first time the saturation point is known."""
+        if self.known_at is not None:
+            return False
+        fell = self.high and delta < self.last
+        self.high = self.high or delta >= 0.1 * self.level
+        self.last = delta
+        if fell or delta >= self.level:
+            self.known_at = step
+            return True
+        return False
 
 
 def envelope_setup(
@@ -556,12 +595,15 @@ def simulate_envelope(
     max_stored_z: int = MAX_STORED_Z,
     resume: EnvelopeState | None = None,
     checkpoint: Callable[[EnvelopeState], None] | None = None,
+    stop_after_saturation_m: float | None = STOP_AFTER_SATURATION_M,
 ) -> dict[str, Any]:
     """Envelope solution sigma(zeta, z) of one shot: delta at the reference slice, the closed form beside (MODEL.md 10).
 
     line_profile "uniform" replaces the Gaussian line density by its peak value on the whole
     grid and zeta_tail_m moves the grid's tail (both for checks of the long-beam theory).
     checkpoint and resume are integrate_envelope's (a run carried on from a saved state).
+    stop_after_saturation_m: the run ends that far past the saturation point (None: at the
+    plasma exit); beyond saturation the envelope model is qualitative (MODEL.md "Project readings").
     """
     clean = validate_shot(shot)
     s = resolve_settings(settings)
@@ -569,6 +611,10 @@ def simulate_envelope(
         raise ValueError("slices_per_wavelength must be an integer >= 16")
     if dz_m is not None and not (math.isfinite(dz_m) and dz_m > 0.0):
         raise ValueError("dz_m must be a positive number of metres")
+    if stop_after_saturation_m is not None and not (
+        math.isfinite(stop_after_saturation_m) and stop_after_saturation_m >= 0.0
+    ):
+        raise ValueError("stop_after_saturation_m must be a distance >= 0 in metres, or None")
     started = time.perf_counter()
     closed = evaluate_shot(clean, s)
     method = clean["seed"]["method"]
@@ -592,7 +638,16 @@ def simulate_envelope(
     step = default_step(setup, closed) if dz_m is None else float(dz_m)
     n_slices = setup.grid.zeta_m.size
     n_stored = int(min(max_stored_z, max(MIN_STORED_Z, MAX_STORED_VALUES // n_slices)))
-    run = integrate_envelope(setup, step, n_stored, progress, resume=resume, checkpoint=checkpoint)
+    run = integrate_envelope(
+        setup,
+        step,
+        n_stored,
+        progress,
+        resume=resume,
+        checkpoint=checkpoint,
+        stop_after_saturation_m=stop_after_saturation_m,
+    )
+    end_z = float(run.z_steps_m[-1])
 
     z_all, delta_all = run.z_steps_m, run.modulation_steps
     sat = setup.saturation_modulation
@@ -610,7 +665,7 @@ def simulate_envelope(
         closed_at_fit = float(n_cf_all[in_fit][-1])
         fitted = fit[0] * closed_at_fit
     stored_index = np.searchsorted(z_all, run.z_stored_m - 1e-12)
-    kp_exit = setup.wavenumber(setup.length_m)
+    kp_exit = setup.wavenumber(end_z)
     ez = on_axis_field(
         setup.grid.zeta_m,
         setup.grid.particles,
@@ -632,6 +687,11 @@ def simulate_envelope(
         )
     else:
         note = "the modulation stays below saturation: valid over the whole plasma"
+    if run.stopped_early:
+        note += (
+            f"; the run stopped at z = {end_z:.3g} m, {stop_after_saturation_m:g} m past the saturation point "
+            f"(the plasma is {setup.length_m:.3g} m long)"
+        )
     return {
         "z_m": run.z_stored_m,
         "zeta_m": setup.grid.zeta_m,
@@ -653,7 +713,10 @@ def simulate_envelope(
         "closed_form_efolds_at_fit": closed_at_fit,
         "efolds_difference": None if fitted is None or closed_at_fit is None else fitted - closed_at_fit,
         "fit_range_m": None if fit_end is None else [float(z_all[in_fit][0]), fit_end],
-        "ez_z_m": setup.length_m,
+        "ez_z_m": end_z,
+        "stop_after_saturation_m": stop_after_saturation_m,
+        "stopped_at_m": end_z if run.stopped_early else None,
+        "plasma_length_m": setup.length_m,
         "ez_v_m": ez,
         "numerics": {
             "slices": n_slices,

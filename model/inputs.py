@@ -241,6 +241,14 @@ class ValidatedColumns(Mapping[str, np.ndarray]):
     def __getitem__(self, path: str) -> np.ndarray:
         return self._columns[path]
 
+    def take(self, rows: np.ndarray) -> ValidatedColumns:
+        """The given rows (integer positions), still validated."""
+        return ValidatedColumns(
+            {path: values[rows] for path, values in self._columns.items()},
+            self.species_code[rows],
+            self.method_code[rows],
+        )
+
     def __iter__(self) -> Iterator[str]:
         return iter(self._columns)
 

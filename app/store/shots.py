@@ -58,6 +58,10 @@ def raw_payloads(session: Session, shot_pks: Iterable[int]) -> dict[int, dict[st
 Columns = Mapping[str, Sequence[Any]]  # column name -> values, all of one length
 
 
+class SerialisedJson(list):
+    """A JSON column's values already written as JSON text: bulk_insert stores them as they are."""
+
+
 def _processed(process: Callable[[Any], Any], values: Sequence[Any]) -> list[Any]:
     """Apply a bind processor, once per run of the same object (constant columns are common)."""
     out: list[Any] = []
@@ -84,8 +88,12 @@ def bulk_insert(session: Session, table: Table, rows: Columns) -> None:
     names = list(rows)
     columns: list[Sequence[Any]] = []
     for name in names:
+        values = rows[name]
+        if isinstance(values, SerialisedJson):
+            columns.append(values)
+            continue
         process = table.c[name].type.dialect_impl(dialect).bind_processor(dialect)
-        columns.append(_processed(process, rows[name]) if process else rows[name])
+        columns.append(_processed(process, values) if process else values)
     quote = dialect.identifier_preparer.quote
     column_list = ", ".join(quote(n) for n in names)
     if dialect.name == "postgresql":

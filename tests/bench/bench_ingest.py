@@ -1,269 +1,354 @@
-"""Benchmark: shot ingest over a real uvicorn on loopback.
+"""Benchmark: shot ingest over a real `wakeledger serve` on loopback (prints figures, asserts nothing).
 
-Measures (prints figures, asserts nothing):
-- batch ingest with evaluation (POST .../shots/batch, 5,000 shots per request): shots/s;
-- single-shot POST: requests/s and latency p50/p95/p99;
-- the same rows (shots, revisions, evaluations, flags) inserted raw through SQLAlchemy
-  Core into the same database, and batch ingest as a fraction of that raw rate.
-Targets on SQLite: >= 5,000 shots/s batched and >= 30 % of the raw insert rate.
+Measures, on varied invented shots at full precision with notes, tags and a DAQ section
+(the model benchmark's shot mix, every shot different):
+- batch ingest with evaluation (POST .../shots/batch, --batch-size shots per request): shots/s,
+  wall and the server's CPU;
+- single-shot POST from one client: requests/s and latency p50/p95/p99;
+- --clients (8) concurrent clients posting single shots: latency p50/p95/p99/max and p99/p50;
+- the driver-level floor: the same stored rows (shots, revisions, evaluations, flags) copied
+  into another campaign straight through the driver, ``executemany`` on SQLite and ``COPY`` on
+  PostgreSQL, values already in the driver's form; batch ingest as a fraction of that rate.
+Targets (issue 16): SQLite >= 8,000 shots/s batched and >= 40 % of the floor; 8 concurrent
+single-shot posters p99 < 5x p50, on both backends.
 
-The server runs in its own process (uvicorn, given a socket bound to 127.0.0.1 port 0)
-so that client and server do not share one interpreter; it is stopped at the end.
+`--repo PATH` serves another checkout (its own .venv), for "before" figures from this script.
+Servers listen on 127.0.0.1, databases are scratch files or scratch PostgreSQL databases.
 
-    .venv/bin/python tests/bench/bench_ingest.py [--batches 4] [--batch-size 5000] [--singles 500]
-                                                [--database-url postgresql+psycopg://...]
+    .venv/bin/python tests/bench/bench_ingest.py [--backend sqlite|postgresql|both] [--repo PATH]
+        [--batches 4] [--batch-size 5000] [--singles 300] [--clients 8] [--client-shots 100]
 """
 
 from __future__ import annotations
 
 import argparse
-import copy
 import json
+import math
 import os
-import socket
 import statistics
-import subprocess
 import sys
 import tempfile
+import threading
 import time
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parents[2]
-sys.path.insert(0, str(ROOT))
+import httpx
+import numpy as np
 
-import httpx  # noqa: E402
-from sqlalchemy import insert, select  # noqa: E402
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
 
-from app.database import make_engine, make_session_factory, upgrade_database  # noqa: E402
-from app.schemas import CampaignCreate  # noqa: E402
-from app.services.auth import create_token  # noqa: E402
-from app.services.campaigns import create_campaign  # noqa: E402
-from app.tables import Evaluation, Flag, Shot, ShotRevision  # noqa: E402
+from bench_model import varied_columns  # noqa: E402
+from served import Served, cpu_seconds, percentile, repo_argument, scratch_database  # noqa: E402
 
-REFERENCE_CASES = ROOT / "tests" / "data" / "reference_cases.json"
-TARGET_SHOTS_PER_S = 5000
-TARGET_RAW_FRACTION = 0.30
+TARGET_SHOTS_PER_S = 8000
+TARGET_FLOOR_FRACTION = 0.40
+TARGET_P99_OVER_P50 = 5.0
+NOTES = (
+    "density scan step",
+    "laser energy low, front late; rerun after the timing fix",
+    "=looks fine",  # a cell a spreadsheet would run
+    "",
+    "screen 2 saturated — gain lowered",
+)
+TAGS = (["scan"], ["scan", "density"], [], ["calibration", "night shift"], ["seed-timing"])
 
 
-def make_shots(prefix: str, n: int) -> list[dict]:
-    cases = [c["input"] for c in json.loads(REFERENCE_CASES.read_text())]
+def make_shots(prefix: str, n: int, seed: int) -> list[dict]:
+    """n different valid shots in the API shape (invented demo values)."""
+    columns = varied_columns(n, seed)
+    rng = np.random.default_rng(seed + 1)
+    rows = [dict() for _ in range(n)]
+    for path, values in columns.items():
+        section, name = path.split(".")
+        for row, value in zip(rows, values.tolist(), strict=True):
+            if isinstance(value, str) or not math.isnan(value):
+                row.setdefault(section, {})[name] = value
+    gains = rng.uniform(0.5, 2.0, n).tolist()
     shots = []
-    for i in range(n):
-        shot = copy.deepcopy(cases[i % len(cases)])
-        shot["shot_id"] = f"{prefix}-{i:07d}"
-        shot["taken_at"] = f"2026-11-{17 + i // 86400:02d}T{i // 3600 % 24:02d}:{i // 60 % 60:02d}:{i % 60:02d}.250Z"
-        shot["plasma"]["density_cm3"] *= 1 + 1e-4 * (i % 97)
-        shot["daq"] = {"crate": i % 8, "sequence": i}
-        shots.append(shot)
+    for i, row in enumerate(rows):
+        seconds = i * 7 + seed % 7
+        shots.append(
+            {
+                "shot_id": f"{prefix}-{i:07d}",
+                "taken_at": f"2026-11-{17 + seconds // 86400:02d}T{seconds // 3600 % 24:02d}:"
+                f"{seconds // 60 % 60:02d}:{seconds % 60:02d}.{i % 1000:03d}Z",
+                "notes": NOTES[i % len(NOTES)],
+                "tags": TAGS[i % len(TAGS)],
+                **row,
+                "daq": {"crate": i % 8, "sequence": i, "camera_gain": gains[i], "operator": "shift-b"},
+            }
+        )
     return shots
 
 
-# uvicorn's --fd treats the socket as AF_UNIX and so skips TCP_NODELAY (40 ms stalls);
-# socket.socket(fileno=...) keeps the real family.
-SERVER = """
-import socket, sys, uvicorn
-from app.main import create_app
-sock = socket.socket(fileno=int(sys.argv[1]))
-uvicorn.Server(uvicorn.Config(create_app(), log_level="warning", access_log=False)).run(sockets=[sock])
-"""
-
-
-def start_server(database_url: str) -> tuple[subprocess.Popen, str]:
-    sock = socket.socket()
-    sock.bind(("127.0.0.1", 0))
-    port = sock.getsockname()[1]
-    env = {**os.environ, "DATABASE_URL": database_url, "WAKELEDGER_MIGRATE_ON_START": "false", "PYTHONPATH": str(ROOT)}
-    proc = subprocess.Popen(
-        [sys.executable, "-c", SERVER, str(sock.fileno())], env=env, pass_fds=[sock.fileno()], cwd=ROOT
+def quantiles(ms: list[float]) -> str:
+    p50 = percentile(ms, 50)
+    return (
+        f"p50 {p50:.1f} ms, p95 {percentile(ms, 95):.1f} ms, p99 {percentile(ms, 99):.1f} ms, "
+        f"max {max(ms):.1f} ms; p99/p50 {percentile(ms, 99) / p50:.1f}"
     )
-    sock.close()
-    base = f"http://127.0.0.1:{port}"
-    for _ in range(300):  # bounded: 30 s
-        try:
-            if httpx.get(f"{base}/healthz", timeout=1).status_code == 200:
-                return proc, base
-        except httpx.HTTPError:
-            pass
-        time.sleep(0.1)
-    proc.kill()
-    raise SystemExit("server did not start")
 
 
-def process_cpu_seconds(pid: int) -> float:
-    """User + system CPU time of a process (Linux /proc), to read figures on a busy machine."""
-    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
-    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+def post_all(base: str, headers: dict, url: str, bodies: list[bytes], latencies: list[float], errors: list) -> None:
+    with httpx.Client(base_url=base, headers=headers, timeout=120) as http:
+        for body in bodies:
+            start = time.perf_counter()
+            answer = http.post(url, content=body)
+            latencies.append((time.perf_counter() - start) * 1000)
+            if answer.status_code != 201:
+                errors.append(f"{answer.status_code} {answer.text[:300]}")
 
 
-def percentile(values: list[float], q: float) -> float:
-    ordered = sorted(values)
-    return ordered[min(len(ordered) - 1, int(round(q / 100 * (len(ordered) - 1))))]
+# --- the driver-level floor -------------------------------------------------------------------------
 
 
-def raw_insert_rate(
-    factory, campaign_id: int, source_campaign_id: int, batch_size: int, batches: int
-) -> tuple[float, float]:
-    """Copy the stored rows of the batch campaign into another campaign with Core inserts;
-    (shots per wall second, shots per CPU second)."""
-    with factory() as session:
-        shot_cols = [c for c in Shot.__table__.columns if c.name != "id"]
-        shots = [
-            dict(r._mapping)
-            for r in session.execute(select(*shot_cols).where(Shot.campaign_id == source_campaign_id).order_by(Shot.id))
+def _sqlite_floor(path: str, source: int, target: int, batch_size: int) -> tuple[int, float, float]:
+    import sqlite3
+
+    conn = sqlite3.connect(path, isolation_level=None)
+    for pragma in ("journal_mode=WAL", "foreign_keys=ON", "synchronous=FULL", "busy_timeout=30000"):
+        conn.execute(f"PRAGMA {pragma}")
+
+    def read(sql: str) -> tuple[list[str], list[tuple]]:
+        cur = conn.execute(sql, (source,))
+        return [d[0] for d in cur.description], cur.fetchall()
+
+    shot_cols, shots = read("SELECT * FROM shots WHERE campaign_id = ? ORDER BY id")
+    rev_cols, revs = read(
+        "SELECT r.* FROM shot_revisions r JOIN shots s ON s.id = r.shot_pk WHERE s.campaign_id = ? ORDER BY r.id"
+    )
+    ev_cols, evals = read("SELECT * FROM evaluations WHERE campaign_id = ? ORDER BY shot_pk")
+    fl_cols, flags = read("SELECT * FROM flags WHERE campaign_id = ? ORDER BY id")
+    revs_by = {r[rev_cols.index("shot_pk")]: r for r in revs}
+    evals_by = {e[ev_cols.index("shot_pk")]: e for e in evals}
+    flags_by: dict[int, list[tuple]] = {}
+    for f in flags:
+        flags_by.setdefault(f[fl_cols.index("shot_pk")], []).append(f)
+    i_id, i_campaign, i_shot_id = (shot_cols.index(c) for c in ("id", "campaign_id", "shot_id"))
+    rev_keep = [i for i, c in enumerate(rev_cols) if c != "id"]
+    fl_keep = [i for i, c in enumerate(fl_cols) if c != "id"]
+
+    def sql(table: str, cols: list[str]) -> str:
+        return f"INSERT INTO {table} ({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})"
+
+    total, wall, cpu = 0, 0.0, 0.0
+    for start in range(0, len(shots), batch_size):
+        chunk = shots[start : start + batch_size]
+        t, c = time.perf_counter(), time.process_time()
+        conn.execute("BEGIN IMMEDIATE")
+        first = (conn.execute("SELECT max(id) FROM shots").fetchone()[0] or 0) + 1
+        shot_rows, rev_rows, ev_rows, fl_rows = [], [], [], []
+        for k, row in enumerate(chunk):
+            pk, old = first + k, row[i_id]
+            new = list(row)
+            new[i_id], new[i_campaign], new[i_shot_id] = pk, target, "floor-" + row[i_shot_id]
+            shot_rows.append(new)
+            rev = revs_by[old]
+            rev_rows.append(tuple(pk if rev_cols[i] == "shot_pk" else rev[i] for i in rev_keep))
+            ev = evals_by[old]
+            ev_rows.append(tuple(pk if n == "shot_pk" else target if n == "campaign_id" else v
+                                 for n, v in zip(ev_cols, ev, strict=True)))  # fmt: skip
+            for f in flags_by.get(old, ()):
+                fl_rows.append(tuple(pk if fl_cols[i] == "shot_pk" else target if fl_cols[i] == "campaign_id"
+                                     else f[i] for i in fl_keep))  # fmt: skip
+        conn.executemany(sql("shots", shot_cols), shot_rows)
+        conn.executemany(sql("shot_revisions", [rev_cols[i] for i in rev_keep]), rev_rows)
+        conn.executemany(sql("evaluations", ev_cols), ev_rows)
+        conn.executemany(sql("flags", [fl_cols[i] for i in fl_keep]), fl_rows)
+        conn.execute("COMMIT")
+        wall += time.perf_counter() - t
+        cpu += time.process_time() - c
+        total += len(chunk)
+    conn.close()
+    return total, wall, cpu
+
+
+def _postgres_floor(url: str, source: int, target: int, batch_size: int) -> tuple[int, float, float]:
+    import psycopg
+    from sqlalchemy.engine import make_url
+
+    u = make_url(url)
+    conn = psycopg.connect(
+        host=u.host, port=u.port or 5432, user=u.username, password=u.password or None, dbname=u.database
+    )
+
+    def columns(table: str) -> list[tuple[str, str]]:
+        cur = conn.execute(
+            "SELECT column_name, data_type FROM information_schema.columns WHERE table_name = %s "
+            "ORDER BY ordinal_position",
+            (table,),
+        )
+        return cur.fetchall()
+
+    def read(table: str, where: str, order: str) -> tuple[list[str], list[tuple]]:
+        cols = columns(table)
+        select = ", ".join(f"t.{n}::text" if kind in ("json", "jsonb") else f"t.{n}" for n, kind in cols)
+        rows = conn.execute(f"SELECT {select} FROM {table} t {where} ORDER BY {order}", (source,)).fetchall()
+        return [n for n, _ in cols], rows
+
+    shot_cols, shots = read("shots", "WHERE t.campaign_id = %s", "t.id")
+    rev_cols, revs = read("shot_revisions", "JOIN shots s ON s.id = t.shot_pk WHERE s.campaign_id = %s", "t.id")
+    ev_cols, evals = read("evaluations", "WHERE t.campaign_id = %s", "t.shot_pk")
+    fl_cols, flags = read("flags", "WHERE t.campaign_id = %s", "t.id")
+    conn.commit()
+    revs_by = {r[rev_cols.index("shot_pk")]: r for r in revs}
+    evals_by = {e[ev_cols.index("shot_pk")]: e for e in evals}
+    flags_by: dict[int, list[tuple]] = {}
+    for f in flags:
+        flags_by.setdefault(f[fl_cols.index("shot_pk")], []).append(f)
+    i_id, i_campaign, i_shot_id = (shot_cols.index(c) for c in ("id", "campaign_id", "shot_id"))
+    rev_keep = [i for i, c in enumerate(rev_cols) if c != "id"]
+    fl_keep = [i for i, c in enumerate(fl_cols) if c != "id"]
+
+    def copy(cur, table: str, cols: list[str], rows: list) -> None:
+        with cur.copy(f"COPY {table} ({', '.join(cols)}) FROM STDIN") as out:
+            for row in rows:
+                out.write_row(row)
+
+    total, wall, cpu = 0, 0.0, 0.0
+    for start in range(0, len(shots), batch_size):
+        chunk = shots[start : start + batch_size]
+        t, c = time.perf_counter(), time.process_time()
+        with conn.cursor() as cur:
+            pks = [r[0] for r in cur.execute(
+                "SELECT nextval(pg_get_serial_sequence('shots', 'id')) FROM generate_series(1, %s)", (len(chunk),)
+            ).fetchall()]  # fmt: skip
+            shot_rows, rev_rows, ev_rows, fl_rows = [], [], [], []
+            for pk, row in zip(pks, chunk, strict=True):
+                old = row[i_id]
+                new = list(row)
+                new[i_id], new[i_campaign], new[i_shot_id] = pk, target, "floor-" + row[i_shot_id]
+                shot_rows.append(new)
+                rev = revs_by[old]
+                rev_rows.append(tuple(pk if rev_cols[i] == "shot_pk" else rev[i] for i in rev_keep))
+                ev = evals_by[old]
+                ev_rows.append(tuple(pk if n == "shot_pk" else target if n == "campaign_id" else v
+                                     for n, v in zip(ev_cols, ev, strict=True)))  # fmt: skip
+                for f in flags_by.get(old, ()):
+                    fl_rows.append(tuple(pk if fl_cols[i] == "shot_pk" else target if fl_cols[i] == "campaign_id"
+                                         else f[i] for i in fl_keep))  # fmt: skip
+            copy(cur, "shots", shot_cols, shot_rows)
+            copy(cur, "shot_revisions", [rev_cols[i] for i in rev_keep], rev_rows)
+            copy(cur, "evaluations", ev_cols, ev_rows)
+            copy(cur, "flags", [fl_cols[i] for i in fl_keep], fl_rows)
+        conn.commit()
+        wall += time.perf_counter() - t
+        cpu += time.process_time() - c
+        total += len(chunk)
+    conn.close()
+    return total, wall, cpu
+
+
+def campaign_ids(url: str) -> dict[str, int]:
+    from sqlalchemy import create_engine, text
+
+    engine = create_engine(url.replace("postgresql://", "postgresql+psycopg://", 1))
+    try:
+        with engine.connect() as conn:
+            return {slug: pk for pk, slug in conn.execute(text("SELECT id, slug FROM campaigns"))}
+    finally:
+        engine.dispose()
+
+
+def run(repo: Path, backend: str, tmp: Path, args: argparse.Namespace) -> None:
+    with scratch_database(backend, tmp) as url:
+        unlimited = {"WAKELEDGER_RATE_LIMIT_WRITES": "", "WAKELEDGER_RATE_LIMIT_EXPENSIVE_READS": ""}
+        served = Served(repo, url, env=unlimited)
+        served.run("db", "upgrade")
+        token = served.token("admin", "bench-ingest")
+        headers = {"Authorization": f"Bearer {token}", "Content-Type": "application/json"}
+        bodies = [
+            json.dumps({"shots": make_shots(f"b{b}", args.batch_size, 100 + b)}).encode() for b in range(args.batches)
         ]
-        pks = list(session.scalars(select(Shot.id).where(Shot.campaign_id == source_campaign_id).order_by(Shot.id)))
-        ev_cols = [c for c in Evaluation.__table__.columns]
-        evals = {
-            r.shot_pk: dict(r._mapping)
-            for r in session.execute(select(*ev_cols).where(Evaluation.campaign_id == source_campaign_id))
-        }
-        flag_cols = [c for c in Flag.__table__.columns if c.name != "id"]
-        flags: dict[int, list[dict]] = {}
-        for r in session.execute(select(*flag_cols).where(Flag.campaign_id == source_campaign_id)):
-            flags.setdefault(r.shot_pk, []).append(dict(r._mapping))
-    total = 0
-    elapsed = cpu = 0.0
-    for b in range(batches):
-        chunk = range(b * batch_size, min((b + 1) * batch_size, len(shots)))
-        shot_rows = [{**shots[i], "campaign_id": campaign_id, "shot_id": "raw-" + shots[i]["shot_id"]} for i in chunk]
-        start = time.perf_counter()
-        cpu_start = time.process_time()
-        with factory() as session:
-            new_pks = [
-                pk
-                for (pk,) in session.execute(
-                    insert(Shot.__table__).returning(Shot.__table__.c.id, sort_by_parameter_order=True), shot_rows
+        singles = [json.dumps(s).encode() for s in make_shots("s", args.singles, 7)]
+        concurrent = [
+            [json.dumps(s).encode() for s in make_shots(f"c{k}", args.client_shots, 200 + k)]
+            for k in range(args.clients)
+        ]
+        served.start()
+        pid = served.server.pid if served.server else 0
+        try:
+            with httpx.Client(base_url=served.base, headers=headers, timeout=300) as http:
+                for slug in ("batch", "single", "many", "floor"):
+                    answer = http.post("/api/v1/campaigns", json={"slug": f"bench-{slug}", "name": slug})
+                    assert answer.status_code == 201, answer.text
+                http.post("/api/v1/campaigns/bench-single/shots", content=singles[0])  # warm-up
+                batch_times = []
+                cpu0 = cpu_seconds(pid)
+                for body in bodies:
+                    t = time.perf_counter()
+                    answer = http.post("/api/v1/campaigns/bench-batch/shots/batch", content=body)
+                    batch_times.append(time.perf_counter() - t)
+                    if answer.status_code != 201:
+                        raise SystemExit(f"batch failed: {answer.status_code} {answer.text[:500]}")
+                batch_cpu = cpu_seconds(pid) - cpu0
+            one: list[float] = []
+            errors: list[str] = []
+            cpu0, t = cpu_seconds(pid), time.perf_counter()
+            post_all(served.base, headers, "/api/v1/campaigns/bench-single/shots", singles[1:], one, errors)
+            single_wall, single_cpu = time.perf_counter() - t, cpu_seconds(pid) - cpu0
+            many: list[float] = []
+            threads = [
+                threading.Thread(
+                    target=post_all,
+                    args=(served.base, headers, "/api/v1/campaigns/bench-many/shots", bodies_k, many, errors),
                 )
+                for bodies_k in concurrent
             ]
-            session.execute(
-                insert(ShotRevision.__table__),
-                [
-                    dict(
-                        shot_pk=pk,
-                        revision=1,
-                        raw_payload=row["raw_payload"],
-                        payload_sha256=row["payload_sha256"],
-                        reason="first version",
-                        author="bench",
-                        created_at=row["created_at"],
-                    )
-                    for pk, row in zip(new_pks, shot_rows, strict=False)
-                ],
-            )
-            session.execute(
-                insert(Evaluation.__table__),
-                [
-                    {**evals[pks[i]], "shot_pk": pk, "campaign_id": campaign_id}
-                    for i, pk in zip(chunk, new_pks, strict=False)
-                ],
-            )
-            flag_rows = [
-                {**f, "shot_pk": pk, "campaign_id": campaign_id}
-                for i, pk in zip(chunk, new_pks, strict=False)
-                for f in flags.get(pks[i], [])
-            ]
-            if flag_rows:
-                session.execute(insert(Flag.__table__), flag_rows)
-            session.commit()
-        elapsed += time.perf_counter() - start
-        cpu += time.process_time() - cpu_start
-        total += len(shot_rows)
-    return total / elapsed, total / cpu
+            cpu0, t = cpu_seconds(pid), time.perf_counter()
+            for thread in threads:
+                thread.start()
+            for thread in threads:
+                thread.join(timeout=600)
+            many_wall, many_cpu = time.perf_counter() - t, cpu_seconds(pid) - cpu0
+            if errors:
+                raise SystemExit(f"{len(errors)} single posts failed, e.g. {errors[0]}")
+        finally:
+            served.stop()
+        ids = campaign_ids(url)
+        floor = _sqlite_floor if backend == "sqlite" else _postgres_floor
+        path = url.removeprefix("sqlite:///") if backend == "sqlite" else url
+        n_floor, floor_wall, floor_cpu = floor(path, ids["bench-batch"], ids["bench-floor"], args.batch_size)
+
+    n = args.batches * args.batch_size
+    rate = n / sum(batch_times)
+    floor_rate = n_floor / floor_wall
+    print(f"[{backend}] repo {repo}; load average {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
+    print(
+        f"[{backend}] batch ingest with evaluation: {rate:,.0f} shots/s wall (per {args.batch_size}-shot request: "
+        f"median {statistics.median(batch_times):.3f} s); server CPU {n / batch_cpu:,.0f} shots per CPU second "
+        f"(target >= {TARGET_SHOTS_PER_S:,})"
+    )
+    print(
+        f"[{backend}] driver-level floor ({'executemany' if backend == 'sqlite' else 'COPY'}) of the same rows: "
+        f"{floor_rate:,.0f} shots/s wall, {n_floor / floor_cpu:,.0f} per client CPU second; "
+        f"batch ingest / floor: {rate / floor_rate:.0%} wall (target >= {TARGET_FLOOR_FRACTION:.0%})"
+    )
+    print(
+        f"[{backend}] one client, single shots: {len(one) / single_wall:,.0f} requests/s; {quantiles(one)}; "
+        f"server CPU {single_cpu / len(one) * 1000:.1f} ms per request"
+    )
+    print(
+        f"[{backend}] {args.clients} concurrent clients, single shots: {len(many) / many_wall:,.0f} requests/s; "
+        f"{quantiles(many)} (target p99/p50 < {TARGET_P99_OVER_P50:g}); "
+        f"server CPU {many_cpu / len(many) * 1000:.1f} ms per request"
+    )
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    repo_argument(parser)
+    parser.add_argument("--backend", choices=("sqlite", "postgresql", "both"), default="sqlite")
     parser.add_argument("--batches", type=int, default=4)
     parser.add_argument("--batch-size", type=int, default=5000)
-    parser.add_argument("--singles", type=int, default=500)
-    parser.add_argument("--database-url", help="default: a temporary SQLite file")
+    parser.add_argument("--singles", type=int, default=300)
+    parser.add_argument("--clients", type=int, default=8)
+    parser.add_argument("--client-shots", type=int, default=100, help="single shots each concurrent client posts")
     args = parser.parse_args()
-
     with tempfile.TemporaryDirectory(prefix="wakeledger-bench-") as tmp:
-        url = args.database_url or f"sqlite:///{tmp}/bench.db"
-        upgrade_database(url)
-        engine = make_engine(url)
-        factory = make_session_factory(engine)
-        stamp = str(int(time.time()))
-        with factory() as session:
-            token = create_token(session, "ingest", "bench", actor="bench")
-        ids = {}
-        for slug in ("bench-batch", "bench-single", "bench-raw"):
-            slug = f"{slug}-{stamp}"
-            with factory() as session:
-                ids[slug.rsplit("-", 1)[0]] = (
-                    slug,
-                    create_campaign(session, CampaignCreate(slug=slug, name=slug), "bench").id,
-                )
-        backend = engine.dialect.name
-        print(f"backend: {backend}; batches: {args.batches} x {args.batch_size}; single posts: {args.singles}")
-
-        proc, base = start_server(url)
-        try:
-            headers = {"Authorization": f"Bearer {token}", "Content-Type": "application/json"}
-            with httpx.Client(base_url=base, headers=headers, timeout=120) as http:
-                slug = ids["bench-batch"][0]
-                bodies = [
-                    json.dumps({"shots": make_shots(f"b{b}", args.batch_size)}).encode() for b in range(args.batches)
-                ]
-                batch_times = []
-                cpu_before = process_cpu_seconds(proc.pid)
-                for body in bodies:
-                    start = time.perf_counter()
-                    response = http.post(f"/api/v1/campaigns/{slug}/shots/batch", content=body)
-                    batch_times.append(time.perf_counter() - start)
-                    if response.status_code != 201:
-                        raise SystemExit(f"batch failed: {response.status_code} {response.text[:500]}")
-                batch_rate = args.batches * args.batch_size / sum(batch_times)
-                batch_cpu = process_cpu_seconds(proc.pid) - cpu_before
-
-                slug = ids["bench-single"][0]
-                singles = [json.dumps(s).encode() for s in make_shots("s", args.singles)]
-                latencies = []
-                cpu_before = process_cpu_seconds(proc.pid)
-                start_all = time.perf_counter()
-                for body in singles:
-                    start = time.perf_counter()
-                    response = http.post(f"/api/v1/campaigns/{slug}/shots", content=body)
-                    latencies.append(time.perf_counter() - start)
-                    if response.status_code != 201:
-                        raise SystemExit(f"single post failed: {response.status_code} {response.text[:500]}")
-                single_rate = args.singles / (time.perf_counter() - start_all)
-                single_cpu = process_cpu_seconds(proc.pid) - cpu_before
-        finally:
-            proc.terminate()
-            try:
-                proc.wait(timeout=15)
-            except subprocess.TimeoutExpired:
-                proc.kill()
-
-        raw_rate, raw_cpu_rate = raw_insert_rate(
-            factory, ids["bench-raw"][1], ids["bench-batch"][1], args.batch_size, args.batches
-        )
-        engine.dispose()
-
-    ms = [x * 1000 for x in latencies]
-    n_batch = args.batches * args.batch_size
-    print(
-        f"load average at the end: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores "
-        "(wall-clock rates drop on a busy machine; the CPU rates do not)"
-    )
-    print(
-        f"batch ingest with evaluation: {batch_rate:,.0f} shots/s "
-        f"(per {args.batch_size}-shot request: median {statistics.median(batch_times):.3f} s, "
-        f"max {max(batch_times):.3f} s; target >= {TARGET_SHOTS_PER_S:,} shots/s); "
-        f"server CPU: {n_batch / batch_cpu:,.0f} shots per CPU second"
-    )
-    print(
-        f"single-shot POST: {single_rate:,.0f} requests/s; latency p50 {percentile(ms, 50):.1f} ms, "
-        f"p95 {percentile(ms, 95):.1f} ms, p99 {percentile(ms, 99):.1f} ms; "
-        f"server CPU {single_cpu / args.singles * 1000:.1f} ms per request"
-    )
-    print(f"raw Core insert of the same rows: {raw_rate:,.0f} shots/s; {raw_cpu_rate:,.0f} shots per CPU second")
-    print(
-        f"batch ingest / raw insert: {batch_rate / raw_rate:.0%} wall-clock, "
-        f"{n_batch / batch_cpu / raw_cpu_rate:.0%} by CPU (target >= {TARGET_RAW_FRACTION:.0%})"
-    )
+        for backend in ("sqlite", "postgresql") if args.backend == "both" else (args.backend,):
+            run(args.repo, backend, Path(tmp), args)
 
 
 if __name__ == "__main__":

@@ -156,7 +156,8 @@ def check_table_equals_loop(table: dict[str, np.ndarray], shots: list[dict]) -> 
 
 def baseline_figure(checkout: Path, columns: dict[str, np.ndarray], repeats: int, objects: bool) -> tuple[float, float]:
     """(best wall s, best CPU s) of evaluate_table in another checkout, its own venv and model, on the same shots."""
-    python = checkout / ".venv" / "bin" / "python"
+    venv = checkout / ".venv" / "bin"
+    python = venv / "python" if (venv / "wakeledger").exists() else Path(sys.executable)  # an installed .venv
     with tempfile.TemporaryDirectory() as tmp:
         data = Path(tmp) / "shots.npz"
         np.savez(data, **columns)

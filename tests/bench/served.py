@@ -14,6 +14,7 @@ import os
 import signal
 import socket
 import subprocess
+import sys
 import time
 import uuid
 from collections.abc import Iterator
@@ -95,10 +96,16 @@ class Served:
         return f"http://127.0.0.1:{self.port}"
 
     def command(self, *args: str) -> list[str]:
-        return [str(self.repo / ".venv" / "bin" / "wakeledger"), "--database-url", self.database_url, *args]
+        script = self.repo / ".venv" / "bin" / "wakeledger"
+        # without its own .venv: this interpreter runs the checkout's code (PYTHONPATH, see _env)
+        start = [str(script)] if script.exists() else [sys.executable, "-m", "app.cli"]
+        return [*start, "--database-url", self.database_url, *args]
 
     def _env(self) -> dict[str, str]:
-        return {**os.environ, "WAKELEDGER_LOCAL_WORKER": "false", **self.env}
+        env = {**os.environ, "WAKELEDGER_LOCAL_WORKER": "false", **self.env}
+        if not (self.repo / ".venv" / "bin" / "wakeledger").exists():
+            env["PYTHONPATH"] = str(self.repo)
+        return env
 
     def run(self, *args: str) -> str:
         return subprocess.run(

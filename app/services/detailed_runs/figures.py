@@ -70,6 +70,7 @@ def run_facts(doc: Mapping[str, Any], run: DetailedRun | None = None) -> list[li
             + (f" \u2014 {doc['saturation_reason']}" if doc.get("saturation_reason") else ""),
         ],
         ["saturation (closed form)", _text(doc.get("closed_form_saturation_z_m"), "m")],
+        ["end of the run", stop_text(doc) or "the plasma exit"],
         [
             "fitted e-folds",
             f"{_text(doc.get('fitted_efolds'))} against {_text(doc.get('closed_form_efolds_at_fit'))} "
@@ -119,8 +120,57 @@ def _valid_until(doc: Mapping[str, Any]) -> tuple[float | None, float]:
     return (None if valid is None or valid >= length else float(valid)), length
 
 
+def stop_text(doc: Mapping[str, Any]) -> str | None:
+    """Where a run ended early, past saturation (option stop_after_saturation), or None."""
+    stopped = doc.get("stopped_at_m")
+    if stopped is None:
+        return None
+    return (
+        f"run stopped at z = {float(stopped):.3g} m, {float(doc['stop_after_saturation_m']):g} m past saturation "
+        f"(plasma exit at {float(doc['plasma_length_m']):.3g} m)"
+    )
+
+
+def _stop_marks(doc: Mapping[str, Any]) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
+    """A solid line and a note where a run stopped past saturation (charts over z)."""
+    text = stop_text(doc)
+    if text is None:
+        return [], []
+    stopped = float(doc["stopped_at_m"])
+    line = {
+        "type": "line",
+        "xref": "x",
+        "yref": "paper",
+        "x0": stopped,
+        "x1": stopped,
+        "y0": 0,
+        "y1": 1,
+        "line": {"color": INK, "width": 2},
+        "layer": "above",
+    }
+    note = {
+        "xref": "x",
+        "yref": "paper",
+        "x": stopped,
+        "y": 0.0,
+        "yanchor": "bottom",
+        "xanchor": "right",
+        "showarrow": False,
+        "font": {"color": INK, "size": 11},
+        "text": text,
+    }
+    return [line], [note]
+
+
 def _validity_marks(doc: Mapping[str, Any]) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
-    """Shade z beyond saturation and draw a vertical line where validity ends (charts over z)."""
+    """Shade z beyond saturation and draw a vertical line where validity ends, and mark where a
+    run stopped past saturation (charts over z)."""
+    stop_shapes, stop_notes = _stop_marks(doc)
+    shapes, annotations = _saturation_marks(doc)
+    return shapes + stop_shapes, annotations + stop_notes
+
+
+def _saturation_marks(doc: Mapping[str, Any]) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
     valid, length = _valid_until(doc)
     if valid is None:
         return [], []
@@ -322,7 +372,8 @@ def modulation_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
 
 
 def exit_field_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
-    """On-axis E_z(ζ) at the plasma exit [MV/m]; past saturation it is marked qualitative."""
+    """On-axis E_z(ζ) at the end of the run (the plasma exit, or where it stopped) [MV/m]; past saturation it
+    is marked qualitative."""
     zeta = _array(doc["zeta_m"]) * 1e3
     field = _array(doc["ez_v_m"]) / 1e6
     valid, length = _valid_until(doc)
@@ -378,12 +429,11 @@ def exit_field_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
             "line": {"color": REFERENCE_COLOUR, "dash": "dash"},
         }
     ]
+    where = "at the plasma exit" if doc.get("stopped_at_m") is None else "where the run stopped, past saturation"
     if valid is None:
-        note, colour = f"at the plasma exit, z = {length:.3g} m: inside the model's validity", INK
+        note, colour = f"{where}, z = {length:.3g} m: inside the model's validity", INK
     else:
-        note = (
-            f"at the plasma exit, z = {length:.3g} m, past saturation (valid until z = {valid:.3g} m): qualitative only"
-        )
+        note = f"{where}, z = {length:.3g} m, past saturation (valid until z = {valid:.3g} m): qualitative only"
         colour = LIMIT_COLOUR
     figure_layout = layout(
         height=360,
@@ -411,7 +461,7 @@ def exit_field_figure(doc: Mapping[str, Any]) -> dict[str, Any]:
 CHART_TITLES = {
     "map": "Slice radius σ_r(ζ, z)",
     "growth": "Modulation δ(z) at the reference slice",
-    "field": "On-axis field E_z(ζ) at the exit",
+    "field": "On-axis field E_z(ζ) at the end of the run",
 }
 
 

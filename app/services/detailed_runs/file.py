@@ -67,7 +67,14 @@ def simulate_to_html(
     problems = step_problems(params, length)
     if problems:
         raise InvalidInput(problems)
-    result = envelope.simulate_envelope(shot, settings, params.slices_per_wavelength, params.dz_m, progress=progress)
+    result = envelope.simulate_envelope(
+        shot,
+        settings,
+        params.slices_per_wavelength,
+        params.dz_m,
+        progress=progress,
+        stop_after_saturation_m=params.stop_after_saturation_m,
+    )
     doc = envelope.envelope_result_to_json(result)
     html = render_run_html(shot, doc).encode("utf-8")
 

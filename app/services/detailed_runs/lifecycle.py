@@ -61,6 +61,23 @@ class RunParameters(BaseModel):
         strict=True,
         description="integration step along the plasma [m]; default: the solver's choice",
     )
+    stop_after_saturation: bool = Field(
+        default=True,
+        strict=True,
+        description=(
+            f"end the run {envelope.STOP_AFTER_SATURATION_M:g} m past the saturation point (beyond it the "
+            "envelope model is qualitative); false integrates to the plasma exit"
+        ),
+    )
+
+    @property
+    def stop_after_saturation_m(self) -> float | None:
+        return stop_distance(self.stop_after_saturation)
+
+
+def stop_distance(stop_after_saturation: bool) -> float | None:
+    """The solver's stop distance past saturation for the run option (None: to the plasma exit)."""
+    return envelope.STOP_AFTER_SATURATION_M if stop_after_saturation else None
 
 
 def parse_parameters(raw: Mapping[str, Any] | None) -> RunParameters:
@@ -101,7 +118,9 @@ def _shot_or_404(session: Session, campaign: Campaign, shot_id: str) -> Shot:
 
 def _same_request(a: Mapping[str, Any], b: Mapping[str, Any]) -> bool:
     keys = ("shot_pk", "shot_revision", "slices_per_wavelength", "dz_m", "settings_version")
-    return all(a.get(k) == b.get(k) for k in keys)
+    return all(a.get(k) == b.get(k) for k in keys) and a.get("stop_after_saturation", True) == b.get(
+        "stop_after_saturation", True
+    )
 
 
 def start_run(
@@ -130,6 +149,7 @@ def start_run(
             "shot_revision": shot.revision,
             "slices_per_wavelength": params.slices_per_wavelength,
             "dz_m": params.dz_m,
+            "stop_after_saturation": params.stop_after_saturation,
             "settings_version": campaign.settings_version,
             "settings": dict(campaign.model_settings or {}),
         }
@@ -218,6 +238,7 @@ def run_detailed_job(ctx: jobs.JobContext) -> dict[str, Any]:
             last_saved[0] = time.monotonic()
 
     reported = JobProgress(progress)
+    stop = stop_distance(bool(p.get("stop_after_saturation", True)))  # jobs queued before the option: on
     if resume is not None:
         reported.last_percent = ctx.done - 1  # a resumed run reports on from where it was
     try:
@@ -229,6 +250,7 @@ def run_detailed_job(ctx: jobs.JobContext) -> dict[str, Any]:
             progress=reported,
             resume=resume,
             checkpoint=keep,
+            stop_after_saturation_m=stop,
         )
     except ValueError:
         if resume is None:
@@ -240,6 +262,7 @@ def run_detailed_job(ctx: jobs.JobContext) -> dict[str, Any]:
             p["dz_m"],
             progress=JobProgress(progress),
             checkpoint=keep,
+            stop_after_saturation_m=stop,
         )
         resume = None
     progress(100, 100, "storing the result")
@@ -253,7 +276,10 @@ def run_detailed_job(ctx: jobs.JobContext) -> dict[str, Any]:
                 job_id=job_id,
                 shot_revision=p["shot_revision"],
                 model_version=model.MODEL_VERSION,
-                parameters={k: p[k] for k in ("slices_per_wavelength", "dz_m", "settings_version", "settings")},
+                parameters={
+                    **{k: p[k] for k in ("slices_per_wavelength", "dz_m", "settings_version", "settings")},
+                    "stop_after_saturation": bool(p.get("stop_after_saturation", True)),
+                },
                 result=document,
                 created_at=datetime.now(UTC),
             ),

@@ -28,6 +28,7 @@ from datetime import UTC, datetime, timedelta
 from typing import Any
 
 import numpy as np
+import orjson
 from pydantic import AwareDatetime, TypeAdapter, ValidationError
 
 import model
@@ -113,10 +114,51 @@ def stored_comparable(payload: Mapping[str, Any]) -> dict[str, Any]:
     return comparable_payload(payload, _STORED_TIME.validate_python(payload["taken_at"]))
 
 
-def payload_digest(comparable: Mapping[str, Any]) -> str:
-    """sha256 of the sorted JSON; raises ValueError for NaN or infinity anywhere."""
-    text = json.dumps(comparable, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+def canonical_json(value: Any) -> str:
+    """The one JSON text of a payload: sorted keys, compact, UTF-8 (orjson; the standard encoder for
+    what orjson refuses, integers beyond 64 bits). Raises ValueError for NaN or infinity anywhere.
+
+    It is hashed for the digest and stored as it is in both raw_payload columns.
+    """
+    try:
+        data = orjson.dumps(value, option=orjson.OPT_SORT_KEYS)
+    except TypeError:
+        return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+    # orjson writes NaN and infinity as null: where a null shows, look for them.
+    if b"null" in data and _has_non_finite(value):
+        raise ValueError("NaN or infinity is not allowed")
+    return data.decode("utf-8")
+
+
+def _has_non_finite(value: Any) -> bool:
+    if isinstance(value, float):
+        return not math.isfinite(value)
+    if isinstance(value, Mapping):
+        return any(_has_non_finite(v) for v in value.values())
+    if isinstance(value, list):
+        return any(_has_non_finite(v) for v in value)
+    return False
+
+
+def text_digest(text: str) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def payload_digest(comparable: Mapping[str, Any]) -> str:
+    """sha256 of the canonical JSON; raises ValueError for NaN or infinity anywhere."""
+    return text_digest(canonical_json(comparable))
+
+
+def legacy_payload_digest(comparable: Mapping[str, Any]) -> str:
+    """The digest of shots stored before the canonical JSON was orjson's (the standard encoder's text,
+    which writes some floats differently: 1.5e-07 for 1.5e-7). A re-post of such a shot compares equal to it."""
+    text = json.dumps(comparable, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+    return text_digest(text)
+
+
+def same_digest(stored: str, shot: PreparedShot) -> bool:
+    """Whether a stored digest is this shot's, in today's format or the earlier one."""
+    return stored == shot.sha256 or stored == legacy_payload_digest(shot.comparable)
 
 
 def differing_paths(old: Any, new: Any, prefix: str = "") -> list[str]:
@@ -180,6 +222,20 @@ def defaulted_fields(payload: Mapping[str, Any]) -> list[str]:
     return out
 
 
+def defaulted_by_shot(payloads: Sequence[Mapping[str, Any]]) -> list[list[str]]:
+    """``defaulted_fields`` of valid payloads (every physics section an object or absent), field by field."""
+    out: list[list[str]] = [[] for _ in payloads]
+    blocks: dict[str, list[Any]] = {}
+    for f in _DEFAULTED:
+        section, name = f.path.split(".", 1)
+        if section not in blocks:
+            blocks[section] = [p.get(section) or {} for p in payloads]
+        for i, block in enumerate(blocks[section]):
+            if block.get(name) is None:
+                out[i].append(f.path)
+    return out
+
+
 def taken_at_problems(taken_at: datetime, now: datetime, max_future: timedelta, prefix: str = "") -> list[FieldProblem]:
     """A shot time before 1990 or more than ``max_future`` past the server's clock is a mistake."""
     path = prefixed(prefix, "taken_at")
@@ -208,6 +264,7 @@ class PreparedShot:
     comparable: dict[str, Any]
     sha256: str
     defaulted: list[str] = field(default_factory=list)  # input paths that took their defaults
+    text: str = ""  # the payload's canonical JSON (canonical_json), stored as it is
 
 
 @dataclass
@@ -217,8 +274,13 @@ class PreparedBatch:
     shots: list[PreparedShot]
     inputs: Mapping[str, np.ndarray]  # input path -> values (defaults applied), by position
 
-    def inputs_of(self, shots: Sequence[PreparedShot]) -> dict[str, np.ndarray]:
+    def inputs_of(self, shots: Sequence[PreparedShot]) -> Mapping[str, np.ndarray]:
+        """The validated inputs of some shots (still validated: the model does not check them again)."""
         positions = np.array([s.position for s in shots], dtype=np.intp)
+        if isinstance(self.inputs, model.ValidatedColumns):
+            if positions.size == self.inputs.rows and np.array_equal(positions, np.arange(positions.size)):
+                return self.inputs
+            return self.inputs.take(positions)
         return {path: values[positions] for path, values in self.inputs.items()}
 
 
@@ -354,7 +416,7 @@ def prepare_all(
     now = now or datetime.now(UTC)
     out = ProblemList()
     failing: set[int] = set()
-    valid: dict[int, tuple[ShotEnvelope, dict[str, Any], str]] = {}
+    valid: dict[int, tuple[ShotEnvelope, dict[str, Any], str, str]] = {}
     objects: list[int] = []
     non_finite: list[bool] = []
     for i, payload in enumerate(payloads):
@@ -379,13 +441,15 @@ def prepare_all(
             failing.add(i)
         comparable = comparable_payload(payload, envelope.taken_at) if envelope else dict(payload)
         try:
-            digest = payload_digest(comparable)
+            compared = canonical_json(comparable)
+            # One text for the digest and the stored payload, unless taken_at was written another way.
+            text = compared if comparable.get("taken_at") == payload.get("taken_at") else canonical_json(payload)
         except ValueError:  # NaN or infinity somewhere; _physics names where
             non_finite.append(True)
             continue
         non_finite.append(False)
         if envelope is not None and i not in failing:
-            valid[i] = (envelope, comparable, digest)
+            valid[i] = (envelope, comparable, text_digest(compared), text)
     inputs, physics_failing = _checked_inputs(
         [payloads[i] for i in objects], [f"shots.{i}" if batch else "" for i in objects], non_finite, out
     )
@@ -393,8 +457,9 @@ def prepare_all(
     if out:
         raise _reject(len(payloads), len(failing), out, batch)
     prepared: list[PreparedShot] = []
+    defaulted = defaulted_by_shot([payloads[i] for i in objects])
     for position, i in enumerate(objects):
-        envelope, comparable, digest = valid[i]
+        envelope, comparable, digest, text = valid[i]
         prepared.append(
             PreparedShot(
                 index=i,
@@ -406,7 +471,8 @@ def prepare_all(
                 position=position,
                 comparable=comparable,
                 sha256=digest,
-                defaulted=defaulted_fields(payloads[i]),
+                defaulted=defaulted[position],
+                text=text,
             )
         )
     return PreparedBatch(prepared, inputs)

@@ -37,6 +37,7 @@ from app.services.ingest.payloads import (
     differing_paths,
     prefixed,
     prepare_all,
+    same_digest,
     stored_comparable,
 )
 from app.store import audit
@@ -101,12 +102,19 @@ def shot_columns(
         "revision": [revision] * n,
         "notes": [s.notes for s in shots],
         "tags": [s.tags for s in shots],
-        "raw_payload": [s.payload for s in shots],
+        "raw_payload": stored_payloads(shots),
         "payload_sha256": [s.sha256 for s in shots],
         "created_at": [now] * n,
         "updated_at": [now] * n,
         **stored_input_columns(batch.inputs_of(shots)),
     }
+
+
+def stored_payloads(shots: Sequence[PreparedShot]) -> list[Any]:
+    """raw_payload cells: the canonical JSON text made for the digest, stored as it is (one serialisation)."""
+    if all(s.text for s in shots):
+        return shot_store.SerialisedJson(s.text for s in shots)
+    return [s.payload for s in shots]
 
 
 def revision_columns(
@@ -116,7 +124,7 @@ def revision_columns(
     return {
         "shot_pk": list(pks),
         "revision": [revision] * n,
-        "raw_payload": [s.payload for s in shots],
+        "raw_payload": stored_payloads(shots),
         "payload_sha256": [s.sha256 for s in shots],
         "reason": [reason] * n,
         "author": [author] * n,
@@ -204,7 +212,7 @@ def _ingest(
         begin_write(session, campaign_lock(campaign_slug))
         campaign = require_campaign(session, campaign_slug)
         stored = shot_store.digests_by_shot_id(session, campaign.id, [s.shot_id for s in unique])
-        mismatched = [s for s in unique if s.shot_id in stored and stored[s.shot_id].payload_sha256 != s.sha256]
+        mismatched = [s for s in unique if s.shot_id in stored and not same_digest(stored[s.shot_id].payload_sha256, s)]
         old = shot_store.raw_payloads(session, [stored[s.shot_id].shot_pk for s in mismatched])
         errs: list[FieldProblem] = []
         conflicts = 0
@@ -301,7 +309,7 @@ def correct_shot(
             raise NotFound(f"shot {shot_id!r} in campaign {campaign_slug!r}")
         changed = (
             []
-            if current.payload_sha256 == shot.sha256
+            if same_digest(current.payload_sha256, shot)
             else differing_paths(stored_comparable(current.raw_payload), shot.comparable)
         )
         if not changed:
@@ -310,6 +318,7 @@ def correct_shot(
         revision = current.revision + 1
         columns = shot_columns(prepared, [shot], campaign.id, now, revision)
         [values] = as_rows({k: v for k, v in columns.items() if k not in ("campaign_id", "shot_id", "created_at")})
+        values["raw_payload"] = shot.payload  # an ORM update serialises it itself
         shot_store.update_shot(session, current.id, values)
         shot_store.insert_revisions(session, revision_columns([current.id], [shot], revision, reason, actor, now))
         table = evaluate_inputs(prepared.inputs, campaign.model_settings or {}, "single")

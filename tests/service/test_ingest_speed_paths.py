@@ -1,0 +1,142 @@
+"""What the faster ingest keeps: one JSON text per payload (digest and both stored copies),
+shots stored under the earlier digest still replay as unchanged, NaN still refused, inputs
+validated once, and SQLite writers of one process queue in the order they came."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import threading
+
+import pytest
+from sqlalchemy import select, text, update
+
+import model
+from app.database import FifoLock, begin_write, writer_queue
+from app.errors import InvalidInput
+from app.services.ingest import payloads as payload_rules
+from app.services.ingest.payloads import canonical_json, legacy_payload_digest, prepare_all, stored_comparable
+from app.tables import Shot, ShotRevision
+
+
+def _shots_url(campaign: str) -> str:
+    return f"/api/v1/campaigns/{campaign}/shots"
+
+
+def _stored_text(app, table, column: str = "raw_payload") -> list[str]:
+    with app.state.session_factory() as session:
+        if session.get_bind().dialect.name == "postgresql":
+            return list(session.scalars(text(f"SELECT {column}::text FROM {table} ORDER BY id")))
+        return list(session.scalars(text(f"SELECT {column} FROM {table} ORDER BY id")))
+
+
+def test_a_posted_shot_is_stored_as_one_sorted_json_text_whose_sha256_is_its_digest(
+    client, app, campaign, ingest_headers, make_shot
+):
+    shot = make_shot(changes={"plasma.density_cm3": 1.0e16})
+    shot["daq"] = {"sequence": 7, "crate": 3}
+    assert client.post(_shots_url(campaign), json=shot, headers=ingest_headers).status_code == 201
+    [stored], [revision] = _stored_text(app, "shots"), _stored_text(app, "shot_revisions")
+    assert json.loads(stored) == shot == json.loads(revision)
+    assert stored == canonical_json(shot) and list(json.loads(stored)) == sorted(shot)
+    with app.state.session_factory() as session:
+        digest = session.scalar(select(Shot.payload_sha256))
+    assert digest == hashlib.sha256(canonical_json(stored_comparable(shot)).encode()).hexdigest()
+
+
+def test_a_shot_stored_under_the_earlier_digest_is_unchanged_when_posted_again(
+    client, app, campaign, ingest_headers, viewer_headers, make_shot
+):
+    # 1.5e-7 is written 1.5e-07 by the standard encoder and 1.5e-7 by orjson: the two digests differ.
+    shot = make_shot()
+    shot["daq"] = {"trigger_delay_s": 1.5e-7}
+    assert client.post(_shots_url(campaign), json=shot, headers=ingest_headers).status_code == 201
+    earlier = legacy_payload_digest(stored_comparable(shot))
+    with app.state.session_factory() as session, session.begin():
+        assert session.scalar(select(Shot.payload_sha256)) != earlier
+        session.execute(update(Shot).values(payload_sha256=earlier))
+        session.execute(update(ShotRevision).values(payload_sha256=earlier))
+    again = client.post(_shots_url(campaign), json=shot, headers=ingest_headers)
+    assert again.status_code == 200, again.text
+    batch = client.post(f"{_shots_url(campaign)}/batch", json={"shots": [shot]}, headers=ingest_headers)
+    assert [i["outcome"] for i in batch.json()["items"]] == ["unchanged"]
+    put = client.put(f"{_shots_url(campaign)}/{shot['shot_id']}", json=shot, headers=ingest_headers)
+    assert put.status_code == 200 and put.json()["revision"] == 1
+    changed = dict(shot, notes="a different note")
+    conflict = client.post(_shots_url(campaign), json=changed, headers=ingest_headers)
+    assert conflict.status_code == 409 and [e["field"] for e in conflict.json()["errors"]] == ["notes"]
+
+
+def test_nan_in_another_section_is_still_refused_naming_its_path(make_shot):
+    shot = make_shot()
+    shot["daq"] = {"gain": float("nan"), "note": "null"}
+    with pytest.raises(InvalidInput) as caught:
+        prepare_all([shot], batch=False)
+    assert [p[0] for p in caught.value.problems] == ["daq.gain"]
+    shot["daq"] = {"gain": None, "note": "null"}  # a null alone is fine
+    assert prepare_all([shot], batch=False).shots[0].text == canonical_json(shot)
+
+
+def test_the_inputs_of_a_batch_are_validated_once(make_shot, monkeypatch):
+    shots = [make_shot(shot_id=f"v-{i}") for i in range(3)]
+    prepared = prepare_all(shots, batch=True)
+    calls = []
+    real = model.validate_columns
+    monkeypatch.setattr(model, "validate_columns", lambda *a, **k: calls.append(1) or real(*a, **k))
+    some = prepared.inputs_of(prepared.shots[1:])
+    assert isinstance(some, model.ValidatedColumns) and some.rows == 2
+    model.evaluate_table(some)
+    assert calls == [] and prepared.inputs_of(prepared.shots) is prepared.inputs
+    assert payload_rules.defaulted_by_shot(shots) == [payload_rules.defaulted_fields(s) for s in shots]
+
+
+# --- the writer queue ---------------------------------------------------------------------------------
+
+
+def test_writers_waiting_for_the_lock_get_it_in_the_order_they_came():
+    lock = FifoLock()
+    assert lock.acquire(timeout=5)
+    order: list[int] = []
+    threads = []
+    for k in range(6):
+        thread = threading.Thread(target=lambda k=k: (lock.acquire(timeout=30), order.append(k), lock.release()))
+        thread.start()
+        threads.append(thread)
+        while len(lock._waiters) < k + 1:  # wait until it stands in line
+            threading.Event().wait(0.001)
+    lock.release()
+    for thread in threads:
+        thread.join(timeout=30)
+    assert order == list(range(6))
+    assert lock.acquire(timeout=1)  # free again
+    lock.release()
+
+
+@pytest.mark.parametrize("backend", ["sqlite"], indirect=True)
+def test_a_sqlite_writer_holds_its_turn_until_commit_and_the_next_one_waits(app):
+    factory = app.state.session_factory
+    queue = writer_queue(factory.kw["bind"])
+    first = factory()
+    begin_write(first)
+    got_turn = threading.Event()
+
+    def second() -> None:
+        with factory() as session:
+            begin_write(session)
+            got_turn.set()
+            session.rollback()
+
+    thread = threading.Thread(target=second)
+    thread.start()
+    while len(queue._waiters) < 1:  # the second writer waits in line
+        threading.Event().wait(0.001)
+    assert not got_turn.is_set()
+    first.commit()
+    first.close()
+    thread.join(timeout=30)
+    assert got_turn.is_set() and not queue._waiters
+    with factory() as session:  # and the turn was handed back
+        begin_write(session)
+        session.rollback()
+    assert queue.acquire(timeout=1)
+    queue.release()
