@@ -22,8 +22,12 @@ def test_the_charts_of_a_run_that_stopped_past_saturation_mark_where_it_stopped(
     stopped = doc["stopped_at_m"]
     assert stopped is not None and stopped < 4.0
     figures = run_figures(doc)
-    for name in ("map", "growth"):
-        lines = [s for s in figures[name]["layout"]["shapes"] if s["type"] == "line" and s["x0"] == stopped]
+    for name, along in (("map", "y"), ("growth", "x")):  # the map draws z up, the growth chart z across
+        lines = [
+            s
+            for s in figures[name]["layout"]["shapes"]
+            if s["type"] == "line" and s[f"{along}0"] == stopped and s[f"{along}ref"] == along
+        ]
         notes = [a["text"] for a in figures[name]["layout"]["annotations"] if a["text"].startswith("run stopped")]
         assert lines and notes == [f"run stopped at z = {stopped:.3g} m, 0.5 m past saturation (plasma exit at 4 m)"]
     field_note = figures["field"]["layout"]["annotations"][0]["text"]

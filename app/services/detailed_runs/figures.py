@@ -220,6 +220,9 @@ def _swap_axes(item: dict[str, Any]) -> dict[str, Any]:
     """A shape or annotation drawn over z across, redrawn for z up (x and y exchanged)."""
     swap = {"x": "y", "y": "x", "xref": "yref", "yref": "xref", "x0": "y0", "y0": "x0", "x1": "y1", "y1": "x1"}
     out = {swap.get(k, k): v for k, v in item.items()}
+    for ref in ("xref", "yref"):  # a reference to the data axis moves to the other axis
+        if out.get(ref) in ("x", "y"):
+            out[ref] = {"x": "y", "y": "x"}[out[ref]]
     if "xanchor" in item or "yanchor" in item:  # an annotation: at the right edge, above its line
         out.update(x=1.0, xanchor="right", yanchor="bottom")
     return out
