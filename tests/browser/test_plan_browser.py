@@ -67,7 +67,7 @@ def test_the_page_draws_the_map_and_a_click_on_a_point_shows_its_evaluation(brow
     cell = page.evaluate(CELL_PIXELS, [20, 55])
     box = chart.bounding_box()
     page.mouse.move(box["x"] + cell["px"], box["y"] + cell["py"])
-    page.wait_for_selector("#chart-plan .hoverlayer .hovertext", timeout=10000)
+    page.wait_for_selector("#chart-plan .hoverlayer .hovertext", timeout=30000)
     page.mouse.click(box["x"] + cell["px"], box["y"] + cell["py"])
     page.wait_for_selector("#plan-point[data-shown]", timeout=30000)
 
