@@ -160,8 +160,85 @@ def alembic_config(url: str | None = None):
     return cfg
 
 
-def upgrade_database(url: str, revision: str = "head") -> None:
-    """Apply every migration up to ``revision`` (``wakeledger db upgrade``)."""
+def upgrade_database(url: str, revision: str = "head") -> tuple[str | None, str | None]:
+    """Apply every migration up to ``revision`` (``wakeledger db upgrade``); (revision before, after)."""
     from alembic import command
 
+    before = current_revision(url)
     command.upgrade(alembic_config(url), revision)
+    return before, current_revision(url)
+
+
+class DatabaseNotReady(Exception):
+    """The configured database cannot serve a command: missing, unreachable, without the schema
+    or at an older revision. The message is one line naming the fix."""
+
+
+def sqlite_file(url: str) -> Path | None:
+    """The file of a SQLite URL (None: not SQLite, or an in-memory database)."""
+    from sqlalchemy.engine import make_url
+
+    parsed = make_url(normalise_url(url))
+    if parsed.get_backend_name() != "sqlite" or parsed.database in (None, "", ":memory:"):
+        return None
+    if parsed.database.startswith("file:"):
+        return None  # a SQLite URI: its own options decide
+    return Path(parsed.database)
+
+
+def shown_url(url: str) -> str:
+    """The URL with its password hidden, for messages."""
+    from sqlalchemy.engine import make_url
+
+    try:
+        return make_url(normalise_url(url)).render_as_string(hide_password=True)
+    except Exception:  # an unreadable URL is shown as given: it holds no parseable password
+        return url
+
+
+def head_revision() -> str | None:
+    """The newest migration of this wakeledger."""
+    from alembic.script import ScriptDirectory
+
+    return ScriptDirectory.from_config(alembic_config()).get_current_head()
+
+
+def current_revision(url: str) -> str | None:
+    """The migration the database is at (None: no schema yet). Creates nothing for a missing
+    SQLite file (see ``check_database``)."""
+    from alembic.runtime.migration import MigrationContext
+
+    engine = make_engine(url)
+    try:
+        with engine.connect() as conn:
+            return MigrationContext.configure(conn).get_current_revision()
+    finally:
+        engine.dispose()
+
+
+UPGRADE_HINT = "run `wakeledger db upgrade` with the same --database-url or DATABASE_URL"
+
+
+def check_database(url: str) -> None:
+    """Raise DatabaseNotReady unless the database exists, answers and is at the newest revision.
+
+    A SQLite file that does not exist is reported, never created (SQLite would make an empty one).
+    """
+    from sqlalchemy.exc import SQLAlchemyError
+
+    where = shown_url(url)
+    path = sqlite_file(url)
+    if path is not None and not path.exists():
+        raise DatabaseNotReady(f"there is no database at {path.resolve()}: {UPGRADE_HINT} to create it")
+    try:
+        current = current_revision(url)
+    except SQLAlchemyError as exc:
+        reason = str(getattr(exc, "orig", None) or exc).strip().splitlines()[0]
+        raise DatabaseNotReady(f"cannot open the database {where}: {reason}") from None
+    head = head_revision()
+    if current is None:
+        raise DatabaseNotReady(f"the database {where} has no wakeledger tables: {UPGRADE_HINT}")
+    if current != head:
+        raise DatabaseNotReady(
+            f"the database {where} is at revision {current}, this wakeledger needs {head}: {UPGRADE_HINT}"
+        )

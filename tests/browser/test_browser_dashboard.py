@@ -181,9 +181,13 @@ class _FailedRequest:
 
 def test_a_live_poll_cancelled_by_leaving_the_page_is_not_counted_as_a_failure_but_a_refused_one_is():
     problems: list[str] = []
-    _record_failed_request(_FailedRequest("http://127.0.0.1/api/v1/campaigns/x/live?since=3", "net::ERR_ABORTED"), problems)
+    _record_failed_request(
+        _FailedRequest("http://127.0.0.1/api/v1/campaigns/x/live?since=3", "net::ERR_ABORTED"), problems
+    )
     assert problems == []
-    _record_failed_request(_FailedRequest("http://127.0.0.1/static/js/wakeledger.js", "net::ERR_CONNECTION_REFUSED"), problems)
+    _record_failed_request(
+        _FailedRequest("http://127.0.0.1/static/js/wakeledger.js", "net::ERR_CONNECTION_REFUSED"), problems
+    )
     _record_failed_request(_FailedRequest("http://127.0.0.1/api/v1/campaigns/x/live", None), problems)
     assert problems == [
         "request failed (net::ERR_CONNECTION_REFUSED): http://127.0.0.1/static/js/wakeledger.js",
