@@ -169,7 +169,6 @@ def _run_server(app, sock, settings: Settings, log_level: str) -> None:
         app,
         log_level=log_level,
         log_config=uvicorn_log_config(settings.log_format, log_level),
-        root_path=settings.root_path,
         proxy_headers=True,
     )
     uvicorn.Server(config).run(sockets=[sock])

@@ -18,7 +18,7 @@ from app.config import Settings, get_settings
 from app.database import make_engine, make_session_factory, upgrade_database
 from app.problems import install_problem_handlers
 from app.routers import api, detailed_runs, open_metrics, openapi, pages, plan_pages, plans, summary
-from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, RefuseNulInUrl
+from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, RefuseNulInUrl, ServedUnderPrefix
 from app.services import reevaluation
 from app.services.rate_limits import RateLimiter
 from app.version import VERSION
@@ -78,4 +78,6 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.add_middleware(BodySizeLimit, limit=settings.max_body_bytes)
     app.add_middleware(AuthenticateBeforeBody)
     app.add_middleware(RefuseNulInUrl)
+    if settings.root_path:  # served under a path prefix (WAKELEDGER_ROOT_PATH); runs first
+        app.add_middleware(ServedUnderPrefix, prefix=settings.root_path)
     return app
