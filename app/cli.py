@@ -401,6 +401,96 @@ def demo(args: argparse.Namespace, settings: Settings) -> int:
     return 0
 
 
+def _backup_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--out", required=True, metavar="FILE", help="the backup file to write (must not exist yet)")
+
+
+def _pg_url_text(url: str) -> str:
+    """A libpq URL for pg_dump/pg_restore (without SQLAlchemy's driver name, password hidden)."""
+    from app.database import shown_url
+
+    return shown_url(url).replace("postgresql+psycopg://", "postgresql://", 1)
+
+
+@command(
+    "backup",
+    help="copy the SQLite database to a file while the server runs (online backup); "
+    "for PostgreSQL, prints the pg_dump command to use",
+    configure=_backup_args,
+    database="none",  # PostgreSQL: only the pg_dump line; SQLite: checked below
+)
+def backup(args: argparse.Namespace, settings: Settings) -> int:
+    from pathlib import Path
+
+    from app.database import backup_sqlite, check_database, sqlite_backup_revision, sqlite_file
+
+    source = sqlite_file(settings.database_url)
+    if source is None:
+        url = _pg_url_text(settings.database_url)
+        return fail(
+            "backup",
+            f"backup copies SQLite files only; for PostgreSQL run: pg_dump --format=custom --file {args.out} '{url}'",
+            2,
+        )
+    check_database(settings.database_url)
+    out = Path(args.out)
+    if out.exists():
+        return fail("backup", f"{out} exists already: remove it or choose another --out", 2)
+    if not out.parent.is_dir():
+        return fail("backup", f"directory {str(out.parent)!r} does not exist", 2)
+    try:
+        backup_sqlite(source, out)
+    except OSError as exc:
+        return fail("backup", f"could not write {str(out)!r}: {exc.strerror or exc}")
+    revision = sqlite_backup_revision(out)
+    print(f"wrote {out}: a copy of {source.resolve()} ({out.stat().st_size} bytes, revision {revision})")
+    return 0
+
+
+def _restore_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("backup_file", metavar="FILE", help="a file written by `wakeledger backup`")
+    p.add_argument("--yes", action="store_true", help="replace the data of a database that has some")
+
+
+@command(
+    "restore",
+    help="replace the SQLite database by a backup file (every row: stop writers first); "
+    "for PostgreSQL, prints the pg_restore command to use",
+    configure=_restore_args,
+    database="own",
+)
+def restore(args: argparse.Namespace, settings: Settings) -> int:
+    from pathlib import Path
+
+    from app.database import head_revision, restore_sqlite, sqlite_backup_revision, sqlite_file
+
+    target = sqlite_file(settings.database_url)
+    if target is None:
+        url = _pg_url_text(settings.database_url)
+        return fail(
+            "restore",
+            "restore replaces SQLite files only; for PostgreSQL run: "
+            f"pg_restore --clean --if-exists --no-owner --dbname '{url}' {args.backup_file}",
+            2,
+        )
+    source = Path(args.backup_file)
+    if not source.is_file():
+        return fail("restore", f"there is no file {str(source)!r}", 2)
+    try:
+        revision = sqlite_backup_revision(source)
+    except ValueError as exc:
+        return fail("restore", str(exc), 2)
+    if source.resolve() == target.resolve():
+        return fail("restore", f"{source} is the database itself", 2)
+    if target.exists() and target.stat().st_size > 0 and not args.yes:
+        return fail("restore", f"this replaces every row of {target.resolve()}: add --yes to go ahead", 2)
+    restore_sqlite(source, target)
+    print(f"restored {target.resolve()} from {source} (revision {revision})")
+    if revision != head_revision():
+        print(f"the backup is at revision {revision}: run `wakeledger db upgrade` next", file=sys.stderr)
+    return 0
+
+
 class TextProgressBar:
     """A plain-text progress bar on stderr, redrawn in place; silent for small totals."""
 

@@ -242,3 +242,63 @@ def check_database(url: str) -> None:
         raise DatabaseNotReady(
             f"the database {where} is at revision {current}, this wakeledger needs {head}: {UPGRADE_HINT}"
         )
+
+
+def backup_sqlite(source: Path, target: Path) -> None:
+    """Copy a live SQLite database to ``target`` with the standard library's online backup API
+    (consistent while the server writes). Written beside the target and renamed: never half a file."""
+    import os
+    import sqlite3
+    import tempfile
+
+    fd, scratch = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    os.close(fd)
+    try:
+        src = sqlite3.connect(f"file:{source}?mode=ro", uri=True)
+        try:
+            dst = sqlite3.connect(scratch)
+            try:
+                src.backup(dst)
+                dst.execute("PRAGMA journal_mode=DELETE")  # one self-contained file
+            finally:
+                dst.close()
+        finally:
+            src.close()
+        os.replace(scratch, target)
+    finally:
+        if os.path.exists(scratch):
+            os.unlink(scratch)
+
+
+def sqlite_backup_revision(path: Path) -> str | None:
+    """The wakeledger revision a SQLite backup file holds; ValueError when it is not one."""
+    import sqlite3
+
+    try:
+        conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
+        try:
+            tables = {row[0] for row in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+            if "alembic_version" not in tables or "shots" not in tables:
+                raise ValueError(f"{path} is a SQLite file without wakeledger tables")
+            row = conn.execute("SELECT version_num FROM alembic_version").fetchone()
+        finally:
+            conn.close()
+    except sqlite3.DatabaseError as exc:
+        raise ValueError(f"{path} is not a SQLite database ({exc})") from None
+    return row[0] if row else None
+
+
+def restore_sqlite(backup: Path, target: Path) -> None:
+    """Replace every page of the SQLite database ``target`` (created if missing) by the backup's,
+    with the online backup API: connections open elsewhere see the restored data afterwards."""
+    import sqlite3
+
+    src = sqlite3.connect(f"file:{backup}?mode=ro", uri=True)
+    try:
+        dst = sqlite3.connect(target, timeout=30)
+        try:
+            src.backup(dst)
+        finally:
+            dst.close()
+    finally:
+        src.close()

@@ -14,13 +14,14 @@ from urllib.parse import quote
 from fastapi import APIRouter, Request, Response
 
 from app.routers.deps import DB, PathCampaign, ViewerQuestion
+from app.routers.json_body import StrictJSONRoute
 from app.routers.pages import PageCampaign, PageNotFound, render, site
 from app.routers.plan_schemas import MapIn, PanelsIn, PointIn
 from app.routers.responses import numeric_json_response
 from app.services.planner import answers
 from app.services.planner import page as planner_page
 
-router = APIRouter(include_in_schema=False)
+router = APIRouter(include_in_schema=False, route_class=StrictJSONRoute)
 
 
 @router.get("/campaigns/{slug}/plan")
