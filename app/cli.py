@@ -189,13 +189,23 @@ def _revision_text(before: str | None, after: str | None) -> str:
     database="own",
 )
 def serve(args: argparse.Namespace, settings: Settings) -> int:
+    from contextlib import nullcontext
+
     from app.database import check_database, shown_url, upgrade_database
     from app.main import create_app
+    from app.routers.open_metrics import MetricsListener, listener_address
 
     sock = _listen(args.host, args.port)
     if sock is None:
         return _port_taken("serve", args.host, args.port)
-    with sock:
+    metrics_at = listener_address(settings.open_metrics)  # WAKELEDGER_OPEN_METRICS=PORT or HOST:PORT
+    try:
+        scrape = MetricsListener(*metrics_at) if metrics_at else nullcontext()
+    except OSError:
+        sock.close()
+        assert metrics_at is not None
+        return _port_taken("serve", *metrics_at)
+    with sock, scrape:
         if settings.migrate_on_start:
             before, after = upgrade_database(settings.database_url)
             print(f"database {shown_url(settings.database_url)}: {_revision_text(before, after)}", file=sys.stderr)

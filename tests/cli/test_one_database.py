@@ -160,3 +160,16 @@ def test_every_command_takes_database_url(run):
     for name in COMMANDS:
         code, out, _err = run(*name.split(), "--help")
         assert code == 0 and "--database-url URL" in out, name
+
+
+def test_a_busy_open_metrics_port_is_reported_before_the_database_is_touched(run, tmp_path, monkeypatch):
+    with _taken_port() as busy:
+        metrics_port = busy.getsockname()[1]
+        monkeypatch.setenv("WAKELEDGER_OPEN_METRICS", str(metrics_port))
+        with socket.socket() as free:
+            free.bind(("127.0.0.1", 0))
+            port = free.getsockname()[1]
+        code, _out, err = run("serve", "--port", str(port))
+    assert code == 1
+    assert f"port {metrics_port} on 127.0.0.1 is already in use" in _one_line(err)
+    assert list(tmp_path.iterdir()) == []
