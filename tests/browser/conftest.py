@@ -31,6 +31,27 @@ CHROMIUM_ARGS = [
 ]
 
 
+# How long a page may take to show what a test waits for (a chart drawn, a job finished): a bound
+# on a wait for a condition, never a timing assertion. Generous, because the suite must pass on
+# a 2-core machine shared with other CPU-bound work, where a job worker runs at a lower priority.
+WAIT_MS = 120_000
+
+
+class _Browser:
+    """The launched chromium, whose contexts wait up to WAIT_MS (Playwright's default is 30 s)."""
+
+    def __init__(self, chromium: Any) -> None:
+        self._chromium = chromium
+
+    def new_context(self, **options: Any) -> Any:
+        context = self._chromium.new_context(**options)
+        context.set_default_timeout(WAIT_MS)
+        return context
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._chromium, name)
+
+
 @pytest.fixture
 def browser() -> Iterator[Any]:
     if not CHROMIUM.exists():
@@ -42,7 +63,7 @@ def browser() -> Iterator[Any]:
     with sync_api.sync_playwright() as p:
         chromium = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
         try:
-            yield chromium
+            yield _Browser(chromium)
         finally:
             chromium.close()
 

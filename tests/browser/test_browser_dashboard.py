@@ -166,7 +166,7 @@ def test_admin_changes_a_limit_and_watches_the_reevaluation_finish(browser, page
     page.fill("input[name='limit.HOSING_RISK.outside']", "1000")
     page.click("#settings-form button[type=submit]")
     page.wait_for_url("**/settings?job=**")
-    page.wait_for_function("() => document.getElementById('job-text').textContent.includes('succeeded')", timeout=30000)
+    page.wait_for_function("() => document.getElementById('job-text').textContent.includes('succeeded')")
     assert "36 of 36" in page.locator("#job-text").inner_text()
     page.screenshot(path=str(artifacts / "dashboard-settings-job.png"), full_page=True)
     assert _csp_violations(page) == []

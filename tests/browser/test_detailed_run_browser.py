@@ -34,7 +34,7 @@ def test_admin_starts_a_detailed_run_from_the_shot_page_and_sees_its_charts_with
     page.evaluate("window.__notReloaded = true")
 
     page.click("#detailed-run-form button[type=submit]")
-    page.wait_for_selector("#chart-detailed-map .main-svg", timeout=30000)
+    page.wait_for_selector("#chart-detailed-map .main-svg")
     page.wait_for_selector("#chart-detailed-growth .main-svg")
     page.wait_for_selector("#chart-detailed-field .main-svg")
     assert page.evaluate("window.__notReloaded") is True
