@@ -6,8 +6,11 @@ from __future__ import annotations
 import io
 import json
 import logging
+import re
+import tomllib
 import urllib.error
 import urllib.request
+from pathlib import Path
 
 import pytest
 from pydantic import ValidationError
@@ -87,3 +90,48 @@ def test_the_log_configuration_for_the_server_takes_json_or_text():
     assert "format" in uvicorn_log_config("text")["formatters"]["line"]
     with pytest.raises(ValidationError, match="log_format"):
         Settings(log_format="xml")
+
+
+# --- the deployment files, kept correct by reading them (no container engine in the test run) ----
+
+REPO = Path(__file__).resolve().parents[2]
+
+
+def _canonical(name: str) -> str:
+    return re.sub(r"[-_.]+", "-", name).lower()
+
+
+def test_the_image_pins_every_runtime_dependency_through_the_constraints_file():
+    project = tomllib.loads((REPO / "pyproject.toml").read_text(encoding="utf-8"))["project"]
+    pins = dict(
+        line.split("==", 1)
+        for line in (REPO / "constraints.txt").read_text(encoding="utf-8").splitlines()
+        if line and not line.startswith("#")
+    )
+    wanted = {_canonical(re.match(r"[A-Za-z0-9._-]+", d).group(0)) for d in project["dependencies"]}
+    assert sorted(wanted - set(pins)) == [], "run scripts/freeze_constraints.py"
+    dockerfile = (REPO / "Dockerfile").read_text(encoding="utf-8")
+    assert re.search(r"^FROM python:3\.\d+-slim$", dockerfile, re.M)
+    assert "pip install --requirement constraints.txt" in dockerfile
+    assert "--no-deps" in dockerfile  # wakeledger itself adds nothing unpinned
+    assert re.search(r"^USER wakeledger$", dockerfile, re.M)
+
+
+def test_the_image_copies_every_package_the_project_installs():
+    found = tomllib.loads((REPO / "pyproject.toml").read_text(encoding="utf-8"))["tool"]["setuptools"]["packages"]
+    dockerfile = (REPO / "Dockerfile").read_text(encoding="utf-8")
+    for pattern in found["find"]["include"]:
+        package = pattern.rstrip("*")
+        assert f"COPY {package} ./{package}" in dockerfile, package
+
+
+def test_compose_builds_the_image_and_reads_the_password_from_the_env_file():
+    compose = (REPO / "docker-compose.yml").read_text(encoding="utf-8")
+    app = compose.split("\n  app:\n", 1)[1]
+    assert "    build: .\n" in app and "    env_file: .env\n" in app
+    assert "pip install" not in compose
+    assert "PGPASSWORD: ${POSTGRES_PASSWORD:?" in app
+    assert "POSTGRES_PASSWORD:" not in compose.split("\n  app:\n", 1)[0]  # the db takes it from .env
+    example = (REPO / ".env.example").read_text(encoding="utf-8")
+    assert re.search(r"^POSTGRES_PASSWORD=$", example, re.M)
+    assert ".env" in (REPO / ".gitignore").read_text(encoding="utf-8").split()
