@@ -15,6 +15,7 @@ from typing import Any
 import httpx
 import pytest
 
+from tests.support.jobs import TEST_WORKER
 from tests.support.page_shots import page_shots
 from tests.support.sessions import new_session
 
@@ -82,7 +83,7 @@ def backend() -> str:
 
 @pytest.fixture
 def page_server(app, live_server: str, admin_token: str, make_shot, job_worker) -> dict[str, Any]:
-    job_worker()  # the jobs the pages start run in a worker process, as beside `wakeledger serve`
+    job_worker(**TEST_WORKER)  # the jobs the pages start run in a worker process, as beside `wakeledger serve`
     headers = {"Authorization": f"Bearer {admin_token}"}
     with httpx.Client(base_url=live_server, headers=headers, timeout=30) as api:
         r = api.post(
