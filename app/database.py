@@ -216,6 +216,16 @@ def current_revision(url: str) -> str | None:
         engine.dispose()
 
 
+def _known_revision(revision: str) -> bool:
+    from alembic.script import ScriptDirectory
+    from alembic.util import CommandError
+
+    try:
+        return ScriptDirectory.from_config(alembic_config()).get_revision(revision) is not None
+    except CommandError:
+        return False
+
+
 UPGRADE_HINT = "run `wakeledger db upgrade` with the same --database-url or DATABASE_URL"
 
 
@@ -238,6 +248,11 @@ def check_database(url: str) -> None:
     head = head_revision()
     if current is None:
         raise DatabaseNotReady(f"the database {where} has no wakeledger tables: {UPGRADE_HINT}")
+    if current != head and not _known_revision(current):
+        raise DatabaseNotReady(
+            f"the database {where} is at revision {current}, which this wakeledger does not know "
+            f"(it needs {head}): was it upgraded by a newer wakeledger?"
+        )
     if current != head:
         raise DatabaseNotReady(
             f"the database {where} is at revision {current}, this wakeledger needs {head}: {UPGRADE_HINT}"

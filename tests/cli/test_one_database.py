@@ -173,3 +173,14 @@ def test_a_busy_open_metrics_port_is_reported_before_the_database_is_touched(run
     assert code == 1
     assert f"port {metrics_port} on 127.0.0.1 is already in use" in _one_line(err)
     assert list(tmp_path.iterdir()) == []
+
+
+def test_a_database_from_a_newer_wakeledger_is_named_as_such_not_sent_to_db_upgrade(run, tmp_path):
+    import sqlite3
+
+    assert run("db", "upgrade")[0] == 0
+    with sqlite3.connect(tmp_path / "wakeledger.db") as conn:
+        conn.execute("UPDATE alembic_version SET version_num = '0099_from_the_future'")
+    code, _out, err = run("token", "list")
+    assert code == 1
+    assert "at revision 0099_from_the_future, which this wakeledger does not know" in _one_line(err)
