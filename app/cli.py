@@ -36,17 +36,44 @@ class Command:
     help: str
     handler: Handler
     configure: Callable[[argparse.ArgumentParser], None] | None
+    # "ready": the database must exist at the newest revision (checked before the handler runs:
+    # one line naming the fix otherwise, and a missing SQLite file is never created);
+    # "own": the command creates or migrates it itself (db upgrade, demo, serve, restore);
+    # "none": no database, or the handler checks when it needs one.
+    database: str = "ready"
 
 
 COMMANDS: dict[str, Command] = {}
 
 
-def command(name: str, help: str, configure: Callable[[argparse.ArgumentParser], None] | None = None):
+def command(
+    name: str,
+    help: str,
+    configure: Callable[[argparse.ArgumentParser], None] | None = None,
+    database: str = "ready",
+):
     def register(fn: Handler) -> Handler:
-        COMMANDS[name] = Command(name, help, fn, configure)
+        COMMANDS[name] = Command(name, help, fn, configure, database)
         return fn
 
     return register
+
+
+DATABASE_HELP = (
+    "the database, e.g. sqlite:///./wakeledger.db or postgresql+psycopg://user@host/db "
+    "(default: DATABASE_URL, then WAKELEDGER_DATABASE_URL, then sqlite:///./wakeledger.db)"
+)
+
+
+def _database_option(p: argparse.ArgumentParser) -> None:
+    # SUPPRESS: given before or after the command word, the one given wins; absent, settings decide.
+    p.add_argument("--database-url", metavar="URL", default=argparse.SUPPRESS, help=DATABASE_HELP)
+
+
+def fail(cmd: str, message: str, code: int = 1) -> int:
+    """Print one ``wakeledger CMD: error: ...`` line on stderr and return the exit code."""
+    print(f"wakeledger {cmd}: error: {message}", file=sys.stderr)
+    return code
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -54,7 +81,7 @@ def build_parser() -> argparse.ArgumentParser:
         prog="wakeledger", description=f"Shot ledger and self-modulation model check. {ADVISORY_CAUTION}"
     )
     parser.add_argument("--version", action="version", version=f"wakeledger {VERSION}")
-    parser.add_argument("--database-url", help="overrides DATABASE_URL")
+    _database_option(parser)
     top = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     groups: dict[str, argparse._SubParsersAction] = {}
     for cmd in COMMANDS.values():
@@ -69,14 +96,29 @@ def build_parser() -> argparse.ArgumentParser:
             sub = groups[group].add_parser(leaf, help=cmd.help, description=cmd.help)
         if cmd.configure:
             cmd.configure(sub)
+        _database_option(sub)
         sub.set_defaults(_command=cmd)
     return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
-    settings = Settings(database_url=args.database_url) if args.database_url else Settings()
-    return int(args._command.handler(args, settings) or 0)
+    url = getattr(args, "database_url", None)
+    settings = Settings(database_url=url) if url else Settings()
+    cmd: Command = args._command
+    from sqlalchemy.exc import SQLAlchemyError
+
+    from app.database import DatabaseNotReady, check_database, shown_url
+
+    try:
+        if cmd.database == "ready":
+            check_database(settings.database_url)
+        return int(cmd.handler(args, settings) or 0)
+    except DatabaseNotReady as exc:
+        return fail(cmd.name, str(exc))
+    except SQLAlchemyError as exc:  # the database went away or refused: one line, no traceback
+        reason = str(getattr(exc, "orig", None) or exc).strip().splitlines()[0]
+        return fail(cmd.name, f"the database {shown_url(settings.database_url)} failed: {reason}")
 
 
 # --- built-in commands ----------------------------------------------------------------------------
@@ -97,21 +139,81 @@ def _local_worker(settings: Settings, database_url: str):
     return LocalWorker(database_url) if settings.local_worker else nullcontext()
 
 
+def _listen(host: str, port: int):
+    """A socket bound to host:port, before any database work; None when the port is taken."""
+    import socket
+
+    family = socket.AF_INET6 if ":" in host else socket.AF_INET
+    sock = socket.socket(family, socket.SOCK_STREAM)
+    sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+    try:
+        sock.bind((host, port))
+    except OSError:
+        sock.close()
+        return None
+    sock.set_inheritable(True)
+    return sock
+
+
+def _port_taken(cmd: str, host: str, port: int) -> int:
+    return fail(cmd, f"port {port} on {host} is already in use (another wakeledger?): choose another with --port")
+
+
+def _run_server(app, sock, settings: Settings, log_level: str) -> None:
+    """uvicorn on the socket bound by ``_listen`` (logs as text or JSON, WAKELEDGER_LOG_FORMAT)."""
+    import uvicorn
+
+    from app.logs import uvicorn_log_config
+
+    config = uvicorn.Config(
+        app,
+        log_level=log_level,
+        log_config=uvicorn_log_config(settings.log_format, log_level),
+        proxy_headers=True,
+    )
+    uvicorn.Server(config).run(sockets=[sock])
+
+
+def _revision_text(before: str | None, after: str | None) -> str:
+    if before == after:
+        return f"already at the latest revision ({after})"
+    if before is None:
+        return f"created the tables (revision {after})"
+    return f"upgraded from revision {before} to {after}"
+
+
 @command(
     "serve",
     help="run the API and dashboard (applies migrations first) with one local job worker",
     configure=_serve_args,
+    database="own",
 )
 def serve(args: argparse.Namespace, settings: Settings) -> int:
-    import uvicorn
+    from contextlib import nullcontext
 
-    from app.database import upgrade_database
+    from app.database import check_database, shown_url, upgrade_database
     from app.main import create_app
+    from app.routers.open_metrics import MetricsListener, listener_address
 
-    upgrade_database(settings.database_url)
-    app = create_app(settings.model_copy(update={"migrate_on_start": False}))
-    with _local_worker(settings, settings.database_url):
-        uvicorn.run(app, host=args.host, port=args.port, log_level=args.log_level)
+    sock = _listen(args.host, args.port)
+    if sock is None:
+        return _port_taken("serve", args.host, args.port)
+    metrics_at = listener_address(settings.open_metrics)  # WAKELEDGER_OPEN_METRICS=PORT or HOST:PORT
+    try:
+        scrape = MetricsListener(*metrics_at) if metrics_at else nullcontext()
+    except OSError:
+        sock.close()
+        assert metrics_at is not None
+        return _port_taken("serve", *metrics_at)
+    with sock, scrape:
+        if settings.migrate_on_start:
+            before, after = upgrade_database(settings.database_url)
+            print(f"database {shown_url(settings.database_url)}: {_revision_text(before, after)}", file=sys.stderr)
+        else:
+            check_database(settings.database_url)
+        app = create_app(settings.model_copy(update={"migrate_on_start": False}))
+        with _local_worker(settings, settings.database_url):
+            _run_server(app, sock, settings, args.log_level)
     return 0
 
 
@@ -129,15 +231,15 @@ def _worker_args(p: argparse.ArgumentParser) -> None:
     configure=_worker_args,
 )
 def worker(args: argparse.Namespace, settings: Settings) -> int:
-    import logging
     import os
     from datetime import timedelta
 
     from app.database import make_engine, make_session_factory
+    from app.logs import configure_logging
     from app.services.job_kinds import KINDS
     from app.services.workers import Worker
 
-    logging.basicConfig(level=args.log_level.upper(), format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    configure_logging(settings.log_format, args.log_level)
     if settings.worker_niceness:
         os.nice(settings.worker_niceness)  # the web server on the same host answers first
     engine = make_engine(settings.database_url)
@@ -160,12 +262,16 @@ def worker(args: argparse.Namespace, settings: Settings) -> int:
     return 0
 
 
-@command("db upgrade", help="apply every database migration (creates the tables on an empty database)")
+@command(
+    "db upgrade",
+    help="apply every database migration (creates the database and its tables if missing)",
+    database="own",
+)
 def db_upgrade(args: argparse.Namespace, settings: Settings) -> int:
-    from app.database import upgrade_database
+    from app.database import shown_url, upgrade_database
 
-    upgrade_database(settings.database_url)
-    print("database is at the latest revision", file=sys.stderr)
+    before, after = upgrade_database(settings.database_url)
+    print(f"database {shown_url(settings.database_url)}: {_revision_text(before, after)}")
     return 0
 
 
@@ -263,31 +369,135 @@ def _demo_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--port", type=int, default=8000)
     p.add_argument(
         "--db",
-        default="./wakeledger-demo.db",
-        help="SQLite file of the demo (created if missing; DATABASE_URL is not used)",
+        metavar="PATH",
+        help="a SQLite file for the demo instead of the configured database (created if missing)",
     )
     p.add_argument("--log-level", default="warning")
 
 
 @command(
-    "demo", help="serve an invented demo campaign on 127.0.0.1; visitors read without signing in", configure=_demo_args
+    "demo",
+    help="serve an invented demo campaign on 127.0.0.1 from the configured database (the one every "
+    "other command uses); visitors read without signing in",
+    configure=_demo_args,
+    database="own",
 )
 def demo(args: argparse.Namespace, settings: Settings) -> int:
-    import uvicorn
+    import shlex
 
-    from seed_demo.loader import prepare_demo
+    from seed_demo.loader import DemoRefused, prepare_demo
 
-    prepared = prepare_demo(args.db, settings)
-    load = prepared.load
-    what = "already loaded" if load.skipped else f"loaded {load.shots_created} shots in {load.seconds:.1f} s"
-    print(f"demo campaign {load.campaign_slug!r}: {load.shots_in_campaign} shots ({what})")
-    print(f"database:    {prepared.database_url}")
-    print(f"dashboard:   http://127.0.0.1:{args.port}/campaigns/{load.campaign_slug}")
-    print(f"admin token: {prepared.admin_token}")
-    print(f"invented data. {ADVISORY_CAUTION}")
-    sys.stdout.flush()
-    with _local_worker(settings, prepared.database_url):
-        uvicorn.run(prepared.app, host="127.0.0.1", port=args.port, log_level=args.log_level)
+    sock = _listen("127.0.0.1", args.port)
+    if sock is None:
+        return _port_taken("demo", "127.0.0.1", args.port)
+    with sock:
+        try:
+            prepared = prepare_demo(args.db or settings.database_url, settings)
+        except DemoRefused as exc:
+            return fail("demo", str(exc))
+        load = prepared.load
+        what = "already loaded" if load.skipped else f"loaded {load.shots_created} shots in {load.seconds:.1f} s"
+        print(f"demo campaign {load.campaign_slug!r}: {load.shots_in_campaign} shots ({what})")
+        print(f"database:    {prepared.database_url}")
+        print(f"dashboard:   http://127.0.0.1:{args.port}/campaigns/{load.campaign_slug}")
+        print(
+            f"other commands on this database (another shell): export DATABASE_URL={shlex.quote(prepared.database_url)}"
+        )
+        print(f"invented data. {ADVISORY_CAUTION}")
+        print(f"admin token: {prepared.admin_token}")
+        sys.stdout.flush()
+        with _local_worker(settings, prepared.database_url):
+            _run_server(prepared.app, sock, prepared.app.state.settings, args.log_level)
+    return 0
+
+
+def _backup_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--out", required=True, metavar="FILE", help="the backup file to write (must not exist yet)")
+
+
+def _pg_url_text(url: str) -> str:
+    """A libpq URL for pg_dump/pg_restore (without SQLAlchemy's driver name, password hidden)."""
+    from app.database import shown_url
+
+    return shown_url(url).replace("postgresql+psycopg://", "postgresql://", 1)
+
+
+@command(
+    "backup",
+    help="copy the SQLite database to a file while the server runs (online backup); "
+    "for PostgreSQL, prints the pg_dump command to use",
+    configure=_backup_args,
+    database="none",  # PostgreSQL: only the pg_dump line; SQLite: checked below
+)
+def backup(args: argparse.Namespace, settings: Settings) -> int:
+    from pathlib import Path
+
+    from app.database import backup_sqlite, check_database, sqlite_backup_revision, sqlite_file
+
+    source = sqlite_file(settings.database_url)
+    if source is None:
+        url = _pg_url_text(settings.database_url)
+        return fail(
+            "backup",
+            f"backup copies SQLite files only; for PostgreSQL run: pg_dump --format=custom --file {args.out} '{url}'",
+            2,
+        )
+    check_database(settings.database_url)
+    out = Path(args.out)
+    if out.exists():
+        return fail("backup", f"{out} exists already: remove it or choose another --out", 2)
+    if not out.parent.is_dir():
+        return fail("backup", f"directory {str(out.parent)!r} does not exist", 2)
+    try:
+        backup_sqlite(source, out)
+    except OSError as exc:
+        return fail("backup", f"could not write {str(out)!r}: {exc.strerror or exc}")
+    revision = sqlite_backup_revision(out)
+    print(f"wrote {out}: a copy of {source.resolve()} ({out.stat().st_size} bytes, revision {revision})")
+    return 0
+
+
+def _restore_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("backup_file", metavar="FILE", help="a file written by `wakeledger backup`")
+    p.add_argument("--yes", action="store_true", help="replace the data of a database that has some")
+
+
+@command(
+    "restore",
+    help="replace the SQLite database by a backup file (every row: stop writers first); "
+    "for PostgreSQL, prints the pg_restore command to use",
+    configure=_restore_args,
+    database="own",
+)
+def restore(args: argparse.Namespace, settings: Settings) -> int:
+    from pathlib import Path
+
+    from app.database import head_revision, restore_sqlite, sqlite_backup_revision, sqlite_file
+
+    target = sqlite_file(settings.database_url)
+    if target is None:
+        url = _pg_url_text(settings.database_url)
+        return fail(
+            "restore",
+            "restore replaces SQLite files only; for PostgreSQL run: "
+            f"pg_restore --clean --if-exists --no-owner --dbname '{url}' {args.backup_file}",
+            2,
+        )
+    source = Path(args.backup_file)
+    if not source.is_file():
+        return fail("restore", f"there is no file {str(source)!r}", 2)
+    try:
+        revision = sqlite_backup_revision(source)
+    except ValueError as exc:
+        return fail("restore", str(exc), 2)
+    if source.resolve() == target.resolve():
+        return fail("restore", f"{source} is the database itself", 2)
+    if target.exists() and target.stat().st_size > 0 and not args.yes:
+        return fail("restore", f"this replaces every row of {target.resolve()}: add --yes to go ahead", 2)
+    restore_sqlite(source, target)
+    print(f"restored {target.resolve()} from {source} (revision {revision})")
+    if revision != head_revision():
+        print(f"the backup is at revision {revision}: run `wakeledger db upgrade` next", file=sys.stderr)
     return 0
 
 
@@ -513,6 +723,7 @@ def _simulate_args(p: argparse.ArgumentParser) -> None:
     "simulate",
     help="run the detailed envelope solver on one shot file and write an HTML report",
     configure=_simulate_args,
+    database="none",
 )
 def simulate(args: argparse.Namespace, settings: Settings) -> int:
     import json
@@ -590,6 +801,7 @@ def _plan_args(p: argparse.ArgumentParser) -> None:
     "plan",
     help="scan the closed-form model around a shot over one or two fields and write csv, parquet, json or html",
     configure=_plan_args,
+    database="none",  # checked below when the shot or --campaign names stored data
 )
 def plan(args: argparse.Namespace, settings: Settings) -> int:
     import json
@@ -620,8 +832,12 @@ def plan(args: argparse.Namespace, settings: Settings) -> int:
     try:
         axes = [axis_from_text(text, i) for i, text in enumerate(args.vary)]
         if answers.needs_database(shot, args.campaign):
-            from app.database import make_engine, make_session_factory
+            from app.database import DatabaseNotReady, check_database, make_engine, make_session_factory
 
+            try:
+                check_database(settings.database_url)
+            except DatabaseNotReady as exc:
+                return fail([str(exc)], 1)
             engine = make_engine(settings.database_url)
             try:
                 with make_session_factory(engine)() as session:

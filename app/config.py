@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from datetime import timedelta
 from functools import lru_cache
+from typing import Literal
 
 import limits
 from pydantic import AliasChoices, Field, field_validator
@@ -69,11 +70,41 @@ class Settings(BaseSettings):
             raise ValueError("WAKELEDGER_PUBLIC_URL must start with http:// or https://")
         return value.rstrip("/")
 
+    # Served under a path prefix behind a reverse proxy (e.g. "/wakeledger"; empty: at the root).
+    # Every link and feed in the pages starts with it; the proxy passes the path on unchanged
+    # or strips the prefix (both work: see DEVELOPERS.md).
+    root_path: str = ""
+    # Log lines as "text" or "json" (one JSON object a line: time, level, logger, message, and
+    # for requests method, path, status, client).
+    log_format: Literal["text", "json"] = "text"
+    # Prometheus scraping without a token: "" (off: /metrics needs a viewer token), a path such
+    # as "/metrics-open" served on the main port, or a port number ("9108", loopback only) or
+    # "host:port" served by `wakeledger serve` on a listener of its own.
+    open_metrics: str = ""
+
     @field_validator("rate_limit_writes", "rate_limit_expensive_reads")
     @classmethod
     def _readable_rate(cls, value: str) -> str:
         if value.strip():
             limits.parse(value)  # ValueError names the setting
+        return value
+
+    @field_validator("root_path")
+    @classmethod
+    def _prefix(cls, value: str) -> str:
+        value = value.strip().rstrip("/")
+        if value and not value.startswith("/"):
+            raise ValueError("must start with / (e.g. /wakeledger)")
+        return value
+
+    @field_validator("open_metrics")
+    @classmethod
+    def _open_metrics(cls, value: str) -> str:
+        value = value.strip()
+        if value and not value.startswith("/"):
+            port = value.rsplit(":", 1)[-1]
+            if not port.isdigit() or not 0 < int(port) < 65536:
+                raise ValueError("give a path (/metrics-open), a port (9108) or host:port")
         return value
 
     @property

@@ -248,8 +248,160 @@ def alembic_config(url: str | None = None):
     return cfg
 
 
-def upgrade_database(url: str, revision: str = "head") -> None:
-    """Apply every migration up to ``revision`` (``wakeledger db upgrade``)."""
+def upgrade_database(url: str, revision: str = "head") -> tuple[str | None, str | None]:
+    """Apply every migration up to ``revision`` (``wakeledger db upgrade``); (revision before, after)."""
     from alembic import command
 
+    before = current_revision(url)
     command.upgrade(alembic_config(url), revision)
+    return before, current_revision(url)
+
+
+class DatabaseNotReady(Exception):
+    """The configured database cannot serve a command: missing, unreachable, without the schema
+    or at an older revision. The message is one line naming the fix."""
+
+
+def sqlite_file(url: str) -> Path | None:
+    """The file of a SQLite URL (None: not SQLite, or an in-memory database)."""
+    from sqlalchemy.engine import make_url
+
+    parsed = make_url(normalise_url(url))
+    if parsed.get_backend_name() != "sqlite" or parsed.database in (None, "", ":memory:"):
+        return None
+    if parsed.database.startswith("file:"):
+        return None  # a SQLite URI: its own options decide
+    return Path(parsed.database)
+
+
+def shown_url(url: str) -> str:
+    """The URL with its password hidden, for messages."""
+    from sqlalchemy.engine import make_url
+
+    try:
+        return make_url(normalise_url(url)).render_as_string(hide_password=True)
+    except Exception:  # an unreadable URL is shown as given: it holds no parseable password
+        return url
+
+
+def head_revision() -> str | None:
+    """The newest migration of this wakeledger."""
+    from alembic.script import ScriptDirectory
+
+    return ScriptDirectory.from_config(alembic_config()).get_current_head()
+
+
+def current_revision(url: str) -> str | None:
+    """The migration the database is at (None: no schema yet). Creates nothing for a missing
+    SQLite file (see ``check_database``)."""
+    from alembic.runtime.migration import MigrationContext
+
+    engine = make_engine(url)
+    try:
+        with engine.connect() as conn:
+            return MigrationContext.configure(conn).get_current_revision()
+    finally:
+        engine.dispose()
+
+
+def _known_revision(revision: str) -> bool:
+    from alembic.script import ScriptDirectory
+    from alembic.util import CommandError
+
+    try:
+        return ScriptDirectory.from_config(alembic_config()).get_revision(revision) is not None
+    except CommandError:
+        return False
+
+
+UPGRADE_HINT = "run `wakeledger db upgrade` with the same --database-url or DATABASE_URL"
+
+
+def check_database(url: str) -> None:
+    """Raise DatabaseNotReady unless the database exists, answers and is at the newest revision.
+
+    A SQLite file that does not exist is reported, never created (SQLite would make an empty one).
+    """
+    from sqlalchemy.exc import SQLAlchemyError
+
+    where = shown_url(url)
+    path = sqlite_file(url)
+    if path is not None and not path.exists():
+        raise DatabaseNotReady(f"there is no database at {path.resolve()}: {UPGRADE_HINT} to create it")
+    try:
+        current = current_revision(url)
+    except SQLAlchemyError as exc:
+        reason = str(getattr(exc, "orig", None) or exc).strip().splitlines()[0]
+        raise DatabaseNotReady(f"cannot open the database {where}: {reason}") from None
+    head = head_revision()
+    if current is None:
+        raise DatabaseNotReady(f"the database {where} has no wakeledger tables: {UPGRADE_HINT}")
+    if current != head and not _known_revision(current):
+        raise DatabaseNotReady(
+            f"the database {where} is at revision {current}, which this wakeledger does not know "
+            f"(it needs {head}): was it upgraded by a newer wakeledger?"
+        )
+    if current != head:
+        raise DatabaseNotReady(
+            f"the database {where} is at revision {current}, this wakeledger needs {head}: {UPGRADE_HINT}"
+        )
+
+
+def backup_sqlite(source: Path, target: Path) -> None:
+    """Copy a live SQLite database to ``target`` with the standard library's online backup API
+    (consistent while the server writes). Written beside the target and renamed: never half a file."""
+    import os
+    import sqlite3
+    import tempfile
+
+    fd, scratch = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    os.close(fd)
+    try:
+        src = sqlite3.connect(f"file:{source}?mode=ro", uri=True)
+        try:
+            dst = sqlite3.connect(scratch)
+            try:
+                src.backup(dst)
+                dst.execute("PRAGMA journal_mode=DELETE")  # one self-contained file
+            finally:
+                dst.close()
+        finally:
+            src.close()
+        os.replace(scratch, target)
+    finally:
+        if os.path.exists(scratch):
+            os.unlink(scratch)
+
+
+def sqlite_backup_revision(path: Path) -> str | None:
+    """The wakeledger revision a SQLite backup file holds; ValueError when it is not one."""
+    import sqlite3
+
+    try:
+        conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
+        try:
+            tables = {row[0] for row in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+            if "alembic_version" not in tables or "shots" not in tables:
+                raise ValueError(f"{path} is a SQLite file without wakeledger tables")
+            row = conn.execute("SELECT version_num FROM alembic_version").fetchone()
+        finally:
+            conn.close()
+    except sqlite3.DatabaseError as exc:
+        raise ValueError(f"{path} is not a SQLite database ({exc})") from None
+    return row[0] if row else None
+
+
+def restore_sqlite(backup: Path, target: Path) -> None:
+    """Replace every page of the SQLite database ``target`` (created if missing) by the backup's,
+    with the online backup API: connections open elsewhere see the restored data afterwards."""
+    import sqlite3
+
+    src = sqlite3.connect(f"file:{backup}?mode=ro", uri=True)
+    try:
+        dst = sqlite3.connect(target, timeout=30)
+        try:
+            src.backup(dst)
+        finally:
+            dst.close()
+    finally:
+        src.close()

@@ -17,14 +17,25 @@ from app.advisory import ADVISORY_CAUTION
 from app.config import Settings, get_settings
 from app.database import make_engine, make_session_factory, upgrade_database
 from app.problems import install_problem_handlers
-from app.routers import alerts, api, calibration, detailed_runs, openapi, pages, plan_pages, plans, summary
-from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, RefuseNulInUrl
+from app.routers import (
+    alerts,
+    api,
+    calibration,
+    detailed_runs,
+    open_metrics,
+    openapi,
+    pages,
+    plan_pages,
+    plans,
+    summary,
+)
+from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, RefuseNulInUrl, ServedUnderPrefix
 from app.services import reevaluation
 from app.services.rate_limits import RateLimiter
 from app.version import VERSION
 
 
-def _include_routers(app: FastAPI) -> None:
+def _include_routers(app: FastAPI, settings: Settings) -> None:
     app.include_router(api.router)
     app.include_router(api.ops_router)  # /healthz and /metrics at the root as well
     app.include_router(pages.router)
@@ -38,6 +49,10 @@ def _include_routers(app: FastAPI) -> None:
     app.include_router(plan_pages.router)
     app.include_router(alerts.router)
     openapi.install_docs(app, pages.PAGE_HEADERS)
+    if settings.open_metrics.startswith("/"):  # scraping without a token (WAKELEDGER_OPEN_METRICS)
+        app.add_api_route(
+            settings.open_metrics, open_metrics.open_metrics_route, methods=["GET"], include_in_schema=False
+        )
 
 
 def create_app(settings: Settings | None = None) -> FastAPI:
@@ -72,7 +87,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         settings.rate_limit_writes, settings.rate_limit_expensive_reads, settings.rate_limit_storage
     )
     install_problem_handlers(app)
-    _include_routers(app)
+    _include_routers(app, settings)
     # The last added runs first: NUL check, then authentication, then the size limit.
     app.add_middleware(BodySizeLimit, limit=settings.max_body_bytes)
     app.add_middleware(AuthenticateBeforeBody)
@@ -80,4 +95,6 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     # Pages, JSON feeds and our static files go out gzip-compressed to browsers that accept
     # it (plotly.min.js is sent pre-compressed, app.routers.pages).
     app.add_middleware(GZipMiddleware, minimum_size=1000, compresslevel=6)
+    if settings.root_path:  # served under a path prefix (WAKELEDGER_ROOT_PATH); runs first
+        app.add_middleware(ServedUnderPrefix, prefix=settings.root_path)
     return app

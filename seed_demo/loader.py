@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass
+from datetime import timedelta
 from pathlib import Path
 from typing import Any
 
@@ -79,8 +80,14 @@ def load_demo_campaign(
     )
 
 
-DEMO_DATABASE_PATH = "./wakeledger-demo.db"
 DEMO_TOKEN_NAME = "demo-admin"
+# A demo admin token stops working after this long. Earlier demo tokens are not revoked: a
+# second `wakeledger demo` on the same database (another port) must not lock out the first.
+DEMO_TOKEN_LIFETIME = timedelta(days=7)
+
+
+class DemoRefused(Exception):
+    """The database holds campaigns of its own: the demo (open to readers without a token) refuses it."""
 
 
 @dataclass(frozen=True)
@@ -89,28 +96,48 @@ class PreparedDemo:
     database_url: str
     load: DemoLoadReport
     admin_token: str
+    revision_before: str | None  # the schema's revision before the demo migrated it (None: new database)
 
 
-def demo_database_url(path: str | Path = DEMO_DATABASE_PATH) -> str:
-    """The demo always uses its own SQLite file, never the configured DATABASE_URL."""
+def demo_database_url(path: str | Path) -> str:
+    """The URL of a SQLite file given by its path (``wakeledger demo --db PATH``)."""
     return f"sqlite:///{Path(path).expanduser().resolve()}"
 
 
-def prepare_demo(path: str | Path, settings: Settings) -> PreparedDemo:
-    """Migrate the demo database, load the demo campaign if it is empty, make a fresh admin token
-    (revoking the earlier demo admin tokens)."""
+def _absolute(url: str) -> str:
+    """A SQLite URL with an absolute path, so that the printed URL works from any directory."""
+    from app.database import sqlite_file
+
+    path = sqlite_file(url)
+    return demo_database_url(path) if path is not None else url
+
+
+def prepare_demo(database: str | Path, settings: Settings) -> PreparedDemo:
+    """Migrate the database (a URL, or the path of a SQLite file), load the demo campaign unless it
+    is there, and make a new admin token valid for DEMO_TOKEN_LIFETIME (earlier ones keep working).
+
+    DemoRefused when the database holds other campaigns: demo mode lets anyone read them.
+    """
     from app.database import upgrade_database
     from app.main import create_app
     from app.services.auth import create_token
 
-    url = demo_database_url(path)
-    upgrade_database(url)
+    url = demo_database_url(database) if isinstance(database, Path) or "://" not in database else database
+    url = _absolute(url)
+    before, _after = upgrade_database(url)
     demo_settings = settings.model_copy(update={"database_url": url, "demo_mode": True, "migrate_on_start": False})
     app = create_app(demo_settings)
     factory = app.state.session_factory
-    report = load_demo_campaign(factory)
-    # Only the token's hash is stored, so a demo start cannot show an earlier token again;
-    # the earlier demo-admin tokens are revoked, so only the one printed now is valid.
     with factory() as session:
-        token = create_token(session, "admin", DEMO_TOKEN_NAME, actor="demo", replace_named=True)
-    return PreparedDemo(app=app, database_url=url, load=report, admin_token=token)
+        others = sorted(c.slug for c in campaign_store.list_campaigns(session) if c.slug != CAMPAIGN_SLUG)
+    if others:
+        app.state.engine.dispose()
+        raise DemoRefused(
+            f"the database holds other campaigns ({', '.join(others[:3])}{', ...' if len(others) > 3 else ''}), "
+            "which demo mode would show to anyone without a token: give the demo its own database "
+            "(--db ./wakeledger-demo.db)"
+        )
+    report = load_demo_campaign(factory)
+    with factory() as session:
+        token = create_token(session, "admin", DEMO_TOKEN_NAME, actor="demo", expires_in=DEMO_TOKEN_LIFETIME)
+    return PreparedDemo(app=app, database_url=url, load=report, admin_token=token, revision_before=before)

@@ -77,6 +77,7 @@ def environment() -> jinja2.Environment:
         json_for_html=json_for_html,
     )
     env.globals.update(
+        root="",  # the path prefix (WAKELEDGER_ROOT_PATH); pages set it per request
         caution=ADVISORY_CAUTION,
         statuses=model.STATUSES,
         status_styles=STATUS_STYLES,

@@ -20,6 +20,22 @@ from app.problems import BODY_TOO_LARGE, MALFORMED_BODY, ProblemError, problem_o
 from app.routers.deps import SAFE_METHODS, principal_from_request
 
 
+class ServedUnderPrefix:
+    """The app answers under a path prefix (WAKELEDGER_ROOT_PATH) behind a reverse proxy.
+
+    Sets the ASGI ``root_path``: routing then takes a path with the prefix (a proxy that passes
+    it on) or without (a proxy that strips it), and the pages build every URL behind it.
+    """
+
+    def __init__(self, app: ASGIApp, prefix: str) -> None:
+        self.app, self.prefix = app, prefix
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] in ("http", "websocket") and not scope.get("root_path"):
+            scope = {**scope, "root_path": self.prefix}
+        await self.app(scope, receive, send)
+
+
 class RefuseNulInUrl:
     """400 when the path or a query parameter holds a NUL character (``%00``)."""
 

@@ -16,11 +16,12 @@ another host, and the page's only script is our own /static/js/api_docs.js.
 
 from __future__ import annotations
 
+import html
 import importlib.util
 from pathlib import Path
 from typing import Any
 
-from fastapi import FastAPI
+from fastapi import FastAPI, Request
 from fastapi.openapi.utils import get_openapi
 from fastapi.responses import HTMLResponse
 from fastapi.staticfiles import StaticFiles
@@ -91,13 +92,13 @@ _DOCS_PAGE = """<!doctype html>
 <head>
 <meta charset="utf-8">
 <title>wakeledger API</title>
-<link rel="stylesheet" href="{assets}/swagger-ui.css">
-<link rel="icon" href="/static/img/mark.svg" type="image/svg+xml">
+<link rel="stylesheet" href="{root}{assets}/swagger-ui.css">
+<link rel="icon" href="{root}/static/img/mark.svg" type="image/svg+xml">
 </head>
 <body>
-<div id="swagger-ui" data-openapi-url="/openapi.json"></div>
-<script src="{assets}/swagger-ui-bundle.js"></script>
-<script src="/static/js/api_docs.js"></script>
+<div id="swagger-ui" data-openapi-url="{root}/openapi.json"></div>
+<script src="{root}{assets}/swagger-ui-bundle.js"></script>
+<script src="{root}/static/js/api_docs.js"></script>
 </body>
 </html>
 """
@@ -116,5 +117,6 @@ def install_docs(app: FastAPI, page_headers: dict[str, str]) -> None:
     app.mount(SWAGGER_ASSETS, StaticFiles(directory=str(swagger_ui_static())), name="swagger-ui")
 
     @app.get("/docs", include_in_schema=False)
-    def docs() -> HTMLResponse:
-        return HTMLResponse(_DOCS_PAGE.format(assets=SWAGGER_ASSETS), headers=page_headers)
+    def docs(request: Request) -> HTMLResponse:
+        root = html.escape(request.scope.get("root_path", ""), quote=True)  # WAKELEDGER_ROOT_PATH
+        return HTMLResponse(_DOCS_PAGE.format(root=root, assets=SWAGGER_ASSETS), headers=page_headers)

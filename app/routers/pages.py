@@ -82,9 +82,17 @@ router = APIRouter(include_in_schema=False)
 # ------------------------------------------------------------------------- rendering
 
 
+def site(request: Request, path: str = "") -> str:
+    """``path`` (of this app, "/campaigns") as the browser must ask for it: behind the path prefix
+    of WAKELEDGER_ROOT_PATH when the app is served under one. Every URL a page, a feed or a
+    redirect gives the browser goes through here (templates: ``{{ root }}/...``)."""
+    return request.scope.get("root_path", "") + path
+
+
 def render(request: Request, name: str, context: dict[str, Any], status_code: int = 200) -> Response:
     principal: TokenInfo | None = getattr(request.state, "principal", None)
     context = {
+        "root": site(request),
         "principal": principal,
         "csrf_token": principal.csrf_token if principal is not None else None,
         "campaign": None,
@@ -132,9 +140,21 @@ def _safe_next(target: str | None) -> str:
     return target
 
 
+def _prefixed_panel(request: Request, panel: dict[str, Any]) -> dict[str, Any]:
+    """The detailed-run panel with its API address behind the path prefix."""
+    config = {**panel["config"], "runs_url": site(request, panel["config"]["runs_url"])}
+    return {**panel, "config": config}
+
+
+def _app_path(request: Request) -> str:
+    """The request's path within the app (without the path prefix, whether the proxy kept it or not)."""
+    path, root = request.url.path, site(request)
+    return path[len(root) :] if root and (path == root or path.startswith(root + "/")) else path
+
+
 def _sign_in_redirect(request: Request) -> RedirectResponse:
-    target = request.url.path + (f"?{request.url.query}" if request.url.query else "")
-    return RedirectResponse("/sign-in?" + urlencode({"next": target}), status_code=303)
+    target = _app_path(request) + (f"?{request.url.query}" if request.url.query else "")
+    return RedirectResponse(site(request, "/sign-in?" + urlencode({"next": target})), status_code=303)
 
 
 def viewer(request: Request) -> TokenInfo:
@@ -261,7 +281,7 @@ def palette_css() -> Response:
 
 @router.get("/")
 def home(request: Request) -> Response:
-    return RedirectResponse("/campaigns" if _principal(request) else "/sign-in", status_code=303)
+    return RedirectResponse(site(request, "/campaigns" if _principal(request) else "/sign-in"), status_code=303)
 
 
 # The sign-in form carries a one-off value that must match this cookie (double submit): a
@@ -278,7 +298,7 @@ def _sign_in_page(request: Request, next_path: str, error: str | None, status_co
         httponly=True,
         samesite="strict",
         secure=request.app.state.settings.secure_cookies,
-        path="/sign-in",
+        path=site(request, "/sign-in"),
         max_age=3600,
     )
     return response
@@ -308,9 +328,9 @@ def sign_in(
     new = auth.start_session(session, token.strip(), settings.session_lifetime)
     if new is None:
         return _sign_in_page(request, _safe_next(next), "That token is unknown, revoked or expired.", 401)
-    response = RedirectResponse(_safe_next(next), status_code=303)
+    response = RedirectResponse(site(request, _safe_next(next)), status_code=303)
     set_session_cookie(response, new, settings)
-    response.delete_cookie(SIGN_IN_COOKIE, path="/sign-in")
+    response.delete_cookie(SIGN_IN_COOKIE, path=site(request, "/sign-in"))
     return response
 
 
@@ -320,7 +340,7 @@ async def sign_out(request: Request, _who: Reader, session: DB) -> Response:
     if refused is not None:
         return refused
     auth.end_session(session, request.cookies.get(SESSION_COOKIE))
-    response = RedirectResponse("/sign-in", status_code=303)
+    response = RedirectResponse(site(request, "/sign-in"), status_code=303)
     clear_session_cookie(response)
     return response
 
@@ -333,9 +353,9 @@ def campaign_list(request: Request, _who: Reader, session: DB) -> Response:
     return render(request, "campaigns.html", {"cards": overview.campaign_cards(session), "active": "campaigns"})
 
 
-def _live(slug: str, cursor: int, page: str, **extra: Any) -> dict[str, Any]:
+def _live(request: Request, slug: str, cursor: int, page: str, **extra: Any) -> dict[str, Any]:
     return {
-        "url": f"/campaigns/{quote(slug)}/live",
+        "url": site(request, f"/campaigns/{quote(slug)}/live"),
         "cursor": cursor,
         "interval_ms": LIVE_INTERVAL_MS,
         "page": page,
@@ -346,15 +366,19 @@ def _live(slug: str, cursor: int, page: str, **extra: Any) -> dict[str, Any]:
 @router.get("/campaigns/{slug}")
 def campaign_overview(request: Request, campaign: PageCampaign, session: DB) -> Response:
     slug = campaign.slug
-    data = overview.overview(session, campaign, f"/campaigns/{quote(slug)}/shots/{{shot_id}}")
-    regime = {"url": f"/campaigns/{quote(slug)}/regime.json", "x": data.regime_axes[0], "y": data.regime_axes[1]}
+    data = overview.overview(session, campaign, site(request, f"/campaigns/{quote(slug)}/shots/{{shot_id}}"))
+    regime = {
+        "url": site(request, f"/campaigns/{quote(slug)}/regime.json"),
+        "x": data.regime_axes[0],
+        "y": data.regime_axes[1],
+    }
     return render(
         request,
         "overview.html",
         {
             "campaign": campaign,
             "data": data,
-            "live": _live(slug, data.live_cursor, "overview"),
+            "live": _live(request, slug, data.live_cursor, "overview"),
             "regime": regime,
             "active": "overview",
         },
@@ -375,13 +399,14 @@ def chart_feed(name: str, _who: FeedReader, campaign: PathCampaign, session: DB)
 
 @router.get("/campaigns/{slug}/live")
 def live_feed(
+    request: Request,
     _who: FeedReader,
     campaign: PathCampaign,
     session: DB,
     since: Annotated[int, Query(ge=0, le=2**63 - 1)] = 0,
     fields: str = "",
 ) -> Response:
-    shot_url = f"/campaigns/{quote(campaign.slug)}/shots/{{shot_id}}"
+    shot_url = site(request, f"/campaigns/{quote(campaign.slug)}/shots/{{shot_id}}")
     return json_response(overview.live_update(session, campaign, since, shot_url, overview.live_extra(fields)))
 
 
@@ -401,6 +426,7 @@ def shot_table(request: Request, campaign: PageCampaign, session: DB) -> Respons
     query, problems = _table_query(request, campaign)
     page = table.table_page(session, campaign, query) if not problems else None
     live = _live(
+        request,
         slug,
         page.live_cursor if page else 0,
         "table",
@@ -429,8 +455,10 @@ def shot_table(request: Request, campaign: PageCampaign, session: DB) -> Respons
             "excluded_choices": table.EXCLUDED_CHOICES,
             "columns": table.table_columns(),
             "table_notes_chars": table.TABLE_NOTES_CHARS,
-            "link": lambda **changes: _table_link(slug, query.params, changes),
-            "csv_link": f"/campaigns/{quote(slug)}/shots.csv" + (f"?{urlencode(query.params)}" if query.params else ""),
+            "link": lambda **changes: site(request, _table_link(slug, query.params, changes)),
+            "csv_link": site(request)
+            + f"/campaigns/{quote(slug)}/shots.csv"
+            + (f"?{urlencode(query.params)}" if query.params else ""),
             "active": "shots",
         },
         422 if problems else 200,
@@ -482,7 +510,7 @@ def _shot_page(
             "campaign": campaign,
             "d": detail,
             "active": "shots",
-            "detailed": detailed_runs.shot_panel(session, campaign, detail.shot),
+            "detailed": _prefixed_panel(request, detailed_runs.shot_panel(session, campaign, detail.shot)),
             "exclusion_errors": exclusion_errors or [],
             "reason_max": exclusions.MAX_REASON_CHARS,
         },
@@ -598,7 +626,7 @@ async def settings_save(request: Request, campaign: PageCampaign, session: DB) -
     if outcome.errors:
         return _settings_page(request, session, campaign, outcome.form, errors=outcome.errors, status_code=422)
     return RedirectResponse(
-        f"/campaigns/{quote(campaign.slug)}/settings?job={quote(outcome.job_id or '')}", status_code=303
+        site(request, f"/campaigns/{quote(campaign.slug)}/settings?job={quote(outcome.job_id or '')}"), status_code=303
     )
 
 
@@ -665,7 +693,7 @@ def _admin_page(
             "jobs": job_service.job_list(session),
             "audit": audit,
             "audit_filter": audit_filter,
-            "older_link": "/admin?" + urlencode(older) + "#audit",
+            "older_link": site(request, "/admin?") + urlencode(older) + "#audit",
             "roles": auth.ROLES,
             "new_token": new_token,
             "errors": errors or [],
@@ -710,7 +738,7 @@ async def admin_revoke_token(
     if refused is not None:
         return refused
     administration.revoke_token(session, token_id, who)
-    return RedirectResponse("/admin#tokens", status_code=303)
+    return RedirectResponse(site(request, "/admin#tokens"), status_code=303)
 
 
 @router.post("/admin/jobs/{job_id}/cancel")
@@ -723,4 +751,4 @@ async def admin_cancel_job(job_id: str, request: Request, who: Reader, session: 
         job_service.cancel_job(session, job_id, who)
     except (Conflict, Forbidden) as exc:
         return _admin_page(request, session, errors=[("job", exc.detail)], status_code=409)
-    return RedirectResponse("/admin#jobs", status_code=303)
+    return RedirectResponse(site(request, "/admin#jobs"), status_code=303)

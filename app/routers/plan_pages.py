@@ -14,13 +14,14 @@ from urllib.parse import quote
 from fastapi import APIRouter, Request, Response
 
 from app.routers.deps import DB, PathCampaign, ViewerQuestion
-from app.routers.pages import PageCampaign, PageNotFound, render
+from app.routers.json_body import StrictJSONRoute
+from app.routers.pages import PageCampaign, PageNotFound, render, site
 from app.routers.plan_schemas import MapIn, PanelsIn, PointIn
 from app.routers.responses import numeric_json_response
 from app.services.planner import answers
 from app.services.planner import page as planner_page
 
-router = APIRouter(include_in_schema=False)
+router = APIRouter(include_in_schema=False, route_class=StrictJSONRoute)
 
 
 @router.get("/campaigns/{slug}/plan")
@@ -28,7 +29,7 @@ def plan_page(request: Request, campaign: PageCampaign, session: DB, shot: str |
     page = planner_page.plan_page(session, campaign, shot)
     if page is None:
         raise PageNotFound(f"Shot {shot!r} in campaign {campaign.slug!r}")
-    feeds = f"/campaigns/{quote(campaign.slug, safe='')}/plan"
+    feeds = site(request, f"/campaigns/{quote(campaign.slug, safe='')}/plan")
     page.config["feeds"] = {name: f"{feeds}/{name}" for name in ("map", "panels", "point")}
     return render(request, "plan.html", {"campaign": campaign, "page": page, "active": "plan"})
 

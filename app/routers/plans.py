@@ -14,6 +14,7 @@ from typing import Any
 from fastapi import APIRouter, Response
 
 from app.routers.deps import DB, ViewerQuestion
+from app.routers.json_body import StrictJSONRoute
 from app.routers.plan_schemas import (
     NearestIn,
     NearestOut,
@@ -27,7 +28,7 @@ from app.routers.plan_schemas import (
 from app.routers.responses import numeric_json_response
 from app.services.planner import answers
 
-router = APIRouter(prefix="/api/v1/plans", tags=["planner"])
+router = APIRouter(prefix="/api/v1/plans", tags=["planner"], route_class=StrictJSONRoute)
 
 PROBLEMS: dict[int | str, dict[str, Any]] = {
     401: {"description": "no valid token"},

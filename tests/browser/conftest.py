@@ -15,6 +15,7 @@ from typing import Any
 import httpx
 import pytest
 
+from tests.support.jobs import TEST_WORKER
 from tests.support.page_shots import page_shots
 from tests.support.sessions import new_session
 
@@ -31,6 +32,27 @@ CHROMIUM_ARGS = [
 ]
 
 
+# How long a page may take to show what a test waits for (a chart drawn, a job finished): a bound
+# on a wait for a condition, never a timing assertion. Generous, because the suite must pass on
+# a 2-core machine shared with other CPU-bound work, where a job worker runs at a lower priority.
+WAIT_MS = 120_000
+
+
+class _Browser:
+    """The launched chromium, whose contexts wait up to WAIT_MS (Playwright's default is 30 s)."""
+
+    def __init__(self, chromium: Any) -> None:
+        self._chromium = chromium
+
+    def new_context(self, **options: Any) -> Any:
+        context = self._chromium.new_context(**options)
+        context.set_default_timeout(WAIT_MS)
+        return context
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._chromium, name)
+
+
 @pytest.fixture
 def browser() -> Iterator[Any]:
     if not CHROMIUM.exists():
@@ -42,7 +64,7 @@ def browser() -> Iterator[Any]:
     with sync_api.sync_playwright() as p:
         chromium = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
         try:
-            yield chromium
+            yield _Browser(chromium)
         finally:
             chromium.close()
 
@@ -61,7 +83,7 @@ def backend() -> str:
 
 @pytest.fixture
 def page_server(app, live_server: str, admin_token: str, make_shot, job_worker) -> dict[str, Any]:
-    job_worker()  # the jobs the pages start run in a worker process, as beside `wakeledger serve`
+    job_worker(**TEST_WORKER)  # the jobs the pages start run in a worker process, as beside `wakeledger serve`
     headers = {"Authorization": f"Bearer {admin_token}"}
     with httpx.Client(base_url=live_server, headers=headers, timeout=30) as api:
         r = api.post(

@@ -7,6 +7,7 @@ import httpx
 import pytest
 
 from tests.support.detailed_runs import QUICK_CHANGES
+from tests.support.jobs import TEST_WORKER
 
 pytestmark = pytest.mark.browser
 
@@ -14,7 +15,7 @@ pytestmark = pytest.mark.browser
 def test_admin_starts_a_detailed_run_from_the_shot_page_and_sees_its_charts_without_a_reload(
     browser, live_server, admin_token, make_shot, artifacts, job_worker
 ):
-    job_worker()  # the run is solved by a worker process, as beside `wakeledger serve`
+    job_worker(**TEST_WORKER)  # the run is solved by a worker process, as beside `wakeledger serve`
     headers = {"Authorization": f"Bearer {admin_token}"}
     with httpx.Client(base_url=live_server, headers=headers, timeout=30) as api:
         assert api.post("/api/v1/campaigns", json={"slug": "panel", "name": "Panel campaign"}).status_code == 201
@@ -34,7 +35,7 @@ def test_admin_starts_a_detailed_run_from_the_shot_page_and_sees_its_charts_with
     page.evaluate("window.__notReloaded = true")
 
     page.click("#detailed-run-form button[type=submit]")
-    page.wait_for_selector("#chart-detailed-map .main-svg", timeout=30000)
+    page.wait_for_selector("#chart-detailed-map .main-svg")
     page.wait_for_selector("#chart-detailed-growth .main-svg")
     page.wait_for_selector("#chart-detailed-field .main-svg")
     assert page.evaluate("window.__notReloaded") is True

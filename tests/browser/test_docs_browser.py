@@ -23,7 +23,7 @@ def test_the_api_docs_render_from_local_assets_without_csp_violations(browser, l
     page.on("request", lambda req: requests.append(req.url))
     page.on("pageerror", lambda exc: errors.append(str(exc)))
     page.goto(f"{live_server}/docs")
-    page.wait_for_selector(".opblock-summary-path", timeout=30000)
+    page.wait_for_selector(".opblock-summary-path")
     assert page.locator(".opblock-summary-path").count() > 20
     assert page.evaluate("() => window.__cspViolations") == []
     assert errors == []

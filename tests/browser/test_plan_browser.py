@@ -56,8 +56,8 @@ CELL_PIXELS = """([i, j]) => {
 def test_the_page_draws_the_map_and_a_click_on_a_point_shows_its_evaluation(browser, page_server, artifacts):
     base, slug = page_server["base"], page_server["slug"]
     context, page, problems = _open(browser, base, page_server["token"], f"/campaigns/{slug}/plan?shot=pg-0000")
-    page.wait_for_selector("#chart-plan[data-drawn] .heatmaplayer image", state="attached", timeout=30000)
-    page.wait_for_selector("#plan-base[data-drawn]", timeout=30000)
+    page.wait_for_selector("#chart-plan[data-drawn] .heatmaplayer image", state="attached")
+    page.wait_for_selector("#plan-base[data-drawn]")
     assert page.locator("#plan-windows tr.window").count() > 0
     assert page.locator("#plan-sensitivities tr").count() > 0
     assert page.inner_text("#plan-summary").startswith("80 \u00d7 80 points")
@@ -67,9 +67,9 @@ def test_the_page_draws_the_map_and_a_click_on_a_point_shows_its_evaluation(brow
     cell = page.evaluate(CELL_PIXELS, [20, 55])
     box = chart.bounding_box()
     page.mouse.move(box["x"] + cell["px"], box["y"] + cell["py"])
-    page.wait_for_selector("#chart-plan .hoverlayer .hovertext", timeout=10000)
+    page.wait_for_selector("#chart-plan .hoverlayer .hovertext")
     page.mouse.click(box["x"] + cell["px"], box["y"] + cell["py"])
-    page.wait_for_selector("#plan-point[data-shown]", timeout=30000)
+    page.wait_for_selector("#plan-point[data-shown]")
 
     with httpx.Client(base_url=base, headers=page_server["headers"], timeout=30) as api:
         payload = api.get(f"/api/v1/campaigns/{slug}/shots/pg-0000").json()["payload"]
@@ -102,8 +102,8 @@ def test_the_nearest_nominal_shot_becomes_the_new_base_at_a_click(
         assert created.status_code == 201, created.text
         assert api.post("/api/v1/campaigns/nearest/shots", json=shot).status_code == 201
     context, page, problems = _open(browser, live_server, admin_token, "/campaigns/nearest/plan?shot=near-1")
-    page.wait_for_selector("#plan-base[data-drawn]", timeout=30000)
-    page.wait_for_selector("#chart-plan[data-drawn]", timeout=30000)
+    page.wait_for_selector("#plan-base[data-drawn]")
+    page.wait_for_selector("#chart-plan[data-drawn]")
     assert page.inner_text("#plan-base-status").strip().endswith("marginal")
     vary = page.eval_on_selector_all("#plan-vary input:checked", "boxes => boxes.map(b => b.value)")
     assert "plasma.density_cm3" in vary
@@ -112,7 +112,7 @@ def test_the_nearest_nominal_shot_becomes_the_new_base_at_a_click(
         nearest = api.post("/api/v1/plans/nearest", json=body).json()
     assert nearest["found"] and nearest["status"] == "nominal"
 
-    page.wait_for_selector("#plan-nearest-use:not([disabled])", timeout=30000)
+    page.wait_for_selector("#plan-nearest-use:not([disabled])")
     drawn = _drawn(page)
     page.click("#plan-nearest-use")
     _wait_until(page, REDRAWN, drawn)
@@ -148,7 +148,7 @@ def test_the_html_file_of_a_plan_draws_its_map_with_no_network(browser, tmp_path
     context.route("**/*", only_the_file)
     page = context.new_page()
     page.goto(out.as_uri())
-    page.wait_for_selector("#chart-plan .main-svg", timeout=30000)
+    page.wait_for_selector("#chart-plan .main-svg")
     assert page.locator("#chart-plan .heatmaplayer image").count() == 1
     assert page.locator("#plan-windows tr.window").count() > 0
     page.screenshot(path=str(artifacts / "plan-file.png"), full_page=True)

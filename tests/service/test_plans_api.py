@@ -7,6 +7,7 @@ settings used, the errors and the roles."""
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -400,3 +401,22 @@ def test_every_planner_endpoint_needs_a_token_and_any_role_may_plan(
     assert client.post(path, json=body, headers={"Authorization": "Bearer wlt_nope"}).status_code == 401
     for headers in (viewer_headers, ingest_headers, admin_headers):
         assert client.post(path, json=body, headers=headers).status_code == 200
+
+
+def test_a_planner_question_in_malformed_json_names_the_line_and_column(client, viewer_headers):
+    response = client.post(
+        "/api/v1/plans/scan",
+        content=b'{"base": {"shot_id": "x"},\n "axes": [oops]}',
+        headers={**viewer_headers, "Content-Type": "application/json"},
+    )
+    assert response.status_code == 400
+    assert response.json()["detail"] == "the body is not valid JSON: Expecting value at line 2, column 11"
+
+
+def test_a_planner_question_sent_as_text_plain_answers_415_naming_application_json(client, viewer_headers, make_shot):
+    body = {"base": make_shot(), "axes": [{"field": "plasma.density_cm3", "start": 1e14, "stop": 1e15, "steps": 3}]}
+    response = client.post(
+        "/api/v1/plans/scan", content=json.dumps(body), headers={**viewer_headers, "Content-Type": "text/plain"}
+    )
+    assert response.status_code == 415
+    assert "application/json" in response.json()["detail"] and "text/plain" in response.json()["detail"]

@@ -59,3 +59,9 @@ def wait_for_job(client, job_id: str, headers: dict[str, str], timeout_s: float 
         if time.monotonic() > deadline:
             raise AssertionError(f"job {job_id} did not finish within {timeout_s} s: {job}")
         time.sleep(0.05)
+
+
+# Settings of the job worker a browser test starts: it keeps the pages' priority, because at the
+# default niceness (10) a CPU-bound process beside the suite starves it past any bound
+# (`wakeledger serve` keeps WAKELEDGER_WORKER_NICENESS, default 10).
+TEST_WORKER = {"worker_niceness": 0}

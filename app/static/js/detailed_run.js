@@ -10,6 +10,9 @@
   var POLL_MS = 1000;
   var MAX_POLLS = 3600; // an hour of polling at most
 
+  // The path prefix the app is served under (WAKELEDGER_ROOT_PATH), from <html data-root>.
+  var ROOT = document.documentElement.getAttribute("data-root") || "";
+
   function byId(id) { return document.getElementById(id); }
 
   // A write through the browser session carries the session's CSRF token (a meta tag of the page).
@@ -80,7 +83,7 @@
       cancel.disabled = false;
       cancel.onclick = function () {
         cancel.disabled = true;
-        fetch("/api/v1/jobs/" + encodeURIComponent(jobId), { method: "DELETE", credentials: "same-origin", headers: writeHeaders() })
+        fetch(ROOT + "/api/v1/jobs/" + encodeURIComponent(jobId), { method: "DELETE", credentials: "same-origin", headers: writeHeaders() })
           .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); text.textContent = "Cancelling the run\u2026"; })
           .catch(function (err) { cancel.disabled = false; text.textContent = "The run was not cancelled (" + err.message + ")."; });
       };
@@ -94,7 +97,7 @@
 
     function poll() {
       polls += 1;
-      getJson("/api/v1/jobs/" + encodeURIComponent(jobId))
+      getJson(ROOT + "/api/v1/jobs/" + encodeURIComponent(jobId))
         .then(function (job) {
           var pct = job.total ? Math.round(100 * job.done / job.total) : (job.state === "succeeded" ? 100 : 0);
           bar.style.width = pct + "%";

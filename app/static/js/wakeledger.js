@@ -37,9 +37,14 @@
   }
   window.wakeledgerFormatCount = formatCount;
 
+  // The path prefix the app is served under (WAKELEDGER_ROOT_PATH), from <html data-root>.
+  var ROOT = document.documentElement.getAttribute("data-root") || "";
+
   function shotLinkBase() {
-    var m = window.location.pathname.match(/^\/campaigns\/[^/]+/);
-    return m ? m[0] + "/shots/" : null;
+    var path = window.location.pathname;
+    if (ROOT && path.indexOf(ROOT + "/") === 0) path = path.slice(ROOT.length);
+    var m = path.match(/^\/campaigns\/[^/]+/);
+    return m ? ROOT + m[0] + "/shots/" : null;
   }
 
   /* ---------------------------------------------------------------- charts */
@@ -472,7 +477,7 @@
     var panel = document.getElementById("job-panel");
     var bar = document.getElementById("job-bar");
     var text = document.getElementById("job-text");
-    var url = "/api/v1/jobs/" + encodeURIComponent(cfg.job_id);
+    var url = ROOT + "/api/v1/jobs/" + encodeURIComponent(cfg.job_id);
     var cancel = document.getElementById("job-cancel");
     var polls = 0;
     panel.hidden = false;
