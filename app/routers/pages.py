@@ -541,7 +541,7 @@ async def _exclusion_form(request: Request, campaign: Campaign, session: DB, sho
     except (InvalidInput, Conflict) as exc:
         problems = exc.problems or [("reason", exc.detail)]
         return _shot_page(request, campaign, session, shot_id, problems, 409 if isinstance(exc, Conflict) else 422)
-    return RedirectResponse(f"/campaigns/{quote(campaign.slug)}/shots/{quote(shot_id)}", status_code=303)
+    return RedirectResponse(site(request, f"/campaigns/{quote(campaign.slug)}/shots/{quote(shot_id)}"), status_code=303)
 
 
 @router.post("/campaigns/{slug}/shots/{shot_id}/exclude")
@@ -646,7 +646,7 @@ async def settings_add_webhook(request: Request, campaign: PageCampaign, session
         panel = alert_panel.alert_panel(session, campaign, submitted, errors)
         form_view = settings_form.settings_form(session, campaign)
         return _settings_page(request, session, campaign, form_view, alerts=panel, status_code=422)
-    return RedirectResponse(f"/campaigns/{quote(campaign.slug)}/settings#alerts", status_code=303)
+    return RedirectResponse(site(request, f"/campaigns/{quote(campaign.slug)}/settings#alerts"), status_code=303)
 
 
 @router.post("/campaigns/{slug}/settings/webhooks/{webhook_id}/delete")
@@ -661,7 +661,7 @@ async def settings_delete_webhook(
         alert_panel.delete_from_form(session, campaign, webhook_id, request.state.principal.actor)
     except NotFound as exc:
         raise PageNotFound(exc.what.capitalize()) from None
-    return RedirectResponse(f"/campaigns/{quote(campaign.slug)}/settings#alerts", status_code=303)
+    return RedirectResponse(site(request, f"/campaigns/{quote(campaign.slug)}/settings#alerts"), status_code=303)
 
 
 # ------------------------------------------------------------------------ administration

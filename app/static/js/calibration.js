@@ -12,6 +12,9 @@
     try { return JSON.parse(node.textContent); } catch (e) { return null; }
   }
 
+  // The path prefix the app is served under (WAKELEDGER_ROOT_PATH), from <html data-root>.
+  var ROOT = document.documentElement.getAttribute("data-root") || "";
+
   var configNode = byId("calibration-config");
   var CONFIG = (configNode && readJson(configNode)) || {};
 
@@ -20,7 +23,7 @@
     div.on("plotly_click", function (ev) {
       var p = ev && ev.points && ev.points[0];
       if (p && typeof p.customdata === "string") {
-        window.location.href = CONFIG.shot_base + encodeURIComponent(p.customdata);
+        window.location.href = ROOT + CONFIG.shot_base + encodeURIComponent(p.customdata);
       }
     });
   }
@@ -52,7 +55,7 @@
     if (!isFinite(value)) return;
     if (!window.confirm("Set the campaign's density_scale to " + text + "? Every shot of the campaign is re-evaluated with it.")) return;
     button.disabled = true;
-    fetch(CONFIG.settings_url, {
+    fetch(ROOT + CONFIG.settings_url, {
       method: "PATCH", credentials: "same-origin",
       headers: { "Content-Type": "application/json", Accept: "application/json", "X-CSRF-Token": csrfToken() },
       body: JSON.stringify({ density_scale: value })
