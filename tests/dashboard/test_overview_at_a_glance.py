@@ -10,7 +10,7 @@ import re
 from datetime import UTC, datetime
 
 import pytest
-from sqlalchemy import update
+from sqlalchemy import text, update
 
 from app.presentation.charts import robust_range
 from app.services.campaigns import find_campaign
@@ -135,17 +135,14 @@ def test_the_live_feed_counts_follow_a_correction_that_changes_a_status(client, 
 
 
 def test_the_latest_shot_is_one_seek_of_the_campaign_id_index(db, seeded):
-    plan = " ".join(
-        str(row)
-        for row in db.execute(
-            __import__("sqlalchemy").text(
-                "EXPLAIN QUERY PLAN SELECT id FROM shots WHERE campaign_id = 1 ORDER BY id DESC LIMIT 1"
-            )
-        )
-    )
+    query = "SELECT id FROM shots WHERE campaign_id = 1 ORDER BY id DESC LIMIT 1"
     if db.get_bind().dialect.name == "sqlite":
+        plan = " ".join(str(row) for row in db.execute(text("EXPLAIN QUERY PLAN " + query)))
         assert "ix_shots_campaign_id_id" in plan or "PRIMARY" in plan or "INTEGER PRIMARY KEY" in plan
         assert "TEMP B-TREE" not in plan  # no sort of the campaign
+    else:  # PostgreSQL: the index exists (its planner may prefer a scan of a table this small)
+        names = {row[0] for row in db.execute(text("SELECT indexname FROM pg_indexes WHERE tablename = 'shots'"))}
+        assert "ix_shots_campaign_id_id" in names
 
 
 def test_pages_and_feeds_go_out_compressed_and_versioned_assets_are_kept_a_year(viewer_client, seeded):
