@@ -11,7 +11,6 @@ from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
-from starlette.middleware.gzip import GZipMiddleware
 
 from app.advisory import ADVISORY_CAUTION
 from app.config import Settings, get_settings
@@ -29,7 +28,7 @@ from app.routers import (
     plans,
     summary,
 )
-from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, RefuseNulInUrl, ServedUnderPrefix
+from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, CompressPages, RefuseNulInUrl, ServedUnderPrefix
 from app.services import reevaluation
 from app.services.rate_limits import RateLimiter
 from app.version import VERSION
@@ -93,8 +92,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.add_middleware(AuthenticateBeforeBody)
     app.add_middleware(RefuseNulInUrl)
     # Pages, JSON feeds and our static files go out gzip-compressed to browsers that accept
-    # it (plotly.min.js is sent pre-compressed, app.routers.pages).
-    app.add_middleware(GZipMiddleware, minimum_size=1000, compresslevel=6)
+    # it (plotly.min.js is sent pre-compressed, app.routers.pages); API answers are not. Level 1:
+    # on a 2-core server the CPU is scarcer than the bytes (JSON of numbers shrinks ~5x at any level).
+    app.add_middleware(CompressPages, minimum_size=1000, compresslevel=1)
     if settings.root_path:  # served under a path prefix (WAKELEDGER_ROOT_PATH); runs first
         app.add_middleware(ServedUnderPrefix, prefix=settings.root_path)
     return app

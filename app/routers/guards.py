@@ -12,6 +12,7 @@ from __future__ import annotations
 from urllib.parse import parse_qsl
 
 from starlette.concurrency import run_in_threadpool
+from starlette.middleware.gzip import GZipMiddleware
 from starlette.requests import Request
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
@@ -33,6 +34,26 @@ class ServedUnderPrefix:
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] in ("http", "websocket") and not scope.get("root_path"):
             scope = {**scope, "root_path": self.prefix}
+        await self.app(scope, receive, send)
+
+
+class CompressPages:
+    """gzip for what browsers load (pages, chart feeds, static files); the API's answers go out as
+    they are: data acquisition and scripts read them on the local network, and compressing a large
+    numeric answer (a 25 MB planner scan) costs a second of server CPU to save nothing there."""
+
+    def __init__(self, app: ASGIApp, minimum_size: int = 1000, compresslevel: int = 1) -> None:
+        self.app = app
+        self.compressed = GZipMiddleware(app, minimum_size=minimum_size, compresslevel=compresslevel)
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] == "http":
+            path, root = scope["path"], scope.get("root_path", "")
+            if root and path.startswith(root + "/"):  # a proxy that passes the prefix on
+                path = path[len(root) :]
+            if not path.startswith("/api/"):
+                await self.compressed(scope, receive, send)
+                return
         await self.app(scope, receive, send)
 
 

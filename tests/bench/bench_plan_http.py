@@ -2,7 +2,7 @@
 
 Run:  .venv/bin/python tests/bench/bench_plan_http.py [--repeats 5]
 
-The server is a real uvicorn in its own process (bench_ingest.start_server) on a temporary SQLite
+The server is a real uvicorn in its own process (served.Served) on a temporary SQLite
 database holding one campaign and worked example 1 as a stored shot. Figures (targets of issue 13):
 - a 200 x 200 scan, POST /api/v1/plans/scan (density on a log axis x seed position on a linear axis around
   example 1, an invented shot: saturated and unsaturated, strong and weak seeds): with every output (the
@@ -28,7 +28,6 @@ import copy
 import json
 import math
 import os
-import subprocess
 import sys
 import tempfile
 import time
@@ -44,7 +43,8 @@ sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import httpx  # noqa: E402
-from bench_ingest import process_cpu_seconds, start_server  # noqa: E402
+from served import Served  # noqa: E402
+from served import cpu_seconds as process_cpu_seconds  # noqa: E402
 
 from app.database import make_engine, make_session_factory, upgrade_database  # noqa: E402
 from app.presentation.json_text import json_bytes  # noqa: E402
@@ -168,7 +168,10 @@ def main() -> None:
             ingest_shots(session, SLUG, [stored], "bench", batch=False)
         engine.dispose()
 
-        proc, base_url = start_server(url)
+        served = Served(ROOT, url)
+        served.start()
+        assert served.server is not None
+        proc, base_url = served.server, served.base
         try:
             headers = {"Authorization": f"Bearer {token}", "Content-Type": "application/json"}
             with httpx.Client(base_url=base_url, headers=headers, timeout=120) as http:
@@ -224,11 +227,7 @@ def main() -> None:
                         show(f"windows {name} over HTTP: {label} ({count})", wall, cpu, f"equal to the model: {ok}")
                 print(f"target: windows within {TARGET_S:g} s")
         finally:
-            proc.terminate()
-            try:
-                proc.wait(timeout=15)
-            except subprocess.TimeoutExpired:
-                proc.kill()
+            served.stop()
     print(f"load average at the end: {os.getloadavg()[0]:.2f}")
 
 

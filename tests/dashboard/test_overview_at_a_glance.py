@@ -166,6 +166,13 @@ def test_pages_and_feeds_go_out_compressed_and_versioned_assets_are_kept_a_year(
     assert viewer_client.get("/static/js/wakeledger.js").headers["cache-control"] == "public, max-age=3600"
 
 
+def test_api_answers_go_out_uncompressed_even_to_a_client_that_accepts_gzip(viewer_client, seeded):
+    # Compressing a large numeric answer (a 25 MB planner scan) cost a second of server CPU.
+    answer = viewer_client.get(f"/api/v1/campaigns/{SLUG}/shots?limit=50", headers={"Accept-Encoding": "gzip"})
+    assert answer.status_code == 200 and len(answer.content) > 1000
+    assert "content-encoding" not in answer.headers
+
+
 def test_the_weekly_report_says_each_flag_sentence_once_then_lists_its_shots():
     when = datetime(2026, 11, 17, tzinfo=UTC)
     shots = [
