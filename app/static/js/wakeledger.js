@@ -260,6 +260,20 @@
     });
   }
 
+  // A table cell of flag chips: code and severity of each fired rule (live rows of the table and
+  // of the latest outside shots).
+  function flagsCell(flags) {
+    var td = el("td", "flags");
+    flags.forEach(function (f) {
+      var chip = el("span", "flag");
+      chip.appendChild(el("span", "mono", f.code));
+      chip.appendChild(document.createTextNode(" "));
+      chip.appendChild(el("span", "sev " + f.severity, f.severity));
+      td.appendChild(chip);
+    });
+    return td;
+  }
+
   function statusNode(name) {
     var span = el("span", "status " + name);
     var shape = el("span", "shape", PRESENTATION.glyphs[name] || "");
@@ -292,15 +306,7 @@
     tr.appendChild(td);
     tr.appendChild(el("td", "mono nowrap", s.taken_local));
     td = el("td"); td.appendChild(statusNode(s.status)); tr.appendChild(td);
-    td = el("td", "flags");
-    s.flags.forEach(function (f) {
-      var chip = el("span", "flag");
-      chip.appendChild(el("span", "mono", f.code));
-      chip.appendChild(document.createTextNode(" "));
-      chip.appendChild(el("span", "sev " + f.severity, f.severity));
-      td.appendChild(chip);
-    });
-    tr.appendChild(td);
+    tr.appendChild(flagsCell(s.flags));
     tr.appendChild(el("td", null, s.seed_method));
     columns.forEach(function (c) { tr.appendChild(el("td", "num", s.text[c])); });
     td = el("td", "notes", s.notes);
@@ -327,15 +333,7 @@
       td.appendChild(a);
       tr.appendChild(td);
       tr.appendChild(el("td", "mono nowrap", s.taken_local));
-      td = el("td", "flags");
-      s.flags.forEach(function (f) {
-        var chip = el("span", "flag");
-        chip.appendChild(el("span", "mono", f.code));
-        chip.appendChild(document.createTextNode(" "));
-        chip.appendChild(el("span", "sev " + f.severity, f.severity));
-        td.appendChild(chip);
-      });
-      tr.appendChild(td);
+      tr.appendChild(flagsCell(s.flags));
       columns.forEach(function (c) { tr.appendChild(el("td", "num", s.text[c])); });
       body.insertBefore(tr, body.firstChild);
     });
