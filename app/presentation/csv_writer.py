@@ -85,9 +85,8 @@ def _integer_texts(values: np.ndarray) -> list[str]:
     return [str(v) for v in values.reshape(-1).tolist()]
 
 
-def cell_texts(column: CsvColumn) -> list[str]:
-    """The column's cells as written: numbers as text, text defused, quoted where needed."""
-    cells = column.cells
+def cell_texts(cells: list[Any] | np.ndarray, text: bool = False) -> list[str]:
+    """Cells as written: numbers as text, text defused (``text``), quoted where needed."""
     if isinstance(cells, np.ndarray):
         if cells.dtype.kind == "f":
             return number_texts(cells)
@@ -95,7 +94,7 @@ def cell_texts(column: CsvColumn) -> list[str]:
             return _integer_texts(cells)
         cells = cells.tolist()
     texts = [c if type(c) is str else "" if c is None else str(c) for c in cells]
-    if column.text:
+    if text:
         texts = [defuse(t) if isinstance(c, str) else t for c, t in zip(cells, texts, strict=True)]
     if _NEEDS_QUOTES.search("".join(texts)):  # one search for the column: most need no quotes
         texts = [quoted(t) for t in texts]
@@ -103,18 +102,18 @@ def cell_texts(column: CsvColumn) -> list[str]:
 
 
 def _pieces(chunks: Iterable[Sequence[CsvColumn]], chunk_rows: int = 1000) -> Iterator[tuple[str, int]]:
-    """(text, rows in it) of column chunks, the first chunk's headers as the header row."""
-    header: str | None = None
+    """(text, rows in it) of column chunks, the first chunk's headers as the header row; the
+    cells are formatted ``chunk_rows`` rows at a time, so their text never all lives at once."""
+    header_written = False
     for columns in chunks:
-        if header is None:
-            header = _row([quoted(c.header) for c in columns])
-            yield header, 0
-        texts = [cell_texts(c) for c in columns]
-        rows = min((len(t) for t in texts), default=0)
+        if not header_written:
+            yield _row([quoted(c.header) for c in columns]), 0
+            header_written = True
+        rows = min((len(c.cells) for c in columns), default=0)
         for start in range(0, rows, chunk_rows):
             end = min(start + chunk_rows, rows)
-            lines = map(_row, zip(*(t[start:end] for t in texts), strict=True))
-            yield "".join(lines), end - start
+            texts = [cell_texts(c.cells[start:end], c.text) for c in columns]
+            yield "".join(map(_row, zip(*texts, strict=True))), end - start
 
 
 def _row(cells: Sequence[str]) -> str:

@@ -33,7 +33,7 @@ from app.plain import finite_or_none, float_list
 from app.presentation.csv_writer import CsvColumn, joined
 from app.presentation.fields import unit_of, with_unit
 from app.store.exports import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS, FlagColumns, FlagRow
-from app.times import format_utc, iso_text
+from app.times import format_utc, local_texts, utc_texts
 
 NOT_EVALUATED = "not_evaluated"
 ENVELOPE_KEYS = ("shot_id", "taken_at", "notes", "tags")
@@ -299,8 +299,8 @@ def csv_columns(
     ``excluded_at`` and ``excluded_reason`` (a listing that shows excluded shots)."""
     columns = [
         CsvColumn("shot_id", list(table.shot_id), text=True),
-        CsvColumn("taken_at", [format_utc(t) for t in table.taken_at]),
-        CsvColumn("taken_at_local", [iso_text(t.astimezone(zone)) for t in table.taken_at]),
+        CsvColumn("taken_at", utc_texts(table.taken_at)),
+        CsvColumn("taken_at_local", local_texts(table.taken_at, zone)),
         CsvColumn("revision", list(table.revision)),
         CsvColumn("tags", [joined(t) for t in table.tags], text=True),
         CsvColumn("notes", list(table.notes), text=True),
@@ -346,10 +346,11 @@ def records(table: ShotTable) -> Iterator[dict[str, Any]]:
     output_rows = list(zip(*(float_list(table.outputs[name]) for name in output_names), strict=True)) or [()] * n
     status = table.status.tolist()
     flags = table.flags.dicts()
+    taken_at = utc_texts(table.taken_at)
     for i in range(n):
         record: dict[str, Any] = {
             "shot_id": table.shot_id[i],
-            "taken_at": format_utc(table.taken_at[i]),
+            "taken_at": taken_at[i],
             "revision": table.revision[i],
             "notes": table.notes[i],
             "tags": table.tags[i],

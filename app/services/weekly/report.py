@@ -94,7 +94,9 @@ def sentence_groups(shots: list[FlaggedShot]) -> list[SentenceGroup]:
     return sorted(groups.values(), key=lambda g: (-len(g.shots), g.code, g.message))
 
 
-def render_html(summary: WeeklySummary) -> str:
+def render_html(summary: WeeklySummary, *, links: bool = False) -> str:
+    """The report; ``links``: it is served by the API, so the week's other files are links relative to
+    its own address (a file written by the CLI names them instead)."""
     flagged = {status: [s for s in summary.flagged_shots if s.status == status] for status in ("outside", "marginal")}
     grouped = {status: sentence_groups(rows) for status, rows in flagged.items()}
     zone = campaign_zone(summary.timezone)
@@ -109,4 +111,6 @@ def render_html(summary: WeeklySummary) -> str:
         phase_window_shots=NEIGHBOUR_WINDOW_SHOTS - 1,
         jitter_sources=list(JITTER_SOURCE_NAMES.items()),
         file_stem=export_file_name(summary.campaign_slug, summary.week.label, "").rstrip("."),
+        summary_csv=export_file_name(summary.campaign_slug, summary.week.label, "csv", "summary"),
+        links=links,
     )

@@ -37,9 +37,11 @@ STATUSES = model.STATUSES
 SEVERITIES = model.SEVERITIES
 
 
-def export_file_name(campaign_slug: str, week_label: str, fmt: str) -> str:
-    """``wakeledger-SLUG-2026-W47.csv``: the file name of a week's export in any format."""
-    return f"wakeledger-{campaign_slug}-{week_label}.{fmt}"
+def export_file_name(campaign_slug: str, week_label: str, fmt: str, table: str = "shots") -> str:
+    """``wakeledger-SLUG-2026-W47.csv``: the file name of a week's export in any format;
+    ``wakeledger-SLUG-2026-W47-summary.csv`` for the summary table."""
+    part = "" if table == "shots" else f"-{table}"
+    return f"wakeledger-{campaign_slug}-{week_label}{part}.{fmt}"
 
 
 # Key conditions and outputs whose min / median / max the summary reports; the
@@ -316,6 +318,12 @@ def load_week_shots(session: Session, campaign: Campaign, week: IsoWeek) -> Shot
     window = _week_window(campaign, week)
     chunks = export_store.iter_shot_rows(session, export_store.shot_rows_query(window, payloads=True))
     return ShotTable.from_chunks(chunks, export_store.fetch_flags(session, window))
+
+
+def week_shots(session: Session, campaign: Campaign, week: IsoWeek) -> ShotTable:
+    """The week's shots alone (what the shot CSV writes), read on one snapshot."""
+    with snapshot_read(session) as read, collector_paused():
+        return load_week_shots(read, campaign, week)
 
 
 @dataclass
