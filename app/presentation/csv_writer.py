@@ -12,7 +12,7 @@ summary over the API and the CLI, the planner's files):
 
 The bytes are those of the standard ``csv.writer`` (QUOTE_MINIMAL, ``\\r\\n``) over the same
 cells, written column by column: a float column given as a numpy array is formatted in one
-go (``number_texts``), and rows are joined at the end. ``tests/floor/test_csv_convention.py``
+go (``number_texts``), and rows are joined at the end. ``tests/summary/test_columns_written_at_once.py``
 holds the equality.
 """
 
@@ -30,6 +30,7 @@ LIST_SEPARATOR = ";"
 LINE_END = "\r\n"
 _FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
 _NEEDS_QUOTES = re.compile(r'[,"\r\n]')
+_MAY_RUN = re.compile("(?:^|\x00)[=+\\-@\t\r]")  # a cell of a NUL-joined column that may need defusing
 # Where orjson's shortest round-trip text and Python's repr agree on the notation (fixed
 # point, ".0" after a whole number); outside it repr writes an exponent (1e-05, 1e+16).
 _FIXED_LOW, _FIXED_HIGH = 1e-4, 1e16
@@ -94,7 +95,7 @@ def cell_texts(cells: list[Any] | np.ndarray, text: bool = False) -> list[str]:
             return _integer_texts(cells)
         cells = cells.tolist()
     texts = [c if type(c) is str else "" if c is None else str(c) for c in cells]
-    if text:
+    if text and _MAY_RUN.search("\x00".join(texts)):  # one search for the column: most have no such cell
         texts = [defuse(t) if isinstance(c, str) else t for c, t in zip(cells, texts, strict=True)]
     if _NEEDS_QUOTES.search("".join(texts)):  # one search for the column: most need no quotes
         texts = [quoted(t) for t in texts]

@@ -54,7 +54,7 @@ def flat_sections(sections: Mapping[str, Any]) -> dict[str, Any]:
     """Other sections as dotted-path cells, one level deep: {"daq": {"run": 7}} -> {"daq.run": 7}."""
     out: dict[str, Any] = {}
     for key, value in sections.items():
-        if isinstance(value, Mapping):
+        if isinstance(value, dict):  # sections come from JSON: a mapping is a dict
             for sub, cell in value.items():
                 out[f"{key}.{sub}"] = cell
         else:
@@ -283,6 +283,15 @@ def _input_csv_cells(table: ShotTable, path: str) -> list[Any] | np.ndarray:
     return table.inputs[path]
 
 
+_PLAIN_CELLS = frozenset((str, int, float, type(None)))
+
+
+def _extra_csv_cells(cells: list[Any]) -> list[Any]:
+    if {type(v) for v in cells} <= _PLAIN_CELLS:  # the usual column: nothing to convert
+        return cells
+    return [_extra_cell(v) for v in cells]
+
+
 def _extra_cell(value: Any) -> Any:
     if isinstance(value, (dict, list)):
         return _json_cell(value)
@@ -322,9 +331,7 @@ def csv_columns(
         CsvColumn("settings_version", list(table.settings_version)),
     ]
     columns += [CsvColumn(with_unit(name, unit_of(name)), table.outputs[name]) for name in EVALUATION_OUTPUT_COLUMNS]
-    columns += [
-        CsvColumn(name, [_extra_cell(v) for v in cells], text=True) for name, cells in table.extra_cells(extra).items()
-    ]
+    columns += [CsvColumn(name, _extra_csv_cells(cells), text=True) for name, cells in table.extra_cells(extra).items()]
     return columns
 
 

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import csv
 import io
+from datetime import UTC, datetime
 from zoneinfo import ZoneInfo
 
 import pytest
@@ -14,6 +15,7 @@ import pytest
 from app.cli import main
 from app.services.weekly.summary_rows import SUMMARY_COLUMNS
 from app.times import IsoWeek
+from tests.support.calibration_shots import shots_from_columns, synthetic_columns
 from tests.support.week_data import add_campaign, insert_shots, spread_over_week
 
 URL = "/api/v1/campaigns/test-campaign/summary"
@@ -88,6 +90,58 @@ def test_the_summary_csv_carries_the_density_scale_with_its_interval_and_each_sc
         assert f"model_check/scaling.{fit['diagnostic']}.exponent" in rows
     changes = [key for key in rows if key.startswith("model_check/change.") and key.endswith(".density_scale_after")]
     assert len(changes) == len(check["changes"])
+
+
+@pytest.fixture
+def calibrated_week(client, campaign, ingest_headers, reference_cases):
+    """300 shots in 2026-W47 whose density scale steps from 1.015 to 1.03 half-way."""
+    columns = synthetic_columns(reference_cases[0]["input"], 300, scale=1.015, scale_after=1.03, step_at=150, seed=4)
+    shots = shots_from_columns(columns, datetime(2026, 11, 17, 8, tzinfo=UTC), every_s=600)
+    answer = client.post(f"/api/v1/campaigns/{campaign}/shots/batch", json={"shots": shots}, headers=ingest_headers)
+    assert answer.status_code == 201, answer.text
+    return campaign
+
+
+def number(cell: str) -> float | None:
+    return float(cell) if cell else None
+
+
+def test_a_week_with_a_scale_step_gives_the_interval_the_change_and_the_exponents_in_the_summary_csv(
+    client, calibrated_week, viewer_headers
+):
+    get = {"week": "2026-W47", "format": "csv", "table": "summary"}
+    rows = rows_of(client.get(URL, params=get, headers=viewer_headers).text)
+    check = client.get(URL, params={"week": "2026-W47", "format": "json"}, headers=viewer_headers).json()["summary"][
+        "model_check"
+    ]
+    scale = rows["model_check/density_scale"]
+    assert number(scale["low"]) == check["density_scale"]["low"] < number(scale["value"])
+    assert number(scale["value"]) == check["density_scale"]["estimate"] < number(scale["high"])
+    assert number(scale["high"]) == check["density_scale"]["high"] and scale["shots"] == "300"
+    (change,) = check["changes"]
+    assert rows["model_check/change.1.shot_id"]["value"] == change["shot_id"]
+    assert rows["model_check/change.1.taken_at"]["value"] == change["taken_at"]
+    for side in ("before", "after"):
+        row = rows[f"model_check/change.1.density_scale_{side}"]
+        assert (number(row["value"]), number(row["low"]), number(row["high"])) == tuple(
+            change[side][k] for k in ("estimate", "low", "high")
+        )
+    assert number(rows["model_check/change.1.standard_errors"]["value"]) == change["standard_errors"]
+    for fit in check["scaling"]:
+        row = rows[f"model_check/scaling.{fit['diagnostic']}.exponent"]
+        assert (number(row["value"]), number(row["low"]), number(row["high"])) == (
+            fit["exponent"],
+            fit["exponent_low"],
+            fit["exponent_high"],
+        )
+        assert fit["proxy"] in row["note"]
+
+
+def test_an_empty_week_gives_a_summary_csv_with_zero_counts_and_empty_figures(client, campaign, viewer_headers):
+    get = {"week": "2026-W47", "format": "csv", "table": "summary"}
+    rows = rows_of(client.get(URL, params=get, headers=viewer_headers).text)
+    assert rows["counts/shots"]["value"] == "0"
+    assert rows["model_check/density_scale"]["value"] == "" and rows["ranges/plasma.density_cm3"]["value"] == ""
 
 
 def test_the_shot_csv_is_still_the_default_and_table_shots_is_the_same_file(client, ingested_week, viewer_headers):
@@ -184,6 +238,6 @@ def test_the_shot_csv_still_imports_unchanged_and_the_summary_csv_is_not_taken_f
     assert main(["--database-url", database_url, "import", "--campaign", "cli-copy", str(shots_csv)]) == 0
     assert "cli-copy: stored 300, unchanged 0, conflicts 0, failed 0 (of 300 rows)" in capsys.readouterr().out
     assert main(["--database-url", database_url, "import", "--campaign", "cli-copy", str(summary_csv)]) != 0
-    assert "no column gives shot_id" in capsys.readouterr().err
+    assert "summary table (one row per figure), not shots" in capsys.readouterr().err
     assert main(["--database-url", database_url, "import", "--campaign", "cli-copy", str(shots_csv)]) == 0
     assert "cli-copy: stored 0, unchanged 300, conflicts 0, failed 0" in capsys.readouterr().out
