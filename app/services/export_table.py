@@ -32,7 +32,7 @@ import model
 from app.plain import finite_or_none, float_list
 from app.presentation.csv_writer import CsvColumn, joined
 from app.presentation.fields import unit_of, with_unit
-from app.store.exports import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS, FlagColumns, FlagRow
+from app.store.exports import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS, FlagColumns, FlagRow, shared
 from app.times import format_utc, local_texts, utc_texts
 
 NOT_EVALUATED = "not_evaluated"
@@ -185,7 +185,8 @@ class ShotTable:
             for name in EVALUATION_OUTPUT_COLUMNS
             if name in columns
         }
-        status = np.array([s if s is not None else NOT_EVALUATED for s in columns["status"]], dtype=object).reshape(n)
+        status = np.array(shared([s if s is not None else NOT_EVALUATED for s in columns["status"]]), dtype=object)
+        status = status.reshape(n)
         shot_pk = np.array(columns["shot_pk"], dtype=np.int64).reshape(n)
         payloads = columns.get("raw_payload")
         return cls(
@@ -195,7 +196,7 @@ class ShotTable:
             revision=list(columns.get("revision", ())),
             notes=[text or "" for text in columns.get("notes", ())],
             tags=[list(t or []) for t in columns.get("tags", ())],
-            model_version=list(columns.get("model_version", ())),
+            model_version=shared(columns.get("model_version", ())),
             settings_version=list(columns.get("settings_version", ())),
             status=status,
             inputs=inputs,

@@ -29,6 +29,13 @@ SHOT_INPUT_COLUMNS: tuple[str, ...] = tuple(model.column_name(f.path) for f in m
 EVALUATION_OUTPUT_COLUMNS: tuple[str, ...] = model.OUTPUT_NAMES
 
 
+def shared(texts: Sequence[Any]) -> list[Any]:
+    """The values with one object per distinct value: the driver makes a new string per row, and a
+    week's flag codes, severities and statuses are a handful of values in tens of thousands of rows."""
+    seen: dict[Any, Any] = {}
+    return [seen.setdefault(t, t) for t in texts]
+
+
 class FlagRow(NamedTuple):
     """One flag (a tuple: the weekly summary holds tens of thousands)."""
 
@@ -169,8 +176,8 @@ class FlagColumns:
                  limit: Sequence[Any], message: Sequence[str]) -> FlagColumns:  # fmt: skip
         return cls(
             np.array(shot_pk, dtype=np.int64).reshape(-1),
-            list(code),
-            list(severity),
+            shared(code),
+            shared(severity),
             np.array(value, dtype=float).reshape(-1),  # None reads as NaN
             np.array(limit, dtype=float).reshape(-1),
             list(message),

@@ -16,6 +16,7 @@ from collections.abc import Iterable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -149,7 +150,6 @@ class WeeklySummary:
     status_counts: dict[str, int]
     flag_counts: dict[str, dict[str, int]]
     ranges: list[QuantityRange]
-    flagged_shots: list[FlaggedShot]
     phase_stability: PhaseStability
     density_calibration: DensityCalibration
     previous: WeekComparison
@@ -163,6 +163,13 @@ class WeeklySummary:
     @property
     def is_empty(self) -> bool:
         return self.shot_count == 0
+
+    @cached_property
+    def flagged_shots(self) -> list[FlaggedShot]:
+        """The outside, then the marginal shots with their reasons (made when a file lists them:
+        the JSON and HTML do, the Parquet and the CSV files do not)."""
+        with collector_paused():
+            return flagged_shots(self.shots)
 
 
 @contextmanager
@@ -344,7 +351,7 @@ def _previous_week(session: Session, campaign: Campaign, week: IsoWeek, current:
         output_columns=list(KEY_OUTPUTS),
         details=False,
     )
-    shots = ShotTable.from_columns(export_store.fetch_shot_rows(session, stmt))
+    shots = ShotTable.from_chunks(export_store.iter_shot_rows(session, stmt))
     counts = status_counts(shots.status)
     flags = _shot_count_per_code(flag_counts(export_store.count_flags(session, window)))
     medians = {k: _median(shots.values(k)) for k in keys}
@@ -397,7 +404,6 @@ def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, n
         status_counts=figures.status_counts,
         flag_counts=figures.flag_counts,
         ranges=figures.ranges,
-        flagged_shots=flagged_shots(shots),
         phase_stability=phase_stability(shots, campaign.model_settings or {}),
         density_calibration=density_calibration(shots),
         previous=_previous_week(session, campaign, week, figures),
