@@ -202,9 +202,12 @@ class FlagColumns:
 
 
 def fetch_flags(session: Session, conditions: Sequence[ColumnElement[bool]]) -> FlagColumns:
-    """Every flag of the current evaluations of the shots matching ``conditions``, by shot then rule order."""
+    """Every flag of the current evaluations of the shots matching ``conditions``, by shot (in taken_at
+    order) then rule order."""
     columns: list[Any] = [Flag.shot_pk, Flag.code, Flag.severity, Flag.value, Flag.limit.label("limit"), Flag.message]
-    stmt = select(*columns).join(Shot, Shot.id == Flag.shot_pk).where(*conditions).order_by(Flag.shot_pk, Flag.id)
+    # In the shots' own order (their index) then rule order: the flags need no sort of their own.
+    order = (Shot.taken_at, Shot.id, Flag.id)
+    stmt = select(*columns).join(Shot, Shot.id == Flag.shot_pk).where(*conditions).order_by(*order)
     parts = [
         FlagColumns.of_lists(c["shot_pk"], c["code"], c["severity"], c["value"], c["limit"], c["message"])
         for c in iter_shot_rows(session, stmt, chunk=10_000)
