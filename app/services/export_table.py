@@ -23,16 +23,17 @@ import json
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
+from functools import cached_property
 from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
 
 import model
-from app.plain import finite_or_none, float_list
+from app.plain import float_list
 from app.presentation.csv_writer import CsvColumn, joined
 from app.presentation.fields import unit_of, with_unit
-from app.store.exports import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS, FlagColumns, FlagRow, shared
+from app.store.exports import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS, FlagColumns, shared
 from app.times import format_utc, local_texts, utc_texts
 
 NOT_EVALUATED = "not_evaluated"
@@ -98,16 +99,6 @@ class ShotFlags:
     def __len__(self) -> int:
         return len(self.start) - 1
 
-    def __getitem__(self, i: int) -> list[FlagRow]:
-        """Shot ``i``'s flags."""
-        c, a, b = self.columns, int(self.start[i]), int(self.start[i + 1])
-        return [
-            FlagRow(pk, c.code[j], c.severity[j], value, limit, c.message[j])
-            for j, pk, value, limit in zip(
-                range(a, b), c.shot_pk[a:b].tolist(), float_list(c.value[a:b]), float_list(c.limit[a:b]), strict=True
-            )
-        ]
-
     def row_of_flag(self) -> np.ndarray:
         """The table row of every flag."""
         return np.repeat(np.arange(len(self)), np.diff(self.start))
@@ -123,8 +114,11 @@ class ShotFlags:
         bounds = self.start.tolist()
         return [joined(pairs[a:b]) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
 
+    @cached_property
     def dicts(self) -> list[list[dict[str, Any]]]:
-        """Each shot's flags as the API writes them (``flag_dict``)."""
+        """Each shot's flags as the API writes them (code, severity, value, limit, message; NaN and
+        infinity as null); made once (the JSON file writes
+        them with each shot, and the flagged shots' reasons again in its summary)."""
         c = self.columns
         every = [
             {"code": code, "severity": severity, "value": value, "limit": limit, "message": message}
@@ -257,16 +251,6 @@ class ShotTable:
         return {name: [row.get(name) for row in flat] for name in names}
 
 
-def flag_dict(f: FlagRow) -> dict[str, Any]:
-    return {
-        "code": f.code,
-        "severity": f.severity,
-        "value": finite_or_none(f.value),
-        "limit": finite_or_none(f.limit),
-        "message": f.message,
-    }
-
-
 def _input_cells(table: ShotTable, path: str) -> list[Any]:
     values = table.inputs[path]
     if path in TEXT_INPUTS:
@@ -353,7 +337,7 @@ def records(table: ShotTable) -> Iterator[dict[str, Any]]:
     output_names = list(EVALUATION_OUTPUT_COLUMNS)
     output_rows = list(zip(*(float_list(table.outputs[name]) for name in output_names), strict=True)) or [()] * n
     status = table.status.tolist()
-    flags = table.flags.dicts()
+    flags = table.flags.dicts
     taken_at = utc_texts(table.taken_at)
     for i in range(n):
         record: dict[str, Any] = {
@@ -424,7 +408,7 @@ def arrow_table(table: ShotTable, metadata: Mapping[str, str]) -> Any:
         [
             pa.array(c.code, type=pa.string()),
             pa.array(c.severity, type=pa.string()),
-            # NaN and infinity are null, as in flag_dict
+            # NaN and infinity are null, as in ShotFlags.dicts
             pa.array(np.where(np.isfinite(c.value), c.value, np.nan), type=pa.float64(), from_pandas=True),
             pa.array(np.where(np.isfinite(c.limit), c.limit, np.nan), type=pa.float64(), from_pandas=True),
             pa.array(c.message, type=pa.string()),

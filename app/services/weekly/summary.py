@@ -279,9 +279,14 @@ def _flag_counts_of(shots: ShotTable) -> dict[str, dict[str, int]]:
 REASON_SEVERITIES = ("outside", "marginal")
 
 
+def flagged_rows(shots: ShotTable) -> list[tuple[int, str]]:
+    """(row, status) of the outside shots, then of the marginal ones, each in taken_at order."""
+    return [(i, wanted) for wanted in REASON_SEVERITIES for i in np.flatnonzero(shots.status == wanted).tolist()]
+
+
 def flagged_shots(shots: ShotTable) -> list[FlaggedShot]:
-    """Outside shots first, then marginal ones, each in taken_at order, with the flags
-    that are reasons for the status (info flags never are)."""
+    """The shots of ``flagged_rows`` with the flags that are reasons for their status (info flags
+    never are)."""
     flags = shots.flags.columns
     reason = np.flatnonzero([severity in REASON_SEVERITIES for severity in flags.severity])
     picks = reason.tolist()
@@ -297,11 +302,10 @@ def flagged_shots(shots: ShotTable) -> list[FlaggedShot]:
         )
     )
     bounds = np.searchsorted(shots.flags.row_of_flag()[reason], np.arange(len(shots) + 1)).tolist()
-    result: list[FlaggedShot] = []
-    for wanted in REASON_SEVERITIES:
-        for i in np.flatnonzero(shots.status == wanted).tolist():
-            result.append(FlaggedShot(shots.shot_id[i], shots.taken_at[i], wanted, reasons[bounds[i] : bounds[i + 1]]))
-    return result
+    return [
+        FlaggedShot(shots.shot_id[i], shots.taken_at[i], status, reasons[bounds[i] : bounds[i + 1]])
+        for i, status in flagged_rows(shots)
+    ]
 
 
 def _shot_count_per_code(counts: Mapping[str, Mapping[str, int]]) -> dict[str, int]:

@@ -24,9 +24,9 @@ import orjson
 from app.advisory import ADVISORY_CAUTION
 from app.plain import plain
 from app.presentation.csv_writer import write_csv
-from app.services.export_table import ShotTable, arrow_table, csv_columns, flag_dict, records, units_document
+from app.services.export_table import ShotTable, arrow_table, csv_columns, records, units_document
 from app.services.weekly.report import render_html
-from app.services.weekly.summary import WeeklySummary, collector_paused
+from app.services.weekly.summary import REASON_SEVERITIES, WeeklySummary, collector_paused, flagged_rows
 from app.services.weekly.summary_rows import summary_csv_columns
 from app.times import campaign_zone, iso_text, utc_texts
 
@@ -101,11 +101,20 @@ def summary_document(summary: WeeklySummary, *, flagged_shots: bool = True) -> d
     )
     if not flagged_shots:
         return document
-    # Built directly: thousands of entries, already plain values.
-    flagged = summary.flagged_shots
+    # Built from the table (summary.flagged_shots, row by row): thousands of entries, whose reasons are
+    # the flag objects the shots' own records carry.
+    shots = summary.shots
+    rows = flagged_rows(shots)
+    flags = shots.flags.dicts
+    taken_at = utc_texts([shots.taken_at[i] for i, _ in rows])
     document["flagged_shots"] = [
-        {"shot_id": s.shot_id, "taken_at": taken_at, "status": s.status, "reasons": [flag_dict(f) for f in s.reasons]}
-        for s, taken_at in zip(flagged, utc_texts([s.taken_at for s in flagged]), strict=True)
+        {
+            "shot_id": shots.shot_id[i],
+            "taken_at": at,
+            "status": status,
+            "reasons": [f for f in flags[i] if f["severity"] in REASON_SEVERITIES],
+        }
+        for (i, status), at in zip(rows, taken_at, strict=True)
     ]
     return document
 
