@@ -28,7 +28,10 @@ EXCLUDED_MODES: tuple[str, ...] = ("omit", "include", "only")
 def excluded_shot_pks(campaign_id: int | None = None) -> Select[Any]:
     """Keys of the excluded shots (of one campaign, or of all)."""
     stmt = select(Shot.id).where(Shot.excluded_at.is_not(None))
-    return stmt if campaign_id is None else stmt.where(Shot.campaign_id == campaign_id)
+    # campaign_id + 0: no index serves the campaign term, so SQLite reads the partial index of
+    # excluded shots (a handful) instead of every shot of the campaign (12 ms at 20,000 shots, in
+    # every statement that filters; PostgreSQL plans it by its statistics either way).
+    return stmt if campaign_id is None else stmt.where(Shot.campaign_id + 0 == campaign_id)
 
 
 def counted(
