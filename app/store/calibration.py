@@ -17,8 +17,22 @@ from datetime import datetime
 from typing import Any
 
 import numpy as np
-from sqlalchemy import ColumnElement, CursorResult, Float, Text, and_, case, cast, func, literal, select, type_coerce
-from sqlalchemy.dialects.postgresql import ARRAY
+from sqlalchemy import (
+    JSON,
+    ColumnElement,
+    CursorResult,
+    Float,
+    Text,
+    and_,
+    case,
+    cast,
+    column,
+    func,
+    literal,
+    select,
+    true,
+    type_coerce,
+)
 from sqlalchemy.orm import Session
 
 import model
@@ -81,13 +95,34 @@ def _seconds(dialect: str) -> ColumnElement[Any]:
     return type_coerce(Shot.taken_at, Text)
 
 
-def _run_tags(dialect: str, paths: Sequence[str]) -> ColumnElement[Any]:
-    """One JSON array per shot of the raw payload's values at the dotted ``paths`` (null where absent),
-    built in SQL, so that only the few distinct arrays are ever decoded."""
-    if dialect == "postgresql":
-        values = [Shot.raw_payload.op("#>")(literal(p.split("."), ARRAY(Text))) for p in paths]
-        return cast(func.json_build_array(*values), Text)
-    return type_coerce(func.json_extract(Shot.raw_payload, *(literal("$." + p, Text) for p in paths)), Text)
+def _run_tags(dialect: str, paths: Sequence[str]) -> tuple[ColumnElement[Any], list[Any]]:
+    """One JSON array per shot of the raw payload's values at the dotted ``paths`` (one or two levels;
+    null where absent), built in SQL so that only the few distinct arrays are ever decoded, and the
+    lateral joins it needs. PostgreSQL parses a ``json`` value again for every ``#>``, so there the
+    payload is parsed once by ``json_to_record`` (and each section, when it is an object, once more)."""
+    if dialect != "postgresql":
+        return type_coerce(func.json_extract(Shot.raw_payload, *(literal("$." + p, Text) for p in paths)), Text), []
+    tops = list(dict.fromkeys(p.split(".")[0] for p in paths))
+    top = (
+        func.json_to_record(Shot.raw_payload)
+        .table_valued(*(column(key, JSON) for key in tops))
+        .render_derived("run_tag", with_types=True)
+        .lateral()
+    )
+    joins: list[Any] = [top]
+    sections: dict[str, Any] = {}
+    for section in dict.fromkeys(p.split(".")[0] for p in paths if "." in p):
+        keys = [p.split(".", 1)[1] for p in paths if p.startswith(section + ".")]
+        value = top.c[section]
+        sections[section] = (
+            func.json_to_record(case((func.json_typeof(value) == "object", value)))
+            .table_valued(*(column(key, JSON) for key in keys))
+            .render_derived(f"run_tag_{section}", with_types=True)
+            .lateral()
+        )
+        joins.append(sections[section])
+    values = [sections[p.split(".")[0]].c[p.split(".", 1)[1]] if "." in p else top.c[p] for p in paths]
+    return cast(func.json_build_array(*values), Text), joins
 
 
 def _current(settings_version: int, model_version: str) -> ColumnElement[Any]:
@@ -133,19 +168,13 @@ def read_shots(
     dialect = conn.dialect.name
     numbers = [*(Shot.__table__.c[model.column_name(p)] for p in inputs)]
     numbers += [Evaluation.__table__.c[name] for name in CALIBRATION_OUTPUTS]
-    stmt = (
-        select(
-            Shot.id,
-            Shot.shot_id,
-            _seconds(dialect),
-            _current(settings_version, model_version),
-            _run_tags(dialect, run_tag_paths),
-            *numbers,
-        )
-        .join(Evaluation, Evaluation.shot_pk == Shot.id)
-        .where(*_window(campaign_id, start_utc, end_utc))
-        .order_by(Shot.taken_at, Shot.id)
-    )
+    run_tags, joins = _run_tags(dialect, run_tag_paths)
+    stmt = select(
+        Shot.id, Shot.shot_id, _seconds(dialect), _current(settings_version, model_version), run_tags, *numbers
+    ).join(Evaluation, Evaluation.shot_pk == Shot.id)
+    for lateral in joins:
+        stmt = stmt.outerjoin(lateral, true())
+    stmt = stmt.where(*_window(campaign_id, start_utc, end_utc)).order_by(Shot.taken_at, Shot.id)
     parts = _chunks(conn.execute(stmt), on_rows)
     rows = np.concatenate(parts) if parts else np.empty((0, 5 + len(numbers)), dtype=object)
     block = _float_columns(rows[:, 5:])
