@@ -68,9 +68,9 @@ def test_the_page_draws_its_charts_opens_an_odd_shot_and_applies_the_scale_after
     page.wait_for_url(f"{base}{path}", timeout=120000)
     _wait_until(page, "() => document.body.dataset.chartsDrawn === '6'")
     assert page.locator("#calib-changes tbody tr").count() == 1
-    runs = page.evaluate("() => document.getElementById('chart-calib-series').data[1]")
+    runs = page.evaluate("() => document.getElementById('chart-calib-series').data[0]")
     assert runs["name"].startswith("per run, by daq.run") and len(runs["x"]) == 8
-    assert page.locator("#chart-calib-series .scatterlayer .trace").nth(1).locator("path.point").count() == 8
+    assert page.locator("#chart-calib-series .scatterlayer .trace").nth(0).locator("path.point").count() == 8
     assert page.locator("nav a[aria-current=page]").inner_text() == "Calibration"
     page.screenshot(path=str(artifacts / "calibration-page.png"), full_page=True)
 
@@ -115,14 +115,18 @@ def test_the_page_draws_its_charts_opens_an_odd_shot_and_applies_the_scale_after
 # Every axis title's box (the text as laid out, before the chart's clipping) against its chart's box.
 TITLES_OUTSIDE = """() => {
   const found = [], outside = [];
+  const titles = 'g[class^="g-x"][class$="title"] text, g[class^="g-y"][class$="title"] text';
   for (const div of document.querySelectorAll('div.chart')) {
     const box = div.getBoundingClientRect();
-    for (const t of div.querySelectorAll('g[class^="g-x"][class$="title"] text, g[class^="g-y"][class$="title"] text')) {
+    for (const t of div.querySelectorAll(titles)) {
       if (!t.textContent) continue;
       const r = t.getBoundingClientRect();
       found.push(div.id);
-      if (r.left < box.left - 0.5 || r.right > box.right + 0.5 || r.top < box.top - 0.5 || r.bottom > box.bottom + 0.5) {
-        outside.push(`${div.id}: ${t.textContent} (${Math.round(r.left - box.left)}..${Math.round(r.right - box.left)} of ${Math.round(box.width)})`);
+      const inside = r.left >= box.left - 0.5 && r.right <= box.right + 0.5
+        && r.top >= box.top - 0.5 && r.bottom <= box.bottom + 0.5;
+      if (!inside) {
+        const left = Math.round(r.left - box.left), right = Math.round(r.right - box.left);
+        outside.push(`${div.id}: ${t.textContent} (${left}..${right} of ${Math.round(box.width)})`);
       }
     }
   }

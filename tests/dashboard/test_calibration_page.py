@@ -61,7 +61,7 @@ def test_the_scale_series_draws_the_runs_beside_the_days_where_the_shots_carry_r
         shot["daq"] = {"run": f"<r{i // 30}>"}
     text = _page(client, campaign, ingest_headers, admin_token, shots)
     series = _figures(text)["chart-calib-series"]
-    days, runs = series["data"][0], series["data"][1]
+    runs, days = series["data"][0], series["data"][1]  # the runs are drawn first, under the days
     assert days["name"] == "per day (95 % interval)" and days["x"] == ["2026-11-16 12:00:00"]
     assert runs["name"] == "per run, by daq.run (95 % interval); 2 of 3 runs drawn, evenly in time"
     assert runs["hovertext"][0].startswith("run &lt;r0&gt;: ")  # run labels are escaped for Plotly

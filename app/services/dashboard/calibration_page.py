@@ -83,8 +83,9 @@ def _moment_utc(text: str) -> datetime:
 
 def _series_figure(result: Calibration, ans: dict[str, Any]) -> dict[str, Any]:
     """The scale per day (at the day's noon) and, where the shots carry run tags, per run (at the middle
-    of the run), on one time axis of the campaign's zone; the period's estimate, the applied scale and
-    the changes found. Runs beyond SCATTER_POINTS are thinned evenly in time (the answer keeps them all)."""
+    of the run, drawn first so that the days lie on top), on one time axis of the campaign's zone; the
+    period's estimate, the applied scale and the changes found. Runs beyond SCATTER_POINTS are thinned
+    evenly in time (the answer keeps them all)."""
     zone = campaign_zone(result.campaign.timezone)
     days = ans["series"]
     data: list[dict[str, Any]] = [
@@ -92,10 +93,11 @@ def _series_figure(result: Calibration, ans: dict[str, Any]) -> dict[str, Any]:
             "type": "scatter",
             "mode": "markers",
             "name": "per day (95 % interval)",
+            "legendrank": 1,  # listed first, drawn over the runs (which come first in data)
             "x": [f"{d['day']} 12:00:00" for d in days],
             "y": rounded_list([d["estimate"] for d in days]),
             "error_y": _error_bars(days),
-            "marker": {"color": SERIES, "size": 8},
+            "marker": {"color": SERIES, "size": 9, "line": {"color": "#ffffff", "width": 1}},
             "hovertext": [f"{d['day']}: {_interval_text(d)} ({d['shots']} shots)" for d in days],
             "hoverinfo": "text",
         }
@@ -109,11 +111,13 @@ def _series_figure(result: Calibration, ans: dict[str, Any]) -> dict[str, Any]:
             name += f"; {format_number(len(runs))} of {format_number(len(every_run))} runs drawn, evenly in time"
         points = [result.run_series[i] for i in pick]
         middle = [calibration.instant((result.taken_at[p.first] + result.taken_at[p.last]) / 2) for p in points]
-        data.append(
+        data.insert(
+            0,
             {
                 "type": "scatter",
                 "mode": "markers",
                 "name": name,
+                "legendrank": 2,
                 "x": [chart_time(m, zone) for m in middle],
                 "y": rounded_list([r["estimate"] for r in runs]),
                 "error_y": {**_error_bars(runs), "color": _RUN, "thickness": 1},
@@ -125,7 +129,7 @@ def _series_figure(result: Calibration, ans: dict[str, Any]) -> dict[str, Any]:
                     for r in runs
                 ],
                 "hoverinfo": "text",
-            }
+            },
         )
     ends = [chart_time(calibration.instant(result.taken_at[i]), zone) for i in (0, -1)] if result.shots else []
     scale = ans["density_scale"]
@@ -239,8 +243,8 @@ def _scaling_panel(i: int, check: calibration.ScalingCheck, entry: dict[str, Any
         ),
         ("prefactor a", _n(fit.prefactor, 3)),
         ("Spearman ρ", _n(fit.spearman, 3)),
-        (check.points, f"{fit.shots} (fit on {fit.fitted_shots})"),
-        ("not explained", str(int(outliers.size))),
+        (check.points, f"{format_number(fit.shots)} (fit on {format_number(fit.fitted_shots)})"),
+        ("not explained", format_number(int(outliers.size))),
     ]
     figure = {
         "data": data,
@@ -319,9 +323,9 @@ def calibration_page(session: Session, slug: str, start: datetime | None, end: d
     scale = ans["density_scale"]
     mismatch = ans["frequency_mismatch_pct"]
     facts = [
-        ("density scale", f"{_interval_text(scale)} ({scale['shots']} shots with a measured frequency)"),
+        ("density scale", f"{_interval_text(scale)} ({format_number(scale['shots'])} shots with a measured frequency)"),
         ("applied now", _n(ans["applied_density_scale"])),
-        ("frequency mismatch now", f"{_interval_text(mismatch, 3)} % ({mismatch['shots']} shots)"),
+        ("frequency mismatch now", f"{_interval_text(mismatch, 3)} % ({format_number(mismatch['shots'])} shots)"),
         ("series", _series_fact(ans)),
         ("changes found", str(len(ans["changes"]))),
     ]
