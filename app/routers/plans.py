@@ -43,7 +43,8 @@ def plan_scan(request: ScanIn, session: DB, _who: ViewerQuestion) -> Response:
     """Evaluate the base over a grid of one or two input fields (every point the base with those values)."""
     base = answers.resolve_base(session, request.base, request.campaign)
     axes = [a.model_dump() for a in request.axes]
-    return json_pieces_response(answers.scan_answer(base, answers.scan(base, axes, request.outputs)))
+    result = answers.scan(base, axes, request.outputs)
+    return json_pieces_response(answers.scan_answer(base, result, request.output_encoding))
 
 
 @router.post("/window", response_model=WindowsOut, responses=PROBLEMS)

@@ -7,6 +7,7 @@ settings used, the errors and the roles."""
 
 from __future__ import annotations
 
+import base64
 import json
 import math
 
@@ -122,6 +123,32 @@ def test_a_large_scan_is_sent_as_it_is_written_and_is_byte_for_byte_the_answer_b
     provenance = {"base": {"campaign": None, "shot_id": None, "revision": None}}
     provenance |= {"model_version": model.MODEL_VERSION, "settings_version": None}
     assert body == _answer_built_whole(result, provenance)
+
+
+def test_a_scan_asked_for_float64_base64_carries_each_output_as_its_exact_float64_values(client, viewer_headers, cold):
+    # The opt-in compact encoding: the same answer, each output the base64 text of its little-endian float64
+    # values (NaN where the default answer has null), and the answer says which encoding it used.
+    axes = [
+        {"field": "plasma.density_cm3", "start": 1e14, "stop": 3e15, "steps": 7, "spacing": "log"},
+        {"field": "plasma.length_m", "start": 0.5, "stop": 10.0, "steps": 5},
+    ]
+    plain = client.post(SCAN, json={"base": cold, "axes": axes}, headers=viewer_headers).json()
+    body = {"base": cold, "axes": axes, "output_encoding": "float64_base64"}
+    compact = client.post(SCAN, json=body, headers=viewer_headers).json()
+    assert compact.pop("output_encoding") == "float64_base64" and "output_encoding" not in plain
+    assert compact.keys() == plain.keys() and compact["outputs"].keys() == plain["outputs"].keys()
+    for name, text in compact["outputs"].items():
+        values = np.frombuffer(base64.b64decode(text), dtype="<f8")
+        expected = np.array([np.nan if v is None else v for v in plain["outputs"][name]])
+        assert np.array_equal(values, expected, equal_nan=True), name
+    assert np.isnan(np.frombuffer(base64.b64decode(compact["outputs"]["waist_beta_m"]), dtype="<f8")).all()
+    assert {k: v for k, v in compact.items() if k != "outputs"} == {k: v for k, v in plain.items() if k != "outputs"}
+
+
+def test_an_unknown_output_encoding_is_a_422_naming_it(client, viewer_headers, cold):
+    axes = [{"field": "plasma.length_m", "start": 1, "stop": 2, "steps": 3}]
+    response = client.post(SCAN, json={"base": cold, "axes": axes, "output_encoding": "hex"}, headers=viewer_headers)
+    assert response.status_code == 422 and "output_encoding" in _fields(response)
 
 
 @pytest.mark.parametrize(

@@ -17,11 +17,12 @@ becomes ``InvalidInput`` with the model's (path, reason) problems: ``base.plasma
 
 from __future__ import annotations
 
+import base64
 import re
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 from sqlalchemy.orm import Session
@@ -177,12 +178,18 @@ def fired_flag_sets(flags: Mapping[str, np.ndarray]) -> tuple[np.ndarray, list[t
     return index.reshape(-1), sets
 
 
-def scan_answer(base: ResolvedBase, result: plan.Scan) -> Iterator[bytes]:
+OutputEncoding = Literal["json", "float64_base64"]
+
+
+def scan_answer(base: ResolvedBase, result: plan.Scan, output_encoding: OutputEncoding = "json") -> Iterator[bytes]:
     """``POST /plans/scan``'s JSON in pieces, flat row-major arrays (the first axis varies slowest).
 
     One piece per output, written by orjson straight from its float64 array (NaN as null), one per
     rule; statuses and severities written from their ranks (``coded_array_json``). Joined, the pieces
-    are ``json_bytes`` of the answer as a plain dict, byte for byte."""
+    are ``json_bytes`` of the answer as a plain dict, byte for byte. ``output_encoding`` "float64_base64"
+    (asked for, never the default): each output is instead the base64 text of its little-endian float64
+    values (NaN where the model has none), a third of the time to write and half the bytes, and the
+    answer says so (``"output_encoding"``)."""
     axes = [{"field": a.field, "unit": a.unit, "values": a.values} for a in result.axes]
     yield (
         b'{"axes":'
@@ -195,12 +202,16 @@ def scan_answer(base: ResolvedBase, result: plan.Scan) -> Iterator[bytes]:
     )
     for i, (name, values) in enumerate(result.outputs.items()):
         yield (b"," if i else b"") + json_bytes(name) + b":"  # apart: joining would copy the array's text
-        yield json_bytes(values)
+        if output_encoding == "json":
+            yield json_bytes(values)
+        else:
+            yield b'"' + base64.b64encode(np.ascontiguousarray(values, dtype="<f8").tobytes()) + b'"'
     yield b'},"flags":{'
     for i, (code, ranks) in enumerate(result.flags.items()):
         yield (b"," if i else b"") + json_bytes(code) + b":"
         yield coded_array_json(ranks, _SEVERITY_NAMES)
-    yield b"}," + json_bytes(base.provenance())[1:]
+    encoding = b"" if output_encoding == "json" else b'"output_encoding":' + json_bytes(output_encoding) + b","
+    yield b"}," + encoding + json_bytes(base.provenance())[1:]
 
 
 # ---------------------------------------------------------------------------------------------- windows
