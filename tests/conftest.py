@@ -37,11 +37,13 @@ Shots
 
 from __future__ import annotations
 
+import contextlib
 import copy
 import json
 import os
 import shutil
 import socket
+import sqlite3
 import tempfile
 import threading
 import time
@@ -134,7 +136,7 @@ def _pg_scratch_url() -> Iterator[str]:
 
 
 @pytest.fixture(scope="session")
-def _pg_emptier(_pg_scratch_url: str) -> Iterator[Callable[[], None]]:
+def _pg_emptier(_pg_scratch_url: str) -> Iterator[Callable[..., None]]:
     """Empties the scratch database before each test, over one connection kept for the session."""
     from app.tables import Base
 
@@ -142,9 +144,10 @@ def _pg_emptier(_pg_scratch_url: str) -> Iterator[Callable[[], None]]:
     statements = "; ".join(f'DELETE FROM "{t.name}"' for t in reversed(Base.metadata.sorted_tables))
     engine = create_engine(_pg_scratch_url, pool_size=1, pool_pre_ping=True)
 
-    def empty() -> None:
+    def empty(then: str = "") -> None:
+        """Empty every table, then run ``then`` (SQL) in the same transaction."""
         with engine.begin() as conn:
-            conn.exec_driver_sql(statements)
+            conn.exec_driver_sql(f"{statements}; {then}" if then else statements)
 
     try:
         yield empty
@@ -207,6 +210,87 @@ def database_url(backend: str, request: pytest.FixtureRequest) -> Iterator[str]:
         return
     request.getfixturevalue("_pg_emptier")()
     yield request.getfixturevalue("_pg_scratch_url")
+
+
+@pytest.fixture(scope="session")
+def _filled_once() -> dict[str, Any]:
+    """What ``filled_database_url`` has filled this session: SQLite file or PostgreSQL schema by name."""
+    return {}
+
+
+def _pg_stash(url: str, schema: str) -> None:
+    """Keep a copy of every table of the scratch database in ``schema`` (same columns, same order)."""
+    from app.tables import Base
+
+    engine = create_engine(url)
+    try:
+        with engine.begin() as conn:
+            conn.exec_driver_sql(f'CREATE SCHEMA "{schema}"')
+            for table in Base.metadata.sorted_tables:
+                conn.exec_driver_sql(f'CREATE TABLE "{schema}"."{table.name}" AS TABLE public."{table.name}"')
+    finally:
+        engine.dispose()
+
+
+def _pg_restore_statements(schema: str) -> str:
+    """Copy the stash back, parents first, and move each id sequence past the copied ids."""
+    from app.tables import Base
+
+    statements = []
+    for table in Base.metadata.sorted_tables:
+        statements.append(
+            f'INSERT INTO public."{table.name}" OVERRIDING SYSTEM VALUE SELECT * FROM "{schema}"."{table.name}"'
+        )
+        for column in table.primary_key.columns:
+            if column.type.python_type is int and len(table.primary_key.columns) == 1:
+                statements.append(
+                    f"SELECT setval(seq, top) FROM (SELECT pg_get_serial_sequence('public.\"{table.name}\"',"
+                    f' \'{column.name}\') AS seq, (SELECT max("{column.name}") FROM public."{table.name}") AS top)'
+                    " AS q WHERE seq IS NOT NULL AND top IS NOT NULL"
+                )
+    return "; ".join(statements)
+
+
+@pytest.fixture
+def filled_database_url(backend: str, request: pytest.FixtureRequest) -> Iterator[Callable[..., str]]:
+    """``filled_database_url(name, fill)``: a fresh database holding what ``fill(url)`` stores in
+    an empty migrated one. ``fill`` runs once per session and name; each test gets its own copy
+    (SQLite: a copy of the filled file; PostgreSQL: the emptied scratch database, refilled from a
+    schema that keeps the rows), so a test may write to it like to ``database_url``. ``fill``
+    must be deterministic, and the same for every caller of the name."""
+    done: dict[str, Any] = request.getfixturevalue("_filled_once")
+    copies: list[Iterator[str]] = []
+
+    def filled(name: str, fill: Callable[[str], None]) -> str:
+        key = f"{backend}:{name}"
+        if backend == "sqlite":
+            directory = request.getfixturevalue("_sqlite_dir")
+            if key not in done:
+                path = directory / f"filled-{name}.db"
+                shutil.copyfile(request.getfixturevalue("_sqlite_template"), path)
+                fill(f"sqlite:///{path}")
+                with contextlib.closing(sqlite3.connect(path)) as conn:  # fold the WAL into the file copied
+                    conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+                done[key] = path
+            copy_ = sqlite_scratch_copy(done[key], directory)
+            copies.append(copy_)
+            return next(copy_)
+        url = request.getfixturevalue("_pg_scratch_url")
+        empty = request.getfixturevalue("_pg_emptier")
+        if key not in done:
+            empty()
+            fill(url)
+            schema = f"filled_{uuid.uuid4().hex[:8]}"
+            _pg_stash(url, schema)
+            done[key] = _pg_restore_statements(schema)
+        empty(then=done[key])
+        return url
+
+    try:
+        yield filled
+    finally:
+        for copy_ in copies:
+            copy_.close()  # removes the copy
 
 
 @pytest.fixture
