@@ -528,7 +528,7 @@ class TextProgressBar:
 
 
 def _export_args(p: argparse.ArgumentParser) -> None:
-    from app.services.weekly.table import EXPORT_FORMATS
+    from app.services.weekly.table import EXPORT_FORMATS, EXPORT_TABLES
 
     p.add_argument("--campaign", required=True, metavar="SLUG")
     p.add_argument(
@@ -538,10 +538,18 @@ def _export_args(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument("--format", choices=EXPORT_FORMATS, help="default: from the --out file extension")
     p.add_argument(
+        "--table",
+        choices=EXPORT_TABLES,
+        default="shots",
+        help="what a CSV holds: shots (one row per shot, the default) or summary (one row per figure of the week: "
+        "counts, ranges, phase stability, density scale with its interval, changes, scaling exponents)",
+    )
+    p.add_argument(
         "--out",
         metavar="PATH",
         help="file to write, or a directory for the default name "
-        "wakeledger-SLUG-WEEK.FORMAT (default: that name in the current directory)",
+        "wakeledger-SLUG-WEEK.FORMAT (wakeledger-SLUG-WEEK-summary.csv for --table summary; "
+        "default: that name in the current directory)",
     )
 
 
@@ -551,47 +559,47 @@ def export(args: argparse.Namespace, settings: Settings) -> int:
 
     from app.database import make_engine, make_session_factory
     from app.errors import NotFound
-    from app.services.weekly.exports import campaign_week_summary, week_problems
-    from app.services.weekly.summary import export_file_name
-    from app.services.weekly.table import EXPORT_FORMATS, write_export_file
+    from app.services.weekly.exports import week_file, week_problems
+    from app.services.weekly.table import EXPORT_FORMATS
 
     def fail(message: str, code: int = 2) -> int:
         print(f"wakeledger export: error: {message}", file=sys.stderr)
         return code
 
-    week, problems = week_problems(args.week, None)
-    if problems:
-        return fail(problems[0][1])
     out = Path(args.out) if args.out else None
     fmt = args.format
     if fmt is None:
         suffix = out.suffix.lower().lstrip(".") if out is not None and not out.is_dir() else ""
+        if suffix not in EXPORT_FORMATS and args.table == "summary":
+            suffix = "csv"  # the summary table has one format
         if suffix not in EXPORT_FORMATS:
             return fail(f"give --format ({', '.join(EXPORT_FORMATS)}) or an --out file with one of those extensions")
         fmt = suffix
+    week, problems = week_problems(args.week, fmt, args.table)
+    if problems:
+        return fail(problems[0][1])
     engine = make_engine(settings.database_url)
     try:
         with make_session_factory(engine)() as session:
             try:
-                summary = campaign_week_summary(session, args.campaign, week)
+                ready = week_file(session, args.campaign, week, fmt, args.table)
             except NotFound as exc:
                 return fail(exc.detail, 1)
     finally:
         engine.dispose()
-    name = export_file_name(summary.campaign_slug, summary.week.label, fmt)
-    target = out / name if out is not None and out.is_dir() else out or Path(name)
+    target = out / ready.file_name if out is not None and out.is_dir() else out or Path(ready.file_name)
     if not target.parent.is_dir():
         return fail(f"directory {str(target.parent)!r} does not exist", 1)
-    label = f"{summary.campaign_slug} {summary.week.label}"
-    bar = TextProgressBar(f"{label} {fmt}")
+    label = f"{ready.campaign_slug} {ready.week.label}"
+    bar = TextProgressBar(f"{label} {fmt}" if args.table == "shots" else f"{label} summary {fmt}")
     try:
-        write_export_file(summary, fmt, target, progress=bar)
+        ready.write_file(target, progress=bar)
     except OSError as exc:
         bar.close()
         return fail(f"could not write {str(target)!r}: {exc.strerror or exc}", 1)
     bar.close()
-    empty = " (no shots in this week)" if summary.is_empty else ""
-    print(f"wrote {target}: {summary.shot_count} shots, {label} ({summary.timezone}){empty}", file=sys.stderr)
+    empty = " (no shots in this week)" if ready.is_empty else ""
+    print(f"wrote {target}: {ready.shot_count} shots, {label} ({ready.timezone}){empty}", file=sys.stderr)
     return 0
 
 

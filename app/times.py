@@ -5,7 +5,8 @@
   with a checked zone) falls back to UTC everywhere, logged once, and whatever shows
   times (pages, summaries, exports) names the zone it actually used (``zone.key``).
 - ``format_utc`` is how the API, the CSV files and the JSON exports write an instant:
-  ISO 8601 / RFC 3339 in UTC with the ``Z`` offset.
+  ISO 8601 / RFC 3339 in UTC with the ``Z`` offset; ``utc_texts`` and ``local_texts`` write
+  a whole column the way ``format_utc`` and ``iso_text`` write one.
 - ``local_text`` is how pages and reports show a moment: wall-clock time in the zone.
 - ``IsoWeek`` and ``current_week``: ISO weeks in a zone (Monday 00:00 local to Monday 00:00).
 """
@@ -17,8 +18,10 @@ import re
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, time, timedelta
 from functools import lru_cache
-from typing import overload
+from typing import Literal, overload
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+import numpy as np
 
 log = logging.getLogger(__name__)
 
@@ -69,6 +72,64 @@ def format_utc(moment: datetime) -> str:
 def iso_text(moment: datetime) -> str:
     """ISO 8601: UTC as ``format_utc`` writes it, other offsets as they are."""
     return format_utc(moment) if moment.utcoffset() in (None, timedelta(0)) else moment.isoformat()
+
+
+_EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
+_MICROSECOND = timedelta(microseconds=1)
+
+
+def _aware(moment: datetime) -> datetime:
+    return moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)  # naive: UTC (an SQLite round trip)
+
+
+def _microseconds(moments: list[datetime]) -> np.ndarray:
+    """Microseconds since 1970 (UTC; naive moments are UTC) as int64."""
+    return np.array([(_aware(m) - _EPOCH) // _MICROSECOND for m in moments], dtype=np.int64)
+
+
+def _wall_texts(micros: np.ndarray, millis: bool) -> np.ndarray:
+    """ISO 8601 wall times of microseconds since 1970 without an offset: no fraction when there is
+    none, else milliseconds where they suffice (``millis``) or microseconds."""
+    stamps = micros.astype("datetime64[us]")
+    fraction = micros % 1_000_000
+    out = np.empty(micros.size, dtype=object)
+    units: list[tuple[Literal["s", "ms", "us"], np.ndarray]] = [("s", fraction == 0)]
+    if millis:
+        units += [("ms", (fraction != 0) & (fraction % 1000 == 0)), ("us", fraction % 1000 != 0)]
+    else:
+        units += [("us", fraction != 0)]
+    for unit, chosen in units:
+        if chosen.any():
+            out[chosen] = np.datetime_as_string(stamps[chosen], unit=unit)
+    return out
+
+
+def utc_texts(moments: list[datetime]) -> list[str]:
+    """``format_utc`` of every moment, for a whole column at once."""
+    if not moments:
+        return []
+    return (_wall_texts(_microseconds(moments), millis=True) + "Z").tolist()
+
+
+def local_texts(moments: list[datetime], zone: ZoneInfo) -> list[str]:
+    """``iso_text(moment.astimezone(zone))`` of every moment (UTC ones, naive ones too), for a whole column."""
+    if not moments:
+        return []
+    micros = _microseconds(moments)
+    offsets: dict[timedelta, list[int]] = {}
+    for i, moment in enumerate(moments):
+        offsets.setdefault(_aware(moment).astimezone(zone).utcoffset() or timedelta(0), []).append(i)
+    out = np.empty(len(moments), dtype=object)
+    for offset, rows in offsets.items():
+        picked = np.array(rows)
+        if not offset:
+            out[picked] = _wall_texts(micros[picked], millis=True) + "Z"
+            continue
+        # The offset as isoformat writes it (+01:00, or +00:34:08 for an old local mean time).
+        sample = _aware(moments[rows[0]]).astimezone(zone)
+        suffix = sample.isoformat()[len(sample.replace(tzinfo=None).isoformat()) :]
+        out[picked] = _wall_texts(micros[picked] + offset // _MICROSECOND, millis=False) + suffix
+    return out.tolist()
 
 
 def local_time(moment: datetime | None, zone: ZoneInfo) -> datetime | None:

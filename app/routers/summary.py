@@ -1,4 +1,5 @@
-"""GET /api/v1/campaigns/{slug}/summary: the weekly summary as CSV, JSON, HTML or Parquet."""
+"""GET /api/v1/campaigns/{slug}/summary: the weekly summary as CSV (the shots, or with
+``table=summary`` the figures), JSON, HTML or Parquet."""
 
 from __future__ import annotations
 
@@ -32,6 +33,14 @@ def weekly_summary(
         Query(description="ISO week in the campaign's time zone, e.g. 2026-W47 (default: the current week)"),
     ] = None,
     format: Annotated[str, Query(description="csv, json, html or parquet")] = "json",
+    table: Annotated[
+        str,
+        Query(
+            description="what a CSV holds: shots (one row per shot, the default) or summary (one row per figure "
+            "of the week: counts, ranges, phase stability, the density scale with its interval, changes, "
+            "scaling exponents); JSON, HTML and Parquet carry both"
+        ),
+    ] = "shots",
 ) -> Response:
-    export = exports.weekly_export(session, slug, week, format)
+    export = exports.weekly_export(session, slug, week, format, table)
     return file_response(export.body, MEDIA_TYPES[format], export.file_name, inline=format in _INLINE)

@@ -30,10 +30,10 @@ import numpy as np
 
 import model
 from app.plain import finite_or_none, float_list
-from app.presentation.csv_writer import CsvColumn, flag_text, joined
+from app.presentation.csv_writer import CsvColumn, joined
 from app.presentation.fields import unit_of, with_unit
-from app.store.exports import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS, FlagRow
-from app.times import format_utc, iso_text
+from app.store.exports import EVALUATION_OUTPUT_COLUMNS, SHOT_INPUT_COLUMNS, FlagColumns, FlagRow, shared
+from app.times import format_utc, local_texts, utc_texts
 
 NOT_EVALUATED = "not_evaluated"
 ENVELOPE_KEYS = ("shot_id", "taken_at", "notes", "tags")
@@ -42,16 +42,19 @@ TEXT_INPUTS = frozenset(f.path for f in model.INPUT_FIELDS if f.kind == "enum")
 INTEGER_INPUTS = frozenset(f.path for f in model.INPUT_FIELDS if f.kind == "integer")
 
 
+_READ_KEYS = frozenset((*ENVELOPE_KEYS, *model.SECTIONS))
+
+
 def other_sections(payload: Mapping[str, Any]) -> dict[str, Any]:
     """The top-level sections of a shot body that wakeledger does not read (kept verbatim)."""
-    return {k: v for k, v in payload.items() if k not in ENVELOPE_KEYS and k not in model.SECTIONS}
+    return {k: v for k, v in payload.items() if k not in _READ_KEYS}
 
 
 def flat_sections(sections: Mapping[str, Any]) -> dict[str, Any]:
     """Other sections as dotted-path cells, one level deep: {"daq": {"run": 7}} -> {"daq.run": 7}."""
     out: dict[str, Any] = {}
     for key, value in sections.items():
-        if isinstance(value, Mapping):
+        if isinstance(value, dict):  # sections come from JSON: a mapping is a dict
             for sub, cell in value.items():
                 out[f"{key}.{sub}"] = cell
         else:
@@ -65,6 +68,83 @@ def extra_paths(payloads: Iterable[Mapping[str, Any]]) -> list[str]:
     for payload in payloads:
         seen.update(dict.fromkeys(flat_sections(other_sections(payload))))
     return list(seen)
+
+
+@dataclass(frozen=True)
+class ShotFlags:
+    """The flags of a table's shots column-wise (``app.store.exports.FlagColumns``), in the
+    table's row order and rule order within a shot: shot ``i`` has flags ``start[i]:start[i + 1]``."""
+
+    start: np.ndarray  # (shots + 1,) int64
+    columns: FlagColumns
+
+    @classmethod
+    def of_shots(cls, shot_pk: np.ndarray, flags: FlagColumns) -> ShotFlags:
+        """``flags`` grouped by the position of their shot in ``shot_pk`` (flags of other shots left out)."""
+        n = len(shot_pk)
+        by_pk = np.argsort(shot_pk, kind="stable")
+        at = np.searchsorted(shot_pk[by_pk], flags.shot_pk).clip(0, max(n - 1, 0))
+        row = by_pk[at] if n else at
+        known = shot_pk[row] == flags.shot_pk if n else np.zeros(len(flags), dtype=bool)
+        order = np.flatnonzero(known)
+        if order.size < len(flags) or np.any(np.diff(row[order]) < 0):
+            order = order[np.argsort(row[order], kind="stable")]  # shots not read in key order
+            flags = _taken(flags, order)
+            row = row[order]
+        start = np.zeros(n + 1, dtype=np.int64)
+        np.cumsum(np.bincount(row, minlength=n), out=start[1:])
+        return cls(start, flags)
+
+    def __len__(self) -> int:
+        return len(self.start) - 1
+
+    def __getitem__(self, i: int) -> list[FlagRow]:
+        """Shot ``i``'s flags."""
+        c, a, b = self.columns, int(self.start[i]), int(self.start[i + 1])
+        return [
+            FlagRow(pk, c.code[j], c.severity[j], value, limit, c.message[j])
+            for j, pk, value, limit in zip(
+                range(a, b), c.shot_pk[a:b].tolist(), float_list(c.value[a:b]), float_list(c.limit[a:b]), strict=True
+            )
+        ]
+
+    def row_of_flag(self) -> np.ndarray:
+        """The table row of every flag."""
+        return np.repeat(np.arange(len(self)), np.diff(self.start))
+
+    def per_shot(self, cells: Sequence[Any]) -> list[list[Any]]:
+        """One value per flag (in flag order) as one list per shot."""
+        bounds = self.start.tolist()
+        return [list(cells[a:b]) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
+
+    def code_texts(self) -> list[str]:
+        """Each shot's flags as one CSV cell: ``WEAK_SEED:marginal;HOSING_RISK:outside``."""
+        pairs = [f"{code}:{severity}" for code, severity in zip(self.columns.code, self.columns.severity, strict=True)]
+        bounds = self.start.tolist()
+        return [joined(pairs[a:b]) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
+
+    def dicts(self) -> list[list[dict[str, Any]]]:
+        """Each shot's flags as the API writes them (``flag_dict``)."""
+        c = self.columns
+        every = [
+            {"code": code, "severity": severity, "value": value, "limit": limit, "message": message}
+            for code, severity, value, limit, message in zip(
+                c.code, c.severity, float_list(c.value), float_list(c.limit), c.message, strict=True
+            )
+        ]
+        return self.per_shot(every)
+
+
+def _taken(flags: FlagColumns, order: np.ndarray) -> FlagColumns:
+    picks = order.tolist()
+    return FlagColumns(
+        flags.shot_pk[order],
+        [flags.code[j] for j in picks],
+        [flags.severity[j] for j in picks],
+        flags.value[order],
+        flags.limit[order],
+        [flags.message[j] for j in picks],
+    )
 
 
 @dataclass
@@ -84,7 +164,7 @@ class ShotTable:
     status: np.ndarray
     inputs: dict[str, np.ndarray]
     outputs: dict[str, np.ndarray]
-    flags: list[list[FlagRow]]
+    flags: ShotFlags
     extras: list[dict[str, Any]]  # each shot's other top-level sections
     excluded_at: list[datetime | None] = field(default_factory=list)  # when fetched (exclusion=True)
     excluded_reason: list[str | None] = field(default_factory=list)
@@ -93,8 +173,8 @@ class ShotTable:
         return len(self.shot_pk)
 
     @classmethod
-    def from_columns(cls, columns: Mapping[str, list[Any]], flags: Iterable[FlagRow] = ()) -> ShotTable:
-        """From ``app.store.exports`` columns; columns not fetched come out empty."""
+    def from_columns(cls, columns: Mapping[str, list[Any]], flags: FlagColumns | None = None) -> ShotTable:
+        """From ``app.store.exports`` columns and flags; columns not fetched come out empty."""
         n = len(columns["shot_pk"])
         inputs: dict[str, np.ndarray] = {}
         for path, column in zip(INPUT_PATHS, SHOT_INPUT_COLUMNS, strict=True):
@@ -105,30 +185,61 @@ class ShotTable:
             for name in EVALUATION_OUTPUT_COLUMNS
             if name in columns
         }
-        status = np.array([s if s is not None else NOT_EVALUATED for s in columns["status"]], dtype=object).reshape(n)
-        per_shot: list[list[FlagRow]] = [[] for _ in range(n)]
-        index = {pk: i for i, pk in enumerate(columns["shot_pk"])}
-        for flag in flags:
-            i = index.get(flag.shot_pk)
-            if i is not None:
-                per_shot[i].append(flag)
+        status = np.array(shared([s if s is not None else NOT_EVALUATED for s in columns["status"]]), dtype=object)
+        status = status.reshape(n)
+        shot_pk = np.array(columns["shot_pk"], dtype=np.int64).reshape(n)
         payloads = columns.get("raw_payload")
         return cls(
-            shot_pk=np.array(columns["shot_pk"], dtype=np.int64).reshape(n),
+            shot_pk=shot_pk,
             shot_id=list(columns.get("shot_id", ())),
             taken_at=list(columns.get("taken_at", ())),
             revision=list(columns.get("revision", ())),
             notes=[text or "" for text in columns.get("notes", ())],
             tags=[list(t or []) for t in columns.get("tags", ())],
-            model_version=list(columns.get("model_version", ())),
+            model_version=shared(columns.get("model_version", ())),
             settings_version=list(columns.get("settings_version", ())),
             status=status,
             inputs=inputs,
             outputs=outputs,
-            flags=per_shot,
+            flags=ShotFlags.of_shots(shot_pk, flags if flags is not None else FlagColumns.empty()),
             extras=[other_sections(p) for p in payloads] if payloads is not None else [{} for _ in range(n)],
             excluded_at=list(columns.get("excluded_at", ())),
             excluded_reason=list(columns.get("excluded_reason", ())),
+        )
+
+    @classmethod
+    def from_chunks(cls, chunks: Iterable[Mapping[str, list[Any]]], flags: FlagColumns | None = None) -> ShotTable:
+        """From ``app.store.exports.iter_shot_rows`` chunks (each converted before the next is read) and flags."""
+        parts = [cls.from_columns(chunk) for chunk in chunks]
+        table = parts[0] if len(parts) == 1 else cls._joined(parts)
+        table.flags = ShotFlags.of_shots(table.shot_pk, flags if flags is not None else FlagColumns.empty())
+        return table
+
+    @classmethod
+    def _joined(cls, parts: Sequence[ShotTable]) -> ShotTable:
+        def arrays(pick: Any) -> np.ndarray:
+            return np.concatenate([pick(p) for p in parts])
+
+        def lists(pick: Any) -> list[Any]:
+            return [v for p in parts for v in pick(p)]
+
+        first = parts[0]
+        return cls(
+            shot_pk=arrays(lambda p: p.shot_pk),
+            shot_id=lists(lambda p: p.shot_id),
+            taken_at=lists(lambda p: p.taken_at),
+            revision=lists(lambda p: p.revision),
+            notes=lists(lambda p: p.notes),
+            tags=lists(lambda p: p.tags),
+            model_version=lists(lambda p: p.model_version),
+            settings_version=lists(lambda p: p.settings_version),
+            status=arrays(lambda p: p.status),
+            inputs={path: arrays(lambda p, path=path: p.inputs[path]) for path in first.inputs},
+            outputs={name: arrays(lambda p, name=name: p.outputs[name]) for name in first.outputs},
+            flags=first.flags,
+            extras=lists(lambda p: p.extras),
+            excluded_at=lists(lambda p: p.excluded_at),
+            excluded_reason=lists(lambda p: p.excluded_reason),
         )
 
     def values(self, key: str) -> np.ndarray:
@@ -166,6 +277,22 @@ def _input_cells(table: ShotTable, path: str) -> list[Any]:
     return cells
 
 
+def _input_csv_cells(table: ShotTable, path: str) -> list[Any] | np.ndarray:
+    """An input's CSV cells: a float input as its array (formatted in one go by the CSV writer)."""
+    if path in TEXT_INPUTS or path in INTEGER_INPUTS:
+        return _input_cells(table, path)
+    return table.inputs[path]
+
+
+_PLAIN_CELLS = frozenset((str, int, float, type(None)))
+
+
+def _extra_csv_cells(cells: list[Any]) -> list[Any]:
+    if {type(v) for v in cells} <= _PLAIN_CELLS:  # the usual column: nothing to convert
+        return cells
+    return [_extra_cell(v) for v in cells]
+
+
 def _extra_cell(value: Any) -> Any:
     if isinstance(value, (dict, list)):
         return _json_cell(value)
@@ -182,17 +309,18 @@ def csv_columns(
     ``excluded_at`` and ``excluded_reason`` (a listing that shows excluded shots)."""
     columns = [
         CsvColumn("shot_id", list(table.shot_id), text=True),
-        CsvColumn("taken_at", [format_utc(t) for t in table.taken_at]),
-        CsvColumn("taken_at_local", [iso_text(t.astimezone(zone)) for t in table.taken_at]),
+        CsvColumn("taken_at", utc_texts(table.taken_at)),
+        CsvColumn("taken_at_local", local_texts(table.taken_at, zone)),
         CsvColumn("revision", list(table.revision)),
         CsvColumn("tags", [joined(t) for t in table.tags], text=True),
         CsvColumn("notes", list(table.notes), text=True),
     ]
     for path, column in zip(INPUT_PATHS, SHOT_INPUT_COLUMNS, strict=True):
-        columns.append(CsvColumn(with_unit(column, unit_of(path)), _input_cells(table, path), text=path in TEXT_INPUTS))
+        cells = _input_csv_cells(table, path)
+        columns.append(CsvColumn(with_unit(column, unit_of(path)), cells, text=path in TEXT_INPUTS))
     columns += [
         CsvColumn("status", [str(s) for s in table.status.tolist()]),
-        CsvColumn("flag_codes", [flag_text((f.code, f.severity) for f in flags) for flags in table.flags]),
+        CsvColumn("flag_codes", table.flags.code_texts()),
     ]
     if exclusion:
         columns += [
@@ -203,12 +331,8 @@ def csv_columns(
         CsvColumn("model_version", list(table.model_version)),
         CsvColumn("settings_version", list(table.settings_version)),
     ]
-    columns += [
-        CsvColumn(with_unit(name, unit_of(name)), float_list(table.outputs[name])) for name in EVALUATION_OUTPUT_COLUMNS
-    ]
-    columns += [
-        CsvColumn(name, [_extra_cell(v) for v in cells], text=True) for name, cells in table.extra_cells(extra).items()
-    ]
+    columns += [CsvColumn(with_unit(name, unit_of(name)), table.outputs[name]) for name in EVALUATION_OUTPUT_COLUMNS]
+    columns += [CsvColumn(name, _extra_csv_cells(cells), text=True) for name, cells in table.extra_cells(extra).items()]
     return columns
 
 
@@ -229,10 +353,12 @@ def records(table: ShotTable) -> Iterator[dict[str, Any]]:
     output_names = list(EVALUATION_OUTPUT_COLUMNS)
     output_rows = list(zip(*(float_list(table.outputs[name]) for name in output_names), strict=True)) or [()] * n
     status = table.status.tolist()
+    flags = table.flags.dicts()
+    taken_at = utc_texts(table.taken_at)
     for i in range(n):
         record: dict[str, Any] = {
             "shot_id": table.shot_id[i],
-            "taken_at": format_utc(table.taken_at[i]),
+            "taken_at": taken_at[i],
             "revision": table.revision[i],
             "notes": table.notes[i],
             "tags": table.tags[i],
@@ -244,7 +370,7 @@ def records(table: ShotTable) -> Iterator[dict[str, Any]]:
         else:
             evaluation = dict(zip(output_names, output_rows[i], strict=True))
             evaluation["status"] = status[i]
-            evaluation["flags"] = [flag_dict(f) for f in table.flags[i]]
+            evaluation["flags"] = flags[i]
             evaluation["model_version"] = table.model_version[i]
             evaluation["settings_version"] = table.settings_version[i]
             record["evaluation"] = evaluation
@@ -293,7 +419,19 @@ def arrow_table(table: ShotTable, metadata: Mapping[str, str]) -> Any:
             ]
         )
     )
-    add("flag_codes", pa.array([[flag_dict(f) for f in per] for per in table.flags], type=flag_type))
+    c = table.flags.columns
+    flag_rows = pa.StructArray.from_arrays(
+        [
+            pa.array(c.code, type=pa.string()),
+            pa.array(c.severity, type=pa.string()),
+            # NaN and infinity are null, as in flag_dict
+            pa.array(np.where(np.isfinite(c.value), c.value, np.nan), type=pa.float64(), from_pandas=True),
+            pa.array(np.where(np.isfinite(c.limit), c.limit, np.nan), type=pa.float64(), from_pandas=True),
+            pa.array(c.message, type=pa.string()),
+        ],
+        fields=list(flag_type.value_type),
+    )
+    add("flag_codes", pa.ListArray.from_arrays(pa.array(table.flags.start, type=pa.int32()), flag_rows, type=flag_type))
     add("model_version", pa.array(table.model_version, type=pa.string()))
     add("settings_version", pa.array(table.settings_version, type=pa.int32()))
     for name in EVALUATION_OUTPUT_COLUMNS:

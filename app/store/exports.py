@@ -1,6 +1,7 @@
 """Reads of whole shot rows for exports and summaries: shots with their current
-evaluation column-wise (Core statements, no ORM objects for 10,000 rows), their flags,
-and flag counts.
+evaluation column-wise (Core statements, no ORM objects for 10,000 rows), their flags
+column-wise, and flag counts. A week is read a few thousand rows at a time, each chunk
+turned into arrays before the next is read, so its Python objects never all live at once.
 
 Times in and out are UTC (the tables' UTCDateTime type sees to that on every backend).
 """
@@ -11,8 +12,9 @@ import json
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from datetime import datetime
-from typing import Any
+from typing import Any, NamedTuple
 
+import numpy as np
 import orjson
 from sqlalchemy import ColumnElement, Select, Text, distinct, func, select, type_coerce
 from sqlalchemy.orm import Session
@@ -27,8 +29,16 @@ SHOT_INPUT_COLUMNS: tuple[str, ...] = tuple(model.column_name(f.path) for f in m
 EVALUATION_OUTPUT_COLUMNS: tuple[str, ...] = model.OUTPUT_NAMES
 
 
-@dataclass(frozen=True)
-class FlagRow:
+def shared(texts: Sequence[Any]) -> list[Any]:
+    """The values with one object per distinct value: the driver makes a new string per row, and a
+    week's flag codes, severities and statuses are a handful of values in tens of thousands of rows."""
+    seen: dict[Any, Any] = {}
+    return [seen.setdefault(t, t) for t in texts]
+
+
+class FlagRow(NamedTuple):
+    """One flag (a tuple: the weekly summary holds tens of thousands)."""
+
     shot_pk: int
     code: str
     severity: str
@@ -98,9 +108,9 @@ def shot_rows_query(
 
 
 def _columns(keys: Sequence[str], rows: Sequence[Any]) -> dict[str, list[Any]]:
-    columns: dict[str, list[Any]] = {k: [] for k in keys}
-    for key, values in zip(keys, zip(*rows, strict=True), strict=False):
-        columns[key] = list(values)
+    """Rows column-wise; tags and payloads decoded."""
+    values: list[Any] = list(zip(*rows, strict=True)) if rows else [()] * len(keys)
+    columns = {key: list(column) for key, column in zip(keys, values, strict=True)}
     if "tags" in columns:
         columns["tags"] = [_json_list(t) for t in columns["tags"]]
     if "raw_payload" in columns:
@@ -109,14 +119,14 @@ def _columns(keys: Sequence[str], rows: Sequence[Any]) -> dict[str, list[Any]]:
 
 
 def fetch_shot_rows(session: Session, stmt: Select[Any]) -> dict[str, list[Any]]:
-    """All rows of ``shot_rows_query`` column-wise."""
+    """All rows of ``shot_rows_query`` (or of any select) column-wise."""
     result = session.connection().execute(stmt)
     return _columns(list(result.keys()), result.all())
 
 
 def iter_shot_rows(session: Session, stmt: Select[Any], chunk: int = 2000) -> Iterator[dict[str, list[Any]]]:
-    """The rows of ``shot_rows_query`` column-wise, ``chunk`` rows at a time (memory stays flat);
-    at least one (possibly empty) chunk."""
+    """The rows of ``shot_rows_query`` (or of any select) column-wise, ``chunk`` rows at a time (a
+    server-side cursor where the driver has one): memory stays flat; at least one (possibly empty) chunk."""
     result = session.connection().execution_options(yield_per=chunk).execute(stmt)
     keys = list(result.keys())
     empty = True
@@ -132,7 +142,7 @@ def _json_list(raw: Any) -> list[str]:
         return raw
     if not raw or raw == "[]":
         return []
-    return list(json.loads(raw))
+    return list(orjson.loads(raw))
 
 
 def _json_object(raw: Any) -> dict[str, Any]:
@@ -146,24 +156,70 @@ def _json_object(raw: Any) -> dict[str, Any]:
         return json.loads(raw)
 
 
-def fetch_flags(session: Session, conditions: Sequence[ColumnElement[bool]]) -> list[FlagRow]:
-    """Every flag of the current evaluations of the shots matching ``conditions``, by shot then rule order."""
-    stmt = (
-        select(Flag.shot_pk, Flag.code, Flag.severity, Flag.value, Flag.limit, Flag.message)
-        .join(Shot, Shot.id == Flag.shot_pk)
-        .where(*conditions)
-        .order_by(Flag.shot_pk, Flag.id)
-    )
-    return [FlagRow(*row) for row in session.connection().execute(stmt)]
+@dataclass(frozen=True)
+class FlagColumns:
+    """Flags column-wise, by shot then rule order: ``shot_pk`` (int64), ``value`` and ``limit``
+    (float, NaN for none) as arrays, the texts as lists."""
+
+    shot_pk: np.ndarray
+    code: list[str]
+    severity: list[str]
+    value: np.ndarray
+    limit: np.ndarray
+    message: list[str]
+
+    def __len__(self) -> int:
+        return len(self.code)
+
+    @classmethod
+    def of_lists(cls, shot_pk: Sequence[int], code: Sequence[str], severity: Sequence[str], value: Sequence[Any],
+                 limit: Sequence[Any], message: Sequence[str]) -> FlagColumns:  # fmt: skip
+        return cls(
+            np.array(shot_pk, dtype=np.int64).reshape(-1),
+            shared(code),
+            shared(severity),
+            np.array(value, dtype=float).reshape(-1),  # None reads as NaN
+            np.array(limit, dtype=float).reshape(-1),
+            list(message),
+        )
+
+    @classmethod
+    def empty(cls) -> FlagColumns:
+        return cls.of_lists([], [], [], [], [], [])
+
+    @classmethod
+    def concatenated(cls, parts: Sequence[FlagColumns]) -> FlagColumns:
+        if len(parts) == 1:
+            return parts[0]
+        return cls(
+            np.concatenate([np.zeros(0, dtype=np.int64), *(p.shot_pk for p in parts)]),
+            [c for p in parts for c in p.code],
+            [s for p in parts for s in p.severity],
+            np.concatenate([np.zeros(0), *(p.value for p in parts)]),
+            np.concatenate([np.zeros(0), *(p.limit for p in parts)]),
+            [m for p in parts for m in p.message],
+        )
 
 
-def fetch_flags_of(session: Session, shot_pks: Sequence[int]) -> list[FlagRow]:
+def fetch_flags(session: Session, conditions: Sequence[ColumnElement[bool]]) -> FlagColumns:
+    """Every flag of the current evaluations of the shots matching ``conditions``, by shot (in taken_at
+    order) then rule order."""
+    columns: list[Any] = [Flag.shot_pk, Flag.code, Flag.severity, Flag.value, Flag.limit.label("limit"), Flag.message]
+    # In the shots' own order (their index) then rule order: the flags need no sort of their own.
+    order = (Shot.taken_at, Shot.id, Flag.id)
+    stmt = select(*columns).join(Shot, Shot.id == Flag.shot_pk).where(*conditions).order_by(*order)
+    parts = [
+        FlagColumns.of_lists(c["shot_pk"], c["code"], c["severity"], c["value"], c["limit"], c["message"])
+        for c in iter_shot_rows(session, stmt, chunk=10_000)
+    ]
+    return FlagColumns.concatenated(parts)
+
+
+def fetch_flags_of(session: Session, shot_pks: Sequence[int]) -> FlagColumns:
     """Every flag of the given shots (chunked to stay under bind limits)."""
-    out: list[FlagRow] = []
-    pks = list(shot_pks)
-    for start in range(0, len(pks), 900):
-        out += fetch_flags(session, [Shot.id.in_(pks[start : start + 900])])
-    return out
+    pks = [int(pk) for pk in shot_pks]
+    parts = [fetch_flags(session, [Shot.id.in_(pks[start : start + 900])]) for start in range(0, len(pks), 900)]
+    return FlagColumns.concatenated(parts or [FlagColumns.empty()])
 
 
 def count_flags(session: Session, conditions: Sequence[ColumnElement[bool]]) -> list[tuple[str, str, int]]:

@@ -44,6 +44,7 @@ import model
 from app.presentation.csv_writer import LIST_SEPARATOR
 from app.services.backlog_import.readers import SourceError, SourceTable, is_missing
 from app.services.export_table import ENVELOPE_KEYS, INPUT_PATHS, INTEGER_INPUTS, TEXT_INPUTS
+from app.services.weekly.summary_rows import SUMMARY_COLUMNS
 from app.store.exports import EVALUATION_OUTPUT_COLUMNS
 from app.times import format_utc
 
@@ -201,6 +202,11 @@ def plan_columns(columns: Sequence[str], column_map: ColumnMap | None = None) ->
     columns filling one field, or no column for shot_id or taken_at."""
     column_map = column_map or ColumnMap()
     present = set(columns)
+    if tuple(columns[: len(SUMMARY_COLUMNS)]) == SUMMARY_COLUMNS and "shot_id" not in present:
+        raise SourceError(
+            "this is a week's summary table (one row per figure), not shots: import the week's shot CSV "
+            "(wakeledger export without --table summary)"
+        )
     stripped: dict[str, str] = {}
     for c in columns:
         stripped.setdefault(without_unit(c), c)

@@ -6,8 +6,10 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from typing import Any
+from zoneinfo import ZoneInfo
 
 import numpy as np
+from markupsafe import Markup
 
 from app.presentation.templates import render
 from app.services.export_table import NOT_EVALUATED
@@ -94,7 +96,28 @@ def sentence_groups(shots: list[FlaggedShot]) -> list[SentenceGroup]:
     return sorted(groups.values(), key=lambda g: (-len(g.shots), g.code, g.message))
 
 
-def render_html(summary: WeeklySummary) -> str:
+class ShotLists:
+    """The shots of a sentence as the report lists them (each id with its local time as a tooltip), made
+    once per shot: a week of 10,000 flagged shots lists 30,000 of them under their sentences."""
+
+    def __init__(self, zone: ZoneInfo) -> None:
+        self.zone = zone
+        self.cells: dict[int, Markup] = {}
+
+    def __call__(self, shots: list[FlaggedShot], limit: int) -> Markup:
+        cells = []
+        for shot in shots[:limit]:
+            cell = self.cells.get(id(shot))
+            if cell is None:
+                cell = Markup('<code title="{}">{}</code>').format(local_text(shot.taken_at, self.zone), shot.shot_id)
+                self.cells[id(shot)] = cell
+            cells.append(cell)
+        return Markup(", ").join(cells)
+
+
+def render_html(summary: WeeklySummary, *, links: bool = False) -> str:
+    """The report; ``links``: it is served by the API, so the week's other files are links relative to
+    its own address (a file written by the CLI names them instead)."""
     flagged = {status: [s for s in summary.flagged_shots if s.status == status] for status in ("outside", "marginal")}
     grouped = {status: sentence_groups(rows) for status, rows in flagged.items()}
     zone = campaign_zone(summary.timezone)
@@ -106,7 +129,10 @@ def render_html(summary: WeeklySummary) -> str:
         grouped=grouped,
         flagged_limit=HTML_FLAGGED_LIMIT,
         local=lambda t: local_text(t, zone),
+        shot_list=ShotLists(zone),
         phase_window_shots=NEIGHBOUR_WINDOW_SHOTS - 1,
         jitter_sources=list(JITTER_SOURCE_NAMES.items()),
         file_stem=export_file_name(summary.campaign_slug, summary.week.label, "").rstrip("."),
+        summary_csv=export_file_name(summary.campaign_slug, summary.week.label, "csv", "summary"),
+        links=links,
     )

@@ -16,6 +16,7 @@ from collections.abc import Iterable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -23,7 +24,7 @@ from sqlalchemy.orm import Session
 
 import model
 from app.database import snapshot_read
-from app.plain import finite_or_none
+from app.plain import finite_or_none, float_list
 from app.presentation.fields import unit_of
 from app.services.calibration import week_figures
 from app.services.export_table import NOT_EVALUATED, ShotTable
@@ -37,9 +38,11 @@ STATUSES = model.STATUSES
 SEVERITIES = model.SEVERITIES
 
 
-def export_file_name(campaign_slug: str, week_label: str, fmt: str) -> str:
-    """``wakeledger-SLUG-2026-W47.csv``: the file name of a week's export in any format."""
-    return f"wakeledger-{campaign_slug}-{week_label}.{fmt}"
+def export_file_name(campaign_slug: str, week_label: str, fmt: str, table: str = "shots") -> str:
+    """``wakeledger-SLUG-2026-W47.csv``: the file name of a week's export in any format;
+    ``wakeledger-SLUG-2026-W47-summary.csv`` for the summary table."""
+    part = "" if table == "shots" else f"-{table}"
+    return f"wakeledger-{campaign_slug}-{week_label}{part}.{fmt}"
 
 
 # Key conditions and outputs whose min / median / max the summary reports; the
@@ -84,7 +87,7 @@ class QuantityRange:
     max: float | None
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)  # not frozen: thousands are made per week, and frozen ones cost twice as much
 class FlaggedShot:
     shot_id: str
     taken_at: datetime
@@ -147,7 +150,6 @@ class WeeklySummary:
     status_counts: dict[str, int]
     flag_counts: dict[str, dict[str, int]]
     ranges: list[QuantityRange]
-    flagged_shots: list[FlaggedShot]
     phase_stability: PhaseStability
     density_calibration: DensityCalibration
     previous: WeekComparison
@@ -162,10 +164,17 @@ class WeeklySummary:
     def is_empty(self) -> bool:
         return self.shot_count == 0
 
+    @cached_property
+    def flagged_shots(self) -> list[FlaggedShot]:
+        """The outside, then the marginal shots with their reasons (made when a file lists them:
+        the JSON and HTML do, the Parquet and the CSV files do not)."""
+        with collector_paused():
+            return flagged_shots(self.shots)
+
 
 @contextmanager
 def collector_paused() -> Iterator[None]:
-    """Pause the cyclic garbage collector while a week's rows are built: the objects are
+    """Pause the cyclic garbage collector while a week is read and written: the objects are
     acyclic and short-lived, and repeated full collections over them cost a third of
     the time. Reference counting still frees everything."""
     was_enabled = gc.isenabled()
@@ -256,21 +265,42 @@ def flag_counts(codes_severities_shots: Iterable[tuple[str, str, int]]) -> dict[
 
 
 def _flag_counts_of(shots: ShotTable) -> dict[str, dict[str, int]]:
-    tally: dict[tuple[str, str], int] = {}
-    for per_shot in shots.flags:
-        for f in {(f.code, f.severity) for f in per_shot}:
-            tally[f] = tally.get(f, 0) + 1
-    return flag_counts((code, sev, n) for (code, sev), n in tally.items())
+    flags = shots.flags.columns
+    kinds: dict[tuple[str, str], int] = {}
+    kind = np.array(
+        [kinds.setdefault(k, len(kinds)) for k in zip(flags.code, flags.severity, strict=True)], dtype=np.int64
+    )
+    # Shots per (code, severity): a shot with the same flag twice counts once.
+    per_shot = np.unique(shots.flags.row_of_flag() * max(len(kinds), 1) + kind) % max(len(kinds), 1)
+    tally = np.bincount(per_shot, minlength=len(kinds)).tolist()
+    return flag_counts((code, sev, tally[i]) for (code, sev), i in kinds.items())
+
+
+REASON_SEVERITIES = ("outside", "marginal")
 
 
 def flagged_shots(shots: ShotTable) -> list[FlaggedShot]:
     """Outside shots first, then marginal ones, each in taken_at order, with the flags
     that are reasons for the status (info flags never are)."""
+    flags = shots.flags.columns
+    reason = np.flatnonzero([severity in REASON_SEVERITIES for severity in flags.severity])
+    picks = reason.tolist()
+    reasons = list(
+        map(
+            FlagRow,
+            flags.shot_pk[reason].tolist(),
+            [flags.code[j] for j in picks],
+            [flags.severity[j] for j in picks],
+            float_list(flags.value[reason]),
+            float_list(flags.limit[reason]),
+            [flags.message[j] for j in picks],
+        )
+    )
+    bounds = np.searchsorted(shots.flags.row_of_flag()[reason], np.arange(len(shots) + 1)).tolist()
     result: list[FlaggedShot] = []
-    for wanted in ("outside", "marginal"):
+    for wanted in REASON_SEVERITIES:
         for i in np.flatnonzero(shots.status == wanted).tolist():
-            reasons = [f for f in shots.flags[i] if f.severity in ("outside", "marginal")]
-            result.append(FlaggedShot(shots.shot_id[i], shots.taken_at[i], wanted, reasons))
+            result.append(FlaggedShot(shots.shot_id[i], shots.taken_at[i], wanted, reasons[bounds[i] : bounds[i + 1]]))
     return result
 
 
@@ -293,8 +323,14 @@ def _week_window(campaign: Campaign, week: IsoWeek, excluded: str = "omit") -> l
 def load_week_shots(session: Session, campaign: Campaign, week: IsoWeek) -> ShotTable:
     """Every counted shot of the week with its evaluation, flags and other sections, in taken_at order."""
     window = _week_window(campaign, week)
-    columns = export_store.fetch_shot_rows(session, export_store.shot_rows_query(window, payloads=True))
-    return ShotTable.from_columns(columns, export_store.fetch_flags(session, window))
+    chunks = export_store.iter_shot_rows(session, export_store.shot_rows_query(window, payloads=True))
+    return ShotTable.from_chunks(chunks, export_store.fetch_flags(session, window))
+
+
+def week_shots(session: Session, campaign: Campaign, week: IsoWeek) -> ShotTable:
+    """The week's shots alone (what the shot CSV writes), read on one snapshot."""
+    with snapshot_read(session) as read, collector_paused():
+        return load_week_shots(read, campaign, week)
 
 
 @dataclass
@@ -315,7 +351,7 @@ def _previous_week(session: Session, campaign: Campaign, week: IsoWeek, current:
         output_columns=list(KEY_OUTPUTS),
         details=False,
     )
-    shots = ShotTable.from_columns(export_store.fetch_shot_rows(session, stmt))
+    shots = ShotTable.from_chunks(export_store.iter_shot_rows(session, stmt))
     counts = status_counts(shots.status)
     flags = _shot_count_per_code(flag_counts(export_store.count_flags(session, window)))
     medians = {k: _median(shots.values(k)) for k in keys}
@@ -340,14 +376,13 @@ def build_weekly_summary(
     """The summary of one ISO week of a campaign, in the campaign's timezone."""
     # One snapshot for every read: a re-evaluation committed meanwhile cannot pair old
     # statuses with new flags, nor this week with a different previous week.
-    with snapshot_read(session) as read:
+    with snapshot_read(session) as read, collector_paused():
         return _build_weekly_summary(read, campaign, week, now)
 
 
 def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, now: datetime | None) -> WeeklySummary:
     zone = campaign_zone(campaign.timezone)
-    with collector_paused():
-        shots = load_week_shots(session, campaign, week)
+    shots = load_week_shots(session, campaign, week)
     figures = _WeekFigures(
         shot_count=len(shots),
         status_counts=status_counts(shots.status),
@@ -369,7 +404,6 @@ def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, n
         status_counts=figures.status_counts,
         flag_counts=figures.flag_counts,
         ranges=figures.ranges,
-        flagged_shots=flagged_shots(shots),
         phase_stability=phase_stability(shots, campaign.model_settings or {}),
         density_calibration=density_calibration(shots),
         previous=_previous_week(session, campaign, week, figures),

@@ -1,10 +1,11 @@
 """The weekly summary's files: the summary document and the export table (one row per
-shot, ``app.services.export_table``) as CSV, JSON and Parquet, and ``write_export`` for
-every format (the HTML report is ``app.services.weekly.report``).
+shot, ``app.services.export_table``) as CSV, JSON and Parquet, the summary's figures as CSV
+(``app.services.weekly.summary_rows``), and ``write_export`` for every format (the HTML
+report is ``app.services.weekly.report``).
 
 Every writer takes a binary stream and an optional ``progress(done, total)`` callback
-counted in shots. ``write_export_file`` writes through ``app.services.files.write_atomically``,
-so a reader never sees a half-written export.
+counted in shots. Files are written through ``app.services.files.write_atomically``
+(``app.services.weekly.exports.WeekFile.write_file``), so a reader never sees a half-written export.
 """
 
 from __future__ import annotations
@@ -13,23 +14,26 @@ import io
 import json
 from collections.abc import Callable
 from dataclasses import asdict
-from pathlib import Path
+from functools import partial
+from itertools import islice
 from typing import Any, BinaryIO
+from zoneinfo import ZoneInfo
 
 import orjson
 
 from app.advisory import ADVISORY_CAUTION
 from app.plain import plain
 from app.presentation.csv_writer import write_csv
-from app.services.export_table import arrow_table, csv_columns, flag_dict, records, units_document
-from app.services.files import write_atomically
+from app.services.export_table import ShotTable, arrow_table, csv_columns, flag_dict, records, units_document
 from app.services.weekly.report import render_html
 from app.services.weekly.summary import WeeklySummary, collector_paused
-from app.times import campaign_zone, iso_text
+from app.services.weekly.summary_rows import summary_csv_columns
+from app.times import campaign_zone, iso_text, utc_texts
 
 Progress = Callable[[int, int], None]
 
 EXPORT_FORMATS = ("csv", "json", "html", "parquet")
+EXPORT_TABLES = ("shots", "summary")  # a CSV's rows: one per shot, or one per figure of the summary
 MEDIA_TYPES = {
     "csv": "text/csv; charset=utf-8",
     "json": "application/json",
@@ -38,6 +42,7 @@ MEDIA_TYPES = {
 }
 DOCUMENT_KIND = "wakeledger.weekly_summary"
 DOCUMENT_VERSION = 2  # 2: inputs by column name in CSV and Parquet, flag_codes, other sections kept
+JSON_CHUNK_SHOTS = 1000
 
 
 def _dated(value: Any) -> Any:
@@ -49,8 +54,9 @@ def _dated(value: Any) -> Any:
     return value
 
 
-def summary_document(summary: WeeklySummary) -> dict[str, Any]:
-    """The summary part of the JSON export (everything but the per-shot rows)."""
+def summary_document(summary: WeeklySummary, *, flagged_shots: bool = True) -> dict[str, Any]:
+    """The summary part of the JSON export (everything but the per-shot rows); the Parquet
+    metadata's leaves out the list of flagged shots."""
     prev = summary.previous
     document = plain(
         _dated(
@@ -93,15 +99,13 @@ def summary_document(summary: WeeklySummary) -> dict[str, Any]:
             }
         )
     )
+    if not flagged_shots:
+        return document
     # Built directly: thousands of entries, already plain values.
+    flagged = summary.flagged_shots
     document["flagged_shots"] = [
-        {
-            "shot_id": s.shot_id,
-            "taken_at": iso_text(s.taken_at),
-            "status": s.status,
-            "reasons": [flag_dict(f) for f in s.reasons],
-        }
-        for s in summary.flagged_shots
+        {"shot_id": s.shot_id, "taken_at": taken_at, "status": s.status, "reasons": [flag_dict(f) for f in s.reasons]}
+        for s, taken_at in zip(flagged, utc_texts([s.taken_at for s in flagged]), strict=True)
     ]
     return document
 
@@ -115,31 +119,58 @@ def json_document_bytes(document: Any) -> bytes:
         return json.dumps(document, ensure_ascii=False, allow_nan=False, separators=(",", ":")).encode("utf-8")
 
 
-def write_table_csv(summary: WeeklySummary, out: BinaryIO, progress: Progress | None = None) -> None:
-    total = summary.shot_count
-    columns = csv_columns(summary.shots, campaign_zone(summary.timezone))
-    write_csv([columns], out, (lambda done: progress(done, total)) if progress else None)
+def write_shots_csv(shots: ShotTable, zone: ZoneInfo, out: BinaryIO, progress: Progress | None = None) -> None:
+    """The shot CSV: the export table, one row per shot."""
+    total = len(shots)
+    write_csv([csv_columns(shots, zone)], out, (lambda done: progress(done, total)) if progress else None)
+
+
+def _write_table_csv(summary: WeeklySummary, out: BinaryIO, progress: Progress | None = None) -> None:
+    write_shots_csv(summary.shots, campaign_zone(summary.timezone), out, progress)
+
+
+def write_summary_csv(summary: WeeklySummary, out: BinaryIO, progress: Progress | None = None) -> None:
+    """The summary CSV: one row per figure of the week."""
+    with collector_paused():
+        write_csv([summary_csv_columns(summary)], out)
+    if progress:
+        progress(summary.shot_count, summary.shot_count)
 
 
 def write_json(summary: WeeklySummary, out: BinaryIO, progress: Progress | None = None) -> None:
+    """The JSON document, its shots serialised JSON_CHUNK_SHOTS at a time (the same bytes as the
+    whole document at once, without every shot's objects alive together)."""
     document = {
         "kind": DOCUMENT_KIND,
         "version": DOCUMENT_VERSION,
         "summary": summary_document(summary),
         "units": units_document(),
-        "shots": list(records(summary.shots)),
+        "shots": [],
     }
-    out.write(json_document_bytes(document))
-    if progress:
-        progress(summary.shot_count, summary.shot_count)
+    head = json_document_bytes(document)
+    out.write(head[: -len(b"]}")])  # the shots are the last member
+    shots = records(summary.shots)
+    total, done = summary.shot_count, 0
+    while part := list(islice(shots, JSON_CHUNK_SHOTS)):
+        out.write(b"," if done else b"")
+        out.write(json_document_bytes(part)[1:-1])
+        done += len(part)
+        if progress:
+            progress(done, total)
+    out.write(b"]}")
+    if progress and not total:
+        progress(0, 0)
 
 
 def write_parquet(summary: WeeklySummary, out: BinaryIO, progress: Progress | None = None) -> None:
     import pyarrow.parquet as pq
 
+    # The summary without its list of flagged shots: the rows are the shots, each with its status and
+    # flags, and the list (9,000 entries in a week of 10,000 shots) would be stored twice in the footer
+    # (as metadata and inside the Arrow schema), 20 MB and 200 MB of memory to write.
     metadata = {
         "wakeledger.kind": DOCUMENT_KIND,
-        "wakeledger.summary": json.dumps(summary_document(summary), allow_nan=False),
+        "wakeledger.summary": json_document_bytes(summary_document(summary, flagged_shots=False)).decode("utf-8"),
     }
     table = arrow_table(summary.shots, metadata)
     if progress:
@@ -149,33 +180,32 @@ def write_parquet(summary: WeeklySummary, out: BinaryIO, progress: Progress | No
         progress(summary.shot_count, summary.shot_count)
 
 
-def _write_html(summary: WeeklySummary, out: BinaryIO, progress: Progress | None = None) -> None:
-    out.write(render_html(summary).encode("utf-8"))
+def write_html(summary: WeeklySummary, out: BinaryIO, progress: Progress | None = None, *, links: bool = False) -> None:
+    """The HTML report (``links``: served by the API, it links to the week's other files)."""
+    out.write(render_html(summary, links=links).encode("utf-8"))
     if progress:
         progress(summary.shot_count, summary.shot_count)
 
 
 WRITERS: dict[str, Callable[[WeeklySummary, BinaryIO, Progress | None], None]] = {
-    "csv": write_table_csv,
+    "csv": _write_table_csv,
     "json": write_json,
-    "html": _write_html,
+    "html": write_html,
     "parquet": write_parquet,
 }
 
 
-def write_export(summary: WeeklySummary, fmt: str, out: BinaryIO, progress: Progress | None = None) -> None:
+def write_export(
+    summary: WeeklySummary, fmt: str, out: BinaryIO, progress: Progress | None = None, *, links: bool = False
+) -> None:
     if fmt not in WRITERS:
         raise ValueError(f"unknown export format {fmt!r}; choose one of {', '.join(EXPORT_FORMATS)}")
+    writer = partial(write_html, links=links) if fmt == "html" else WRITERS[fmt]
     with collector_paused():
-        WRITERS[fmt](summary, out, progress)
+        writer(summary, out, progress)
 
 
 def render_export(summary: WeeklySummary, fmt: str) -> bytes:
     buffer = io.BytesIO()
     write_export(summary, fmt, buffer)
     return buffer.getvalue()
-
-
-def write_export_file(summary: WeeklySummary, fmt: str, path: Path, progress: Progress | None = None) -> Path:
-    """Write the export to ``path`` atomically (never half-written)."""
-    return write_atomically(path, lambda out: write_export(summary, fmt, out, progress))
