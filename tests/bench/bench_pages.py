@@ -204,15 +204,18 @@ def server_figures(client, repeat: int, pid: int) -> None:
     for _ in range(repeat):
         total, cpu = 0.0, cpu_seconds(pid)
         for path in ["/campaigns/bench", *feeds]:
+            before = cpu_seconds(pid)
             s, size, status = timed_get(client, path)
-            rows.setdefault(path, []).append((s, size, status))
+            rows.setdefault(path, []).append((s, size, status, cpu_seconds(pid) - before))
             total += s
         totals.append(total)
         cpus.append(cpu_seconds(pid) - cpu)
-    print(f"\nserver: the overview's HTML and feeds one after another (median of {repeat})")
+    print(f"\nserver: the overview's HTML and feeds one after another (wall: median of {repeat}; server CPU)")
     for path, results in rows.items():
+        cold_cpu, warm_cpu = results[0][3], statistics.median(r[3] for r in results[1:]) if repeat > 1 else float("nan")
         print(
-            f"  {path:72s} {statistics.median(r[0] for r in results):7.3f} s {results[-1][1]:10,d} B ({results[-1][2]})"
+            f"  {path:66s} {statistics.median(r[0] for r in results):7.3f} s {results[-1][1]:10,d} B ({results[-1][2]})"
+            f"  CPU cold {cold_cpu:.2f} s, warm {warm_cpu:.2f} s"
         )
     median = statistics.median(totals)
     print(
@@ -242,6 +245,17 @@ DRAWN = """() => {
 }"""
 
 
+# Per chart: how long Plotly took (wakeledger.js measures each draw), how many markers (one SVG
+# path each), heatmap images and SVG elements it drew.
+PER_CHART = """() => Array.from(document.querySelectorAll('.chart')).map(c => {
+  const measures = performance.getEntriesByName('wakeledger draw ' + c.id);
+  return {id: c.id, ms: measures.length ? measures[measures.length - 1].duration : null,
+          markers: c.querySelectorAll('.scatterlayer .point').length,
+          images: c.querySelectorAll('image').length,
+          elements: c.querySelectorAll('svg *').length};
+})"""
+
+
 def browser_figures(base: str, cookie: tuple[str, str], repeat: int) -> None:
     if not CHROMIUM.exists():
         print("browser: skipped (no /usr/bin/chromium)")
@@ -249,6 +263,7 @@ def browser_figures(base: str, cookie: tuple[str, str], repeat: int) -> None:
     from playwright.sync_api import sync_playwright
 
     drawn, busy, transferred, plotly_bytes = [], [], [], []
+    per_chart: dict[str, list[dict]] = {}
     with sync_playwright() as p:
         chromium = p.chromium.launch(executable_path=str(CHROMIUM), args=["--no-sandbox", "--disable-gpu"])
         try:
@@ -272,6 +287,8 @@ def browser_figures(base: str, cookie: tuple[str, str], repeat: int) -> None:
                 page.goto(f"{base}/campaigns/bench", wait_until="commit")
                 page.wait_for_function(DRAWN, polling="raf", timeout=120_000)
                 drawn.append(page.evaluate("() => performance.now()") / 1000)
+                for chart in page.evaluate(PER_CHART):
+                    per_chart.setdefault(chart["id"], []).append(chart)
                 metrics = {m["name"]: m["value"] for m in cdp.send("Performance.getMetrics")["metrics"]}
                 busy.append(metrics.get("TaskDuration", float("nan")))  # the page's main-thread seconds
                 page.wait_for_load_state("networkidle")
@@ -285,6 +302,13 @@ def browser_figures(base: str, cookie: tuple[str, str], repeat: int) -> None:
         f"  every chart drawn: median {statistics.median(drawn):.2f} s, range {min(drawn):.2f}-{max(drawn):.2f} s "
         f"(target < {TARGET_DRAWN_S} s); the page's main thread busy {statistics.median(busy):.2f} s"
     )
+    for chart_id, runs in per_chart.items():
+        times = [r["ms"] for r in runs if r["ms"] is not None]
+        last = runs[-1]
+        print(
+            f"    {chart_id:20s} Plotly {statistics.median(times) if times else float('nan'):7.0f} ms, "
+            f"{last['markers']:6,d} markers, {last['images']} images, {last['elements']:6,d} SVG elements"
+        )
     print(
         f"  transferred on a first visit: {statistics.median(transferred) / 1e6:.2f} MB "
         f"(plotly.min.js {statistics.median(plotly_bytes) / 1e6:.2f} MB; "

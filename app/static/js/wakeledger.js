@@ -73,6 +73,13 @@
     else document.addEventListener("DOMContentLoaded", function () { resolve(); });
   });
 
+  // The main-thread time Plotly took to draw each chart (its synchronous part, where the SVG is
+  // built), as a performance measure "wakeledger draw <chart id>" that the browser's developer
+  // tools and tests/bench/bench_pages.py read.
+  function measureDraw(id, started) {
+    try { performance.measure("wakeledger draw " + id, { start: started, end: performance.now() }); } catch (e) { /* old browser */ }
+  }
+
   function drawChart(id, figure, cursor) {
     var div = document.getElementById(id);
     if (!div || !window.Plotly) return null;
@@ -80,7 +87,9 @@
     chartCursor[id] = typeof cursor === "number" ? cursor : null;
     chartAdded[id] = 0;
     div.classList.remove("loading");
+    var started = performance.now();
     var done = Plotly.react(div, figure.data, figure.layout, PLOT_CONFIG);
+    measureDraw(id, started);
     if (!div.dataset.clickBound) {
       div.dataset.clickBound = "1";
       Promise.resolve(done).then(function () { openShotOnClick(div); });
