@@ -6,11 +6,13 @@ from __future__ import annotations
 
 import re
 
-from sqlalchemy import text
+from sqlalchemy import func, select, text
 
 from app.services.campaigns import find_campaign
 from app.services.dashboard import figures, overview
 from app.store import dashboard as store
+from app.store.exclusions import counted
+from app.tables import Evaluation
 
 SLUG = "test-campaign"
 
@@ -111,11 +113,6 @@ def test_the_shot_table_lists_excluded_shots_only_when_asked_and_marks_them(
 
 def test_leaving_excluded_shots_out_reads_the_index_of_the_excluded_shots_not_every_shot(seeded, db):
     # At 100,000 shots the (campaign_id, id) index cost every overview query 30-40 ms here.
-    from sqlalchemy import func, select
-
-    from app.store.exclusions import counted
-    from app.tables import Evaluation
-
     stmt = select(func.count()).select_from(Evaluation).where(*counted(Evaluation.shot_pk, 1))
     assert db.scalar(stmt) == 36
     if db.get_bind().dialect.name == "sqlite":
