@@ -27,10 +27,11 @@ from app.services.dashboard.figures import (
     PhaseSummary,
     calibration_figure,
     calibration_summary,
+    calibration_totals,
     flag_code_counts,
     flag_figure,
+    phase_data,
     phase_figure,
-    phase_rows,
     phase_summary,
     regime_figure,
     timeline_figure,
@@ -177,13 +178,6 @@ def calibration_facts(summary: CalibrationSummary) -> list[tuple[str, str]]:
     ]
 
 
-# The numbers shown beside a chart, sent with it (so the page itself stays quick).
-CHART_FACTS = {
-    "phase": lambda session, campaign: phase_facts(phase_summary(session, campaign)),
-    "calibration": lambda session, campaign: calibration_facts(calibration_summary(session, campaign)),
-}
-
-
 # Chart feeds by campaign, chart and parameters, kept while the campaign's change marks
 # stand still: every viewer of an overview shares one computation per new shot.
 _FEEDS: dict[tuple[Any, ...], tuple[tuple[Any, ...], dict[str, Any]]] = {}
@@ -207,17 +201,21 @@ def chart_feed(session: Session, campaign: Campaign, name: str, **params: Any) -
 
 def _chart_feed(session: Session, campaign: Campaign, name: str, cursor: int, **params: Any) -> dict[str, Any]:
     if name == "phase":  # the chart and its figures from one read of the phases
-        rows = phase_rows(session, campaign, cursor)
+        data = phase_data(session, campaign, cursor)
         return {
-            "figure": phase_figure(session, campaign, upto_pk=cursor, rows=rows),
+            "figure": phase_figure(session, campaign, upto_pk=cursor, data=data),
             "cursor": cursor,
-            "facts": phase_facts(phase_summary(session, campaign, rows=rows)),
+            "facts": phase_facts(phase_summary(session, campaign, data=data)),
+        }
+    if name == "calibration":  # the chart's counts are the figures' count too
+        totals = calibration_totals(session, campaign, cursor)
+        return {
+            "figure": calibration_figure(session, campaign, upto_pk=cursor, totals=totals),
+            "cursor": cursor,
+            "facts": calibration_facts(calibration_summary(session, campaign, cursor, totals=totals)),
         }
     builder = regime_figure if name == "regime" else CHART_FEEDS[name]
-    feed: dict[str, Any] = {"figure": builder(session, campaign, upto_pk=cursor, **params), "cursor": cursor}
-    if name in CHART_FACTS:
-        feed["facts"] = CHART_FACTS[name](session, campaign)
-    return feed
+    return {"figure": builder(session, campaign, upto_pk=cursor, **params), "cursor": cursor}
 
 
 def regime_feed(session: Session, campaign: Campaign, x: str, y: str) -> dict[str, Any]:

@@ -227,7 +227,10 @@
         chartReload[id](); // a long-open page: fetch the chart thinned again instead of growing it
         return;
       }
-      var update = { x: [], y: [], customdata: [] }, indices = [];
+      // Traces whose markers stand for cells of shots carry hover text (a new shot stands for
+      // itself: no text); Plotly extends an attribute only where the trace has it, so those go apart.
+      var plain = { x: [], y: [], customdata: [] }, plainIndices = [];
+      var withText = { x: [], y: [], customdata: [], text: [] }, textIndices = [];
       div.data.forEach(function (trace, i) {
         var meta = trace.meta;
         if (!meta || !meta.status) return;
@@ -241,9 +244,13 @@
           ids.push(s.shot_id.replace(/&/g, "&amp;").replace(/</g, "&lt;").replace(/>/g, "&gt;"));
         });
         if (!xsNew.length) return;
-        update.x.push(xsNew); update.y.push(ysNew); update.customdata.push(ids); indices.push(i);
+        var update = Array.isArray(trace.text) ? withText : plain;
+        update.x.push(xsNew); update.y.push(ysNew); update.customdata.push(ids);
+        if (update === withText) { update.text.push(ids.map(function () { return ""; })); textIndices.push(i); }
+        else plainIndices.push(i);
       });
-      if (indices.length) Plotly.extendTraces(div, update, indices);
+      if (plainIndices.length) Plotly.extendTraces(div, plain, plainIndices);
+      if (textIndices.length) Plotly.extendTraces(div, withText, textIndices);
     });
   }
 
