@@ -7,7 +7,7 @@ All datetimes bound here are UTC (SQLite stores them without an offset).
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
 from typing import Any
@@ -184,21 +184,36 @@ def counts_with_values(
 ) -> dict[str, int]:
     """Shots per status (stored up to ``upto_pk``) whose ``required`` columns are all set; without
     any, from the evaluations' index alone."""
-    counts = dict.fromkeys(STATUSES, 0)
+    return counts_with_values_of(session, campaign_id, {"": required}, upto_pk=upto_pk)[""]
+
+
+def counts_with_values_of(
+    session: Session,
+    campaign_id: int,
+    sets: Mapping[str, Sequence[ColumnElement[Any]]],
+    *,
+    upto_pk: int | None = None,
+) -> dict[str, dict[str, int]]:
+    """counts_with_values of each named set of columns, all from one pass over the campaign (at
+    100,000 shots one pass for three sets cost 100 ms of CPU, three passes 240 ms)."""
     base = (
         _evaluated(campaign_id)
-        if required
+        if any(sets.values())
         else select()
         .select_from(Evaluation)
         .where(Evaluation.campaign_id == campaign_id, *counted(Evaluation.shot_pk, campaign_id))
     )
+    tallies = [
+        func.sum(case((and_(*(c.is_not(None) for c in columns)), 1), else_=0)) if columns else func.count()
+        for columns in sets.values()
+    ]
+    counts = {name: dict.fromkeys(STATUSES, 0) for name in sets}
     rows = session.execute(
-        base.where(*(c.is_not(None) for c in required), *_upto(upto_pk))
-        .with_only_columns(Evaluation.status, func.count())
-        .group_by(Evaluation.status)
+        base.where(*_upto(upto_pk)).with_only_columns(Evaluation.status, *tallies).group_by(Evaluation.status)
     )
-    for status, n in rows:
-        counts[status] = n
+    for status, *numbers in rows:
+        for name, n in zip(sets, numbers, strict=True):
+            counts[name][status] = int(n or 0)
     return counts
 
 

@@ -56,9 +56,12 @@ SCATTER_NOMINAL_POINTS = 3000
 NOMINAL_MARKERS_MAX = 400
 FLAGGED_MARKERS_MAX = 250
 TIMELINE_FLAGGED_MARKERS_MAX = 120
-MAP_MARKER_CELLS = (110, 55)  # across, up: about 10 x 8 px on the regime and calibration maps
-TIMELINE_MARKER_CELLS = (110, 16)  # per panel of the timeline and the phase chart's upper panel
-DENSITY_CELLS = (60, 30)
+# Cells across and up, about 10 px square where the charts are drawn: the regime map and the
+# timeline's panels span the page, the calibration map and the phase chart half of it.
+WIDE_MARKER_CELLS = (110, 45)
+TIMELINE_MARKER_CELLS = (110, 16)
+HALF_WIDTH_MARKER_CELLS = (55, 40)
+DENSITY_CELLS = (100, 50)
 PHASE_MAX_BINS = 80
 PHASE_MIN_SHOTS_PER_BIN = 5
 PHASE_MAX_ROWS = 20000  # shots the phase figures are computed from; past it, 1 in k
@@ -179,22 +182,15 @@ def _density_trace(
     *,
     total: int,
     step: int,
-    axes: tuple[str, str] = ("x", "y"),
-    zone: Any = None,
 ) -> dict[str, Any]:
     """Nominal shots as one heatmap image: shots per cell (estimated from 1 in ``step`` when
-    thinned), coloured by their log so that sparse cells still show; empty cells are left clear.
-    ``zone``: x holds epoch seconds, drawn as that zone's wall-clock times."""
+    thinned), coloured by their log so that sparse cells still show; empty cells are left clear."""
     counts, x_edges, y_edges = np.histogram2d(x, y, bins=DENSITY_CELLS, range=[x_range, y_range])
     shots = counts.T * step  # rows go up the y axis
     about = "about " if step > 1 else ""
     text = [[f"{about}{format_number(int(v))} nominal shots in this cell" if v else None for v in row] for row in shots]
     with np.errstate(divide="ignore"):
         z = np.where(shots > 0, np.log10(np.maximum(shots, 1.0)), np.nan)
-    x_centres = (x_edges[:-1] + x_edges[1:]) / 2
-    xs: list[Any] = (
-        [chart_time(datetime.fromtimestamp(t, UTC), zone) for t in x_centres] if zone else rounded_list(x_centres)
-    )
     style = STATUS_STYLES["nominal"]
     note = f", from 1 in {step}" if step > 1 else ""
     return {
@@ -202,7 +198,7 @@ def _density_trace(
         "name": f"nominal ({total:,} shots as a density, darker = more{note})",
         "legendgroup": "nominal",
         "showlegend": True,
-        "x": xs,
+        "x": rounded_list((x_edges[:-1] + x_edges[1:]) / 2),
         "y": rounded_list((y_edges[:-1] + y_edges[1:]) / 2),
         "z": rounded_list(z, 4),
         "zmin": 0,
@@ -211,15 +207,13 @@ def _density_trace(
         "showscale": False,
         "hoverongaps": False,
         "hovertemplate": "%{text}<extra>nominal</extra>",
-        "xaxis": axes[0],
-        "yaxis": axes[1],
         "meta": {"density": "nominal"},
     }
 
 
-def _live_nominal_trace(x_field: str, y_field: str, axes: tuple[str, str] = ("x", "y")) -> dict[str, Any]:
+def _live_nominal_trace(x_field: str, y_field: str) -> dict[str, Any]:
     """Where live updates add new nominal shots (as markers) while the density stays as drawn."""
-    trace = _point_trace("nominal", [], [], [], x_field=x_field, y_field=y_field, total=0, axes=axes, showlegend=False)
+    trace = _point_trace("nominal", [], [], [], x_field=x_field, y_field=y_field, total=0, showlegend=False)
     trace["name"] = "nominal shots since the chart was drawn"
     return trace
 
@@ -240,10 +234,14 @@ def _series_by_status(
     upto_pk: int | None = None,
     flagged_points: int = FLAGGED_POINTS_CAP,
     totals: dict[str, int] | None = None,
+    with_time: bool = True,
 ) -> list[_StatusSeries]:
-    """Nominal shots thinned to ``nominal_points``; flagged shots all kept up to a cap.
+    """Nominal shots thinned to ``nominal_points``; flagged shots all kept up to a cap, in time
+    order (``taken_at`` among the columns unless ``with_time`` is false: a map has no time axis).
     ``totals``: the shots per status that have the ``required`` values, when already counted."""
-    wanted: dict[str, Any] = {"shot_id": Shot.shot_id, "taken_at": Shot.taken_at}
+    wanted: dict[str, Any] = (
+        {"shot_id": Shot.shot_id, "taken_at": Shot.taken_at} if with_time else {"shot_id": Shot.shot_id}
+    )
     wanted.update({name: store.NUMERIC_COLUMNS[name] for name in columns})
     needed = [store.NUMERIC_COLUMNS[name] for name in required]
     if totals is None:
@@ -341,7 +339,9 @@ def _epoch(moment: datetime) -> float:
     return moment.timestamp()
 
 
-def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, Any]:
+def timeline_figure(
+    session: Session, campaign: Campaign, upto_pk: int | None = None, totals: dict[str, int] | None = None
+) -> dict[str, Any]:
     """Key conditions against time, one panel each: nominal shots as a thin line, flagged shots
     marked by shape and colour, robust ranges (one wild value or date cannot flatten a panel)."""
     zone = campaign_zone(campaign.timezone)
@@ -352,6 +352,7 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
         nominal_points=TIMELINE_NOMINAL_POINTS,
         upto_pk=upto_pk,
         flagged_points=TIMELINE_FLAGGED_POINTS,
+        totals=totals,
     )
     panels = len(TIMELINE_FIELDS)
     gap = 0.04
@@ -458,6 +459,7 @@ def _status_map(
     *,
     upto_pk: int | None = None,
     totals: dict[str, int] | None = None,
+    cells: tuple[int, int] = WIDE_MARKER_CELLS,
 ) -> _StatusMap:
     """Shots by status on robust ranges (a wild value is pinned at the edge and marked); many
     nominal shots as a density, many flagged shots one marker per cell (module constants)."""
@@ -469,6 +471,7 @@ def _status_map(
         required=(x, y),
         upto_pk=upto_pk,
         totals=totals,
+        with_time=False,
     )
     xs = {item.status: rounded_list(item.series.columns[x]) for item in by_status}
     ys = {item.status: rounded_list(item.series.columns[y]) for item in by_status}
@@ -509,7 +512,7 @@ def _status_map(
             continue
         stands_for = None
         if status != "nominal":
-            picked, stands_for = _one_per_cell(at_x, at_y, x_range, y_range, MAP_MARKER_CELLS, FLAGGED_MARKERS_MAX)
+            picked, stands_for = _one_per_cell(at_x, at_y, x_range, y_range, cells, FLAGGED_MARKERS_MAX)
             kept = [kept[k] for k in picked.tolist()]
         traces.append(
             _point_trace(
@@ -578,11 +581,14 @@ class PhaseData:
     derivatives: dict[str, float | None]
 
 
-def phase_data(session: Session, campaign: Campaign, upto_pk: int | None = None) -> PhaseData:
+def phase_data(
+    session: Session, campaign: Campaign, upto_pk: int | None = None, totals: dict[str, int] | None = None
+) -> PhaseData:
     """The shots with a measured phase: counted by status (the chart's legend; their sum is the
-    figures' count), read in time order (thinned past PHASE_MAX_ROWS) and the typical phase
-    derivatives over an even sample of them."""
-    totals = store.counts_with_values(session, campaign.id, [store.NUMERIC_COLUMNS[PHASE_FIELD]], upto_pk=upto_pk)
+    figures' count; ``totals`` when already counted), read in time order (thinned past
+    PHASE_MAX_ROWS) and the typical phase derivatives over an even sample of them."""
+    if totals is None:
+        totals = store.counts_with_values(session, campaign.id, [store.NUMERIC_COLUMNS[PHASE_FIELD]], upto_pk=upto_pk)
     rows = store.phase_rows(
         session, campaign.id, JITTER_SOURCES, max_rows=PHASE_MAX_ROWS, upto_pk=upto_pk, total=sum(totals.values())
     )
@@ -715,31 +721,25 @@ def phase_figure(
     for item in by_status:
         cols = item.series.columns
         t, y = epochs[item.status], np.array(phases[item.status], dtype=float)
-        if item.status == "nominal" and len(t) > NOMINAL_MARKERS_MAX:
-            traces.append(
-                _density_trace(t, y, t_range, y_range, total=item.series.total, step=item.series.step, zone=zone)
-            )
-            traces.append(_live_nominal_trace("taken_at", PHASE_FIELD))
-            continue
         picked, stands_for = (
             (np.arange(len(t)), None)
             if item.status == "nominal"
-            else _one_per_cell(t, y, t_range, y_range, TIMELINE_MARKER_CELLS, FLAGGED_MARKERS_MAX)
+            else _one_per_cell(t, y, t_range, y_range, HALF_WIDTH_MARKER_CELLS, FLAGGED_MARKERS_MAX)
         )
         kept = picked.tolist()
-        traces.append(
-            _point_trace(
-                item.status,
-                [chart_time(cols["taken_at"][j], zone) for j in kept],
-                [phases[item.status][j] for j in kept],
-                [text_for_chart(cols["shot_id"][j]) for j in kept],
-                x_field="taken_at",
-                y_field=PHASE_FIELD,
-                total=item.series.total,
-                note=_series_note(item),
-                stands_for=None if stands_for is None else stands_for.tolist(),
-            )
+        trace = _point_trace(
+            item.status,
+            [chart_time(cols["taken_at"][j], zone) for j in kept],
+            [phases[item.status][j] for j in kept],
+            [text_for_chart(cols["shot_id"][j]) for j in kept],
+            x_field="taken_at",
+            y_field=PHASE_FIELD,
+            total=item.series.total,
+            note=_series_note(item),
+            stands_for=None if stands_for is None else stands_for.tolist(),
         )
+        # Many nominal shots: one thin line (one SVG path), as on the timeline.
+        traces.append(_line_trace(trace) if item.status == "nominal" and len(t) > NOMINAL_MARKERS_MAX else trace)
     traces.append(
         {
             "type": "scatter",
@@ -775,7 +775,10 @@ def phase_figure(
     return {"data": traces, "layout": figure_layout}
 
 
-CALIBRATION_MAX_ROWS = 20000  # shots the median offset is taken from; past it, 1 in k
+# Shots the median offset is taken from; past it, 1 in k. The median of n shots scatters by about
+# 1.25 sigma / sqrt(n) (sqrt(pi / 2) for Gaussian offsets; common practice, no source): 0.018 sigma
+# at 5,000, while reading every 5th shot of 100,000 instead cost the overview 80-150 ms of CPU.
+CALIBRATION_MAX_ROWS = 5000
 
 
 @dataclass(frozen=True)
@@ -808,10 +811,12 @@ def calibration_figure(
     """Measured modulation frequency against the plasma frequency the set density predicts, by
     status on robust ranges (as the regime map), with the line where they are equal."""
     predicted, measured = CALIBRATION_FIELDS
-    scatter = _status_map(session, campaign, predicted, measured, upto_pk=upto_pk, totals=totals)
+    scatter = _status_map(
+        session, campaign, predicted, measured, upto_pk=upto_pk, totals=totals, cells=HALF_WIDTH_MARKER_CELLS
+    )
     traces = scatter.traces
-    if any(t.get("x") for t in traces):
-        lo, hi = min(scatter.x_range[0], scatter.y_range[0]), max(scatter.x_range[1], scatter.y_range[1])
+    if any(t.get("x") for t in traces):  # across the predicted frequencies shown (the axis stays on the shots)
+        lo, hi = scatter.x_range
         traces.insert(
             0,
             {
