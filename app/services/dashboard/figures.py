@@ -55,7 +55,7 @@ SCATTER_NOMINAL_POINTS = 3000
 #   holding a flagged shot shows one (_one_per_cell).
 NOMINAL_MARKERS_MAX = 400
 FLAGGED_MARKERS_MAX = 250
-TIMELINE_FLAGGED_MARKERS_MAX = 120
+TIMELINE_FLAGGED_MARKERS_MAX = 80
 # Cells across and up, about 10 px square where the charts are drawn: the regime map and the
 # timeline's panels span the page, the calibration map and the phase chart half of it.
 WIDE_MARKER_CELLS = (110, 45)

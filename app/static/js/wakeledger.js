@@ -87,6 +87,10 @@
     chartCursor[id] = typeof cursor === "number" ? cursor : null;
     chartAdded[id] = 0;
     div.classList.remove("loading");
+    // The box keeps the figure's height: on a resize Plotly's responsive mode drops the layout's
+    // height and fits the chart to its box, which would otherwise shrink to the CSS minimum
+    // (the plot spilling over the cards below).
+    if (figure.layout && figure.layout.height) div.style.height = figure.layout.height + "px";
     var started = performance.now();
     var done = Plotly.react(div, figure.data, figure.layout, PLOT_CONFIG);
     measureDraw(id, started);
