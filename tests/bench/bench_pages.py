@@ -7,11 +7,16 @@ of the checkout given by ``--repo`` (this one by default: run it once with a che
 the code before a change for the "before" figures), and measures:
 
 - the server: the overview's HTML plus every feed the page loads (the three chart feeds
-  and the default regime map), one after another, with the browser's Accept-Encoding;
+  and the default regime map), one after another, with the browser's Accept-Encoding; the
+  server's CPU seconds for each, cold (the first round after start) and warm;
 - the steady live poll (``/live?since=<latest>``: nothing new), median of many;
 - headless Chromium (/usr/bin/chromium), a fresh profile each time (a first visit):
-  the time from navigation until every chart on the page is drawn, and the bytes
-  transferred (every response as it came over the wire, plotly.min.js included);
+  the time from navigation until every chart on the page is drawn, the page's main-thread
+  time (script, layout, style), each chart's Plotly time (wakeledger.js measures each draw)
+  with its markers and SVG elements, and the bytes transferred (every response as it came
+  over the wire, plotly.min.js included); a shot's page (two small charts, the same Plotly)
+  visited alternately gives the scale: on a loaded machine most of a first visit is
+  Chromium compiling Plotly;
 - the shot table and one shot's page, through the same server.
 
 Targets of issue 16 goal 1: every chart drawn within 2.5 s, HTML + feeds under 0.5 s,
