@@ -4,8 +4,9 @@ diagnostics and the ranking of what drives them.
 
 Pure numpy/scipy on aligned per-shot arrays in time order (NaN where a value is absent).
 The statistics are scipy's: ``scipy.stats.bootstrap`` (percentile intervals, a fixed seed so
-an answer is reproducible), ``quantile_test`` (the order-statistic interval of a median for
-large samples), ``theilslopes``, ``spearmanr``, ``rankdata`` and ``kstwobign``. The proxies of
+an answer is reproducible), the order-statistic interval of a median of ``quantile_test``
+(for large samples and for every point of a series; its binomial indices taken from
+``scipy.stats.binom`` directly), ``theilslopes``, ``spearmanr``, ``rankdata`` and ``kstwobign``. The proxies of
 the scaling checks are project proxies, not published laws.
 """
 
@@ -75,9 +76,32 @@ def _finite(values: ArrayLike) -> np.ndarray:
     return v[np.isfinite(v)]
 
 
+def order_statistic_indices(n: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
+    """0-based indices (low, high) into the sorted values of the distribution-free 95 % interval of
+    a median of n values (Conover, Practical Nonparametric Statistics, 3rd ed., 3.2; the indices of
+    scipy.stats.quantile_test(...).confidence_interval, from scipy.stats.binom without building a
+    test object); low < 0 or high >= n where that side does not exist (n <= 5)."""
+    count = np.asarray(n, dtype=float)
+    tail = (1.0 - CONFIDENCE) / 2.0
+    low = stats.binom.ppf(tail, count, 0.5).astype(int) - 1
+    high = stats.binom.isf(tail, count, 0.5).astype(int)
+    return low, high
+
+
+def _order_statistic_interval(ordered: np.ndarray, low: int, high: int) -> MedianInterval:
+    """The median of sorted finite values with its order-statistic interval (None sides where none exists)."""
+    n = int(ordered.size)
+    median = float(np.median(ordered))
+    lo = float(ordered[low]) if 0 <= low < n else None
+    hi = float(ordered[high]) if 0 <= high < n else None
+    if lo is None or hi is None:
+        return MedianInterval(median, lo, hi, None, n, "none")
+    return MedianInterval(median, lo, hi, (hi - lo) / (2 * Z_INTERVAL), n, "order statistics")
+
+
 def median_interval(values: ArrayLike, seed: int = BOOTSTRAP_SEED) -> MedianInterval:
     """Median with its 95 % interval: percentile bootstrap (scipy.stats.bootstrap) up to
-    BOOTSTRAP_MAX_VALUES values, order statistics (scipy.stats.quantile_test) above."""
+    BOOTSTRAP_MAX_VALUES values, order statistics (order_statistic_indices) above."""
     v = _finite(values)
     n = int(v.size)
     if n == 0:
@@ -97,9 +121,8 @@ def median_interval(values: ArrayLike, seed: int = BOOTSTRAP_SEED) -> MedianInte
         )
         low, high = float(result.confidence_interval.low), float(result.confidence_interval.high)
         return MedianInterval(median, low, high, float(result.standard_error), n, "bootstrap")
-    ci = stats.quantile_test(v, q=median, p=0.5).confidence_interval(CONFIDENCE)
-    low, high = float(ci.low), float(ci.high)
-    return MedianInterval(median, low, high, (high - low) / (2 * Z_INTERVAL), n, "order statistics")
+    lows, highs = order_statistic_indices(n)
+    return _order_statistic_interval(np.sort(v), int(lows), int(highs))
 
 
 def scale_interval(ratios: ArrayLike, seed: int = BOOTSTRAP_SEED) -> MedianInterval:
@@ -263,16 +286,22 @@ def _rank_correlation(a: np.ndarray, b: np.ndarray, axis: int = -1) -> np.ndarra
         return (a * b).sum(axis=axis) / np.sqrt((a * a).sum(axis=axis) * (b * b).sum(axis=axis))
 
 
+def driver_sample(outcome: ArrayLike) -> np.ndarray:
+    """Indices of the shots the driver ranking of an outcome uses: at most DRIVER_MAX_SHOTS of those
+    with the outcome, evenly spaced in time."""
+    have = np.flatnonzero(np.isfinite(np.asarray(outcome, dtype=float)))
+    return have[evenly_spaced(int(have.size), DRIVER_MAX_SHOTS)]
+
+
 def rank_drivers(
     outcome: ArrayLike, inputs: Mapping[str, ArrayLike], seed: int = BOOTSTRAP_SEED
 ) -> tuple[list[DriverRank], int]:
-    """Inputs ranked by |Spearman ρ| with the outcome (scipy.stats.spearmanr) over at most
-    DRIVER_MAX_SHOTS shots with the outcome, each with a percentile bootstrap interval
+    """Inputs ranked by |Spearman ρ| with the outcome (scipy.stats.spearmanr) over the shots of
+    driver_sample (only those values of the inputs are read), each with a percentile bootstrap interval
     (scipy.stats.bootstrap, paired) of the correlation of the ranks (scipy.stats.rankdata,
     taken once). Inputs constant over the shots are left out."""
     y = np.asarray(outcome, dtype=float)
-    have = np.flatnonzero(np.isfinite(y))
-    pick = have[evenly_spaced(int(have.size), DRIVER_MAX_SHOTS)]
+    pick = driver_sample(y)
     if pick.size < 5:
         return [], int(pick.size)
     names: list[str] = []
@@ -314,11 +343,34 @@ def rank_drivers(
 
 
 def segment_medians(
-    ratios: ArrayLike, segments: Sequence[tuple[str, int, int]], seed: int = BOOTSTRAP_SEED
+    ratios: ArrayLike, segments: Sequence[tuple[str, np.ndarray | slice]]
 ) -> list[tuple[str, MedianInterval]]:
-    """Median of c_i with its interval over each (label, start, stop) slice of the time-ordered values."""
+    """Median of c_i with its order-statistic interval (order_statistic_indices, at every size: a series
+    has one point per day or run, hundreds of small ones, which a bootstrap each would make slow) over
+    each (label, shots) of the values; shots are a slice or indices, NaN skipped."""
     c = np.asarray(ratios, dtype=float)
-    return [(label, median_interval(c[start:stop], seed)) for label, start, stop in segments]
+    parts = [_finite(c[shots]) for _label, shots in segments]
+    lows, highs = order_statistic_indices([p.size for p in parts])
+    out: list[tuple[str, MedianInterval]] = []
+    for (label, _shots), values, low, high in zip(segments, parts, lows.tolist(), highs.tolist(), strict=True):
+        if values.size == 0:
+            out.append((label, MedianInterval(None, None, None, None, 0, "none")))
+        else:
+            out.append((label, _order_statistic_interval(np.sort(values), low, high)))
+    return out
+
+
+def density_scale_ratios_from_evaluation(
+    mismatch_pct: ArrayLike, gradient_pct_per_m: ArrayLike, applied_scale: float
+) -> np.ndarray:
+    """c_i from an evaluation made at density_scale s: (1 + frequency_mismatch_pct/100)² s, since
+    f_ref(s) = √s f_ref(1) where f_ref = f_p ∝ √n_0 (no gradient; MODEL.md section 6) and trivially at
+    s = 1; NaN where neither holds (z_ref moves with the density: the model must be run) or unmeasured."""
+    m = np.asarray(mismatch_pct, dtype=float)
+    exact = (np.asarray(gradient_pct_per_m, dtype=float) == 0.0) | (applied_scale == 1.0)
+    with np.errstate(invalid="ignore"):
+        ratio = (1.0 + m / 100.0) ** 2 * applied_scale
+    return np.where(exact & np.isfinite(ratio) & (ratio > 0), ratio, np.nan)
 
 
 def density_scale_ratios(columns: Mapping[str, ArrayLike], settings: Mapping[str, object] | None = None) -> np.ndarray:

@@ -119,24 +119,50 @@ class SliceGrid:
     sources: list[RigidSource] = field(default_factory=list)
 
 
+class WakeSumBuffers:
+    """The slices x nodes arrays of `transverse_wake_sum`, kept from step to step: a run's steps differ only in the
+    number of kernel nodes (each step's u range), so no step allocates them again."""
+
+    def __init__(self, slices: int) -> None:
+        self.slices = slices
+        self._decay = np.empty(0)
+        self._sums = np.empty(0, dtype=complex)
+
+    def arrays(self, nodes: int) -> tuple[np.ndarray, np.ndarray]:
+        """(decay, sums): contiguous slices x nodes views, real and complex."""
+        size = self.slices * nodes
+        if self._decay.size < size:
+            self._decay = np.empty(size)
+            self._sums = np.empty(size, dtype=complex)
+        shape = (self.slices, nodes)
+        return self._decay[:size].reshape(shape), self._sums[:size].reshape(shape)
+
+
 def transverse_wake_sum(
     zeta_m: np.ndarray,
     particles: np.ndarray,
     u: np.ndarray,
     kp: float,
     sources: list[RigidSource] | tuple = (),
+    buffers: WakeSumBuffers | None = None,
 ) -> np.ndarray:
     """S_i = sum_{j ahead of i} sin(k_p(zeta_j - zeta_i)) N_j h((u_i+u_j)/2) by cumulative sums (MODEL.md section 10).
 
     zeta_m must be strictly decreasing (head first); N_j = lambda_j dzeta. Rigid sources act
-    on the slices behind them with their own u_s = (k_p sigma_s)^2.
+    on the slices behind them with their own u_s = (k_p sigma_s)^2. `buffers`: the arrays of
+    an earlier call of the same grid, reused.
     """
     source_u = [(kp * s.sigma_r_m) ** 2 for s in sources]
     u_all = np.concatenate([u, source_u]) if sources else u
     t, w = quadrature.kernel_rule_for(float(u_all.min()), float(u_all.max()))
+    decay, acc = (buffers or WakeSumBuffers(zeta_m.size)).arrays(t.size)
     rotor = np.exp(1j * (kp * zeta_m))  # e^{i k_p zeta_j}: sin(a - b) = Im(e^{ia} e^{-ib})
-    decay = np.exp(np.multiply.outer(-0.5 * u, t))  # e^{-u_i t_m / 2}
-    acc = decay * (particles * rotor)[:, None]
+    np.multiply.outer(-0.5 * u, t, out=decay)
+    np.exp(decay, out=decay)  # e^{-u_i t_m / 2}
+    source = particles * rotor
+    # the real and imaginary parts of decay x (N rotor) written in place: the same numbers as the complex product
+    np.multiply(decay, source.real[:, None], out=acc.real)
+    np.multiply(decay, source.imag[:, None], out=acc.imag)
     np.cumsum(acc, axis=0, out=acc)  # row j: sum over slices 0..j (one complex pass for sin and cos)
     decay *= w
     total = np.zeros(zeta_m.size)
@@ -286,10 +312,13 @@ def integrate_envelope(
     vx = np.zeros(n)  # the entrance is a waist
     vy = np.full(n, setup.geometric_emittance_m / setup.sigma_r_m)  # angular momentum eps_g
 
+    buffers = WakeSumBuffers(n)
+
     def focusing(z: float, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, float]:
         kp = setup.wavenumber(z)
         u = kp * kp * (x * x + y * y)
-        return setup.coupling(kp) * transverse_wake_sum(grid.zeta_m, grid.particles, u, kp, grid.sources), kp
+        wake = transverse_wake_sum(grid.zeta_m, grid.particles, u, kp, grid.sources, buffers)
+        return setup.coupling(kp) * wake, kp
 
     stride = max(1, int(math.ceil(n_steps / max(n_stored - 1, 1))))
     stored_steps = list(range(0, n_steps + 1, stride))

@@ -8,8 +8,10 @@ Databases
   .ci/run does). WAKELEDGER_TEST_BACKENDS=sqlite (comma list) restricts the set.
   Select one with ``-k sqlite`` / ``-k postgresql``.
 - ``database_url``: a migrated database with no rows, fresh for each test. SQLite: a copy
-  of a migrated template file under tmp_path. PostgreSQL: one scratch database per test
-  session (CREATE DATABASE wl_test_<random>, dropped at the end), emptied before each test.
+  of a migrated template file, in /dev/shm where it exists (no fsync cost), removed after
+  the test. PostgreSQL: one scratch database per test session (CREATE DATABASE
+  wl_test_<random>, synchronous_commit off, dropped at the end), emptied before each test
+  over one connection kept for the session.
 - ``empty_database_url``: a database with no tables at all (for migration tests).
 
 App
@@ -35,11 +37,14 @@ Shots
 
 from __future__ import annotations
 
+import contextlib
 import copy
 import json
 import os
 import shutil
 import socket
+import sqlite3
+import tempfile
 import threading
 import time
 import uuid
@@ -97,6 +102,9 @@ def _create_pg_database(admin_url: str, suffix: str = "") -> str:
     try:
         with engine.connect() as conn:
             conn.execute(text(f'CREATE DATABASE "{name}"'))
+            # A scratch database need not survive a crash of the server: commits return without
+            # waiting for the WAL flush (what the tests read back is the same).
+            conn.execute(text(f'ALTER DATABASE "{name}" SET synchronous_commit = off'))
     finally:
         engine.dispose()
     return make_url(admin_url).set(database=name).render_as_string(hide_password=False)
@@ -127,26 +135,61 @@ def _pg_scratch_url() -> Iterator[str]:
         _drop_pg_database(admin, url)
 
 
-def _empty_all_tables(url: str) -> None:
-    """DELETE is much quicker than TRUNCATE for the handful of rows a test leaves."""
+@pytest.fixture(scope="session")
+def _pg_emptier(_pg_scratch_url: str) -> Iterator[Callable[..., None]]:
+    """Empties the scratch database before each test, over one connection kept for the session."""
     from app.tables import Base
 
-    engine = create_engine(url)
-    try:
+    # DELETE is much quicker than TRUNCATE for the handful of rows a test leaves; children first.
+    statements = "; ".join(f'DELETE FROM "{t.name}"' for t in reversed(Base.metadata.sorted_tables))
+    engine = create_engine(_pg_scratch_url, pool_size=1, pool_pre_ping=True)
+
+    def empty(then: str = "") -> None:
+        """Empty every table, then run ``then`` (SQL) in the same transaction."""
         with engine.begin() as conn:
-            for table in reversed(Base.metadata.sorted_tables):
-                conn.execute(table.delete())
+            conn.exec_driver_sql(f"{statements}; {then}" if then else statements)
+
+    try:
+        yield empty
     finally:
         engine.dispose()
 
 
+# SQLite test databases live in memory-backed /dev/shm where there is one: a scratch database
+# need not survive a power cut, and there an fsync (synchronous=FULL, every commit) costs nothing.
+MEMORY_DIR = Path("/dev/shm")
+
+
 @pytest.fixture(scope="session")
-def _sqlite_template(tmp_path_factory: pytest.TempPathFactory) -> Path:
+def _sqlite_dir(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Path]:
+    if not (MEMORY_DIR.is_dir() and os.access(MEMORY_DIR, os.W_OK)):
+        yield tmp_path_factory.mktemp("sqlite")
+        return
+    path = Path(tempfile.mkdtemp(prefix="wakeledger-tests-", dir=MEMORY_DIR))
+    try:
+        yield path
+    finally:
+        shutil.rmtree(path, ignore_errors=True)
+
+
+@pytest.fixture(scope="session")
+def _sqlite_template(_sqlite_dir: Path) -> Path:
     from app.database import upgrade_database
 
-    path = tmp_path_factory.mktemp("sqlite-template") / "template.db"
+    path = _sqlite_dir / "template.db"
     upgrade_database(f"sqlite:///{path}")
     return path
+
+
+def sqlite_scratch_copy(template: Path, directory: Path) -> Iterator[str]:
+    """The URL of a fresh copy of a SQLite template file, removed (with its WAL files) afterwards."""
+    path = directory / f"{uuid.uuid4().hex}.db"
+    shutil.copyfile(template, path)
+    try:
+        yield f"sqlite:///{path}"
+    finally:
+        for leftover in (path, path.with_name(path.name + "-wal"), path.with_name(path.name + "-shm")):
+            leftover.unlink(missing_ok=True)
 
 
 # --- database fixtures ---------------------------------------------------------------------------
@@ -160,14 +203,94 @@ def backend(request: pytest.FixtureRequest) -> str:
 
 
 @pytest.fixture
-def database_url(backend: str, tmp_path: Path, request: pytest.FixtureRequest) -> str:
+def database_url(backend: str, request: pytest.FixtureRequest) -> Iterator[str]:
     if backend == "sqlite":
-        path = tmp_path / "wakeledger.db"
-        shutil.copyfile(request.getfixturevalue("_sqlite_template"), path)
-        return f"sqlite:///{path}"
-    url = request.getfixturevalue("_pg_scratch_url")
-    _empty_all_tables(url)
-    return url
+        template, directory = request.getfixturevalue("_sqlite_template"), request.getfixturevalue("_sqlite_dir")
+        yield from sqlite_scratch_copy(template, directory)
+        return
+    request.getfixturevalue("_pg_emptier")()
+    yield request.getfixturevalue("_pg_scratch_url")
+
+
+@pytest.fixture(scope="session")
+def _filled_once() -> dict[str, Any]:
+    """What ``filled_database_url`` has filled this session: SQLite file or PostgreSQL schema by name."""
+    return {}
+
+
+def _pg_stash(url: str, schema: str) -> None:
+    """Keep a copy of every table of the scratch database in ``schema`` (same columns, same order)."""
+    from app.tables import Base
+
+    engine = create_engine(url)
+    try:
+        with engine.begin() as conn:
+            conn.exec_driver_sql(f'CREATE SCHEMA "{schema}"')
+            for table in Base.metadata.sorted_tables:
+                conn.exec_driver_sql(f'CREATE TABLE "{schema}"."{table.name}" AS TABLE public."{table.name}"')
+    finally:
+        engine.dispose()
+
+
+def _pg_restore_statements(schema: str) -> str:
+    """Copy the stash back, parents first, and move each id sequence past the copied ids."""
+    from app.tables import Base
+
+    statements = []
+    for table in Base.metadata.sorted_tables:
+        statements.append(
+            f'INSERT INTO public."{table.name}" OVERRIDING SYSTEM VALUE SELECT * FROM "{schema}"."{table.name}"'
+        )
+        for column in table.primary_key.columns:
+            if column.type.python_type is int and len(table.primary_key.columns) == 1:
+                statements.append(
+                    f"SELECT setval(seq, top) FROM (SELECT pg_get_serial_sequence('public.\"{table.name}\"',"
+                    f' \'{column.name}\') AS seq, (SELECT max("{column.name}") FROM public."{table.name}") AS top)'
+                    " AS q WHERE seq IS NOT NULL AND top IS NOT NULL"
+                )
+    return "; ".join(statements)
+
+
+@pytest.fixture
+def filled_database_url(backend: str, request: pytest.FixtureRequest) -> Iterator[Callable[..., str]]:
+    """``filled_database_url(name, fill)``: a fresh database holding what ``fill(url)`` stores in
+    an empty migrated one. ``fill`` runs once per session and name; each test gets its own copy
+    (SQLite: a copy of the filled file; PostgreSQL: the emptied scratch database, refilled from a
+    schema that keeps the rows), so a test may write to it like to ``database_url``. ``fill``
+    must be deterministic, and the same for every caller of the name."""
+    done: dict[str, Any] = request.getfixturevalue("_filled_once")
+    copies: list[Iterator[str]] = []
+
+    def filled(name: str, fill: Callable[[str], None]) -> str:
+        key = f"{backend}:{name}"
+        if backend == "sqlite":
+            directory = request.getfixturevalue("_sqlite_dir")
+            if key not in done:
+                path = directory / f"filled-{name}.db"
+                shutil.copyfile(request.getfixturevalue("_sqlite_template"), path)
+                fill(f"sqlite:///{path}")
+                with contextlib.closing(sqlite3.connect(path)) as conn:  # fold the WAL into the file copied
+                    conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+                done[key] = path
+            copy_ = sqlite_scratch_copy(done[key], directory)
+            copies.append(copy_)
+            return next(copy_)
+        url = request.getfixturevalue("_pg_scratch_url")
+        empty = request.getfixturevalue("_pg_emptier")
+        if key not in done:
+            empty()
+            fill(url)
+            schema = f"filled_{uuid.uuid4().hex[:8]}"
+            _pg_stash(url, schema)
+            done[key] = _pg_restore_statements(schema)
+        empty(then=done[key])
+        return url
+
+    try:
+        yield filled
+    finally:
+        for copy_ in copies:
+            copy_.close()  # removes the copy
 
 
 @pytest.fixture

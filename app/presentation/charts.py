@@ -37,6 +37,23 @@ def text_for_chart(value: str) -> str:
     return html.escape(value, quote=False)
 
 
+def title_lines(title: str, width: int) -> str:
+    """An axis title broken at spaces into lines of about ``width`` characters (Plotly's ``<br>``; each
+    line escaped), a trailing ``[unit]`` on a line of its own once the title needs more than one: Plotly
+    never wraps a title, and one wider (or, upright, taller) than its chart is cut off."""
+    words = title.split(" ")
+    unit = words.pop() if len(words) > 1 and words[-1].startswith("[") and len(title) > width else None
+    lines: list[str] = []
+    for word in words:
+        if lines and len(lines[-1]) + 1 + len(word) <= width:
+            lines[-1] += " " + word
+        else:
+            lines.append(word)
+    if unit is not None:
+        lines.append(unit)
+    return "<br>".join(text_for_chart(line) for line in lines)
+
+
 ROBUST_TAIL = 0.005  # share of the values at each end that may not stretch an axis
 ROBUST_MARGIN = 0.5  # the range kept: the inner quantiles widened by this share of their width
 

@@ -4,7 +4,8 @@ Four questions about a base shot on the closed-form model: a scan over one or tw
 nominal window of each field, the nearest nominal shot, and the sensitivity table
 (``app.services.planner.answers``). The endpoints are plain ``def``: the model's work runs in the
 threadpool. Answers are written once by orjson (``json_bytes``), numpy arrays natively and NaN
-as null; problems are RFC 9457 documents naming each failing field (``axes.0.start``).
+as null; a scan's answer is sent as it is written, piece by piece (``json_pieces_response``).
+Problems are RFC 9457 documents naming each failing field (``axes.0.start``).
 """
 
 from __future__ import annotations
@@ -25,7 +26,7 @@ from app.routers.plan_schemas import (
     WindowIn,
     WindowsOut,
 )
-from app.routers.responses import numeric_json_response
+from app.routers.responses import json_pieces_response, numeric_json_response
 from app.services.planner import answers
 
 router = APIRouter(prefix="/api/v1/plans", tags=["planner"], route_class=StrictJSONRoute)
@@ -42,7 +43,8 @@ def plan_scan(request: ScanIn, session: DB, _who: ViewerQuestion) -> Response:
     """Evaluate the base over a grid of one or two input fields (every point the base with those values)."""
     base = answers.resolve_base(session, request.base, request.campaign)
     axes = [a.model_dump() for a in request.axes]
-    return numeric_json_response(answers.scan_answer(base, answers.scan(base, axes, request.outputs)))
+    result = answers.scan(base, axes, request.outputs)
+    return json_pieces_response(answers.scan_answer(base, result, request.output_encoding))
 
 
 @router.post("/window", response_model=WindowsOut, responses=PROBLEMS)

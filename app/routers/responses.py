@@ -3,7 +3,7 @@ documents are not walked by FastAPI's encoder) and file downloads."""
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import AsyncIterator, Iterable, Iterator
 from typing import Any
 
 from fastapi.responses import Response, StreamingResponse
@@ -28,6 +28,18 @@ def json_response(value: Any, status_code: int = 200) -> Response:
 def numeric_json_response(value: Any, status_code: int = 200) -> Response:
     """JSON of large numeric answers (numpy arrays, NaN as null), written by orjson."""
     return Response(json_bytes(value), status_code=status_code, media_type="application/json", headers=NO_STORE)
+
+
+def json_pieces_response(pieces: Iterator[bytes]) -> StreamingResponse:
+    """A large JSON answer sent as it is written (chunked): the client reads a piece while the next one is
+    encoded. The pieces are encoded here on the event loop, a millisecond or so each (a 250,000-point
+    scan: a few ms): handing each one to the threadpool cost more wall time than it saved."""
+
+    async def body() -> AsyncIterator[bytes]:
+        for piece in pieces:
+            yield piece
+
+    return StreamingResponse(body(), media_type="application/json", headers=NO_STORE)
 
 
 def _disposition(filename: str, inline: bool) -> dict[str, str]:

@@ -9,13 +9,14 @@ calibrate`` take what they show from the same result.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, time, timedelta
 from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
+import orjson
 from sqlalchemy.orm import Session, sessionmaker
 
 import model
@@ -24,8 +25,7 @@ from app.plain import finite_or_none
 from app.presentation.numbers import format_number
 from app.services.campaign_settings import change_settings
 from app.services.campaigns import effective_settings, require_campaign
-from app.services.ingest.evaluation import model_columns
-from app.services.phase_spread import JITTER_SOURCES, phase_jitter, typical_phase_derivatives
+from app.services.phase_spread import JITTER_SOURCES, derivative_sample, phase_jitter, typical_phase_derivatives
 from app.store import calibration as store
 from app.tables import Campaign
 from app.times import campaign_zone, format_utc
@@ -47,6 +47,17 @@ DRIVER_OUTCOMES: tuple[str, ...] = (*MEASURED_DIAGNOSTICS, "efolds_exit")
 DRIVER_INPUTS: tuple[str, ...] = tuple(
     f.path for f in model.INPUT_FIELDS if f.kind in ("float", "integer") and not f.path.startswith("measured.")
 )
+#: Inputs read for every shot: the diagnostics, the conditions of the scaling checks and of the phase
+#: jitter, and the gradient (whether the stored evaluation gives c without the model). Every other
+#: input is read only for the shots that need it (``store.read_inputs``).
+SHOT_INPUTS: tuple[str, ...] = tuple(
+    dict.fromkeys(
+        (*MEASURED_DIAGNOSTICS, "plasma.length_m", "driver.momentum_gev", "plasma.gradient_pct_per_m", *JITTER_SOURCES)
+    )
+)
+#: Where a shot's run tag is read (top-level sections other than the physics ones are kept verbatim):
+#: the first of these paths whose value is a non-blank string or an integer; its text is the run label.
+RUN_TAG_PATHS: tuple[str, ...] = ("daq.run", "daq.run_id", "daq.run_number", "run", "run_id")
 #: Drivers shown per outcome.
 TOP_DRIVERS = 8
 
@@ -67,6 +78,16 @@ class ScalingCheck:
     names: list[str]  # shot id (or day) of each point
 
 
+@dataclass(frozen=True)
+class RunPoint:
+    """The scale over the shots of one run (a run tag's label), with the run's first and last shot."""
+
+    run: str
+    first: int  # index of the run's first shot (time order)
+    last: int  # index of its last shot
+    scale: cal.MedianInterval
+
+
 @dataclass
 class Calibration:
     campaign: Campaign
@@ -80,28 +101,12 @@ class Calibration:
     scale: cal.MedianInterval = cal.MedianInterval(None, None, None, None, 0, "none")
     mismatch: cal.MedianInterval = cal.MedianInterval(None, None, None, None, 0, "none")
     series: list[tuple[str, cal.MedianInterval]] = field(default_factory=list)
+    run_series: list[RunPoint] = field(default_factory=list)
+    run_paths: list[str] = field(default_factory=list)  # the RUN_TAG_PATHS that gave a run tag
+    untagged: int = 0  # shots with a measured frequency and no run tag (while others have one)
     changes: list[cal.ScaleChange] = field(default_factory=list)
     scaling: list[ScalingCheck] = field(default_factory=list)
     drivers: list[tuple[str, list[cal.DriverRank], int]] = field(default_factory=list)
-
-
-def _floats(values: list[Any]) -> np.ndarray:
-    return np.array(values, dtype=float)  # None reads as NaN
-
-
-def _read(
-    session: Session, campaign: Campaign, start: datetime | None, end: datetime | None, progress: Progress | None
-) -> dict[str, list[Any]]:
-    total = store.count_calibration_rows(session, campaign.id, start, end) if progress is not None else 0
-    keys = store.CALIBRATION_KEYS
-    rows: list[Any] = []
-    for part in store.iter_calibration_rows(session, campaign.id, start, end):
-        rows += part
-        if progress is not None:
-            progress(len(rows), total, "reading shots")
-    if not rows:
-        return {key: [] for key in keys}
-    return {key: list(values) for key, values in zip(keys, zip(*rows, strict=True), strict=True)}
 
 
 def instant(seconds: float) -> datetime:
@@ -109,8 +114,8 @@ def instant(seconds: float) -> datetime:
     return datetime.fromtimestamp(float(seconds), UTC)
 
 
-def day_segments(stamps: np.ndarray, zone: ZoneInfo) -> list[tuple[str, int, int]]:
-    """(day of ``zone``, first index, end index) of time-ordered instants (seconds since 1970), days with shots only."""
+def day_segments(stamps: np.ndarray, zone: ZoneInfo) -> list[tuple[str, slice]]:
+    """(day of ``zone``, its shots) of time-ordered instants (seconds since 1970), days with shots only."""
     if not stamps.size:
         return []
     first, last = instant(stamps[0]).astimezone(zone).date(), instant(stamps[-1]).astimezone(zone).date()
@@ -118,7 +123,59 @@ def day_segments(stamps: np.ndarray, zone: ZoneInfo) -> list[tuple[str, int, int
     starts = [datetime.combine(d, time(0), tzinfo=zone).timestamp() for d in days]
     bounds = [*np.searchsorted(stamps, starts, side="left").tolist(), int(stamps.size)]
     bounds[0] = 0
-    return [(d.isoformat(), lo, hi) for d, lo, hi in zip(days, bounds[:-1], bounds[1:], strict=True) if hi > lo]
+    return [(d.isoformat(), slice(lo, hi)) for d, lo, hi in zip(days, bounds[:-1], bounds[1:], strict=True) if hi > lo]
+
+
+def _run_tag(text: str | None) -> tuple[str, int] | None:
+    """(label, index into RUN_TAG_PATHS) of one shot's JSON array of the values at the paths."""
+    if text is None:
+        return None
+    for i, value in enumerate(orjson.loads(text)):
+        if isinstance(value, str) and value.strip():
+            return value, i
+        if isinstance(value, int) and not isinstance(value, bool):
+            return str(value), i
+    return None
+
+
+def run_groups(tags: Sequence[str | None]) -> tuple[list[tuple[str, np.ndarray]], list[str]]:
+    """The runs of time-ordered shots, (label, indices of its shots) in the order of their first shot,
+    from each shot's JSON array of run-tag values (decoded once per distinct array), and the paths
+    that gave a tag."""
+    decoded: dict[str | None, tuple[str, int] | None] = {}
+    codes: dict[str, int] = {}
+    paths: set[int] = set()
+    shot_codes = np.full(len(tags), -1, dtype=np.int64)
+    for i, text in enumerate(tags):
+        if text not in decoded:
+            decoded[text] = _run_tag(text)
+        tag = decoded[text]
+        if tag is not None:
+            shot_codes[i] = codes.setdefault(tag[0], len(codes))
+            paths.add(tag[1])
+    if not codes:
+        return [], []
+    order = np.argsort(shot_codes, kind="stable")  # each run's shots stay in time order
+    sorted_codes = shot_codes[order]
+    cuts = np.flatnonzero(np.diff(sorted_codes)) + 1
+    labels = list(codes)
+    groups = [
+        (labels[int(sorted_codes[part[0]])], order[part])
+        for part in np.split(np.arange(order.size), cuts)
+        if sorted_codes[part[0]] >= 0
+    ]
+    groups.sort(key=lambda g: int(g[1][0]))
+    return groups, [RUN_TAG_PATHS[i] for i in sorted(paths)]
+
+
+def _spread(values: Mapping[str, np.ndarray], at: np.ndarray, n: int) -> dict[str, np.ndarray]:
+    """Columns of n shots holding ``values`` at the indices ``at`` (NaN, or None for text, elsewhere)."""
+    out: dict[str, np.ndarray] = {}
+    for path, column in values.items():
+        full = np.full(n, None, dtype=object) if column.dtype == object else np.full(n, np.nan)
+        full[at] = column
+        out[path] = full
+    return out
 
 
 def measure(
@@ -136,42 +193,83 @@ def measure(
         raise InvalidInput([("to", "must be later than from")])
     campaign = require_campaign(session, slug)
     settings = effective_settings(campaign)
-    rows = _read(session, campaign, start, end, progress)
-    n = len(rows["shot_id"])
-    result = Calibration(campaign, start, end, float(settings["density_scale"]), n)
-    result.shot_ids, result.taken_at = list(rows["shot_id"]), store.taken_at_seconds(rows["taken_at"])
+    applied = float(settings["density_scale"])
+    total = store.count_calibration_rows(session, campaign.id, start, end) if progress is not None else 0
+    shots = store.read_shots(
+        session,
+        campaign.id,
+        start,
+        end,
+        inputs=SHOT_INPUTS,
+        settings_version=campaign.settings_version,
+        model_version=model.MODEL_VERSION,
+        run_tag_paths=RUN_TAG_PATHS,
+        on_rows=(lambda done: progress(done, total, "reading shots")) if progress is not None else None,
+    )
+    n = len(shots.shot_id)
+    result = Calibration(campaign, start, end, applied, n)
+    result.shot_ids, result.taken_at = shots.shot_id, shots.taken_at
     if n == 0:
         return result
-    columns = model_columns(rows)
-    measured_freq = columns["measured.modulation_freq_ghz"]
-    ratios = np.full(n, np.nan)
-    have = np.flatnonzero(np.isfinite(measured_freq))
-    if have.size:
-        subset = {path: values[have] for path, values in columns.items()}
-        ratios[have] = cal.density_scale_ratios(subset, campaign.model_settings or {})
+    values = shots.values
+    overrides = campaign.model_settings or {}
+
+    # c_i from the stored evaluation where it is current and exact; the model at density_scale 1 for the rest.
+    measured_freq = values["measured.modulation_freq_ghz"]
+    stored = cal.density_scale_ratios_from_evaluation(
+        values["frequency_mismatch_pct"], values["plasma.gradient_pct_per_m"], applied
+    )
+    ratios = np.where(shots.current, stored, np.nan)
+    rerun = np.flatnonzero(np.isfinite(measured_freq) & ~np.isfinite(ratios))
+    # Every input of the shots the model runs on and of the samples the phase derivatives and the
+    # driver ranking take (their indices depend only on which shots have a value).
+    phases = values["measured.modulation_phase_rad"]
+    with_phase = np.flatnonzero(np.isfinite(phases))
+    phase_sample = with_phase[derivative_sample(with_phase.size)] if with_phase.size else with_phase
+    outcomes = {**{p: values[p] for p in MEASURED_DIAGNOSTICS}, "efolds_exit": values["efolds_exit"]}
+    samples = [cal.driver_sample(outcomes[name]) for name in DRIVER_OUTCOMES] if drivers else []
+    wanted = np.unique(np.concatenate([rerun, phase_sample, *samples]).astype(np.int64))
+    inputs = _spread(store.read_inputs(session, shots.pk[wanted]), wanted, n)
+    if rerun.size:
+        subset = {path: column[rerun] for path, column in inputs.items()}
+        ratios[rerun] = cal.density_scale_ratios(subset, overrides)
     result.ratios = ratios
     result.scale = cal.scale_interval(ratios)
-    result.mismatch = cal.median_interval(_floats(rows["frequency_mismatch_pct"]))
+    result.mismatch = cal.median_interval(values["frequency_mismatch_pct"])
     days = day_segments(result.taken_at, campaign_zone(campaign.timezone))
     result.series = [(day, m) for day, m in cal.segment_medians(ratios, days) if m.shots]
+    runs, result.run_paths = run_groups(shots.run_tags)
+    if runs:
+        medians = cal.segment_medians(ratios, runs)
+        result.run_series = [
+            RunPoint(label, int(at[0]), int(at[-1]), m)
+            for (label, at), (_label, m) in zip(runs, medians, strict=True)
+            if m.shots
+        ]
+        tagged = sum(p.scale.shots for p in result.run_series)
+        result.untagged = int(np.isfinite(ratios).sum()) - tagged
     result.changes = cal.scale_changes(ratios)
-    outputs = {name: _floats(rows[name]) for name in store.CALIBRATION_OUTPUTS}
-    result.scaling = _scaling_checks(columns, outputs, list(rows["shot_id"]), days, campaign.model_settings or {})
-    outcomes = {**{p: columns[p] for p in MEASURED_DIAGNOSTICS}, "efolds_exit": outputs["efolds_exit"]}
-    inputs = {p: columns[p] for p in DRIVER_INPUTS}
+    derivatives = (
+        typical_phase_derivatives({p: c[with_phase] for p, c in inputs.items()}, overrides)
+        if with_phase.size
+        else dict.fromkeys(JITTER_SOURCES)
+    )
+    result.scaling = _scaling_checks(values, shots.shot_id, days, derivatives)
+    driver_inputs = {p: inputs[p] for p in DRIVER_INPUTS}
     for name in DRIVER_OUTCOMES if drivers else ():
-        ranking, used = cal.rank_drivers(outcomes[name], inputs)
+        ranking, used = cal.rank_drivers(outcomes[name], driver_inputs)
         result.drivers.append((name, ranking[:TOP_DRIVERS], used))
     return result
 
 
 def _scaling_checks(
     columns: Mapping[str, np.ndarray],
-    outputs: Mapping[str, np.ndarray],
     shot_ids: list[str],
-    days: list[tuple[str, int, int]],
-    settings: Mapping[str, Any],
+    days: list[tuple[str, slice]],
+    derivatives: Mapping[str, float | None],
 ) -> list[ScalingCheck]:
+    """The checks of MODEL.md; ``columns`` hold SHOT_INPUTS and the stored outputs of every shot."""
+    outputs = columns
     wake = outputs["wakefield_estimate_mv_m"]
     length, momentum = columns["plasma.length_m"], columns["driver.momentum_gev"]
     per_shot = [
@@ -210,16 +308,11 @@ def _scaling_checks(
     # (the phase-stability figures: shots with a measured phase, the campaign's typical derivatives).
     phases = columns["measured.modulation_phase_rad"]
     with_phase = np.isfinite(phases)
-    derivatives = (
-        typical_phase_derivatives({p: c[with_phase] for p, c in columns.items()}, settings)
-        if with_phase.any()
-        else dict.fromkeys(JITTER_SOURCES)
-    )
     labels: list[str] = []
     expected: list[float] = []
     measured: list[float] = []
-    for day, lo, hi in days:
-        pick = np.flatnonzero(with_phase[lo:hi]) + lo
+    for day, shots in days:
+        pick = np.flatnonzero(with_phase[shots]) + shots.start
         sources = {p: columns[p][pick] for p in JITTER_SOURCES}
         jitter = phase_jitter(phases[pick], sources, derivatives)
         if jitter.measured_phase_std_rad and jitter.expected_phase_jitter_rad:
@@ -276,7 +369,21 @@ def answer(result: Calibration) -> dict[str, Any]:
             }
             for c in result.changes
         ],
+        "series_by": "day",
         "series": [{"day": day, **_interval(m), "shots": m.shots} for day, m in result.series],
+        "series_interval_method": "order statistics",
+        "run_series_by": result.run_paths,
+        "run_series": [
+            {
+                "run": point.run,
+                "first_taken_at": format_utc(instant(result.taken_at[point.first])),
+                "last_taken_at": format_utc(instant(result.taken_at[point.last])),
+                **_interval(point.scale),
+                "shots": point.scale.shots,
+            }
+            for point in result.run_series
+        ],
+        "run_untagged_shots": result.untagged,
         "scaling": [
             {
                 "diagnostic": s.diagnostic,
@@ -327,6 +434,27 @@ def _text(value: float | None, digits: int = 5) -> str:
     return format_number(value, digits=digits) if value is not None else "–"
 
 
+def _series_line(result: dict[str, Any]) -> str:
+    """What the series hold: days, and runs where the shots carry run tags (with the lowest and highest run)."""
+    line = f"scale series: per day ({len(result['series'])} days)"
+    runs = result["run_series"]
+    if not runs:
+        return line + f"; per run: no run tag in these shots ({', '.join(RUN_TAG_PATHS)})"
+    line += f"; per run by {', '.join(result['run_series_by'])} ({len(runs)} runs"
+    if result["run_untagged_shots"]:
+        line += f", {result['run_untagged_shots']} shots without a run tag"
+    line += ")"
+    ranked = sorted((r for r in runs if r["estimate"] is not None), key=lambda r: r["estimate"])
+    if len(ranked) > 1:
+        low, high = ranked[0], ranked[-1]
+        line += (
+            f"\n  lowest run {low['run']}: {_text(low['estimate'])} [{_text(low['low'])}, {_text(low['high'])}] "
+            f"({low['shots']} shots); highest run {high['run']}: {_text(high['estimate'])} "
+            f"[{_text(high['low'])}, {_text(high['high'])}] ({high['shots']} shots)"
+        )
+    return line
+
+
 def table_text(result: dict[str, Any]) -> str:
     """The command line's table of an answer."""
     scale = result["density_scale"]
@@ -338,6 +466,7 @@ def table_text(result: dict[str, Any]) -> str:
         f"({scale['shots']} shots with a measured frequency; applied now: {_text(result['applied_density_scale'])})",
         f"frequency mismatch now  {_text(result['frequency_mismatch_pct']['estimate'], 3)} %  "
         f"[{_text(result['frequency_mismatch_pct']['low'], 3)}, {_text(result['frequency_mismatch_pct']['high'], 3)}]",
+        _series_line(result),
         "",
         "changes of the scale:" if result["changes"] else "changes of the scale: none found",
     ]

@@ -93,10 +93,11 @@ def robust_spread(deviations: np.ndarray) -> float | None:
 
 
 def _neighbours(v: np.ndarray) -> np.ndarray:
-    """(n, NEIGHBOUR_WINDOW_SHOTS - 1): each value's neighbours in time, itself left out, mirrored at the ends."""
-    padded = np.pad(v, _HALF, mode="reflect")
-    window = sliding_window_view(padded, NEIGHBOUR_WINDOW_SHOTS)
-    return np.delete(window, _HALF, axis=1)
+    """(..., n, NEIGHBOUR_WINDOW_SHOTS - 1): each value's neighbours in time along the last axis, itself
+    left out, mirrored at the ends (each row of a 2-D array is a series of its own)."""
+    padded = np.pad(v, [(0, 0)] * (v.ndim - 1) + [(_HALF, _HALF)], mode="reflect")
+    window = sliding_window_view(padded, NEIGHBOUR_WINDOW_SHOTS, axis=-1)
+    return np.delete(window, _HALF, axis=-1)
 
 
 def log_jitter(values: ArrayLike) -> float | None:
@@ -164,6 +165,26 @@ def typical_phase_derivatives(
     return typical
 
 
+def _robust_spreads(deviations: np.ndarray) -> np.ndarray:
+    """robust_spread of each row (every value finite)."""
+    centre = np.median(deviations, axis=-1, keepdims=True)
+    return MAD_TO_SIGMA * np.median(np.abs(deviations - centre), axis=-1)
+
+
+def _log_jitters(rows: np.ndarray) -> np.ndarray:
+    """log_jitter of each row of positive values longer than the window, all at once."""
+    v = np.log(rows)
+    centre = np.median(_neighbours(v), axis=-1)
+    return _robust_spreads(v - centre) / np.sqrt(1.0 + MEDIAN_OF_NEIGHBOURS_VARIANCE)
+
+
+def _phase_jitters(rows: np.ndarray) -> np.ndarray:
+    """phase_jitter_rad of each row of finite phases longer than the window, all at once."""
+    unit = np.exp(1j * rows)
+    centre = _neighbours(unit).mean(axis=-1)
+    return _robust_spreads(np.angle(unit * np.conj(centre))) / np.sqrt(1.0 + 1.0 / _NEIGHBOURS)
+
+
 @dataclass(frozen=True)
 class PhaseJitter:
     phase_count: int
@@ -186,6 +207,67 @@ def phase_jitter(
     ``derivatives`` are the typical d psi/d ln x (typical_phase_derivatives). A source whose jitter or
     derivative is unknown is left out of the total (its part reads None); a constant one adds zero."""
     spreads = {path: log_jitter(values) for path, values in sources.items()}
+    return _budget(
+        int(_finite(phases).size),
+        phase_jitter_rad(phases),
+        int(_finite(sources[DENSITY]).size) if DENSITY in sources else 0,
+        spreads,
+        derivatives,
+    )
+
+
+def phase_jitter_by_part(
+    phases: ArrayLike,
+    sources: Mapping[str, ArrayLike],
+    derivatives: Mapping[str, float | None],
+    parts: list[tuple[int, int]],
+) -> list[PhaseJitter]:
+    """phase_jitter of each part [lo, hi) of the aligned arrays (the overview's groups of consecutive
+    shots). The same numbers, but parts of one length are computed together, one numpy call for all
+    of them, when every value is finite (and every source positive) and every part is longer than
+    the window; otherwise part by part."""
+    phase = np.asarray(phases, dtype=float)
+    logged = {path: np.asarray(values, dtype=float) for path, values in sources.items()}
+    regular = (
+        all(hi - lo > NEIGHBOUR_WINDOW_SHOTS for lo, hi in parts)
+        and bool(np.isfinite(phase).all())
+        and all(bool(np.isfinite(v).all() and (v > 0).all()) for v in logged.values())
+    )
+    if not regular:
+        return [phase_jitter(phase[lo:hi], {p: v[lo:hi] for p, v in logged.items()}, derivatives) for lo, hi in parts]
+    by_length: dict[int, list[int]] = {}
+    for i, (lo, hi) in enumerate(parts):
+        by_length.setdefault(hi - lo, []).append(i)
+
+    def per_part(values: np.ndarray, spreads_of: Any) -> np.ndarray:
+        out = np.empty(len(parts))
+        for length, members in by_length.items():
+            block = np.stack([values[parts[i][0] : parts[i][0] + length] for i in members])
+            out[members] = spreads_of(block)
+        return out
+
+    phase_std = per_part(phase, _phase_jitters)
+    source_spreads = {path: per_part(v, _log_jitters) for path, v in logged.items()}
+    return [
+        _budget(
+            hi - lo,
+            float(phase_std[i]),
+            hi - lo if DENSITY in logged else 0,
+            {path: float(values[i]) for path, values in source_spreads.items()},
+            derivatives,
+        )
+        for i, (lo, hi) in enumerate(parts)
+    ]
+
+
+def _budget(
+    phase_count: int,
+    phase_std: float | None,
+    density_count: int,
+    spreads: Mapping[str, float | None],
+    derivatives: Mapping[str, float | None],
+) -> PhaseJitter:
+    """The expected jitter from the sources' shot-to-shot jitters (of ln x) and phase derivatives."""
     parts: dict[str, float | None] = {}
     for path, spread in spreads.items():
         slope = derivatives.get(path)
@@ -199,9 +281,9 @@ def phase_jitter(
     density_slope = derivatives.get(DENSITY)
     density_spread = spreads.get(DENSITY)
     return PhaseJitter(
-        phase_count=int(_finite(phases).size),
-        measured_phase_std_rad=phase_jitter_rad(phases),
-        density_count=int(_finite(sources[DENSITY]).size) if DENSITY in sources else 0,
+        phase_count=phase_count,
+        measured_phase_std_rad=phase_std,
+        density_count=density_count,
         density_spread_pct=None if density_spread is None else 100.0 * density_spread,
         phase_per_pct_density_rad=None if density_slope is None else abs(density_slope) / 100.0,
         expected_phase_jitter_rad=expected,

@@ -28,9 +28,10 @@ EXCLUDED_MODES: tuple[str, ...] = ("omit", "include", "only")
 def excluded_shot_pks(campaign_id: int | None = None) -> Select[Any]:
     """Keys of the excluded shots (of one campaign, or of all)."""
     stmt = select(Shot.id).where(Shot.excluded_at.is_not(None))
-    # campaign_id + 0: no index serves the campaign term, so SQLite reads the partial index of
-    # excluded shots (a handful) instead of every shot of the campaign (12 ms at 20,000 shots, in
-    # every statement that filters; PostgreSQL plans it by its statistics either way).
+    # "+ 0" keeps the campaign term off every index, so the planner reads the partial index of
+    # the excluded shots (a few entries) instead of seeking the (campaign_id, id) index, which
+    # SQLite otherwise prefers and which has an entry for every shot of the campaign (at
+    # 100,000 shots that cost 30-40 ms in each of the overview's queries).
     return stmt if campaign_id is None else stmt.where(Shot.campaign_id + 0 == campaign_id)
 
 

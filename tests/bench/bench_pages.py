@@ -7,11 +7,16 @@ of the checkout given by ``--repo`` (this one by default: run it once with a che
 the code before a change for the "before" figures), and measures:
 
 - the server: the overview's HTML plus every feed the page loads (the three chart feeds
-  and the default regime map), one after another, with the browser's Accept-Encoding;
+  and the default regime map), one after another, with the browser's Accept-Encoding; the
+  server's CPU seconds for each, cold (the first round after start) and warm;
 - the steady live poll (``/live?since=<latest>``: nothing new), median of many;
 - headless Chromium (/usr/bin/chromium), a fresh profile each time (a first visit):
-  the time from navigation until every chart on the page is drawn, and the bytes
-  transferred (every response as it came over the wire, plotly.min.js included);
+  the time from navigation until every chart on the page is drawn, the page's main-thread
+  time (script, layout, style), each chart's Plotly time (wakeledger.js measures each draw)
+  with its markers and SVG elements, and the bytes transferred (every response as it came
+  over the wire, plotly.min.js included); a shot's page (two small charts, the same Plotly)
+  visited alternately gives the scale: on a loaded machine most of a first visit is
+  Chromium compiling Plotly;
 - the shot table and one shot's page, through the same server.
 
 Targets of issue 16 goal 1: every chart drawn within 2.5 s, HTML + feeds under 0.5 s,
@@ -204,15 +209,18 @@ def server_figures(client, repeat: int, pid: int) -> None:
     for _ in range(repeat):
         total, cpu = 0.0, cpu_seconds(pid)
         for path in ["/campaigns/bench", *feeds]:
+            before = cpu_seconds(pid)
             s, size, status = timed_get(client, path)
-            rows.setdefault(path, []).append((s, size, status))
+            rows.setdefault(path, []).append((s, size, status, cpu_seconds(pid) - before))
             total += s
         totals.append(total)
         cpus.append(cpu_seconds(pid) - cpu)
-    print(f"\nserver: the overview's HTML and feeds one after another (median of {repeat})")
+    print(f"\nserver: the overview's HTML and feeds one after another (wall: median of {repeat}; server CPU)")
     for path, results in rows.items():
+        cold_cpu, warm_cpu = results[0][3], statistics.median(r[3] for r in results[1:]) if repeat > 1 else float("nan")
         print(
-            f"  {path:72s} {statistics.median(r[0] for r in results):7.3f} s {results[-1][1]:10,d} B ({results[-1][2]})"
+            f"  {path:66s} {statistics.median(r[0] for r in results):7.3f} s {results[-1][1]:10,d} B ({results[-1][2]})"
+            f"  CPU cold {cold_cpu:.2f} s, warm {warm_cpu:.2f} s"
         )
     median = statistics.median(totals)
     print(
@@ -242,52 +250,94 @@ DRAWN = """() => {
 }"""
 
 
-def browser_figures(base: str, cookie: tuple[str, str], repeat: int) -> None:
+# Per chart: how long Plotly took (wakeledger.js measures each draw), how many markers (one SVG
+# path each), heatmap images and SVG elements it drew.
+PER_CHART = """() => Array.from(document.querySelectorAll('.chart')).map(c => {
+  const measures = performance.getEntriesByName('wakeledger draw ' + c.id);
+  return {id: c.id, ms: measures.length ? measures[measures.length - 1].duration : null,
+          markers: c.querySelectorAll('.scatterlayer .point').length,
+          images: c.querySelectorAll('image').length,
+          elements: c.querySelectorAll('svg *').length};
+})"""
+
+
+# For scale: a shot's page, two small charts and the same plotly.min.js, on a first visit too.
+# On a loaded machine most of a first visit is Chromium parsing and compiling Plotly (3.5 MB).
+SMALL_PAGE_DRAWN = """() => document.querySelectorAll('.chart .main-svg').length > 0"""
+
+
+def _first_visit(chromium, base: str, cookie: tuple[str, str], path: str, drawn_when: str) -> dict:
+    """One visit with a fresh profile: seconds until drawn, main-thread metrics, charts, bytes."""
+    context = chromium.new_context(viewport={"width": 1400, "height": 900})  # a fresh profile
+    context.add_cookies([{"name": cookie[0], "value": cookie[1], "url": base}])
+    page = context.new_page()
+    cdp = context.new_cdp_session(page)
+    cdp.send("Network.enable")
+    cdp.send("Performance.enable")
+    sizes: dict[str, int] = {}
+    urls: dict[str, str] = {}
+    cdp.on("Network.responseReceived", lambda e: urls.__setitem__(e["requestId"], e["response"]["url"]))
+    cdp.on("Network.loadingFinished", lambda e: sizes.__setitem__(e["requestId"], int(e["encodedDataLength"])))
+    page.goto(f"{base}{path}", wait_until="commit")
+    page.wait_for_function(drawn_when, polling="raf", timeout=120_000)
+    visit = {"drawn": page.evaluate("() => performance.now()") / 1000, "charts": page.evaluate(PER_CHART)}
+    metrics = {m["name"]: m["value"] for m in cdp.send("Performance.getMetrics")["metrics"]}
+    visit["metrics"] = {  # the page's main-thread seconds, and their main parts
+        name: metrics.get(name, float("nan"))
+        for name in ("TaskDuration", "ScriptDuration", "LayoutDuration", "RecalcStyleDuration")
+    }
+    page.wait_for_load_state("networkidle")
+    visit["bytes"] = sum(sizes.values())
+    visit["plotly_bytes"] = sum(v for k, v in sizes.items() if "plotly" in urls.get(k, ""))
+    context.close()
+    return visit
+
+
+def _main_thread(visits: list[dict]) -> str:
+    names = {"TaskDuration": "busy", "ScriptDuration": "script", "LayoutDuration": "layout"}
+    names["RecalcStyleDuration"] = "style"
+    return ", ".join(
+        f"{label} {statistics.median(v['metrics'][name] for v in visits):.2f} s" for name, label in names.items()
+    )
+
+
+def browser_figures(base: str, cookie: tuple[str, str], repeat: int, shots: int) -> None:
     if not CHROMIUM.exists():
         print("browser: skipped (no /usr/bin/chromium)")
         return
     from playwright.sync_api import sync_playwright
 
-    drawn, busy, transferred, plotly_bytes = [], [], [], []
+    small_page = f"/campaigns/bench/shots/b-{shots // 2:06d}"
+    overview, small = [], []
     with sync_playwright() as p:
         chromium = p.chromium.launch(executable_path=str(CHROMIUM), args=["--no-sandbox", "--disable-gpu"])
         try:
-            for _ in range(repeat):
-                context = chromium.new_context(viewport={"width": 1400, "height": 900})  # a fresh profile
-                context.add_cookies([{"name": cookie[0], "value": cookie[1], "url": base}])
-                page = context.new_page()
-                cdp = context.new_cdp_session(page)
-                cdp.send("Network.enable")
-                cdp.send("Performance.enable")
-                sizes: dict[str, int] = {}
-                urls: dict[str, str] = {}
-                cdp.on(
-                    "Network.responseReceived",
-                    lambda e, urls=urls: urls.__setitem__(e["requestId"], e["response"]["url"]),
-                )
-                cdp.on(
-                    "Network.loadingFinished",
-                    lambda e, sizes=sizes: sizes.__setitem__(e["requestId"], int(e["encodedDataLength"])),
-                )
-                page.goto(f"{base}/campaigns/bench", wait_until="commit")
-                page.wait_for_function(DRAWN, polling="raf", timeout=120_000)
-                drawn.append(page.evaluate("() => performance.now()") / 1000)
-                metrics = {m["name"]: m["value"] for m in cdp.send("Performance.getMetrics")["metrics"]}
-                busy.append(metrics.get("TaskDuration", float("nan")))  # the page's main-thread seconds
-                page.wait_for_load_state("networkidle")
-                transferred.append(sum(sizes.values()))
-                plotly_bytes.append(sum(v for k, v in sizes.items() if "plotly" in urls.get(k, "")))
-                context.close()
+            for _ in range(repeat):  # alternately, so both see the same load of the machine
+                overview.append(_first_visit(chromium, base, cookie, "/campaigns/bench", DRAWN))
+                small.append(_first_visit(chromium, base, cookie, small_page, SMALL_PAGE_DRAWN))
         finally:
             chromium.close()
+    drawn = [v["drawn"] for v in overview]
     print(f"\nbrowser (headless Chromium, first visit each time, {repeat} runs)")
     print(
         f"  every chart drawn: median {statistics.median(drawn):.2f} s, range {min(drawn):.2f}-{max(drawn):.2f} s "
-        f"(target < {TARGET_DRAWN_S} s); the page's main thread busy {statistics.median(busy):.2f} s"
+        f"(target < {TARGET_DRAWN_S} s); main thread: {_main_thread(overview)}"
+    )
+    for chart_id in [c["id"] for c in overview[-1]["charts"]]:
+        runs = [c for v in overview for c in v["charts"] if c["id"] == chart_id]
+        times = [r["ms"] for r in runs if r["ms"] is not None]
+        last = runs[-1]
+        print(
+            f"    {chart_id:20s} Plotly {statistics.median(times) if times else float('nan'):7.0f} ms, "
+            f"{last['markers']:6,d} markers, {last['images']} images, {last['elements']:6,d} SVG elements"
+        )
+    print(
+        f"  for scale, {small_page} (two small charts): drawn {statistics.median(v['drawn'] for v in small):.2f} s; "
+        f"main thread: {_main_thread(small)}"
     )
     print(
-        f"  transferred on a first visit: {statistics.median(transferred) / 1e6:.2f} MB "
-        f"(plotly.min.js {statistics.median(plotly_bytes) / 1e6:.2f} MB; "
+        f"  transferred on a first visit: {statistics.median(v['bytes'] for v in overview) / 1e6:.2f} MB "
+        f"(plotly.min.js {statistics.median(v['plotly_bytes'] for v in overview) / 1e6:.2f} MB; "
         f"target < {TARGET_FIRST_VISIT_BYTES / 1e6:.0f} MB)"
     )
 
@@ -339,7 +389,7 @@ def main() -> None:
             with closing(signed_in_client(served.base, token)) as client:
                 cookie = next((c.name, c.value) for c in client.cookies.jar if c.name == "wakeledger_session")
                 server_figures(client, args.repeat, served.server.pid)
-                browser_figures(served.base, cookie, args.repeat)
+                browser_figures(served.base, cookie, args.repeat, args.shots)
                 other_pages(client, args.shots, args.repeat)
         finally:
             served.stop()

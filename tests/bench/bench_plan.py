@@ -6,8 +6,9 @@ Figures (targets of issue 13):
   invented shot: saturated and unsaturated, strong and weak seeds, every status) against the floor,
   evaluate_table on the same 40,000 shots given as ready-made columns (results checked equal);
   target: the scan within 4x of the floor;
-- the scan answer encoded as the API's JSON by the service (ranks turned into text, NaN as null, orjson), the
-  part of the HTTP answer that the model does not do (over HTTP: tests/bench/bench_plan_http.py);
+- the scan answer encoded as the API's JSON by the service (its pieces joined: statuses and severities from
+  their ranks, each output by orjson from its array, NaN as null), the part of the HTTP answer that the model
+  does not do (over HTTP: tests/bench/bench_plan_http.py);
 - windows for every field of a base (target < 1 s): the default set (positive inputs) and every field with a
   window (positive and linear), on ex-1 and ex-2;
 - the nearest nominal shot varying 1-4 fields, the sensitivity table, and the per-shot phase derivatives of
@@ -31,7 +32,6 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from app.presentation.json_text import json_bytes  # noqa: E402
 from app.services.planner.answers import given_base, scan_answer  # noqa: E402
 from model import (  # noqa: E402
     FLAG_CODES,
@@ -66,8 +66,8 @@ def show(label: str, wall: float, cpu: float, extra: str = "") -> None:
 
 
 def scan_answer_json(result: Any) -> bytes:
-    """The POST /plans/scan body as the service builds and writes it (app.services.planner.answers, orjson)."""
-    return json_bytes(scan_answer(given_base(EX1), result))
+    """The POST /plans/scan body as the service writes it (app.services.planner.answers.scan_answer), joined."""
+    return b"".join(scan_answer(given_base(EX1), result))
 
 
 def main() -> None:
@@ -100,7 +100,7 @@ def main() -> None:
     show("floor: evaluate_table on the same 40,000 shots", floor_wall, floor_cpu)
     print(f"ratio scan / floor: {scan_wall / floor_wall:.2f}x wall, {scan_cpu / floor_cpu:.2f}x CPU (target <= 4x)")
     json_wall, json_cpu, body = timed(r, lambda: scan_answer_json(result))
-    show("scan answer as JSON (text ranks, NaN as null, orjson)", json_wall, json_cpu, f"{len(body) / 1e6:.1f} MB")
+    show("scan answer as JSON (its pieces joined)", json_wall, json_cpu, f"{len(body) / 1e6:.1f} MB")
     print(f"model + JSON for the HTTP answer: {(scan_wall + json_wall) * 1e3:.1f} ms (target < 1 s with the service)")
 
     for name, shot in (("ex-1", EX1), ("ex-2", EX2)):

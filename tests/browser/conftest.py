@@ -1,8 +1,10 @@
 """Browser fixtures: Debian chromium driven by Playwright against a real uvicorn.
 
 The server is the ``live_server`` fixture of tests/conftest.py (127.0.0.1, free port,
-temp SQLite); ``page_server`` seeds it through the API with the shots of
-tests/support/page_shots.py and starts a job worker beside it. Screenshots go to test-artifacts/ (gitignored).
+temp SQLite), one per test; chromium is launched once per test module and each test opens
+contexts of its own (``browser``). ``page_server`` seeds the server through the API with the
+shots of tests/support/page_shots.py and starts a job worker beside it. Screenshots go to
+test-artifacts/ (gitignored).
 """
 
 from __future__ import annotations
@@ -39,22 +41,26 @@ WAIT_MS = 120_000
 
 
 class _Browser:
-    """The launched chromium, whose contexts wait up to WAIT_MS (Playwright's default is 30 s)."""
+    """The launched chromium, whose contexts wait up to WAIT_MS (Playwright's default is 30 s)
+    and are closed at the end of the test that opened them, whatever happened in it."""
 
     def __init__(self, chromium: Any) -> None:
         self._chromium = chromium
+        self.opened: list[Any] = []
 
     def new_context(self, **options: Any) -> Any:
         context = self._chromium.new_context(**options)
         context.set_default_timeout(WAIT_MS)
+        self.opened.append(context)
         return context
 
     def __getattr__(self, name: str) -> Any:
         return getattr(self._chromium, name)
 
 
-@pytest.fixture
-def browser() -> Iterator[Any]:
+@pytest.fixture(scope="module")
+def _chromium() -> Iterator[Any]:
+    """One chromium per test module (launching it is the slow part); tests share none of its state."""
     if not CHROMIUM.exists():
         reason = "browser tests need Debian chromium at /usr/bin/chromium (.ci/run installs it)"
         if os.environ.get("WAKELEDGER_REQUIRE_BROWSER"):
@@ -64,9 +70,20 @@ def browser() -> Iterator[Any]:
     with sync_api.sync_playwright() as p:
         chromium = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
         try:
-            yield _Browser(chromium)
+            yield chromium
         finally:
             chromium.close()
+
+
+@pytest.fixture
+def browser(_chromium: Any) -> Iterator[_Browser]:
+    """The module's chromium; each test opens contexts of its own (cookies, storage, pages)."""
+    wrapped = _Browser(_chromium)
+    try:
+        yield wrapped
+    finally:
+        for context in wrapped.opened:
+            context.close()  # a no-op for one the test closed itself
 
 
 @pytest.fixture

@@ -1,7 +1,8 @@
-"""The calibration page in a real browser: it draws the scale series, one log-log scatter per
-scaling check and the drivers chart under the page's CSP with no script error, a click on a shot
-the model does not explain opens that shot's page, and an admin applies the estimate after a
-confirmation (dismissing it changes nothing)."""
+"""The calibration page in a real browser: it draws the scale series (per day and per run), one
+log-log scatter per scaling check and the drivers chart under the page's CSP with no script error,
+every axis title inside its chart at several widths, a click on a shot the model does not explain
+opens that shot's page, and an admin applies the estimate after a confirmation (dismissing it
+changes nothing)."""
 
 from __future__ import annotations
 
@@ -24,6 +25,8 @@ def calibration_server(live_server: str, admin_token: str, reference_cases, job_
     columns = synthetic_columns(reference_cases[0]["input"], 300, scale=1.015, scale_after=1.03, step_at=180, seed=2)
     columns["measured.halo_radius_mm"][[77]] *= 3.0
     shots = shots_from_columns(columns, datetime(2026, 11, 16, 8, tzinfo=UTC), every_s=900)
+    for i, shot in enumerate(shots):
+        shot["daq"] = {"run": 500 + i // 40}  # runs of 40 shots
     with httpx.Client(base_url=live_server, headers={"Authorization": f"Bearer {admin_token}"}, timeout=60) as api:
         assert (
             api.post("/api/v1/campaigns", json={"slug": SLUG, "name": "Calibration run", "timezone": "UTC"}).status_code
@@ -65,6 +68,9 @@ def test_the_page_draws_its_charts_opens_an_odd_shot_and_applies_the_scale_after
     page.wait_for_url(f"{base}{path}", timeout=120000)
     _wait_until(page, "() => document.body.dataset.chartsDrawn === '6'")
     assert page.locator("#calib-changes tbody tr").count() == 1
+    runs = page.evaluate("() => document.getElementById('chart-calib-series').data[0]")
+    assert runs["name"].startswith("per run, by daq.run") and len(runs["x"]) == 8
+    assert page.locator("#chart-calib-series .scatterlayer .trace").nth(0).locator("path.point").count() == 8
     assert page.locator("nav a[aria-current=page]").inner_text() == "Calibration"
     page.screenshot(path=str(artifacts / "calibration-page.png"), full_page=True)
 
@@ -103,4 +109,44 @@ def test_the_page_draws_its_charts_opens_an_odd_shot_and_applies_the_scale_after
         settings = api.get(f"/api/v1/campaigns/{SLUG}").json()["effective_settings"]
     assert settings["density_scale"] == float(shown)
     assert problems == []
+    context.close()
+
+
+# Every axis title's box (the text as laid out, before the chart's clipping) against its chart's box.
+TITLES_OUTSIDE = """() => {
+  const found = [], outside = [];
+  const titles = 'g[class^="g-x"][class$="title"] text, g[class^="g-y"][class$="title"] text';
+  for (const div of document.querySelectorAll('div.chart')) {
+    const box = div.getBoundingClientRect();
+    for (const t of div.querySelectorAll(titles)) {
+      if (!t.textContent) continue;
+      const r = t.getBoundingClientRect();
+      found.push(div.id);
+      const inside = r.left >= box.left - 0.5 && r.right <= box.right + 0.5
+        && r.top >= box.top - 0.5 && r.bottom <= box.bottom + 0.5;
+      if (!inside) {
+        const left = Math.round(r.left - box.left), right = Math.round(r.right - box.left);
+        outside.push(`${div.id}: ${t.textContent} (${left}..${right} of ${Math.round(box.width)})`);
+      }
+    }
+  }
+  return { found: found.length, outside };
+}"""
+
+
+@pytest.mark.parametrize("width", [1400, 1000, 760])
+def test_every_axis_title_lies_inside_its_chart(browser, calibration_server, artifacts, width):
+    base = calibration_server["base"]
+    path = f"/campaigns/{SLUG}/calibration"
+    context = browser.new_context(viewport={"width": width, "height": 1000})
+    page = context.new_page()
+    page.goto(f"{base}/sign-in?next={path}")
+    page.fill("input[name=token]", calibration_server["token"])
+    page.click("button[type=submit]")
+    page.wait_for_url(f"{base}{path}", timeout=120000)
+    _wait_until(page, "() => document.body.dataset.chartsDrawn === '6'")
+    titles = page.evaluate(TITLES_OUTSIDE)
+    page.screenshot(path=str(artifacts / f"calibration-page-{width}.png"), full_page=True)
+    assert titles["found"] == 11  # an x and a y title on each of the six charts but the drivers' y
+    assert titles["outside"] == []
     context.close()

@@ -46,11 +46,11 @@ def test_a_physicist_switches_on_the_notice_and_an_outside_shot_gives_one_a_nomi
     page.wait_for_function("() => document.querySelector('[data-count=total]').textContent.trim() === '37'")
     assert page.evaluate("() => window.__notices.length") == 0
 
-    box.check()
+    box.check()  # the waits below are bounded by the context timeout (WAIT_MS), like every wait here
     assert "desktop notice" in page.locator("#outside-alert-mode").inner_text()
     _post(page_server, "calm-1", 0, 2)  # nominal
     _post(page_server, "wild-1", 1, 3)  # outside
-    page.wait_for_function("() => window.__notices.length > 0", timeout=10000)
+    page.wait_for_function("() => window.__notices.length > 0")
     [[title, body]] = page.evaluate("() => window.__notices")
     assert "wild-1" in title and body
     page.screenshot(path=str(artifacts / "overview-outside-notice.png"))
@@ -69,7 +69,7 @@ def test_a_physicist_switches_on_the_notice_and_an_outside_shot_gives_one_a_nomi
     page.goto(f"{base}/campaigns/{slug}")
     page.locator("#outside-alert").check()
     _post(page_server, "beep-1", 1, 4)
-    page.wait_for_function("() => document.getElementById('outside-alert').dataset.noticed === '1'", timeout=10000)
+    page.wait_for_function("() => document.getElementById('outside-alert').dataset.noticed === '1'")
     assert "beep" in page.locator("#outside-alert-mode").inner_text()
     assert not errors, errors
     context.close()

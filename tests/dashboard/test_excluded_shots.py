@@ -6,9 +6,13 @@ from __future__ import annotations
 
 import re
 
+from sqlalchemy import func, select, text
+
 from app.services.campaigns import find_campaign
 from app.services.dashboard import figures, overview
 from app.store import dashboard as store
+from app.store.exclusions import counted
+from app.tables import Evaluation
 
 SLUG = "test-campaign"
 
@@ -105,3 +109,14 @@ def test_the_shot_table_lists_excluded_shots_only_when_asked_and_marks_them(
     assert '<option value="only" selected>' in only
     # the CSV link keeps the choice
     assert "shots.csv?excluded=only" in only
+
+
+def test_leaving_excluded_shots_out_reads_the_index_of_the_excluded_shots_not_every_shot(seeded, db):
+    # At 100,000 shots the (campaign_id, id) index cost every overview query 30-40 ms here.
+    stmt = select(func.count()).select_from(Evaluation).where(*counted(Evaluation.shot_pk, 1))
+    assert db.scalar(stmt) == 36
+    if db.get_bind().dialect.name == "sqlite":
+        sql = str(stmt.compile(db.get_bind(), compile_kwargs={"literal_binds": True}))
+        plan = [str(row[-1]) for row in db.execute(text("EXPLAIN QUERY PLAN " + sql))]
+        reads_of_shots = [step for step in plan if " shots " in f" {step} "]
+        assert reads_of_shots and all("ix_shots_excluded" in step for step in reads_of_shots), plan

@@ -102,6 +102,12 @@ def test_prepared_demo_lets_visitors_read_without_signing_in_and_gives_an_admin_
             assert scenario.CAMPAIGN_SLUG in response.text
             refused = client.post("/api/v1/campaigns", json={"slug": "x", "name": "x"})
             assert refused.status_code == 401
+            # the demo's shots carry daq.run: the calibration shows its scale per run from the first start
+            calibration = client.get(f"/api/v1/campaigns/{scenario.CAMPAIGN_SLUG}/calibration").json()
+            assert calibration["run_series_by"] == ["daq.run"] and len(calibration["run_series"]) > 20
+            assert calibration["run_untagged_shots"] == 0
+            page = client.get(f"/campaigns/{scenario.CAMPAIGN_SLUG}/calibration")
+            assert page.status_code == 200 and "per run, by daq.run (95 % interval)" in page.text
     finally:
         prepared.app.state.engine.dispose()
 

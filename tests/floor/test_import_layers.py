@@ -5,6 +5,7 @@ no import loop anywhere in app/, and each floor imports only the floors below it
 from __future__ import annotations
 
 import ast
+import functools
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -16,8 +17,13 @@ def _module_name(path: Path) -> str:
     return ".".join(parts[:-1] if parts[-1] == "__init__" else parts)
 
 
-def _imports(path: Path) -> Iterator[str]:
+@functools.cache  # the sources do not change during a run: each file is parsed once
+def _imports(path: Path) -> tuple[str, ...]:
     """Every module an app file imports, at the top or inside a function (absolute names)."""
+    return tuple(_walk_imports(path))
+
+
+def _walk_imports(path: Path) -> Iterator[str]:
     package = _module_name(path) if path.name == "__init__.py" else _module_name(path).rpartition(".")[0]
     for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
         if isinstance(node, ast.Import):

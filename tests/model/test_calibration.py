@@ -130,3 +130,51 @@ def test_the_driver_of_an_outcome_comes_first_with_an_interval_around_its_rho():
     assert ranking[1].low < 0 < ranking[1].high  # unrelated: its interval holds zero
     pick = cal.evenly_spaced(n, cal.DRIVER_MAX_SHOTS)
     assert top.rho == pytest.approx(stats.spearmanr(outcome[pick], density[pick]).statistic)
+
+
+@pytest.mark.parametrize("n", [6, 7, 20, 101, 1001, 5000])
+def test_the_order_statistic_interval_is_the_one_scipy_s_quantile_test_gives(n):
+    # the distribution-free interval of a median from the binomial distribution of the count below it
+    # (Conover, Practical Nonparametric Statistics, 3rd ed., 3.2), as scipy.stats.quantile_test computes it
+    values = _noisy_scale(n, 1.02, 0.01, seed=n)
+    ci = stats.quantile_test(values, q=1.0, p=0.5).confidence_interval(cal.CONFIDENCE)
+    low, high = cal.order_statistic_indices(n)
+    ordered = np.sort(values)
+    assert (ordered[low], ordered[high]) == (ci.low, ci.high)
+    [(_, point)] = cal.segment_medians(values, [("all", slice(None))])
+    assert (point.low, point.high, point.method) == (ci.low, ci.high, "order statistics")
+    if n > cal.BOOTSTRAP_MAX_VALUES:
+        m = cal.median_interval(values)
+        assert (m.low, m.high, m.method) == (ci.low, ci.high, "order statistics")
+
+
+def test_a_series_point_of_five_shots_or_fewer_has_its_median_but_no_interval():
+    values = _noisy_scale(20, 1.02, 0.01, seed=3)
+    points = dict(
+        cal.segment_medians(
+            values, [("five", np.arange(5)), ("every other", np.arange(0, 20, 2)), ("none", np.arange(0))]
+        )
+    )
+    assert points["five"].estimate == pytest.approx(np.median(values[:5]))
+    assert points["five"].low is None and points["five"].high is None and points["five"].method == "none"
+    assert points["every other"].estimate == pytest.approx(np.median(values[::2]))
+    assert points["every other"].low <= points["every other"].estimate <= points["every other"].high
+    assert points["none"].shots == 0 and points["none"].estimate is None
+
+
+def test_c_from_a_stored_evaluation_is_the_model_s_where_it_is_exact_and_left_to_the_model_elsewhere(reference_cases):
+    # f_ref(s) = √s f_ref(1) where f_ref = f_p ∝ √n_0 (no gradient; NRL Plasma Formulary), and trivially at s = 1
+    columns = synthetic_columns(reference_cases[0]["input"], 40, scale=1.021, seed=4)
+    columns["plasma.gradient_pct_per_m"][20:] = 0.3  # half the shots with a gradient: f_ref = f_p √(1 + g z_ref)
+    for applied in (1.0, 1.5):
+        stored = evaluate_table(columns, {"density_scale": applied})
+        c = cal.density_scale_ratios_from_evaluation(
+            stored["frequency_mismatch_pct"], columns["plasma.gradient_pct_per_m"], applied
+        )
+        model_c = cal.density_scale_ratios(columns, {"density_scale": applied})
+        exact = slice(None) if applied == 1.0 else slice(0, 20)
+        assert np.allclose(c[exact], model_c[exact], rtol=1e-13, atol=0)
+        if applied != 1.0:
+            assert np.isnan(c[20:]).all()  # z_ref moves with the density: the model must run for these
+    unmeasured = cal.density_scale_ratios_from_evaluation(np.array([np.nan]), np.array([0.0]), 1.2)
+    assert np.isnan(unmeasured).all()

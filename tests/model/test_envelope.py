@@ -247,3 +247,76 @@ def test_the_solver_uses_the_calibrated_density():
         scaled["reference_modulation_steps"], denser["reference_modulation_steps"], rtol=1e-9, atol=1e-15
     )
     assert scaled["numerics"]["slices"] == denser["numerics"]["slices"]
+
+
+# Numbers of the solver as it stood before its per-step work was made faster (same arithmetic, fewer
+# temporaries): a speed change must leave them alone to rounding. No outside reference.
+EX1_PINNED = {
+    "saturation_z_m": 2.8179104477611943,
+    "fitted_efolds": 5.871417101694513,
+    "closed_form_efolds_at_fit": 6.161917416815588,
+    "max_betatron_phase_per_step": 0.31915027963547016,
+    "delta at steps 20, 40, ..., 140": [
+        0.005695515328217447,
+        0.025233388699201185,
+        0.07745204148959788,
+        0.20976021129012487,
+        0.5065005331244447,
+        0.8771053686983024,
+        0.753094093786779,
+    ],
+    "sigma at slices 0, 789, 1183, 2366 of stored z 24": [
+        0.00020107913416552925,
+        0.00018333694710390586,
+        0.00022336684091656234,
+        0.00014642072662517043,
+    ],
+    "sigma at slices 0, 789, 1183, 2366 at the end": [
+        0.00025054140321591564,
+        5.347585180522689e-05,
+        0.0006231305992104285,
+        7.977432122513857e-05,
+    ],
+    "E_z at slices 0, 789, 1183, 2366 at the end": [
+        -1052077.0347770997,
+        -416883305.16106623,
+        797084400.9498494,
+        -706179039.5714331,
+    ],
+}
+
+
+def test_worked_example_ex1_gives_the_pinned_numbers_to_1e_12(ex1_run):
+    numerics = ex1_run["numerics"]
+    assert (numerics["slices"], numerics["steps"], ex1_run["sigma_r_m"].shape) == (2367, 140, (2367, 48))
+    got = {
+        "saturation_z_m": ex1_run["saturation_z_m"],
+        "fitted_efolds": ex1_run["fitted_efolds"],
+        "closed_form_efolds_at_fit": ex1_run["closed_form_efolds_at_fit"],
+        "max_betatron_phase_per_step": numerics["max_betatron_phase_per_step"],
+        "delta at steps 20, 40, ..., 140": ex1_run["reference_modulation_steps"][20::20].tolist(),
+        "sigma at slices 0, 789, 1183, 2366 of stored z 24": ex1_run["sigma_r_m"][[0, 789, 1183, 2366], 24].tolist(),
+        "sigma at slices 0, 789, 1183, 2366 at the end": ex1_run["sigma_r_m"][[0, 789, 1183, 2366], -1].tolist(),
+        "E_z at slices 0, 789, 1183, 2366 at the end": ex1_run["ez_v_m"][[0, 789, 1183, 2366]].tolist(),
+    }
+    for name, pinned in EX1_PINNED.items():
+        np.testing.assert_allclose(got[name], pinned, rtol=1e-12, atol=0, err_msg=name)
+
+
+@pytest.mark.parametrize(
+    ("shot", "pinned"),
+    [
+        (EX3, [2.047724627975682e-06, 8.728403333740542e-06, 6.190921243153382e-05, 0.000249779497411992]),
+        (EX5, [0.02441581964284261, 0.0666183479418413, 0.14606165298816143, 0.0006199018099573023]),
+    ],
+    ids=["ex-3 (noise-equivalent slice)", "ex-5 (electron seed)"],
+)
+def test_the_first_metre_of_a_run_with_a_rigid_source_gives_the_pinned_numbers_to_1e_12(shot, pinned):
+    # delta at steps 50, 100 and 200 of 200, and sigma of the middle slice at 1 m; as above, no outside reference.
+    short = copy.deepcopy(shot)
+    short["plasma"]["length_m"] = 1.0
+    result = simulate_envelope(short)
+    delta = result["reference_modulation_steps"]
+    assert delta.size == 201
+    middle = result["sigma_r_m"][result["sigma_r_m"].shape[0] // 2, -1]
+    np.testing.assert_allclose([*delta[[50, 100, 200]], middle], pinned, rtol=1e-12, atol=0)

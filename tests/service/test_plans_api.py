@@ -7,14 +7,18 @@ settings used, the errors and the roles."""
 
 from __future__ import annotations
 
+import base64
 import json
 import math
 
+import httpx
 import numpy as np
+import orjson
 import pytest
 from sqlalchemy import func, select
 
 import model
+from app.presentation.json_text import coded_array_json
 from app.tables import Shot
 from model import plan
 from tests.support.plans import failing, planned
@@ -83,6 +87,84 @@ def test_a_scan_answers_only_the_outputs_asked_for(client, viewer_headers, make_
     answer = client.post(SCAN, json=body, headers=viewer_headers).json()
     assert list(answer["outputs"]) == ["efolds_exit", "phase_slip_rad"] and answer["shape"] == [5]
     assert len(answer["status"]) == 5 and set(answer["flags"]) == set(model.FLAG_CODES)
+
+
+def _answer_built_whole(result: plan.Scan, provenance: dict) -> bytes:
+    """The scan answer as one plain dict written by orjson in one call: the shape the specification gives."""
+    whole = {
+        "axes": [{"field": a.field, "unit": a.unit, "values": a.values} for a in result.axes],
+        "shape": list(result.shape),
+        "status": [model.STATUSES[r] for r in result.status.tolist()],
+        "outputs": result.outputs,
+        "flags": {
+            code: [model.SEVERITY_BY_RANK[r] or None for r in ranks.tolist()] for code, ranks in result.flags.items()
+        },
+        **provenance,
+    }
+    return orjson.dumps(whole, option=orjson.OPT_SERIALIZE_NUMPY)
+
+
+def test_a_large_scan_is_sent_as_it_is_written_and_is_byte_for_byte_the_answer_built_whole(
+    live_server, viewer_headers, cold
+):
+    # Statuses and severities written from ranks region by region, each output straight from its float64
+    # array: the same bytes as the dict written at once (every number the exact float64, NaN as null).
+    sigma_z = cold["driver"]["sigma_z_mm"]
+    axes = [
+        {"field": "plasma.density_cm3", "start": 1e14, "stop": 3e15, "steps": 60, "spacing": "log"},
+        {"field": "seed.position_mm", "start": -2 * sigma_z, "stop": 2 * sigma_z, "steps": 50},
+    ]
+    with httpx.stream("POST", live_server + SCAN, json={"base": cold, "axes": axes}, headers=viewer_headers) as sent:
+        assert sent.status_code == 200 and sent.headers["content-type"] == "application/json"
+        assert sent.headers["transfer-encoding"] == "chunked" and "content-length" not in sent.headers
+        body = sent.read()
+    result = plan.scan(cold, axes)
+    assert len(set(result.status.tolist())) > 1 and any(np.isnan(v).any() for v in result.outputs.values())
+    provenance = {"base": {"campaign": None, "shot_id": None, "revision": None}}
+    provenance |= {"model_version": model.MODEL_VERSION, "settings_version": None}
+    assert body == _answer_built_whole(result, provenance)
+
+
+def test_a_scan_asked_for_float64_base64_carries_each_output_as_its_exact_float64_values(client, viewer_headers, cold):
+    # The opt-in compact encoding: the same answer, each output the base64 text of its little-endian float64
+    # values (NaN where the default answer has null), and the answer says which encoding it used.
+    axes = [
+        {"field": "plasma.density_cm3", "start": 1e14, "stop": 3e15, "steps": 7, "spacing": "log"},
+        {"field": "plasma.length_m", "start": 0.5, "stop": 10.0, "steps": 5},
+    ]
+    plain = client.post(SCAN, json={"base": cold, "axes": axes}, headers=viewer_headers).json()
+    body = {"base": cold, "axes": axes, "output_encoding": "float64_base64"}
+    compact = client.post(SCAN, json=body, headers=viewer_headers).json()
+    assert compact.pop("output_encoding") == "float64_base64" and "output_encoding" not in plain
+    assert compact.keys() == plain.keys() and compact["outputs"].keys() == plain["outputs"].keys()
+    for name, text in compact["outputs"].items():
+        values = np.frombuffer(base64.b64decode(text), dtype="<f8")
+        expected = np.array([np.nan if v is None else v for v in plain["outputs"][name]])
+        assert np.array_equal(values, expected, equal_nan=True), name
+    assert np.isnan(np.frombuffer(base64.b64decode(compact["outputs"]["waist_beta_m"]), dtype="<f8")).all()
+    assert {k: v for k, v in compact.items() if k != "outputs"} == {k: v for k, v in plain.items() if k != "outputs"}
+
+
+def test_an_unknown_output_encoding_is_a_422_naming_it(client, viewer_headers, cold):
+    axes = [{"field": "plasma.length_m", "start": 1, "stop": 2, "steps": 3}]
+    response = client.post(SCAN, json={"base": cold, "axes": axes, "output_encoding": "hex"}, headers=viewer_headers)
+    assert response.status_code == 422 and "output_encoding" in _fields(response)
+
+
+@pytest.mark.parametrize(
+    "ranks",
+    [
+        [],
+        [0],
+        [2, 2, 2, 0, 0, 1],
+        [0] * 100 + [3] * 7 + [0] * 50,
+        [0, 1, 2, 3] * 40,  # changing at every point: written as a list
+    ],
+)
+def test_ranks_are_written_as_their_texts_whatever_their_runs(ranks):
+    texts = [s or None for s in model.SEVERITY_BY_RANK]
+    written = coded_array_json(np.array(ranks, dtype=np.int8), texts)
+    assert written == orjson.dumps([texts[r] for r in ranks])
 
 
 def test_the_plasma_frequency_of_a_density_scan_is_the_electron_plasma_frequency_of_each_density(

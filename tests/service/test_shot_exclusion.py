@@ -314,22 +314,3 @@ def test_a_viewer_session_sees_the_banner_but_no_exclude_or_restore_button(
         f"/campaigns/{campaign}/shots/daq-002/restore", data={"csrf_token": csrf}, follow_redirects=False
     )
     assert refused.status_code == 403
-
-
-def test_finding_the_excluded_shots_reads_their_partial_index_not_every_shot_of_the_campaign(database_url, backend):
-    """The lookup runs inside every count, chart and summary statement: at 20,000 shots, reading the
-    campaign's index cost 12 ms each time, the partial index of excluded shots almost nothing."""
-    if backend != "sqlite":
-        pytest.skip("EXPLAIN QUERY PLAN is SQLite's; PostgreSQL plans by its statistics")
-    from sqlalchemy import create_engine
-
-    from app.store.exclusions import excluded_shot_pks
-
-    engine = create_engine(database_url)
-    try:
-        with engine.connect() as connection:
-            query = excluded_shot_pks(1).compile(connection, compile_kwargs={"literal_binds": True})
-            plan = " ".join(str(row) for row in connection.exec_driver_sql(f"EXPLAIN QUERY PLAN {query}"))
-    finally:
-        engine.dispose()
-    assert "ix_shots_excluded" in plan and "ix_shots_campaign_id_id" not in plan

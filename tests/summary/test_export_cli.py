@@ -12,22 +12,40 @@ from zoneinfo import ZoneInfo
 
 import pyarrow.parquet as pq
 import pytest
+from sqlalchemy import select
 
 from app.cli import main
+from app.database import make_engine, make_session_factory
 from app.services.weekly import table as export_table
+from app.tables import Campaign
 from app.times import IsoWeek
 from tests.support.week_data import add_campaign, insert_shots, spread_over_week
 
 REPO = Path(__file__).resolve().parents[2]
 
 
+def _store_week(url: str) -> None:
+    """1,500 shots in 2026-W47 of campaign cli-week (more than one 1,000-row piece of CSV)."""
+    engine = make_engine(url)
+    try:
+        with make_session_factory(engine)() as session, session.begin():
+            campaign = add_campaign(session, "cli-week", "Europe/Zurich")
+            start, _ = IsoWeek(2026, 47).bounds_utc(ZoneInfo(campaign.timezone))
+            insert_shots(session, campaign, spread_over_week(start, 1500), seed=31)
+    finally:
+        engine.dispose()
+
+
+@pytest.fixture
+def database_url(filled_database_url) -> str:
+    """A database of its own for each test, holding the stored week (stored once, then copied)."""
+    return filled_database_url("export-cli-week", _store_week)
+
+
 @pytest.fixture
 def stored_week(session_factory):
-    with session_factory() as session, session.begin():
-        campaign = add_campaign(session, "cli-week", "Europe/Zurich")
-        start, _ = IsoWeek(2026, 47).bounds_utc(ZoneInfo(campaign.timezone))
-        insert_shots(session, campaign, spread_over_week(start, 1500), seed=31)
-    return campaign
+    with session_factory() as session:
+        return session.scalars(select(Campaign).where(Campaign.slug == "cli-week")).one()
 
 
 @pytest.fixture

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
+from scipy import integrate, special
 
 import model
 from app.services.phase_spread import (
@@ -20,6 +20,7 @@ from app.services.phase_spread import (
     MEDIAN_OF_NEIGHBOURS_VARIANCE,
     NEIGHBOUR_WINDOW_SHOTS,
     phase_jitter,
+    phase_jitter_by_part,
     typical_phase_derivatives,
 )
 from model.inputs import shot_to_columns
@@ -50,7 +51,13 @@ def test_the_median_of_neighbours_variance_is_the_order_statistics_integral():
     # statistics (David & Nagaraja, Order Statistics, 3rd ed. (2003), eq. 2.2.2), by scipy dblquad.
     n, k = 14, 7
     c = factorial(n) / (factorial(k - 1) * factorial(n - k - 1))
-    f, cdf = stats.norm.pdf, stats.norm.cdf
+    # The unit Gaussian's density and distribution function as scipy.stats.norm computes them
+    # (exp(-x^2/2)/sqrt(2 pi) and special.ndtr), called directly: the frozen-distribution call
+    # costs more than the integrand itself, over the many thousand points dblquad asks for.
+    cdf = special.ndtr
+
+    def f(x: float) -> float:
+        return math.exp(-x * x / 2) / math.sqrt(2 * math.pi)
 
     def density(y, x):
         return ((x + y) / 2) ** 2 * c * cdf(x) ** (k - 1) * f(x) * f(y) * (1 - cdf(y)) ** (n - k - 1)
@@ -152,3 +159,35 @@ def test_typical_derivatives_are_the_median_of_the_models_own_central_difference
         assert typical[path] == pytest.approx(float(np.nanmedian(direct[path])), rel=1e-12)
     # The density term is dominated by k_p xi_ref / 2 (MODEL.md section 5): d(k_p xi)/d ln n = k_p xi / 2.
     assert typical[DENSITY] > 0
+
+
+def test_the_overviews_groups_of_shots_get_the_same_figures_computed_together_as_one_by_one():
+    # The overview's phase chart computes its 80 groups in one numpy call per length of group.
+    rng = np.random.default_rng(11)
+    n = 2003
+    phase = 0.3 * rng.standard_normal(n)
+    sources = {path: 1e14 * np.exp(0.01 * rng.standard_normal(n)) for path in JITTER_SOURCES}
+    slopes = {path: 0.5 + i for i, path in enumerate(JITTER_SOURCES)}
+    edges = np.linspace(0, n, 81).round().astype(int).tolist()
+    parts = list(zip(edges[:-1], edges[1:], strict=True))
+    one_by_one = [phase_jitter(phase[lo:hi], {p: v[lo:hi] for p, v in sources.items()}, slopes) for lo, hi in parts]
+    together = phase_jitter_by_part(phase, sources, slopes, parts)
+    assert len({hi - lo for lo, hi in parts}) == 2  # groups of two lengths
+    for a, b in zip(one_by_one, together, strict=True):
+        assert (a.phase_count, a.density_count) == (b.phase_count, b.density_count)
+        assert b.measured_phase_std_rad == pytest.approx(a.measured_phase_std_rad, rel=1e-12)
+        assert b.expected_phase_jitter_rad == pytest.approx(a.expected_phase_jitter_rad, rel=1e-12)
+        assert b.spread_pct == pytest.approx(a.spread_pct, rel=1e-12)
+        assert b.expected_by_source_rad == pytest.approx(a.expected_by_source_rad, rel=1e-12)
+
+
+def test_groups_with_a_missing_value_or_fewer_shots_than_the_window_are_computed_one_by_one_the_same():
+    rng = np.random.default_rng(12)
+    phase = 0.3 * rng.standard_normal(60)
+    phase[17] = np.nan  # a shot without a measured phase
+    sources = {DENSITY: 4e14 * np.exp(0.002 * rng.standard_normal(60))}
+    parts = [(0, 10), (10, 40), (40, 60)]  # the first shorter than the window
+    together = phase_jitter_by_part(phase, sources, {DENSITY: 1.0}, parts)
+    for (lo, hi), b in zip(parts, together, strict=True):
+        assert b == phase_jitter(phase[lo:hi], {DENSITY: sources[DENSITY][lo:hi]}, {DENSITY: 1.0})
+    assert together[1].phase_count == 29

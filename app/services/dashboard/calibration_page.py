@@ -15,17 +15,21 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from app.plain import rounded, rounded_list
-from app.presentation.charts import axis, layout
+from app.presentation.charts import axis, layout, text_for_chart, title_lines
 from app.presentation.numbers import editable_number, format_number
 from app.presentation.palette import INK, MUTED, OKABE_ITO, SERIES
 from app.services import calibration
 from app.services.calibration import Calibration
 from app.tables import Campaign
-from app.times import campaign_zone, format_utc
+from app.times import campaign_zone, chart_time, format_utc
 
-#: Points drawn per scatter (evenly spaced in time); the outliers are always drawn.
-SCATTER_POINTS = 3000
+#: Points drawn per scatter and runs per series (evenly spaced in time; the statistics use every shot):
+#: tens of thousands of SVG markers would make the page slow. Shots not explained are always drawn.
+SCATTER_POINTS = 2000
+#: Axis titles are broken into lines of about this many characters (a title wider than its chart is cut).
+TITLE_LINE = 36
 _OUTLIER = OKABE_ITO["vermillion"]
+_RUN = OKABE_ITO["orange"]
 _FIT = OKABE_ITO["blue"]
 
 
@@ -53,6 +57,7 @@ class CalibrationPage:
     config: dict[str, Any]
     start_text: str
     end_text: str
+    run_tag_paths: tuple[str, ...] = calibration.RUN_TAG_PATHS
 
 
 def _n(value: float | None, digits: int = 4) -> str:
@@ -63,66 +68,105 @@ def _interval_text(m: dict[str, Any], digits: int = 4) -> str:
     return f"{_n(m['estimate'], digits)} [{_n(m['low'], digits)}, {_n(m['high'], digits)}]"
 
 
+def _error_bars(points: list[dict[str, Any]]) -> dict[str, Any]:
+    return {
+        "type": "data",
+        "symmetric": False,
+        "array": rounded_list([(p["high"] - p["estimate"]) if p["high"] is not None else None for p in points]),
+        "arrayminus": rounded_list([(p["estimate"] - p["low"]) if p["low"] is not None else None for p in points]),
+    }
+
+
+def _moment_utc(text: str) -> datetime:
+    return datetime.fromisoformat(text.replace("Z", "+00:00"))
+
+
 def _series_figure(result: Calibration, ans: dict[str, Any]) -> dict[str, Any]:
-    days = [s["day"] for s in ans["series"]]
-    est = [s["estimate"] for s in ans["series"]]
-    upper = [(s["high"] - s["estimate"]) if s["high"] is not None else None for s in ans["series"]]
-    lower = [(s["estimate"] - s["low"]) if s["low"] is not None else None for s in ans["series"]]
-    text = [f"{s['day']}: {_interval_text(s)} ({s['shots']} shots)" for s in ans["series"]]
+    """The scale per day (at the day's noon) and, where the shots carry run tags, per run (at the middle
+    of the run, drawn first so that the days lie on top), on one time axis of the campaign's zone; the
+    period's estimate, the applied scale and the changes found. Runs beyond SCATTER_POINTS are thinned
+    evenly in time (the answer keeps them all)."""
+    zone = campaign_zone(result.campaign.timezone)
+    days = ans["series"]
     data: list[dict[str, Any]] = [
         {
             "type": "scatter",
             "mode": "markers",
             "name": "per day (95 % interval)",
-            "x": days,
-            "y": rounded_list(est),
-            "error_y": {
-                "type": "data",
-                "symmetric": False,
-                "array": rounded_list(upper),
-                "arrayminus": rounded_list(lower),
-            },
-            "marker": {"color": SERIES, "size": 8},
-            "hovertext": text,
+            "legendrank": 1,  # listed first, drawn over the runs (which come first in data)
+            "x": [f"{d['day']} 12:00:00" for d in days],
+            "y": rounded_list([d["estimate"] for d in days]),
+            "error_y": _error_bars(days),
+            "marker": {"color": SERIES, "size": 9, "line": {"color": "#ffffff", "width": 1}},
+            "hovertext": [f"{d['day']}: {_interval_text(d)} ({d['shots']} shots)" for d in days],
             "hoverinfo": "text",
         }
     ]
-    shapes: list[dict[str, Any]] = []
+    every_run = ans["run_series"]
+    pick = calibration.cal.evenly_spaced(len(every_run), SCATTER_POINTS).tolist()
+    runs = [every_run[i] for i in pick]
+    if runs:
+        name = f"per run, by {', '.join(ans['run_series_by'])} (95 % interval)"
+        if len(runs) < len(every_run):
+            name += f"; {format_number(len(runs))} of {format_number(len(every_run))} runs drawn, evenly in time"
+        points = [result.run_series[i] for i in pick]
+        middle = [calibration.instant((result.taken_at[p.first] + result.taken_at[p.last]) / 2) for p in points]
+        data.insert(
+            0,
+            {
+                "type": "scatter",
+                "mode": "markers",
+                "name": name,
+                "legendrank": 2,
+                "x": [chart_time(m, zone) for m in middle],
+                "y": rounded_list([r["estimate"] for r in runs]),
+                "error_y": {**_error_bars(runs), "color": _RUN, "thickness": 1},
+                "marker": {"color": _RUN, "size": 6, "symbol": "diamond"},
+                "hovertext": [
+                    f"run {text_for_chart(r['run'])}: {_interval_text(r)} ({r['shots']} shots), "
+                    f"{chart_time(_moment_utc(r['first_taken_at']), zone)} to "
+                    f"{chart_time(_moment_utc(r['last_taken_at']), zone)}"
+                    for r in runs
+                ],
+                "hoverinfo": "text",
+            },
+        )
+    ends = [chart_time(calibration.instant(result.taken_at[i]), zone) for i in (0, -1)] if result.shots else []
     scale = ans["density_scale"]
-    if scale["estimate"] is not None and days:
+    if scale["estimate"] is not None and ends:
         data.append(
             {
                 "type": "scatter",
                 "mode": "lines",
                 "name": f"estimate of the period {_n(scale['estimate'])}",
-                "x": [days[0], days[-1]],
+                "x": ends,
                 "y": [rounded(scale["estimate"])] * 2,
                 "line": {"color": _FIT, "dash": "dash"},
                 "hoverinfo": "skip",
             }
         )
-    if days:
+    if ends:
         data.append(
             {
                 "type": "scatter",
                 "mode": "lines",
                 "name": f"applied now {_n(ans['applied_density_scale'])}",
-                "x": [days[0], days[-1]],
+                "x": ends,
                 "y": [rounded(ans["applied_density_scale"])] * 2,
                 "line": {"color": MUTED, "dash": "dot"},
                 "hoverinfo": "skip",
             }
         )
+    shapes: list[dict[str, Any]] = []
     for change in ans["changes"]:
-        index = result.shot_ids.index(change["shot_id"])
-        day = _day(result, index)
+        at = chart_time(_moment_utc(change["taken_at"]), zone)
         shapes.append(
             {
                 "type": "line",
                 "xref": "x",
                 "yref": "paper",
-                "x0": day,
-                "x1": day,
+                "x0": at,
+                "x1": at,
                 "y0": 0,
                 "y1": 1,
                 "line": {"color": _OUTLIER, "width": 2, "dash": "dashdot"},
@@ -131,17 +175,12 @@ def _series_figure(result: Calibration, ans: dict[str, Any]) -> dict[str, Any]:
     return {
         "data": data,
         "layout": layout(
-            xaxis=axis("day (campaign time zone)", type="category"),
-            yaxis=axis("density scale (f_meas / f_ref)²"),
+            xaxis=axis(f"taken at ({result.campaign.timezone})", type="date"),
+            yaxis=axis(title_lines("density scale (f_meas / f_ref)²", TITLE_LINE)),
             shapes=shapes,
-            height=340,
+            height=360,
         ),
     }
-
-
-def _day(result: Calibration, index: int) -> str:
-    moment = calibration.instant(result.taken_at[index])
-    return moment.astimezone(campaign_zone(result.campaign.timezone)).date().isoformat()
 
 
 def _scaling_panel(i: int, check: calibration.ScalingCheck, entry: dict[str, Any], shot_points: bool) -> ScalingPanel:
@@ -150,11 +189,14 @@ def _scaling_panel(i: int, check: calibration.ScalingCheck, entry: dict[str, Any
     pick = ok[calibration.cal.evenly_spaced(int(ok.size), SCATTER_POINTS)]
     outliers = fit.outliers
     names = check.names
+    name = "shots" if shot_points else "days"
+    if pick.size < ok.size:
+        name += f": {format_number(int(pick.size))} of {format_number(int(ok.size))} drawn, evenly in time"
     data: list[dict[str, Any]] = [
         {
             "type": "scatter",
             "mode": "markers",
-            "name": "shots" if shot_points else "days",
+            "name": name,
             "x": rounded_list(check.x[pick]),
             "y": rounded_list(check.y[pick]),
             "customdata": [names[j] for j in pick.tolist()] if shot_points else None,
@@ -201,15 +243,15 @@ def _scaling_panel(i: int, check: calibration.ScalingCheck, entry: dict[str, Any
         ),
         ("prefactor a", _n(fit.prefactor, 3)),
         ("Spearman ρ", _n(fit.spearman, 3)),
-        (check.points, f"{fit.shots} (fit on {fit.fitted_shots})"),
-        ("not explained", str(int(outliers.size))),
+        (check.points, f"{format_number(fit.shots)} (fit on {format_number(fit.fitted_shots)})"),
+        ("not explained", format_number(int(outliers.size))),
     ]
     figure = {
         "data": data,
         "layout": layout(
-            xaxis=axis(f"{check.proxy} [{check.proxy_unit}]", type="log"),
-            yaxis=axis(check.diagnostic, type="log"),
-            height=360,
+            xaxis=axis(title_lines(f"{check.proxy} [{check.proxy_unit}]", TITLE_LINE), type="log"),
+            yaxis=axis(title_lines(check.diagnostic, TITLE_LINE), type="log"),
+            height=380,
         ),
     }
     return ScalingPanel(
@@ -264,6 +306,16 @@ def _drivers_figure(ans: dict[str, Any]) -> dict[str, Any]:
     }
 
 
+def _series_fact(ans: dict[str, Any]) -> str:
+    text = f"per day ({format_number(len(ans['series']))} days)"
+    if not ans["run_series"]:
+        return text + "; no shot carries a run tag (" + ", ".join(calibration.RUN_TAG_PATHS) + ")"
+    text += f" and per run by {', '.join(ans['run_series_by'])} ({format_number(len(ans['run_series']))} runs"
+    if ans["run_untagged_shots"]:
+        text += f"; {format_number(ans['run_untagged_shots'])} shots without a run tag are in the days only"
+    return text + ")"
+
+
 def calibration_page(session: Session, slug: str, start: datetime | None, end: datetime | None) -> CalibrationPage:
     """Everything the page shows, for shots taken in [start, end)."""
     result = calibration.measure(session, slug, start, end)
@@ -271,9 +323,10 @@ def calibration_page(session: Session, slug: str, start: datetime | None, end: d
     scale = ans["density_scale"]
     mismatch = ans["frequency_mismatch_pct"]
     facts = [
-        ("density scale", f"{_interval_text(scale)} ({scale['shots']} shots with a measured frequency)"),
+        ("density scale", f"{_interval_text(scale)} ({format_number(scale['shots'])} shots with a measured frequency)"),
         ("applied now", _n(ans["applied_density_scale"])),
-        ("frequency mismatch now", f"{_interval_text(mismatch, 3)} % ({mismatch['shots']} shots)"),
+        ("frequency mismatch now", f"{_interval_text(mismatch, 3)} % ({format_number(mismatch['shots'])} shots)"),
+        ("series", _series_fact(ans)),
         ("changes found", str(len(ans["changes"]))),
     ]
     changes = [

@@ -30,6 +30,7 @@ from app.services.phase_spread import (
     circular_mean_rad,
     derivative_sample,
     phase_jitter,
+    phase_jitter_by_part,
     typical_phase_derivatives,
 )
 from app.store import dashboard as store
@@ -40,10 +41,27 @@ from app.times import campaign_zone, chart_time
 # Limits that keep a 100,000-shot campaign's pages small and quick.
 # Plotly's WebGL traces (scattergl) compile code at run time, which the pages' CSP
 # forbids (no 'unsafe-eval'), so every chart is SVG and long series are thinned.
+# Shots read per chart:
 TIMELINE_NOMINAL_POINTS = 1500
 FLAGGED_POINTS_CAP = 1000  # per flagged status and chart; past it, 1 in k over the whole range
 TIMELINE_FLAGGED_POINTS = 400  # per flagged status on the timeline (five panels of markers)
 SCATTER_NOMINAL_POINTS = 3000
+# What the browser draws: every marker is an SVG path that the page builds, styles, paints and
+# hit-tests (at 100,000 shots 17,000 of them kept Chromium busy for 6-10 s), so
+# - past NOMINAL_MARKERS_MAX nominal shots a map draws them as a density (one heatmap image);
+# - past FLAGGED_MARKERS_MAX shots of a flagged status (per panel on the timeline) a chart draws
+#   one marker per cell of a grid about a marker's size (coarser until at most that many), the
+#   latest shot of the cell, whose hover says how many more shots share it; so every region
+#   holding a flagged shot shows one (_one_per_cell).
+NOMINAL_MARKERS_MAX = 400
+FLAGGED_MARKERS_MAX = 250
+TIMELINE_FLAGGED_MARKERS_MAX = 80
+# Cells across and up, about 10 px square where the charts are drawn: the regime map and the
+# timeline's panels span the page, the calibration map and the phase chart half of it.
+WIDE_MARKER_CELLS = (110, 45)
+TIMELINE_MARKER_CELLS = (110, 16)
+HALF_WIDTH_MARKER_CELLS = (55, 40)
+DENSITY_CELLS = (100, 50)
 PHASE_MAX_BINS = 80
 PHASE_MIN_SHOTS_PER_BIN = 5
 PHASE_MAX_ROWS = 20000  # shots the phase figures are computed from; past it, 1 in k
@@ -72,13 +90,19 @@ def _point_trace(
     axes: tuple[str, str] = ("x", "y"),
     showlegend: bool = True,
     note: str = "",
+    stands_for: Sequence[int] | None = None,
 ) -> dict[str, Any]:
+    """One status's shots as markers; ``stands_for``: how many shots each marker stands for (one
+    marker per cell, _one_per_cell), said in the legend and in each marker's hover."""
     style = STATUS_STYLES[status]
     shown = f"{len(x):,} of {total:,}" if len(x) != total else f"{total:,}"
-    return {
+    name = f"{status} ({shown}{note})"
+    if stands_for is not None:  # note: ", 1 in k" when the shots read were thinned
+        name = f"{status} ({total:,} shots; one marker per cell{note.replace(', 1 in', ' of 1 in')})"
+    trace = {
         "type": "scatter",
         "mode": "markers",
-        "name": f"{status} ({shown}{note})",
+        "name": name,
         "legendgroup": status,
         "showlegend": showlegend,
         "x": x,
@@ -96,6 +120,102 @@ def _point_trace(
         "hovertemplate": "%{customdata}<br>x %{x}<br>y %{y:.5g}<extra>" + status + "</extra>",
         "meta": {"status": status, "x": x_field, "y": y_field},
     }
+    if stands_for is not None:
+        trace["text"] = [
+            f"<br>and {format_number(n - 1)} more {status} shot{'s' if n > 2 else ''} in this cell" if n > 1 else ""
+            for n in stands_for
+        ]
+        trace["hovertemplate"] = "%{customdata}%{text}<br>x %{x}<br>y %{y:.5g}<extra>" + status + "</extra>"
+    return trace
+
+
+def _fraction(values: np.ndarray, limits: tuple[float, float]) -> np.ndarray:
+    lo, hi = limits
+    return np.clip((values - lo) / (hi - lo), 0.0, 1.0) if hi > lo else np.zeros(len(values))
+
+
+def _one_per_cell(
+    x: np.ndarray,
+    y: np.ndarray,
+    x_range: tuple[float, float],
+    y_range: tuple[float, float],
+    cells: tuple[int, int],
+    cap: int,
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """Which of these points (in time order) to draw as markers: all of them up to ``cap``;
+    past it the latest point of each occupied cell of a grid of ``cells`` over the ranges,
+    the grid made coarser until at most ``cap`` remain, and how many points each stands for
+    (None when all are drawn). Every point lies in the cell of a marker drawn."""
+    n = len(x)
+    if n <= cap:
+        return np.arange(n), None
+    fx, fy = _fraction(x, x_range), _fraction(y, y_range)
+    nx, ny = cells
+    while True:
+        cell = np.minimum((fx * nx).astype(int), nx - 1) * ny + np.minimum((fy * ny).astype(int), ny - 1)
+        _, first_from_end, counts = np.unique(cell[::-1], return_index=True, return_counts=True)
+        if len(counts) <= cap or nx * ny == 1:
+            break
+        nx, ny = max(1, nx // 2), max(1, ny // 2)
+    keep = n - 1 - first_from_end
+    order = np.argsort(keep)
+    return keep[order], counts[order]
+
+
+def _drawn_range(limits: tuple[float, float] | None, values: Sequence[float]) -> tuple[float, float]:
+    """The stretch an axis shows: the padded robust range, else every value (a little wider when all equal)."""
+    if limits is not None:
+        lo, hi = padded(limits)
+        return lo, hi
+    lo, hi = (min(values), max(values)) if len(values) else (0.0, 1.0)
+    if hi <= lo:
+        pad = abs(hi) * 0.01 or 1.0
+        lo, hi = lo - pad, hi + pad
+    return float(lo), float(hi)
+
+
+def _density_trace(
+    x: np.ndarray,
+    y: np.ndarray,
+    x_range: tuple[float, float],
+    y_range: tuple[float, float],
+    *,
+    total: int,
+    step: int,
+) -> dict[str, Any]:
+    """Nominal shots as one heatmap image: shots per cell (estimated from 1 in ``step`` when
+    thinned), coloured by their log so that sparse cells still show; empty cells are left clear."""
+    counts, x_edges, y_edges = np.histogram2d(x, y, bins=DENSITY_CELLS, range=[x_range, y_range])
+    shots = counts.T * step  # rows go up the y axis
+    about = "about " if step > 1 else ""
+    text = [[f"{about}{format_number(int(v))} nominal shots in this cell" if v else None for v in row] for row in shots]
+    with np.errstate(divide="ignore"):
+        z = np.where(shots > 0, np.log10(np.maximum(shots, 1.0)), np.nan)
+    style = STATUS_STYLES["nominal"]
+    note = f", from 1 in {step}" if step > 1 else ""
+    return {
+        "type": "heatmap",
+        "name": f"nominal ({total:,} shots as a density, darker = more{note})",
+        "legendgroup": "nominal",
+        "showlegend": True,
+        "x": rounded_list((x_edges[:-1] + x_edges[1:]) / 2),
+        "y": rounded_list((y_edges[:-1] + y_edges[1:]) / 2),
+        "z": rounded_list(z, 4),
+        "zmin": 0,
+        "text": text,
+        "colorscale": [[0, rgba(style.colour, 0.15)], [1, rgba(style.colour, 0.85)]],
+        "showscale": False,
+        "hoverongaps": False,
+        "hovertemplate": "%{text}<extra>nominal</extra>",
+        "meta": {"density": "nominal"},
+    }
+
+
+def _live_nominal_trace(x_field: str, y_field: str) -> dict[str, Any]:
+    """Where live updates add new nominal shots (as markers) while the density stays as drawn."""
+    trace = _point_trace("nominal", [], [], [], x_field=x_field, y_field=y_field, total=0, showlegend=False)
+    trace["name"] = "nominal shots since the chart was drawn"
+    return trace
 
 
 @dataclass
@@ -113,12 +233,19 @@ def _series_by_status(
     required: Sequence[str] = (),
     upto_pk: int | None = None,
     flagged_points: int = FLAGGED_POINTS_CAP,
+    totals: dict[str, int] | None = None,
+    with_time: bool = True,
 ) -> list[_StatusSeries]:
-    """Nominal shots thinned to ``nominal_points``; flagged shots all kept up to a cap."""
-    wanted: dict[str, Any] = {"shot_id": Shot.shot_id, "taken_at": Shot.taken_at}
+    """Nominal shots thinned to ``nominal_points``; flagged shots all kept up to a cap, in time
+    order (``taken_at`` among the columns unless ``with_time`` is false: a map has no time axis).
+    ``totals``: the shots per status that have the ``required`` values, when already counted."""
+    wanted: dict[str, Any] = (
+        {"shot_id": Shot.shot_id, "taken_at": Shot.taken_at} if with_time else {"shot_id": Shot.shot_id}
+    )
     wanted.update({name: store.NUMERIC_COLUMNS[name] for name in columns})
     needed = [store.NUMERIC_COLUMNS[name] for name in required]
-    totals = store.counts_with_values(session, campaign.id, needed, upto_pk=upto_pk)
+    if totals is None:
+        totals = store.counts_with_values(session, campaign.id, needed, upto_pk=upto_pk)
     out = []
     for status in model.STATUSES:
         series = store.status_series(
@@ -212,7 +339,9 @@ def _epoch(moment: datetime) -> float:
     return moment.timestamp()
 
 
-def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, Any]:
+def timeline_figure(
+    session: Session, campaign: Campaign, upto_pk: int | None = None, totals: dict[str, int] | None = None
+) -> dict[str, Any]:
     """Key conditions against time, one panel each: nominal shots as a thin line, flagged shots
     marked by shape and colour, robust ranges (one wild value or date cannot flatten a panel)."""
     zone = campaign_zone(campaign.timezone)
@@ -223,6 +352,7 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
         nominal_points=TIMELINE_NOMINAL_POINTS,
         upto_pk=upto_pk,
         flagged_points=TIMELINE_FLAGGED_POINTS,
+        totals=totals,
     )
     panels = len(TIMELINE_FIELDS)
     gap = 0.04
@@ -255,6 +385,8 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
         pins = _Pins(t_lim, y_lim)
         pinned_x: list[Any] = []
         pinned_y: list[Any] = []
+        t_range = _drawn_range(t_lim, [t for values in epochs.values() for t in values])
+        y_range = _drawn_range(y_lim, [v for item in by_status for v in item.series.columns[name] if v is not None])
         for item in by_status:
             cols = item.series.columns
             ys = rounded_list(cols[name])
@@ -272,17 +404,32 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
                     )
                     pinned_x.append(chart_time(datetime.fromtimestamp(pt, UTC), zone))
                     pinned_y.append(rounded(pv))
+            if item.status == "nominal":  # one thin line (one SVG path), gaps where a value is missing
+                drawn = [j for j, ok in enumerate(inside) if ok]
+                stands_for = None
+            else:  # markers of the shots that have a value, one per cell past the cap
+                drawn = [j for j, ok in enumerate(inside) if ok and ys[j] is not None]
+                picked, stands_for = _one_per_cell(
+                    np.array([epochs[item.status][j] for j in drawn], dtype=float),
+                    np.array([ys[j] for j in drawn], dtype=float),
+                    t_range,
+                    y_range,
+                    TIMELINE_MARKER_CELLS,
+                    TIMELINE_FLAGGED_MARKERS_MAX,
+                )
+                drawn = [drawn[k] for k in picked.tolist()]
             trace = _point_trace(
                 item.status,
-                [x for x, ok in zip(times[item.status], inside, strict=True) if ok],
-                [y for y, ok in zip(ys, inside, strict=True) if ok],
-                [c for c, ok in zip(labels[item.status], inside, strict=True) if ok],
+                [times[item.status][j] for j in drawn],
+                [ys[j] for j in drawn],
+                [labels[item.status][j] for j in drawn],
                 x_field="taken_at",
                 y_field=name,
                 total=item.series.total,
                 axes=axes,
                 showlegend=i == 0,
                 note=_series_note(item),
+                stands_for=None if stands_for is None else stands_for.tolist(),
             )
             traces.append(_line_trace(trace) if item.status == "nominal" else trace)
         if pinned_x:
@@ -293,9 +440,29 @@ def timeline_figure(session: Session, campaign: Campaign, upto_pk: int | None = 
     return {"data": traces, "layout": figure_layout}
 
 
-def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk: int | None = None) -> dict[str, Any]:
-    """Any two conditions or outputs against each other, coloured and shaped by status, on
-    robust ranges: a wild value is pinned at the edge and marked, not allowed to flatten the map."""
+@dataclass
+class _StatusMap:
+    """Two columns against each other by status: the traces, and the robust ranges (None: fits all)."""
+
+    traces: list[dict[str, Any]]
+    x_lim: tuple[float, float] | None
+    y_lim: tuple[float, float] | None
+    x_range: tuple[float, float]  # what the axes show
+    y_range: tuple[float, float]
+
+
+def _status_map(
+    session: Session,
+    campaign: Campaign,
+    x: str,
+    y: str,
+    *,
+    upto_pk: int | None = None,
+    totals: dict[str, int] | None = None,
+    cells: tuple[int, int] = WIDE_MARKER_CELLS,
+) -> _StatusMap:
+    """Shots by status on robust ranges (a wild value is pinned at the edge and marked); many
+    nominal shots as a density, many flagged shots one marker per cell (module constants)."""
     by_status = _series_by_status(
         session,
         campaign,
@@ -303,6 +470,8 @@ def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk:
         nominal_points=SCATTER_NOMINAL_POINTS,
         required=(x, y),
         upto_pk=upto_pk,
+        totals=totals,
+        with_time=False,
     )
     xs = {item.status: rounded_list(item.series.columns[x]) for item in by_status}
     ys = {item.status: rounded_list(item.series.columns[y]) for item in by_status}
@@ -311,10 +480,12 @@ def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk:
     pins = _Pins(x_lim, y_lim)
     pinned_x: list[Any] = []
     pinned_y: list[Any] = []
-    traces = []
+    drawn: dict[str, list[int]] = {}
     for item in by_status:
         ids = [text_for_chart(s) for s in item.series.columns["shot_id"]]
+        item.series.columns["shot_id"] = ids
         inside = pins.keep(xs[item.status], ys[item.status])
+        drawn[item.status] = [j for j, ok in enumerate(inside) if ok]
         for j, ok in enumerate(inside):
             if not ok:
                 vx, vy = xs[item.status][j], ys[item.status][j]
@@ -328,27 +499,70 @@ def regime_figure(session: Session, campaign: Campaign, x: str, y: str, upto_pk:
                 )
                 pinned_x.append(rounded(px))
                 pinned_y.append(rounded(py))
+    x_range = _drawn_range(x_lim, [xs[s][j] for s, js in drawn.items() for j in js])
+    y_range = _drawn_range(y_lim, [ys[s][j] for s, js in drawn.items() for j in js])
+    traces = []
+    for item in by_status:
+        status, kept = item.status, drawn[item.status]
+        at_x = np.array([xs[status][j] for j in kept], dtype=float)
+        at_y = np.array([ys[status][j] for j in kept], dtype=float)
+        if status == "nominal" and len(kept) > NOMINAL_MARKERS_MAX:
+            traces.append(_density_trace(at_x, at_y, x_range, y_range, total=item.series.total, step=item.series.step))
+            traces.append(_live_nominal_trace(x, y))
+            continue
+        stands_for = None
+        if status != "nominal":
+            picked, stands_for = _one_per_cell(at_x, at_y, x_range, y_range, cells, FLAGGED_MARKERS_MAX)
+            kept = [kept[k] for k in picked.tolist()]
         traces.append(
             _point_trace(
-                item.status,
-                [v for v, ok in zip(xs[item.status], inside, strict=True) if ok],
-                [v for v, ok in zip(ys[item.status], inside, strict=True) if ok],
-                [v for v, ok in zip(ids, inside, strict=True) if ok],
+                status,
+                [xs[status][j] for j in kept],
+                [ys[status][j] for j in kept],
+                [item.series.columns["shot_id"][j] for j in kept],
                 x_field=x,
                 y_field=y,
                 total=item.series.total,
                 note=_series_note(item),
+                stands_for=None if stands_for is None else stands_for.tolist(),
             )
         )
     if pinned_x:
         traces.append(pins.trace(pinned_x, pinned_y))
+    return _StatusMap(traces, x_lim, y_lim, x_range, y_range)
+
+
+def _robust_meta(scatter: _StatusMap) -> dict[str, Any]:
+    return {
+        "robust": {
+            "x": list(scatter.x_lim) if scatter.x_lim else None,
+            "y": list(scatter.y_lim) if scatter.y_lim else None,
+        }
+    }
+
+
+def _axis_range(limits: tuple[float, float] | None) -> dict[str, Any]:
+    return {"range": padded(limits)} if limits else {}
+
+
+def regime_figure(
+    session: Session,
+    campaign: Campaign,
+    x: str,
+    y: str,
+    upto_pk: int | None = None,
+    totals: dict[str, int] | None = None,
+) -> dict[str, Any]:
+    """Any two conditions or outputs against each other, coloured and shaped by status, on
+    robust ranges: a wild value is pinned at the edge and marked, not allowed to flatten the map."""
+    scatter = _status_map(session, campaign, x, y, upto_pk=upto_pk, totals=totals)
     figure_layout = layout(
         height=520,
-        xaxis=axis(field_label(x), exponentformat="power", **({"range": padded(x_lim)} if x_lim else {})),
-        yaxis=axis(field_label(y), exponentformat="power", **({"range": padded(y_lim)} if y_lim else {})),
-        meta={"robust": {"x": list(x_lim) if x_lim else None, "y": list(y_lim) if y_lim else None}},
+        xaxis=axis(field_label(x), exponentformat="power", **_axis_range(scatter.x_lim)),
+        yaxis=axis(field_label(y), exponentformat="power", **_axis_range(scatter.y_lim)),
+        meta=_robust_meta(scatter),
     )
-    return {"data": traces, "layout": figure_layout}
+    return {"data": scatter.traces, "layout": figure_layout}
 
 
 @dataclass(frozen=True)
@@ -358,8 +572,27 @@ class PhaseSummary:
     thinned_step: int = 1  # the spreads come from about every k-th shot of a large campaign
 
 
-def phase_rows(session: Session, campaign: Campaign, upto_pk: int | None = None) -> store.PhaseRows:
-    return store.phase_rows(session, campaign.id, JITTER_SOURCES, max_rows=PHASE_MAX_ROWS, upto_pk=upto_pk)
+@dataclass(frozen=True)
+class PhaseData:
+    """What the phase chart and its figures are computed from, read once."""
+
+    totals: dict[str, int]  # shots with a measured phase, by status
+    rows: store.PhaseRows
+    derivatives: dict[str, float | None]
+
+
+def phase_data(
+    session: Session, campaign: Campaign, upto_pk: int | None = None, totals: dict[str, int] | None = None
+) -> PhaseData:
+    """The shots with a measured phase: counted by status (the chart's legend; their sum is the
+    figures' count; ``totals`` when already counted), read in time order (thinned past
+    PHASE_MAX_ROWS) and the typical phase derivatives over an even sample of them."""
+    if totals is None:
+        totals = store.counts_with_values(session, campaign.id, [store.NUMERIC_COLUMNS[PHASE_FIELD]], upto_pk=upto_pk)
+    rows = store.phase_rows(
+        session, campaign.id, JITTER_SOURCES, max_rows=PHASE_MAX_ROWS, upto_pk=upto_pk, total=sum(totals.values())
+    )
+    return PhaseData(totals, rows, phase_derivatives(session, campaign, rows))
 
 
 def phase_derivatives(session: Session, campaign: Campaign, rows: store.PhaseRows) -> dict[str, float | None]:
@@ -370,22 +603,21 @@ def phase_derivatives(session: Session, campaign: Campaign, rows: store.PhaseRow
     return typical_phase_derivatives(model_columns(sample), campaign.model_settings or {})
 
 
-def _jitter(rows: store.PhaseRows, derivatives: dict[str, float | None], part: slice = slice(None)) -> PhaseJitter:
-    """The shared definition (app.services.phase_spread) over the shots with a measured phase."""
-
-    def as_array(values: list[Any]) -> np.ndarray:
-        return np.array(values[part], dtype=float)  # None becomes NaN
-
-    sources = {path: as_array(values) for path, values in rows.sources.items()}
-    return phase_jitter(as_array(rows.phase), sources, derivatives)
+def _columns(rows: store.PhaseRows) -> tuple[np.ndarray, dict[str, np.ndarray]]:
+    """The phases and the sources as arrays (None becomes NaN)."""
+    return np.array(rows.phase, dtype=float), {
+        path: np.array(values, dtype=float) for path, values in rows.sources.items()
+    }
 
 
 def phase_summary(
-    session: Session, campaign: Campaign, upto_pk: int | None = None, rows: store.PhaseRows | None = None
+    session: Session, campaign: Campaign, upto_pk: int | None = None, data: PhaseData | None = None
 ) -> PhaseSummary:
-    rows = rows if rows is not None else phase_rows(session, campaign, upto_pk)
-    jitter = _jitter(rows, phase_derivatives(session, campaign, rows))
-    return PhaseSummary(shots_with_phase=rows.total, jitter=jitter, thinned_step=rows.step)
+    """The shared definition (app.services.phase_spread) over the shots with a measured phase."""
+    data = data if data is not None else phase_data(session, campaign, upto_pk)
+    phases, sources = _columns(data.rows)
+    jitter = phase_jitter(phases, sources, data.derivatives)
+    return PhaseSummary(shots_with_phase=data.rows.total, jitter=jitter, thinned_step=data.rows.step)
 
 
 @dataclass(frozen=True)
@@ -396,32 +628,28 @@ class PhaseGroup:
     jitter: PhaseJitter
 
 
-def phase_groups(session: Session, campaign: Campaign, rows: store.PhaseRows) -> list[PhaseGroup]:
+def phase_groups(session: Session, data: PhaseData) -> list[PhaseGroup]:
     """Consecutive shots (taken_at order) in at most PHASE_MAX_BINS groups of at least
     PHASE_MIN_SHOTS_PER_BIN shots where there are enough."""
+    rows = data.rows
     n = len(rows.pk)
     if n < 2:
         return []
-    derivatives = phase_derivatives(session, campaign, rows)
     count = max(1, min(PHASE_MAX_BINS, n // PHASE_MIN_SHOTS_PER_BIN))
     edges = np.linspace(0, n, count + 1).round().astype(int).tolist()
     parts = [(lo, hi) for lo, hi in zip(edges[:-1], edges[1:], strict=False) if hi > lo]
     # Only the groups' first and last shots need their times (a few hundred, not every row).
     times = store.taken_at_of(session, [rows.pk[i] for lo, hi in parts for i in (lo, hi - 1)])
-    phases = np.array(rows.phase, dtype=float)
+    phases, sources = _columns(rows)
+    jitters = phase_jitter_by_part(phases, sources, data.derivatives, parts)
     return [
-        PhaseGroup(
-            times[rows.pk[lo]],
-            times[rows.pk[hi - 1]],
-            circular_mean_rad(phases[lo:hi]),
-            _jitter(rows, derivatives, slice(lo, hi)),
-        )
-        for lo, hi in parts
+        PhaseGroup(times[rows.pk[lo]], times[rows.pk[hi - 1]], circular_mean_rad(phases[lo:hi]), jitter)
+        for (lo, hi), jitter in zip(parts, jitters, strict=True)
     ]
 
 
 def phase_figure(
-    session: Session, campaign: Campaign, upto_pk: int | None = None, rows: store.PhaseRows | None = None
+    session: Session, campaign: Campaign, upto_pk: int | None = None, data: PhaseData | None = None
 ) -> dict[str, Any]:
     """Measured modulation phase against shot time, beside the jitter the logged jitters predict.
 
@@ -432,6 +660,7 @@ def phase_figure(
     (both about running windows of neighbouring shots, app.services.phase_spread).
     """
     zone = campaign_zone(campaign.timezone)
+    data = data if data is not None else phase_data(session, campaign, upto_pk)
     by_status = _series_by_status(
         session,
         campaign,
@@ -439,8 +668,9 @@ def phase_figure(
         nominal_points=TIMELINE_NOMINAL_POINTS,
         required=(PHASE_FIELD,),
         upto_pk=upto_pk,
+        totals=data.totals,
     )
-    groups = phase_groups(session, campaign, rows if rows is not None else phase_rows(session, campaign, upto_pk))
+    groups = phase_groups(session, data)
     traces: list[dict[str, Any]] = []
     centres, upper, lower, measured_rms, expected = [], [], [], [], []
     for g in groups:
@@ -484,20 +714,32 @@ def phase_figure(
             "yaxis": "y",
         }
     )
+    epochs = {item.status: np.array([_epoch(t) for t in item.series.columns["taken_at"]]) for item in by_status}
+    phases = {item.status: rounded_list(item.series.columns[PHASE_FIELD]) for item in by_status}
+    t_range = _drawn_range(None, [t for values in epochs.values() for t in values.tolist()])
+    y_range = _drawn_range(None, [v for values in phases.values() for v in values if v is not None])
     for item in by_status:
         cols = item.series.columns
-        traces.append(
-            _point_trace(
-                item.status,
-                [chart_time(t, zone) for t in cols["taken_at"]],
-                rounded_list(cols[PHASE_FIELD]),
-                [text_for_chart(s) for s in cols["shot_id"]],
-                x_field="taken_at",
-                y_field=PHASE_FIELD,
-                total=item.series.total,
-                note=_series_note(item),
-            )
+        t, y = epochs[item.status], np.array(phases[item.status], dtype=float)
+        picked, stands_for = (
+            (np.arange(len(t)), None)
+            if item.status == "nominal"
+            else _one_per_cell(t, y, t_range, y_range, HALF_WIDTH_MARKER_CELLS, FLAGGED_MARKERS_MAX)
         )
+        kept = picked.tolist()
+        trace = _point_trace(
+            item.status,
+            [chart_time(cols["taken_at"][j], zone) for j in kept],
+            [phases[item.status][j] for j in kept],
+            [text_for_chart(cols["shot_id"][j]) for j in kept],
+            x_field="taken_at",
+            y_field=PHASE_FIELD,
+            total=item.series.total,
+            note=_series_note(item),
+            stands_for=None if stands_for is None else stands_for.tolist(),
+        )
+        # Many nominal shots: one thin line (one SVG path), as on the timeline.
+        traces.append(_line_trace(trace) if item.status == "nominal" and len(t) > NOMINAL_MARKERS_MAX else trace)
     traces.append(
         {
             "type": "scatter",
@@ -533,7 +775,10 @@ def phase_figure(
     return {"data": traces, "layout": figure_layout}
 
 
-CALIBRATION_MAX_ROWS = 20000  # shots the median offset is taken from; past it, 1 in k
+# Shots the median offset is taken from; past it, 1 in k. The median of n shots scatters by about
+# 1.25 sigma / sqrt(n) (sqrt(pi / 2) for Gaussian offsets; common practice, no source): 0.018 sigma
+# at 5,000, while reading every 5th shot of 100,000 instead cost the overview 80-150 ms of CPU.
+CALIBRATION_MAX_ROWS = 5000
 
 
 @dataclass(frozen=True)
@@ -543,50 +788,42 @@ class CalibrationSummary:
     thinned_step: int = 1  # the median comes from about every k-th shot of a large campaign
 
 
-def calibration_summary(session: Session, campaign: Campaign) -> CalibrationSummary:
-    n, offsets, step = store.density_offsets(session, campaign.id, max_rows=CALIBRATION_MAX_ROWS)
+def calibration_totals(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, int]:
+    """Shots with a predicted and a measured frequency, by status (the chart's legend; their sum
+    is the figures' count: the implied density needs the measured frequency)."""
+    needed = [store.NUMERIC_COLUMNS[name] for name in CALIBRATION_FIELDS]
+    return store.counts_with_values(session, campaign.id, needed, upto_pk=upto_pk)
+
+
+def calibration_summary(
+    session: Session, campaign: Campaign, upto_pk: int | None = None, totals: dict[str, int] | None = None
+) -> CalibrationSummary:
+    totals = totals if totals is not None else calibration_totals(session, campaign, upto_pk)
+    n = sum(totals.values())
+    offsets, step = store.density_offsets(session, campaign.id, n, max_rows=CALIBRATION_MAX_ROWS, upto_pk=upto_pk)
     median = float(np.median(offsets)) if offsets else None
     return CalibrationSummary(n, median, step)
 
 
-def calibration_figure(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, Any]:
-    """Measured modulation frequency against the plasma frequency the set density predicts."""
+def calibration_figure(
+    session: Session, campaign: Campaign, upto_pk: int | None = None, totals: dict[str, int] | None = None
+) -> dict[str, Any]:
+    """Measured modulation frequency against the plasma frequency the set density predicts, by
+    status on robust ranges (as the regime map), with the line where they are equal."""
     predicted, measured = CALIBRATION_FIELDS
-    by_status = _series_by_status(
-        session,
-        campaign,
-        CALIBRATION_FIELDS,
-        nominal_points=SCATTER_NOMINAL_POINTS,
-        required=CALIBRATION_FIELDS,
-        upto_pk=upto_pk,
+    scatter = _status_map(
+        session, campaign, predicted, measured, upto_pk=upto_pk, totals=totals, cells=HALF_WIDTH_MARKER_CELLS
     )
-    traces = []
-    values: list[float] = []
-    for item in by_status:
-        xs = rounded_list(item.series.columns[predicted])
-        ys = rounded_list(item.series.columns[measured])
-        values.extend(v for v in (*xs, *ys) if v is not None)
-        traces.append(
-            _point_trace(
-                item.status,
-                xs,
-                ys,
-                [text_for_chart(s) for s in item.series.columns["shot_id"]],
-                x_field=predicted,
-                y_field=measured,
-                total=item.series.total,
-                note=_series_note(item),
-            )
-        )
-    if values:
-        lo, hi = min(values), max(values)
+    traces = scatter.traces
+    if any(t.get("x") for t in traces):  # across the predicted frequencies shown (the axis stays on the shots)
+        lo, hi = scatter.x_range
         traces.insert(
             0,
             {
                 "type": "scatter",
                 "mode": "lines",
-                "x": [lo, hi],
-                "y": [lo, hi],
+                "x": [rounded(lo), rounded(hi)],
+                "y": [rounded(lo), rounded(hi)],
                 "name": "measured = predicted",
                 "hoverinfo": "skip",
                 "line": {"color": OKABE_ITO["sky_blue"], "dash": "dot", "width": 2},
@@ -594,8 +831,9 @@ def calibration_figure(session: Session, campaign: Campaign, upto_pk: int | None
         )
     figure_layout = layout(
         height=460,
-        xaxis=axis("predicted plasma frequency [GHz]"),
-        yaxis=axis("measured modulation frequency [GHz]"),
+        xaxis=axis("predicted plasma frequency [GHz]", **_axis_range(scatter.x_lim)),
+        yaxis=axis("measured modulation frequency [GHz]", **_axis_range(scatter.y_lim)),
+        meta=_robust_meta(scatter),
     )
     return {"data": traces, "layout": figure_layout}
 

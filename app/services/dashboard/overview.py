@@ -5,6 +5,7 @@ current (new shots, counts, and the text the table shows for them).
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import datetime
@@ -29,8 +30,8 @@ from app.services.dashboard.figures import (
     calibration_summary,
     flag_code_counts,
     flag_figure,
+    phase_data,
     phase_figure,
-    phase_rows,
     phase_summary,
     regime_figure,
     timeline_figure,
@@ -177,13 +178,6 @@ def calibration_facts(summary: CalibrationSummary) -> list[tuple[str, str]]:
     ]
 
 
-# The numbers shown beside a chart, sent with it (so the page itself stays quick).
-CHART_FACTS = {
-    "phase": lambda session, campaign: phase_facts(phase_summary(session, campaign)),
-    "calibration": lambda session, campaign: calibration_facts(calibration_summary(session, campaign)),
-}
-
-
 # Chart feeds by campaign, chart and parameters, kept while the campaign's change marks
 # stand still: every viewer of an overview shares one computation per new shot.
 _FEEDS: dict[tuple[Any, ...], tuple[tuple[Any, ...], dict[str, Any]]] = {}
@@ -198,26 +192,62 @@ def chart_feed(session: Session, campaign: Campaign, name: str, **params: Any) -
     cached = _FEEDS.get(where)
     if cached is not None and cached[0] == marks:
         return cached[1]
-    feed = _chart_feed(session, campaign, name, marks[0], **params)
+    feed = _chart_feed(session, campaign, name, marks, **params)
     if len(_FEEDS) >= _FEEDS_MAX:
         _FEEDS.clear()
     _FEEDS[where] = (marks, feed)
     return feed
 
 
-def _chart_feed(session: Session, campaign: Campaign, name: str, cursor: int, **params: Any) -> dict[str, Any]:
+# The shots that have the values of each chart a page loads at once, by status: one pass over
+# the campaign that the page's feeds share (the first to need it counts, the others wait for it).
+_COUNTED_VALUES: dict[str, tuple[str, ...]] = {
+    "timeline": (),
+    "phase": (PHASE_FIELD,),
+    "calibration": CALIBRATION_FIELDS,
+    "regime": DEFAULT_REGIME_AXES,
+}
+_VALUE_COUNTS: dict[tuple[str, int], tuple[tuple[Any, ...], dict[str, dict[str, int]]]] = {}
+_VALUE_COUNTS_LOCK = threading.Lock()
+
+
+def _value_counts(session: Session, campaign: Campaign, marks: tuple[Any, ...]) -> dict[str, dict[str, int]]:
+    where = (str(session.get_bind().engine.url), campaign.id)
+    with _VALUE_COUNTS_LOCK:
+        cached = _VALUE_COUNTS.get(where)
+        if cached is not None and cached[0] == marks:
+            return cached[1]
+        sets = {name: [store.NUMERIC_COLUMNS[c] for c in columns] for name, columns in _COUNTED_VALUES.items()}
+        counts = store.counts_with_values_of(session, campaign.id, sets, upto_pk=marks[0])
+        if len(_VALUE_COUNTS) >= _COUNTS_MAX_CAMPAIGNS:
+            _VALUE_COUNTS.clear()
+        _VALUE_COUNTS[where] = (marks, counts)
+        return counts
+
+
+def _chart_feed(
+    session: Session, campaign: Campaign, name: str, marks: tuple[Any, ...], **params: Any
+) -> dict[str, Any]:
+    cursor = marks[0]
+    if name == "regime" and (params["x"], params["y"]) != DEFAULT_REGIME_AXES:  # counted for itself
+        return {"figure": regime_figure(session, campaign, upto_pk=cursor, **params), "cursor": cursor}
+    totals = _value_counts(session, campaign, marks)[name]
     if name == "phase":  # the chart and its figures from one read of the phases
-        rows = phase_rows(session, campaign, cursor)
+        data = phase_data(session, campaign, cursor, totals=totals)
         return {
-            "figure": phase_figure(session, campaign, upto_pk=cursor, rows=rows),
+            "figure": phase_figure(session, campaign, upto_pk=cursor, data=data),
             "cursor": cursor,
-            "facts": phase_facts(phase_summary(session, campaign, rows=rows)),
+            "facts": phase_facts(phase_summary(session, campaign, data=data)),
         }
-    builder = regime_figure if name == "regime" else CHART_FEEDS[name]
-    feed: dict[str, Any] = {"figure": builder(session, campaign, upto_pk=cursor, **params), "cursor": cursor}
-    if name in CHART_FACTS:
-        feed["facts"] = CHART_FACTS[name](session, campaign)
-    return feed
+    if name == "calibration":  # the chart's counts are the figures' count too
+        return {
+            "figure": calibration_figure(session, campaign, upto_pk=cursor, totals=totals),
+            "cursor": cursor,
+            "facts": calibration_facts(calibration_summary(session, campaign, cursor, totals=totals)),
+        }
+    if name == "regime":
+        return {"figure": regime_figure(session, campaign, upto_pk=cursor, totals=totals, **params), "cursor": cursor}
+    return {"figure": timeline_figure(session, campaign, upto_pk=cursor, totals=totals), "cursor": cursor}
 
 
 def regime_feed(session: Session, campaign: Campaign, x: str, y: str) -> dict[str, Any]:

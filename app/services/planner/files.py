@@ -200,7 +200,7 @@ def write_plan_file(
     writers: dict[str, Callable[[BinaryIO], Any]] = {
         "csv": lambda out: write_csv([csv_columns(result)], out),
         "parquet": lambda out: write_parquet(plan_document(base, axes, result), result, out),
-        "json": lambda out: out.write(json_bytes(answers.scan_answer(base, result))),
+        "json": lambda out: out.writelines(answers.scan_answer(base, result)),
         "html": lambda out: out.write(render_html(base, axes, result, title, datetime.now(UTC)).encode("utf-8")),
     }
     if fmt not in writers:

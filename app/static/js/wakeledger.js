@@ -73,6 +73,13 @@
     else document.addEventListener("DOMContentLoaded", function () { resolve(); });
   });
 
+  // The main-thread time Plotly took to draw each chart (its synchronous part, where the SVG is
+  // built), as a performance measure "wakeledger draw <chart id>" that the browser's developer
+  // tools and tests/bench/bench_pages.py read.
+  function measureDraw(id, started) {
+    try { performance.measure("wakeledger draw " + id, { start: started, end: performance.now() }); } catch (e) { /* old browser */ }
+  }
+
   function drawChart(id, figure, cursor) {
     var div = document.getElementById(id);
     if (!div || !window.Plotly) return null;
@@ -80,7 +87,13 @@
     chartCursor[id] = typeof cursor === "number" ? cursor : null;
     chartAdded[id] = 0;
     div.classList.remove("loading");
+    // The box keeps the figure's height: on a resize Plotly's responsive mode drops the layout's
+    // height and fits the chart to its box, which would otherwise shrink to the CSS minimum
+    // (the plot spilling over the cards below).
+    if (figure.layout && figure.layout.height) div.style.height = figure.layout.height + "px";
+    var started = performance.now();
     var done = Plotly.react(div, figure.data, figure.layout, PLOT_CONFIG);
+    measureDraw(id, started);
     if (!div.dataset.clickBound) {
       div.dataset.clickBound = "1";
       Promise.resolve(done).then(function () { openShotOnClick(div); });
@@ -218,7 +231,10 @@
         chartReload[id](); // a long-open page: fetch the chart thinned again instead of growing it
         return;
       }
-      var update = { x: [], y: [], customdata: [] }, indices = [];
+      // Traces whose markers stand for cells of shots carry hover text (a new shot stands for
+      // itself: no text); Plotly extends an attribute only where the trace has it, so those go apart.
+      var plain = { x: [], y: [], customdata: [] }, plainIndices = [];
+      var withText = { x: [], y: [], customdata: [], text: [] }, textIndices = [];
       div.data.forEach(function (trace, i) {
         var meta = trace.meta;
         if (!meta || !meta.status) return;
@@ -232,9 +248,13 @@
           ids.push(s.shot_id.replace(/&/g, "&amp;").replace(/</g, "&lt;").replace(/>/g, "&gt;"));
         });
         if (!xsNew.length) return;
-        update.x.push(xsNew); update.y.push(ysNew); update.customdata.push(ids); indices.push(i);
+        var update = Array.isArray(trace.text) ? withText : plain;
+        update.x.push(xsNew); update.y.push(ysNew); update.customdata.push(ids);
+        if (update === withText) { update.text.push(ids.map(function () { return ""; })); textIndices.push(i); }
+        else plainIndices.push(i);
       });
-      if (indices.length) Plotly.extendTraces(div, update, indices);
+      if (plainIndices.length) Plotly.extendTraces(div, plain, plainIndices);
+      if (textIndices.length) Plotly.extendTraces(div, withText, textIndices);
     });
   }
 
