@@ -126,8 +126,10 @@ def fetch_shot_rows(session: Session, stmt: Select[Any]) -> dict[str, list[Any]]
 
 def iter_shot_rows(session: Session, stmt: Select[Any], chunk: int = 2000) -> Iterator[dict[str, list[Any]]]:
     """The rows of ``shot_rows_query`` (or of any select) column-wise, ``chunk`` rows at a time (a
-    server-side cursor where the driver has one): memory stays flat; at least one (possibly empty) chunk."""
-    result = session.connection().execution_options(yield_per=chunk).execute(stmt)
+    server-side cursor where the driver has one): memory stays flat; at least one (possibly empty) chunk.
+    The option goes on the statement: ``Connection.execution_options`` would change the session's
+    connection in place and buffer every later result read on it."""
+    result = session.connection().execute(stmt.execution_options(yield_per=chunk))
     keys = list(result.keys())
     empty = True
     for part in result.partitions():
@@ -243,7 +245,7 @@ def iter_payloads(
         .outerjoin(Evaluation, Evaluation.shot_pk == Shot.id)
         .where(*conditions)
     )
-    result = session.connection().execution_options(yield_per=chunk).execute(stmt)
+    result = session.connection().execute(stmt.execution_options(yield_per=chunk))
     for part in result.partitions():
         for (raw,) in part:
             yield _json_object(raw)

@@ -267,3 +267,17 @@ def test_phases_either_side_of_plus_minus_pi_get_a_small_spread_not_one_near_pi(
     assert summary.phase_stability.measured_count == 40
     assert summary.phase_stability.measured_phase_std_rad < 0.05
     assert statistics.stdev(phases) > 3  # what a plain std about the plain mean would say
+
+
+def test_reading_the_week_in_chunks_leaves_later_reads_on_the_same_session_unbuffered(session_factory, zurich_weeks):
+    # Regression: the chunked read once set yield_per on the session's connection itself (SQLAlchemy 2
+    # changes a Connection's options in place), so a later raw-cursor read there saw no rows and the
+    # weekly summary of a one-shot week failed.
+    from app.store.exports import iter_shot_rows
+
+    with session_factory() as session:
+        parts = list(iter_shot_rows(session, select(Shot.id).order_by(Shot.id), chunk=7))
+        assert sum(len(next(iter(part.values()))) for part in parts) > 7
+        assert "yield_per" not in session.connection().get_execution_options()
+        cursor = session.connection().execute(select(Shot.id).order_by(Shot.id)).cursor
+        assert cursor is not None and len(cursor.fetchall()) == len(session.scalars(select(Shot.id)).all())
