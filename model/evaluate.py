@@ -54,7 +54,11 @@ def _core(
     def put(name: str, value: Any, scale: float = 1.0) -> None:
         """Write an output (times its unit scale) straight into its slice of the result."""
         dest = out.get(name)
-        if dest is not None:
+        if dest is None:
+            return
+        if scale == 1.0:
+            np.copyto(dest, value)
+        else:
             np.multiply(value, scale, out=dest)
 
     # Section 2: plasma and beam.
@@ -135,8 +139,9 @@ def _core(
     saturated, log_delta_exit, z_ref, n_exit, n_ref_efolds, seed_over_noise = growth.growth_to_saturation(
         log_force_reported, coupling_reported, log_force_noise, coupling_noise, length, log_sat
     )
-    modulation = np.exp(np.minimum(log_delta_exit, log_sat))
-    np.copyto(modulation, s["saturation_modulation"], where=saturated)
+    modulation = np.full(log_delta_exit.shape, s["saturation_modulation"])
+    growing = np.flatnonzero(~saturated)  # below saturation at the exit (or NaN)
+    modulation[growing] = np.exp(log_delta_exit[growing])
     kp_xi = kp * xi_ref
     wakefield = growth.wakefield_estimate(e0, abs_charge * n_ref / n0, on_axis, kp_xi, n_ref_efolds, modulation)
     hosing_scale = growth.hosing_efolds_ratio(seed_factor, growth_factor)
@@ -153,12 +158,10 @@ def _core(
 
     # Section 5: phase.
     gradient = cols["plasma.gradient_pct_per_m"] * U.PCT
-    put("phase_slip_rad", phase.phase_slip(n_ref_efolds))
-    put("phase_velocity_deficit", phase.phase_velocity_deficit(n_ref_efolds, kp, z_ref))
-    put("phase_per_pct_density_rad", phase.phase_per_pct_density(kp, xi_ref))
-    put("density_tolerance_pct", phase.density_tolerance_pct(kp, xi_ref, s["phase_tolerance_rad"]))
-    put("compensating_gradient_pct_per_m", phase.compensating_gradient_pct_per_m(n_ref_efolds, kp, xi_ref, z_ref))
-    put("gradient_phase_error_rad", phase.gradient_phase_error(kp, xi_ref, gradient, length, n_ref_efolds))
+    for name, value in phase.phase_outputs(
+        n_ref_efolds, kp, kp_xi, z_ref, gradient, length, s["phase_tolerance_rad"]
+    ).items():
+        put(name, value)
 
     # Section 6: competing effects and the measured frequency.
     ox, oy = cols["driver.offset_x_mm"], cols["driver.offset_y_mm"]
@@ -170,10 +173,17 @@ def _core(
     ion_mass = cols["plasma.ion_mass_amu"] * plasma.ATOMIC_MASS
     put("ion_motion_index", competing.ion_motion_index(cols["plasma.ion_charge"], ion_mass, wakefield, e0, kp, xi_ref))
     put("divergence_ratio", competing.divergence_ratio(z_ref, eps_g, sigma_r))
-    f_meas = cols["measured.modulation_freq_ghz"] * U.GHZ  # NaN where not measured
-    f_ref = competing.reference_frequency(f_p, gradient, z_ref)
-    put("frequency_mismatch_pct", 100.0 * competing.frequency_mismatch(f_meas, f_ref))
-    put("implied_density_cm3", competing.implied_density(n0, f_meas, f_ref), 1.0 / U.PER_CM3)
+    # Only where a frequency was measured (elsewhere both are null): the reference frequency there alone.
+    measured = np.flatnonzero(~np.isnan(cols["measured.modulation_freq_ghz"]))
+    mismatch = np.full(n0.shape, np.nan)
+    implied = np.full(n0.shape, np.nan)
+    if measured.size:
+        f_meas = cols["measured.modulation_freq_ghz"][measured] * U.GHZ
+        f_ref = competing.reference_frequency(f_p[measured], gradient[measured], z_ref[measured])
+        mismatch[measured] = competing.frequency_mismatch(f_meas, f_ref)
+        implied[measured] = competing.implied_density(n0[measured], f_meas, f_ref)
+    put("frequency_mismatch_pct", 100.0 * mismatch)
+    put("implied_density_cm3", implied, 1.0 / U.PER_CM3)
 
 
 @dataclass(frozen=True)

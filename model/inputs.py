@@ -371,7 +371,7 @@ def _check_columns(
     for f in INPUT_FIELDS:
         raw = columns.get(f.path)
         if raw is None:
-            values = np.full(n, "" if f.kind == "enum" else np.nan)
+            values = np.full(n, "") if f.kind == "enum" else np.empty(0)  # a float column absent: filled below
         else:
             values = np.asarray(raw)
             if values.ndim == 0:
