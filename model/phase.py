@@ -61,6 +61,7 @@ def phase_outputs(
     """The six section-5 outputs of the model table at once, sharing N/sqrt(3) and k_p xi (given, as the table has
     it); each exactly as its function above gives it (MODEL.md section 5)."""
     slip = phase_slip(efolds)
+    kp_xi = np.asarray(kp_xi, dtype=float)
     return {
         "phase_slip_rad": slip,
         "phase_velocity_deficit": _velocity_deficit(slip, kp, z),
@@ -79,7 +80,7 @@ def _per_pct_density(kp_xi: ArrayLike) -> np.ndarray:
     return np.asarray(kp_xi, dtype=float) / 200.0
 
 
-def _density_tolerance(kp_xi: ArrayLike, phase_tolerance: ArrayLike) -> np.ndarray:
+def _density_tolerance(kp_xi: np.ndarray, phase_tolerance: ArrayLike) -> np.ndarray:
     return 200.0 * np.asarray(phase_tolerance, dtype=float) / kp_xi
 
 
