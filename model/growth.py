@@ -42,8 +42,9 @@ def gaussian_profile_integrals(upper: ArrayLike, lower: ArrayLike, sigma_z: Arra
     b = np.asarray(lower, dtype=float) / sigma_z
     # Phi(a) - Phi(b) = Phi(-b) - Phi(-a): t = +1 in the upper tail, -1 in the lower one
     t = np.copysign(1.0, a + b)
-    cdf_a = special.ndtr(-t * a)
-    cdf_b = special.ndtr(-t * b)
+    minus_t = -t
+    cdf_a = special.ndtr(minus_t * a)
+    cdf_b = special.ndtr(minus_t * b)
     scale = _SQRT_2PI * sigma_z
     between = (scale * t) * (cdf_b - cdf_a)
     # Phi(-b) = 1 - Phi(b): exact enough where b < 0, since Phi(-b) is then at least 1/2
