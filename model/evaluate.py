@@ -1,19 +1,20 @@
 """evaluate_table and evaluate_shot: the closed-form shot model, one vectorised core.
 
-evaluate_table(columns, settings) -> dict of numpy arrays:
+evaluate_table(columns, settings) -> EvaluationTable, a read-only mapping of numpy arrays:
 - every name of OUTPUT_NAMES (MODEL.md section 8 order) as a float array, NaN for null;
 - "status": int8 status ranks, indices into model.STATUSES (0 nominal, 1 marginal, 2 outside);
 - for each code of FLAG_CODES: "flag.<CODE>" (int8 severity ranks, indices into
   model.SEVERITY_BY_RANK: 0 not fired, 1 info, 2 marginal, 3 outside),
   "flag_value.<CODE>" and "flag_limit.<CODE>" (float arrays, NaN where not fired or
-  where the flag has no metric/limit, i.e. UNSEEDED).
+  where the flag has no metric/limit, i.e. UNSEEDED); these follow from the outputs and the
+  ranks, so the table builds each the first time it is read (dict(table) builds them all).
 Ranks stay numbers inside; they become text only at the edge (evaluate_shot, the store).
 evaluate_shot(shot, settings) builds a 1-row table, runs the same core and unpacks it
 (NaN -> None, flags as a list of {code, severity, value, limit, message}).
 
 The core runs on cache-sized chunks of rows and writes every output straight into its
-slice of the result table; columns are validated once (a ValidatedColumns from
-validate_columns is taken as it is).
+slice of the result table; the rules compare the metric rows of that table in place.
+Columns are validated once (a ValidatedColumns from validate_columns is taken as it is).
 """
 
 from __future__ import annotations
