@@ -87,6 +87,11 @@ def _microseconds(moments: list[datetime]) -> np.ndarray:
     return np.array([(_aware(m) - _EPOCH) // _MICROSECOND for m in moments], dtype=np.int64)
 
 
+def epoch_seconds(moments: list[datetime]) -> np.ndarray:
+    """Seconds since 1970 (UTC; naive moments are UTC) as float64, the microseconds divided exactly once."""
+    return _microseconds(moments) / 1e6
+
+
 def _wall_texts(micros: np.ndarray, millis: bool) -> np.ndarray:
     """ISO 8601 wall times of microseconds since 1970 without an offset: no fraction when there is
     none, else milliseconds where they suffice (``millis``) or microseconds."""
