@@ -170,15 +170,35 @@ def run_groups(tags: Sequence[str | None]) -> tuple[list[tuple[str, np.ndarray]]
     return groups, [RUN_TAG_PATHS[i] for i in sorted(paths)]
 
 
+_RUN_TAG_KEYS = tuple(path.partition(".")[::2] for path in RUN_TAG_PATHS)  # (section, key or "")
+
+
 def run_tag_values(sections: Mapping[str, Any]) -> list[Any]:
     """The values at RUN_TAG_PATHS of a shot's other top-level sections (None where absent or where
     the section is no object), as ``store.read_shots`` extracts them from the raw payload."""
     values = []
-    for path in RUN_TAG_PATHS:
-        top, _, key = path.partition(".")
+    for top, key in _RUN_TAG_KEYS:
         value = sections.get(top)
         values.append((value.get(key) if isinstance(value, dict) else None) if key else value)
     return values
+
+
+def _run_tag_texts(every_sections: Sequence[Mapping[str, Any]]) -> list[str]:
+    """``_json_array(run_tag_values(...))`` of each shot, encoded once per distinct tuple of texts and
+    nulls (other values are encoded each time: 7, 7.0 and True are equal keys, and different tags)."""
+    texts: dict[tuple[Any, ...], str] = {}
+    out = []
+    for sections in every_sections:
+        values = run_tag_values(sections)
+        if not all(v is None or type(v) is str for v in values):
+            out.append(_json_array(values))
+            continue
+        key = tuple(values)
+        text = texts.get(key)
+        if text is None:
+            text = texts[key] = _json_array(values)
+        out.append(text)
+    return out
 
 
 def _json_array(values: list[Any]) -> str:
@@ -203,7 +223,7 @@ def shot_columns(table: ShotTable, settings_version: int) -> store.ShotColumns:
         shot_id=[table.shot_id[i] for i in picks],
         taken_at=epoch_seconds([table.taken_at[i] for i in picks]),
         current=np.array(current, dtype=bool).reshape(-1),
-        run_tags=[_json_array(run_tag_values(table.extras[i])) for i in picks],
+        run_tags=_run_tag_texts([table.extras[i] for i in picks]),
         values=values,
         every_input={path: column[evaluated] for path, column in table.inputs.items()},
     )
