@@ -90,6 +90,31 @@ def test_the_inputs_of_a_batch_are_validated_once(make_shot, monkeypatch):
     assert payload_rules.defaulted_by_shot(shots) == [payload_rules.defaulted_fields(s) for s in shots]
 
 
+def test_every_flag_of_a_batch_is_stored_as_the_shot_evaluated_alone_reports_it(
+    client, app, campaign, ingest_headers, make_shot
+):
+    shots = [
+        make_shot(case=i % 5, shot_id=f"f-{i}", changes={"plasma.density_cm3": 10 ** (13 + i / 3)}) for i in range(12)
+    ]
+    posted = client.post(f"{_shots_url(campaign)}/batch", json={"shots": shots}, headers=ingest_headers)
+    assert posted.status_code == 201
+    with app.state.session_factory() as session:
+        rows = session.execute(
+            text(
+                "SELECT s.shot_id, f.code, f.severity, f.value, f.limit_value, f.message "
+                "FROM flags f JOIN shots s ON s.id = f.shot_pk ORDER BY f.id"
+            )
+        ).all()
+    stored = {shot["shot_id"]: [tuple(r[1:]) for r in rows if r[0] == shot["shot_id"]] for shot in shots}
+    expected = {
+        shot["shot_id"]: [
+            (f["code"], f["severity"], f["value"], f["limit"], f["message"]) for f in model.evaluate_shot(shot)["flags"]
+        ]
+        for shot in shots
+    }
+    assert stored == expected and sum(map(len, stored.values())) > len(shots)
+
+
 # --- the writer queue ---------------------------------------------------------------------------------
 
 
