@@ -115,6 +115,29 @@ def test_every_flag_of_a_batch_is_stored_as_the_shot_evaluated_alone_reports_it(
     assert stored == expected and sum(map(len, stored.values())) > len(shots)
 
 
+def test_a_time_written_by_a_bulk_insert_on_sqlite_is_the_text_sqlalchemy_writes():
+    from datetime import UTC, datetime, timedelta, timezone
+
+    from sqlalchemy.dialects import sqlite
+
+    from app.tables import UTCDateTime
+
+    dialect = sqlite.dialect()
+    column = UTCDateTime()
+    process = column.dialect_impl(dialect).bind_processor(dialect)
+    moments = [
+        datetime(2026, 11, 17, 9, 12, 3, 120000, tzinfo=UTC),
+        datetime(2026, 11, 17, 9, 12, 3, tzinfo=timezone(timedelta(hours=5, minutes=30))),
+        datetime(1990, 1, 1, 0, 0, 0, 1, tzinfo=UTC),
+        datetime(9999, 12, 31, 23, 59, 59, 999999, tzinfo=UTC),
+        datetime(1, 1, 1, 12, tzinfo=timezone(timedelta(hours=-3))),
+        None,
+    ]
+    assert [UTCDateTime.sqlite_text(m) for m in moments] == [process(m) for m in moments]
+    with pytest.raises(ValueError):
+        UTCDateTime.sqlite_text(datetime(2026, 11, 17))
+
+
 # --- the writer queue ---------------------------------------------------------------------------------
 
 
