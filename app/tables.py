@@ -52,6 +52,16 @@ class UTCDateTime(TypeDecorator[datetime]):
         value = value.astimezone(UTC)
         return value.replace(tzinfo=None) if dialect.name == "sqlite" else value
 
+    @staticmethod
+    def sqlite_text(value: datetime | None) -> str | None:
+        """What binding a value writes on SQLite (SQLAlchemy's DATETIME text, always with
+        microseconds), made by ``isoformat`` in C: the bulk inserts of a batch write 5,000."""
+        if value is None:
+            return None
+        if value.tzinfo is None:
+            raise ValueError("naive datetime given to a UTC column")
+        return value.astimezone(UTC).replace(tzinfo=None).isoformat(" ", "microseconds")
+
     def process_result_value(self, value: datetime | None, dialect: Any) -> datetime | None:
         if value is None:
             return None
