@@ -161,7 +161,7 @@ class Reader:
     def series_rows(
         self, status: str, columns: Sequence[str], *, step: int, required: Sequence[str]
     ) -> list[store.SeriesRow]:
-        """store.status_rows of the numeric columns ``columns`` (or ``shot_id``)."""
+        """store.status_rows of the numeric columns ``columns`` (and ``shot_id``, ``taken_at``)."""
         raise NotImplementedError
 
     def phase_rows(self, sources: Sequence[str], *, step: int) -> list[store.SeriesRow]:
@@ -171,8 +171,11 @@ class Reader:
         raise NotImplementedError
 
 
+_SHOT_COLUMNS = {"shot_id": store.Shot.shot_id, "taken_at": store.Shot.taken_at}
+
+
 def _column(name: str) -> Any:
-    return store.Shot.shot_id if name == "shot_id" else store.NUMERIC_COLUMNS[name]
+    return _SHOT_COLUMNS.get(name, store.NUMERIC_COLUMNS.get(name))
 
 
 class DirectReader(Reader):

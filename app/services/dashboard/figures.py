@@ -242,7 +242,7 @@ def _series_by_status(
     order (``taken_at`` among the columns unless ``with_time`` is false: a map has no time axis).
     ``totals``: the shots per status that have the ``required`` values, when already counted."""
     reader = _reader(session, campaign, upto_pk, reader)
-    wanted = ["shot_id", *columns]
+    wanted = ["shot_id", "taken_at", *columns] if with_time else ["shot_id", *columns]
     if totals is None:
         totals = reader.value_counts({"": tuple(required)})[""]
     out = []
@@ -251,7 +251,7 @@ def _series_by_status(
         max_points = nominal_points if status == "nominal" else flagged_points
         step = store.thinning_step(total, max_points)
         rows = reader.series_rows(status, wanted, step=step, required=required)
-        series = store.series_of_rows(rows, wanted, total=total, step=step, max_points=max_points, with_time=with_time)
+        series = store.series_of_rows(rows, wanted, total=total, step=step, max_points=max_points)
         out.append(_StatusSeries(status, series))
     return out
 
@@ -280,11 +280,16 @@ class _Pins:
 
     def keep(self, xs: Sequence[Any], ys: Sequence[Any]) -> list[bool]:
         """Which of these points (numbers; None for missing) lie inside both ranges."""
-        return [self._inside(x, self.x_lim) and self._inside(y, self.y_lim) for x, y in zip(xs, ys, strict=True)]
+        if len(xs) != len(ys):
+            raise ValueError("as many x as y values")
+        return (self._inside(xs, self.x_lim) & self._inside(ys, self.y_lim)).tolist()
 
     @staticmethod
-    def _inside(v: Any, lim: tuple[float, float] | None) -> bool:
-        return lim is None or v is None or lim[0] <= v <= lim[1]
+    def _inside(values: Sequence[Any], lim: tuple[float, float] | None) -> np.ndarray:
+        v = np.array(values, dtype=float)  # None becomes NaN: missing counts as inside
+        if lim is None:
+            return np.ones(len(v), dtype=bool)
+        return np.isnan(v) | ((lim[0] <= v) & (v <= lim[1]))
 
     @staticmethod
     def _clamp(v: float, lim: tuple[float, float] | None) -> tuple[float, int]:
@@ -640,7 +645,7 @@ class PhaseGroup:
     jitter: PhaseJitter
 
 
-def phase_groups(data: PhaseData) -> list[PhaseGroup]:
+def phase_groups(session: Session, data: PhaseData) -> list[PhaseGroup]:
     """Consecutive shots (taken_at order) in at most PHASE_MAX_BINS groups of at least
     PHASE_MIN_SHOTS_PER_BIN shots where there are enough."""
     rows = data.rows
@@ -650,10 +655,12 @@ def phase_groups(data: PhaseData) -> list[PhaseGroup]:
     count = max(1, min(PHASE_MAX_BINS, n // PHASE_MIN_SHOTS_PER_BIN))
     edges = np.linspace(0, n, count + 1).round().astype(int).tolist()
     parts = [(lo, hi) for lo, hi in zip(edges[:-1], edges[1:], strict=False) if hi > lo]
+    # Only the groups' first and last shots need their times (a few hundred, not every row).
+    times = store.taken_at_of(session, [rows.pk[i] for lo, hi in parts for i in (lo, hi - 1)])
     phases, sources = _columns(rows)
     jitters = phase_jitter_by_part(phases, sources, data.derivatives, parts)
     return [
-        PhaseGroup(rows.taken_at[lo], rows.taken_at[hi - 1], circular_mean_rad(phases[lo:hi]), jitter)
+        PhaseGroup(times[rows.pk[lo]], times[rows.pk[hi - 1]], circular_mean_rad(phases[lo:hi]), jitter)
         for (lo, hi), jitter in zip(parts, jitters, strict=True)
     ]
 
@@ -685,7 +692,7 @@ def phase_figure(
         totals=data.totals,
         reader=reader,
     )
-    groups = phase_groups(data)
+    groups = phase_groups(session, data)
     traces: list[dict[str, Any]] = []
     centres, upper, lower, measured_rms, expected = [], [], [], [], []
     for g in groups:
