@@ -17,6 +17,8 @@ from model import (
     SettingsError,
     evaluate_shot,
     evaluate_table,
+    flag_message,
+    flag_messages,
     resolve_settings,
     validate_columns,
 )
@@ -268,3 +270,24 @@ def test_density_scale_is_a_model_setting_shown_with_the_others():
         "density_scale",
     ]
     assert DEFAULT_SETTINGS["limits"]["SLOW_DRIVER"] == {"marginal": 10.0, "outside": 3.0}
+
+
+def test_a_fired_flag_reads_the_metric_its_value_and_the_limit_crossed_to_three_digits():
+    assert flag_message("BEAM_TOO_WIDE", "marginal", 1.23456, 1.0) == (
+        "The beam is too wide compared with the plasma skin depth: k_p sigma_r is 1.23, above the marginal limit 1."
+    )
+    assert flag_message("BEAM_TOO_WIDE", "marginal", None, 1.0) == (
+        "The beam is too wide compared with the plasma skin depth."
+    )
+
+
+def test_the_messages_of_many_flags_of_one_rule_read_as_each_flag_alone():
+    severities = ["marginal", "outside", "marginal", "info", "outside", "marginal", "marginal", "outside"]
+    values = [1.23456, 2.5, 1.1, 0.7, None, 0.001, 3.0, -0.0]
+    limits = [1.0, 2.0, 1.0, 0.5, 2.0, 0.0, -0.0, None]
+    for code in FLAG_CODES:
+        expected = [flag_message(code, s, v, lim) for s, v, lim in zip(severities, values, limits, strict=True)]
+        assert flag_messages(code, severities, values, limits) == expected
+    # 0.0 and -0.0 compare equal but read differently: each limit keeps its own text
+    zero, minus_zero = flag_messages("BEAM_TOO_WIDE", ["marginal"] * 2, [3.0, 3.0], [0.0, -0.0])
+    assert zero.endswith("limit 0.") and minus_zero.endswith("limit -0.")
