@@ -327,10 +327,10 @@ def _present_range(floats: np.ndarray) -> tuple[float, float, bool]:
     if floats.size == 0:
         return math.nan, math.nan, True
     with np.errstate(invalid="ignore"):
-        low, high = float(floats.min()), float(floats.max())  # NaN if any cell is NaN
-        if math.isnan(low) or math.isnan(high):
+        low = float(floats.min())  # NaN if any cell is NaN, and then so is the highest
+        if math.isnan(low):
             return float(np.fmin.reduce(floats)), float(np.fmax.reduce(floats)), False
-    return low, high, True
+        return low, float(floats.max()), True
 
 
 def _all_in_range(f: InputField, floats: np.ndarray, low: float, high: float) -> bool:
