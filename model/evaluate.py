@@ -62,6 +62,11 @@ def _core(
         else:
             np.multiply(value, scale, out=dest)
 
+    def into(name: str) -> np.ndarray:
+        """The slice of the result an output is computed into (out= of its last step), or a scratch array."""
+        dest = out.get(name)
+        return np.empty(kp.shape) if dest is None else dest
+
     # Section 2: plasma and beam.
     n0 = plasma.plasma_density_m3(cols["plasma.density_cm3"], s)
     omega_p = plasma.plasma_angular_frequency(n0)
@@ -83,12 +88,12 @@ def _core(
     eps_g = plasma.geometric_emittance(cols["driver.emittance_n_mm_mrad"] * U.MM_MRAD, momentum, mass)
 
     put("plasma_frequency_ghz", f_p, 1.0 / U.GHZ)
-    put("plasma_wavelength_mm", (2.0 * np.pi / U.MM) / kp)
+    np.divide(2.0 * np.pi / U.MM, kp, out=into("plasma_wavelength_mm"))
     put("skin_depth_mm", 1.0 / kp, 1.0 / U.MM)
     put("wavebreaking_field_gv_m", e0, 1.0 / U.GV_PER_M)
     put("lorentz_gamma", gamma)
     put("peak_beam_density_cm3", nb0, 1.0 / U.PER_CM3)
-    put("density_ratio", abs_charge * nb0 / n0)
+    np.divide(abs_charge * nb0, n0, out=into("density_ratio"))
     put("kp_sigma_r", kp_sigma_r)
     put("bunch_length_over_plasma_wavelength", sigma_z * kp, 1.0 / (2.0 * np.pi))
     put("geometric_emittance_nm", eps_g, 1.0 / U.NM)
@@ -150,11 +155,11 @@ def _core(
     put("seed_to_noise_efolds", seed_over_noise)
     put("efolds_exit", n_exit)
     put("modulation_exit", modulation)
-    put("growth_margin_efolds", log_delta_exit - log_sat)
+    np.subtract(log_delta_exit, log_sat, out=into("growth_margin_efolds"))
     put("saturation_length_m", np.where(saturated, z_ref, np.nan))  # null where not saturated
     put("wakefield_estimate_mv_m", wakefield, 1.0 / U.MV_PER_M)
-    put("hosing_efolds_exit", n_exit * hosing_scale)
-    put("asymptotic_validity", n_exit / kp_xi)
+    np.multiply(n_exit, hosing_scale, out=into("hosing_efolds_exit"))
+    np.divide(n_exit, kp_xi, out=into("asymptotic_validity"))
     put(_LOG_MODULATION_EXIT, log_delta_exit)
 
     # Section 5: phase.
@@ -322,11 +327,12 @@ def _evaluate_validated(clean: ValidatedColumns, s: Mapping[str, Any]) -> Evalua
     ranks = np.empty((len(_RANK_COLUMNS), n), dtype=np.int8)
     outputs = dict(zip(_FLOAT_COLUMNS, floats, strict=True))
     grading = _grading(s)
+    inputs = list(clean.items())
     for start in range(0, n, _CHUNK):
         rows = slice(start, min(n, start + _CHUNK))
         method = clean.method_code[rows]
         _core(
-            {path: values[rows] for path, values in clean.items()},
+            {path: values[rows] for path, values in inputs},
             clean.species_code[rows],
             method,
             s,
