@@ -3,7 +3,8 @@
 Pure numpy/scipy, SI inside. Public interface: evaluate_shot, evaluate_table,
 DEFAULT_SETTINGS, MODEL_VERSION, OUTPUT_FIELDS (OUTPUT_NAMES, OUTPUTS_BY_NAME), FLAG_CODES,
 INPUT_FIELDS, ShotInputError, validate_shot, validate_columns (a read-only ValidatedColumns that evaluate_table
-takes without checking again), plus SettingsError, resolve_settings, flag_message,
+takes without checking again), plus SettingsError, resolve_settings, flag_message (flag_messages for many
+flags of one rule),
 the vocabulary of model.vocabulary (STATUSES, SEVERITIES, SEVERITY_BY_RANK, SPECIES,
 SEED_METHODS, SECTIONS, column_name),
 and the growth curves of one shot: growth_along_plasma (N(z), delta(z)) and
@@ -33,7 +34,7 @@ from model.plan import (
     plan_sensitivities,
     scan,
 )
-from model.rules import DEFAULT_SETTINGS, FLAG_CODES, SettingsError, flag_message, resolve_settings
+from model.rules import DEFAULT_SETTINGS, FLAG_CODES, SettingsError, flag_message, flag_messages, resolve_settings
 from model.sensitivity import (
     PHASE_JITTER_SOURCES,
     PhaseJitterBudget,
@@ -88,6 +89,7 @@ __all__ = [
     "evaluate_shot",
     "evaluate_table",
     "flag_message",
+    "flag_messages",
     "growth_along_plasma",
     "log_sensitivities",
     "nearest_nominal",

@@ -228,15 +228,38 @@ def resolve_settings(overrides: Mapping[str, Any] | None = None) -> dict[str, An
     return settings
 
 
-def _fmt(x: float) -> str:
-    return f"{x:.3g}"
-
-
 def flag_message(code: str, severity: str, value: float | None, limit: float | None) -> str:
     """One plain sentence for a fired flag, naming the metric, its value and the limit crossed."""
+    return flag_messages(code, [severity], [value], [limit])[0]
+
+
+_SIDE = {"above": "above", "below": "below", "info_above": "above"}
+
+
+def flag_messages(
+    code: str, severities: Sequence[str], values: Sequence[float | None], limits: Sequence[float | None]
+) -> list[str]:
+    """``flag_message`` of many flags of one rule, in order.
+
+    A batch fires thousands of flags whose limits are the campaign's few: the text around the
+    value is written once per (severity, limit) and only the value is formatted per flag.
+    Value and limit are written to 3 significant digits.
+    """
     rule = RULES_BY_CODE[code]
-    if rule.bad_when == "always" or value is None or limit is None:
-        return rule.sentence + "."
-    side = {"above": "above", "below": "below", "info_above": "above"}[rule.bad_when]
-    what = "the" if severity == "info" else f"the {severity}"
-    return f"{rule.sentence}: {rule.symbol} is {_fmt(value)}, {side} {what} limit {_fmt(limit)}."
+    plain = rule.sentence + "."
+    if rule.bad_when == "always":
+        return [plain] * len(values)
+    head = f"{rule.sentence}: {rule.symbol} is "
+    side = _SIDE[rule.bad_when]
+    tails: dict[tuple[str, float], str] = {}
+    out: list[str] = []
+    for severity, value, limit in zip(severities, values, limits, strict=True):
+        if value is None or limit is None:
+            out.append(plain)
+            continue
+        tail = tails.get((severity, limit)) if limit else None  # 0.0 and -0.0 are one key but read differently
+        if tail is None:
+            what = "the" if severity == "info" else f"the {severity}"
+            tail = tails[severity, limit] = f", {side} {what} limit {limit:.3g}."
+        out.append(f"{head}{value:.3g}{tail}")
+    return out

@@ -13,12 +13,26 @@ from dataclasses import dataclass
 from datetime import datetime
 from typing import Any, cast
 
-from sqlalchemy import ColumnElement, Select, Table, and_, bindparam, delete, exists, func, or_, select, text, update
+from sqlalchemy import (
+    ColumnElement,
+    Float,
+    Select,
+    Table,
+    and_,
+    bindparam,
+    delete,
+    exists,
+    func,
+    or_,
+    select,
+    text,
+    update,
+)
 from sqlalchemy.orm import Session
 
 import model
 from app.store.exclusions import counted
-from app.tables import Evaluation, Flag, Shot, ShotRevision
+from app.tables import Evaluation, Flag, Shot, ShotRevision, UTCDateTime
 
 SHOTS = cast(Table, Shot.__table__)
 REVISIONS = cast(Table, ShotRevision.__table__)
@@ -92,7 +106,15 @@ def bulk_insert(session: Session, table: Table, rows: Columns) -> None:
         if isinstance(values, SerialisedJson):
             columns.append(values)
             continue
-        process = table.c[name].type.dialect_impl(dialect).bind_processor(dialect)
+        column_type = table.c[name].type
+        if isinstance(column_type, Float):
+            # Floats go to the driver as they are: the SQLite processor only turns Decimals (never given) into floats.
+            columns.append(values)
+            continue
+        if isinstance(column_type, UTCDateTime) and dialect.name == "sqlite":
+            columns.append(_processed(UTCDateTime.sqlite_text, values))  # the same text, written in C
+            continue
+        process = column_type.dialect_impl(dialect).bind_processor(dialect)
         columns.append(_processed(process, values) if process else values)
     quote = dialect.identifier_preparer.quote
     column_list = ", ".join(quote(n) for n in names)

@@ -12,6 +12,7 @@ import pytest
 from sqlalchemy import func, select
 
 from app.errors import MAX_PROBLEMS
+from app.routers import json_body
 from app.tables import Shot
 from app.times import format_utc
 from tests.support.detailed_runs import QUICK_CHANGES
@@ -59,6 +60,64 @@ def test_a_repeated_key_is_refused_with_400_not_last_wins(client, app, campaign,
     response = _raw(client, _url(campaign), text, ingest_headers)
     assert response.status_code == 400
     assert "'density_cm3' appears twice" in response.json()["detail"]
+    assert _stored(app) == 0
+
+
+@pytest.mark.parametrize(
+    "repeat",
+    [
+        ('"daq": {', '"daq": {"note": "a: b: c", "note": "d", '),  # the lost value held colons
+        ('"daq": {', '"daq": {"note": "x", "note": "\\u003a", '),  # the kept one an escaped colon
+        ('"shot_id":', '"shot_id": "other", "shot_id":'),
+        ('"daq": {', '"daq": {"deep": {"k": [{"a": 1, "a": 1}]}, '),
+    ],
+)
+def test_a_repeated_key_anywhere_is_refused_whatever_the_values_hold(
+    client, app, campaign, ingest_headers, make_shot, repeat
+):
+    shot = make_shot()
+    shot["daq"] = {"crate": 2}
+    text = json.dumps(shot).replace(*repeat, 1)
+    response = _raw(client, _url(campaign), text, ingest_headers)
+    assert response.status_code == 400, response.text
+    assert "appears twice" in response.json()["detail"]
+    assert _stored(app) == 0
+
+
+def test_the_quick_reading_of_a_body_is_the_document_the_strict_reader_gives():
+    read_quickly = {  # text -> whether orjson's reading is taken
+        '{"a": 1, "b": [1.5, -0, 1e-7, 2.5e+300, 0.0019463869050811617, 999999999999999999], "t": "10:12:03"}': True,
+        '{"e": "\\u2014 \\ud83d\\ude00 \\u0041", "s": "a\\\\u003b", "n": null, "b": [true, false]}': True,
+        "[" * 200 + "1" + "]" * 200: True,
+        '"plain"': True,
+        '{"big": 100000000000000000000, "frac": 1.5}': False,  # orjson would make it a float
+        "12345678901234567890123": False,
+        '{"neg": -9223372036854775809}': False,
+        '{"u": "\\u003a\\u003A"}': False,
+        "[" * 300 + "1" + "]" * 300: False,  # past orjson's depth for writing
+        '{"x": NaN}': False,
+    }
+    for text, quick in read_quickly.items():
+        raw = text.encode()
+        assert json_body._quick_read(raw)[0] is quick, text
+        read, strict = json_body.parse_json_body(raw), json_body._strict_read(raw)
+        assert json.dumps(read) == json.dumps(strict)
+    assert json_body.parse_json_body(b'{"n": 100000000000000000000}')["n"] == 10**20  # an integer, exactly
+
+
+def test_nan_in_a_body_is_read_and_refused_naming_its_field(client, app, campaign, ingest_headers, make_shot):
+    text = json.dumps(make_shot())[:-1] + ', "daq": {"gain": NaN, "bias": -Infinity}}'
+    response = _raw(client, _url(campaign), text, ingest_headers)
+    assert response.status_code == 422
+    assert _fields(response) == ["daq.gain", "daq.bias"]
+    assert _stored(app) == 0
+
+
+def test_a_body_nested_thousands_deep_is_a_400(client, app, campaign, ingest_headers, make_shot):
+    text = json.dumps(make_shot())[:-1] + ', "daq": ' + "[" * 5000 + "]" * 5000 + "}"
+    response = _raw(client, _url(campaign), text, ingest_headers)
+    assert response.status_code == 400
+    assert response.json()["detail"] == "the body is nested too deeply"
     assert _stored(app) == 0
 
 

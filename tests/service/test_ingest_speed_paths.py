@@ -90,6 +90,54 @@ def test_the_inputs_of_a_batch_are_validated_once(make_shot, monkeypatch):
     assert payload_rules.defaulted_by_shot(shots) == [payload_rules.defaulted_fields(s) for s in shots]
 
 
+def test_every_flag_of_a_batch_is_stored_as_the_shot_evaluated_alone_reports_it(
+    client, app, campaign, ingest_headers, make_shot
+):
+    shots = [
+        make_shot(case=i % 5, shot_id=f"f-{i}", changes={"plasma.density_cm3": 10 ** (13 + i / 3)}) for i in range(12)
+    ]
+    posted = client.post(f"{_shots_url(campaign)}/batch", json={"shots": shots}, headers=ingest_headers)
+    assert posted.status_code == 201
+    with app.state.session_factory() as session:
+        rows = session.execute(
+            text(
+                "SELECT s.shot_id, f.code, f.severity, f.value, f.limit_value, f.message "
+                "FROM flags f JOIN shots s ON s.id = f.shot_pk ORDER BY f.id"
+            )
+        ).all()
+    stored = {shot["shot_id"]: [tuple(r[1:]) for r in rows if r[0] == shot["shot_id"]] for shot in shots}
+    expected = {
+        shot["shot_id"]: [
+            (f["code"], f["severity"], f["value"], f["limit"], f["message"]) for f in model.evaluate_shot(shot)["flags"]
+        ]
+        for shot in shots
+    }
+    assert stored == expected and sum(map(len, stored.values())) > len(shots)
+
+
+def test_a_time_written_by_a_bulk_insert_on_sqlite_is_the_text_sqlalchemy_writes():
+    from datetime import UTC, datetime, timedelta, timezone
+
+    from sqlalchemy.dialects import sqlite
+
+    from app.tables import UTCDateTime
+
+    dialect = sqlite.dialect()
+    column = UTCDateTime()
+    process = column.dialect_impl(dialect).bind_processor(dialect)
+    moments = [
+        datetime(2026, 11, 17, 9, 12, 3, 120000, tzinfo=UTC),
+        datetime(2026, 11, 17, 9, 12, 3, tzinfo=timezone(timedelta(hours=5, minutes=30))),
+        datetime(1990, 1, 1, 0, 0, 0, 1, tzinfo=UTC),
+        datetime(9999, 12, 31, 23, 59, 59, 999999, tzinfo=UTC),
+        datetime(1, 1, 1, 12, tzinfo=timezone(timedelta(hours=-3))),
+        None,
+    ]
+    assert [UTCDateTime.sqlite_text(m) for m in moments] == [process(m) for m in moments]
+    with pytest.raises(ValueError):
+        UTCDateTime.sqlite_text(datetime(2026, 11, 17))
+
+
 # --- the writer queue ---------------------------------------------------------------------------------
 
 

@@ -17,6 +17,8 @@ import model
 from app.plain import float_list
 from app.services import metrics
 
+_SEVERITY_NAMES = np.array(model.SEVERITY_BY_RANK, dtype=object)  # rank -> name, by fancy indexing
+
 
 def model_columns(stored: Mapping[str, Sequence[Any]]) -> dict[str, np.ndarray]:
     """Dotted-path model columns from stored shot input columns (``model.column_name``)."""
@@ -32,7 +34,9 @@ def model_columns(stored: Mapping[str, Sequence[Any]]) -> dict[str, np.ndarray]:
     return columns
 
 
-def evaluate_inputs(inputs: Mapping[str, np.ndarray], overrides: Mapping[str, Any], mode: str) -> dict[str, np.ndarray]:
+def evaluate_inputs(
+    inputs: Mapping[str, np.ndarray], overrides: Mapping[str, Any], mode: str
+) -> Mapping[str, np.ndarray]:
     """model.evaluate_table over dotted-path input columns, timed for /metrics."""
     start = time.perf_counter()
     table = model.evaluate_table(inputs, overrides)
@@ -68,21 +72,22 @@ def evaluation_columns(
         evals["defaulted_fields"] = [list(d) for d in defaulted]
     names = ("shot_pk", "campaign_id", "code", "severity", "value", "limit_value", "message")
     flags: dict[str, list[Any]] = {k: [] for k in names}
+    pks = np.asarray(shot_pks)
+    # Flag rows are written rule by rule (in shot order within a rule), whole columns at a time.
     for code in model.FLAG_CODES:
         ranks = table[f"flag.{code}"]
         fired = np.flatnonzero(ranks)
         if fired.size == 0:
             continue
+        severities = _SEVERITY_NAMES[ranks[fired]].tolist()
         values = float_list(table[f"flag_value.{code}"][fired])
         limits = float_list(table[f"flag_limit.{code}"][fired])
-        for i, value, limit in zip(fired.tolist(), values, limits, strict=True):
-            severity = model.SEVERITY_BY_RANK[ranks[i]]
-            flags["shot_pk"].append(shot_pks[i])
-            flags["code"].append(code)
-            flags["severity"].append(severity)
-            flags["value"].append(value)
-            flags["limit_value"].append(limit)
-            flags["message"].append(model.flag_message(code, severity, value, limit))
+        flags["shot_pk"] += pks[fired].tolist()
+        flags["code"] += [code] * fired.size
+        flags["severity"] += severities
+        flags["value"] += values
+        flags["limit_value"] += limits
+        flags["message"] += model.flag_messages(code, severities, values, limits)
     flags["campaign_id"] = [campaign_id] * len(flags["shot_pk"])
     return evals, flags
 
