@@ -183,11 +183,11 @@ def run_tag_values(sections: Mapping[str, Any]) -> list[Any]:
     return values
 
 
-def _run_tag_texts(every_sections: Sequence[Mapping[str, Any]]) -> list[str]:
+def _run_tag_texts(every_sections: Sequence[Mapping[str, Any]]) -> list[str | None]:
     """``_json_array(run_tag_values(...))`` of each shot, encoded once per distinct tuple of texts and
     nulls (other values are encoded each time: 7, 7.0 and True are equal keys, and different tags)."""
     texts: dict[tuple[Any, ...], str] = {}
-    out = []
+    out: list[str | None] = []
     for sections in every_sections:
         values = run_tag_values(sections)
         if not all(v is None or type(v) is str for v in values):
