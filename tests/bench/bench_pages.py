@@ -92,7 +92,7 @@ def invented_columns(n: int, rng: np.random.Generator) -> dict[str, np.ndarray]:
 
 def build_campaign(url: str, n: int) -> float:
     """The campaign, with the importing checkout's own schema (app.database.upgrade_database)."""
-    from sqlalchemy import insert
+    from sqlalchemy import insert, text
 
     import model
     from app.database import make_engine, upgrade_database
@@ -153,6 +153,11 @@ def build_campaign(url: str, n: int) -> float:
             conn.execute(insert(Evaluation), evals)
             if flags:
                 conn.execute(insert(Flag.__table__), flags)
+        if conn.dialect.name == "postgresql":  # the keys were given: move the sequences past them
+            for table in ("campaigns", "shots"):
+                conn.execute(
+                    text(f"SELECT setval(pg_get_serial_sequence('{table}', 'id'), (SELECT max(id) FROM {table}))")
+                )
     engine.dispose()
     return time.perf_counter() - start
 

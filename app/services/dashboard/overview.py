@@ -215,8 +215,9 @@ def _chart_feed(
 ) -> dict[str, Any]:
     reader = CachedReader(session, campaign, campaign_reads(session, campaign, marks))
     cursor = reader.reads.upto_pk
-    if name == "regime" and (params["x"], params["y"]) != DEFAULT_REGIME_AXES:  # counted for itself
-        return {"figure": regime_figure(session, campaign, upto_pk=cursor, reader=reader, **params), "cursor": cursor}
+    if name == "regime" and (params["x"], params["y"]) != DEFAULT_REGIME_AXES:
+        # Counted and read for itself, and not kept: the reads of every pair a viewer looks at would pile up.
+        return {"figure": regime_figure(session, campaign, upto_pk=cursor, **params), "cursor": cursor}
     totals = reader.value_counts(_COUNTED_VALUES)[name]
     if name == "phase":  # the chart and its figures from one read of the phases
         data = phase_data(session, campaign, cursor, totals=totals, reader=reader)
