@@ -8,9 +8,11 @@ from __future__ import annotations
 
 import base64
 import json
+import sqlite3
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
+from itertools import chain
 from typing import Any, cast
 
 from sqlalchemy import (
@@ -88,12 +90,18 @@ def _processed(process: Callable[[Any], Any], values: Sequence[Any]) -> list[Any
     return out
 
 
+# SQLite: rows per INSERT statement (multi-row VALUES). Each statement run costs the driver
+# binding and stepping overhead once: 100 rows a statement take about a quarter less CPU than
+# one-row statements (a 5,000-shot batch writes some 35,000 rows).
+ROWS_PER_STATEMENT = 100
+
+
 def bulk_insert(session: Session, table: Table, rows: Columns) -> None:
-    """Insert rows given as columns in one driver call.
+    """Insert rows given as columns in one driver call (two on SQLite, for the rows past the last full group).
 
     The values go through each column type's own bind processor, then straight to the
-    driver (SQLite: executemany; PostgreSQL: COPY), skipping SQLAlchemy's per-row
-    parameter handling, the largest cost of a 5,000-shot batch.
+    driver (SQLite: executemany of ROWS_PER_STATEMENT-row statements; PostgreSQL: COPY),
+    skipping SQLAlchemy's per-row parameter handling, the largest cost of a 5,000-shot batch.
     """
     if not rows or not len(next(iter(rows.values()))):
         return
@@ -127,9 +135,18 @@ def bulk_insert(session: Session, table: Table, rows: Columns) -> None:
                 for row in zip(*columns, strict=False):
                     copy.write_row(row)
         return
-    placeholders = ", ".join("?" * len(names))
+    insert = f"INSERT INTO {quote(table.name)} ({column_list}) VALUES "
+    one_row = "(" + ", ".join("?" * len(names)) + ")"
     values = list(zip(*columns, strict=True))
-    conn.exec_driver_sql(f"INSERT INTO {quote(table.name)} ({column_list}) VALUES ({placeholders})", values)
+    driver = conn.connection.driver_connection
+    assert driver is not None
+    per_statement = max(1, min(ROWS_PER_STATEMENT, driver.getlimit(sqlite3.SQLITE_LIMIT_VARIABLE_NUMBER) // len(names)))
+    whole = len(values) // per_statement * per_statement
+    if whole:
+        groups = [tuple(chain.from_iterable(values[i : i + per_statement])) for i in range(0, whole, per_statement)]
+        conn.exec_driver_sql(insert + ", ".join([one_row] * per_statement), groups)
+    if whole < len(values):
+        conn.exec_driver_sql(insert + one_row, values[whole:])
 
 
 def insert_shots(session: Session, rows: Columns) -> list[int]:

@@ -115,6 +115,42 @@ def test_every_flag_of_a_batch_is_stored_as_the_shot_evaluated_alone_reports_it(
     assert stored == expected and sum(map(len, stored.values())) > len(shots)
 
 
+def test_a_batch_of_hundreds_stores_every_shot_revision_evaluation_and_flag_once(
+    client, app, campaign, ingest_headers, make_shot
+):
+    # 230 shots: two full multi-row statements of each table on SQLite and the rows after them
+    shots = [
+        make_shot(
+            case=i % 5,
+            shot_id=f"h-{i:03d}",
+            taken_at=f"2026-11-17T10:{i // 60:02d}:{i % 60:02d}.{i:03d}Z",
+            changes={"plasma.density_cm3": 10 ** (13 + (i % 17) / 4)},
+        )
+        for i in range(230)
+    ]
+    posted = client.post(f"{_shots_url(campaign)}/batch", json={"shots": shots}, headers=ingest_headers)
+    assert posted.status_code == 201 and posted.json()["created"] == 230
+    with app.state.session_factory() as session:
+        stored = session.execute(
+            text(
+                "SELECT s.shot_id, s.plasma_density_cm3, e.status, r.revision, "
+                "(SELECT count(*) FROM flags f WHERE f.shot_pk = s.id) "
+                "FROM shots s JOIN evaluations e ON e.shot_pk = s.id JOIN shot_revisions r ON r.shot_pk = s.id "
+                "ORDER BY s.shot_id"
+            )
+        ).all()
+        counts = [session.scalar(text(f"SELECT count(*) FROM {t}")) for t in ("shots", "shot_revisions", "evaluations")]
+        flag_rows = session.scalar(text("SELECT count(*) FROM flags"))
+    expected = []
+    for shot in shots:
+        evaluated = model.evaluate_shot(shot)
+        expected.append(
+            (shot["shot_id"], shot["plasma"]["density_cm3"], evaluated["status"], 1, len(evaluated["flags"]))
+        )
+    assert [tuple(r) for r in stored] == expected
+    assert counts == [230, 230, 230] and flag_rows == sum(e[4] for e in expected) > 230
+
+
 def test_a_time_written_by_a_bulk_insert_on_sqlite_is_the_text_sqlalchemy_writes():
     from datetime import UTC, datetime, timedelta, timezone
 
