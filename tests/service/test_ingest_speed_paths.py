@@ -6,13 +6,22 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
 import threading
 
 import pytest
 from sqlalchemy import select, text, update
+from sqlalchemy.orm import Session
 
 import model
-from app.database import FifoLock, begin_write, writer_queue
+from app.database import (
+    SQLITE_AUTOCHECKPOINT_PAGES,
+    FifoLock,
+    begin_write,
+    checkpoint_wal,
+    defer_wal_checkpoint,
+    writer_queue,
+)
 from app.errors import InvalidInput
 from app.services.ingest import payloads as payload_rules
 from app.services.ingest.payloads import canonical_json, legacy_payload_digest, prepare_all, stored_comparable
@@ -172,6 +181,49 @@ def test_a_time_written_by_a_bulk_insert_on_sqlite_is_the_text_sqlalchemy_writes
     assert [UTCDateTime.sqlite_text(m) for m in moments] == [process(m) for m in moments]
     with pytest.raises(ValueError):
         UTCDateTime.sqlite_text(datetime(2026, 11, 17))
+
+
+# --- the WAL checkpoint after the answer (SQLite) --------------------------------------------------
+
+
+def _file_holds_every_page(engine) -> bool:
+    """Whether the database file itself holds all pages (nothing waits in the WAL to be copied)."""
+    path = engine.url.database
+    with engine.connect() as conn:
+        pages = conn.exec_driver_sql("PRAGMA page_count").scalar() * conn.exec_driver_sql("PRAGMA page_size").scalar()
+    return os.path.getsize(path) >= pages
+
+
+@pytest.mark.parametrize("backend", ["sqlite"], indirect=True)
+def test_a_batch_is_answered_and_its_pages_then_reach_the_database_file(
+    client, app, campaign, ingest_headers, make_shot
+):
+    shots = [make_shot(case=i % 5, shot_id=f"w-{i}") for i in range(300)]
+    posted = client.post(f"{_shots_url(campaign)}/batch", json={"shots": shots}, headers=ingest_headers)
+    assert posted.status_code == 201
+    # 300 shots are fewer WAL pages than SQLite's own checkpoint waits for: the file has them all
+    # because the checkpoint ran after the answer
+    assert _file_holds_every_page(app.state.engine)
+
+
+@pytest.mark.parametrize("backend", ["sqlite"], indirect=True)
+def test_a_commit_that_defers_the_checkpoint_leaves_the_wal_and_the_connection_gets_it_back(app):
+    engine = app.state.engine
+    with engine.connect() as conn:
+        with Session(bind=conn) as session:
+            begin_write(session)
+            session.execute(text("CREATE TABLE scratch_pages (b BLOB)"))
+            defer_wal_checkpoint(session)
+            # 6 MB: past the 1,000 pages at which a commit would copy the WAL into the file
+            session.execute(text("INSERT INTO scratch_pages VALUES (:b)"), [{"b": bytes(4000)}] * 1500)
+            session.commit()
+        assert not _file_holds_every_page(engine)
+        dbapi = conn.connection.dbapi_connection
+        assert dbapi.execute("PRAGMA wal_autocheckpoint").fetchone()[0] == 0
+        with conn.begin():  # the next transaction on that connection checkpoints as SQLite does
+            assert conn.exec_driver_sql("PRAGMA wal_autocheckpoint").scalar() == SQLITE_AUTOCHECKPOINT_PAGES
+    checkpoint_wal(engine)
+    assert _file_holds_every_page(engine)
 
 
 # --- the writer queue ---------------------------------------------------------------------------------
