@@ -20,6 +20,7 @@ from app.database import (
     begin_write,
     checkpoint_wal,
     defer_wal_checkpoint,
+    json_dumps,
     writer_queue,
 )
 from app.errors import InvalidInput
@@ -158,6 +159,25 @@ def test_a_batch_of_hundreds_stores_every_shot_revision_evaluation_and_flag_once
         )
     assert [tuple(r) for r in stored] == expected
     assert counts == [230, 230, 230] and flag_rows == sum(e[4] for e in expected) > 230
+
+
+def test_tags_and_defaulted_fields_repeated_across_a_batch_are_stored_as_each_shot_has_them(
+    client, app, campaign, ingest_headers, make_shot
+):
+    tags = [["scan"], ["scan", "density"], [], ["scan"], ["density", "scan"], ["é", "night shift"], []]
+    shots = [make_shot(shot_id=f"t-{i}", drop=["driver.offset_x_mm"] if i % 2 else ()) for i in range(len(tags))]
+    for shot, shot_tags in zip(shots, tags, strict=True):
+        shot["tags"] = shot_tags
+    posted = client.post(f"{_shots_url(campaign)}/batch", json={"shots": shots}, headers=ingest_headers)
+    assert posted.status_code == 201
+    stored_tags = _stored_text(app, "shots", "tags")
+    assert [json.loads(t) for t in stored_tags] == tags
+    assert stored_tags == [json_dumps(t) for t in tags]
+    with app.state.session_factory() as session:
+        defaulted = session.scalars(text("SELECT e.defaulted_fields FROM evaluations e ORDER BY e.shot_pk")).all()
+    defaulted = [json.loads(d) if isinstance(d, str) else d for d in defaulted]
+    assert defaulted == [payload_rules.defaulted_fields(s) for s in shots]
+    assert defaulted[0] != defaulted[1]
 
 
 def test_a_time_written_by_a_bulk_insert_on_sqlite_is_the_text_sqlalchemy_writes():

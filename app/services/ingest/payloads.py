@@ -214,7 +214,9 @@ def unknown_field_problems(payload: Mapping[str, Any], prefix: str = "") -> list
     problems: list[FieldProblem] = []
     for section, known in KNOWN_FIELDS.items():
         block = payload.get(section)
-        if not isinstance(block, Mapping) or block.keys() <= _KNOWN_KEYS[section]:
+        if block is None or (type(block) is not dict and not isinstance(block, Mapping)):
+            continue
+        if block.keys() <= _KNOWN_KEYS[section]:
             continue  # the usual section: every key known
         for key in block:
             if key in known:
