@@ -15,6 +15,7 @@ from datetime import datetime
 from itertools import chain
 from typing import Any, cast
 
+import orjson
 from sqlalchemy import (
     ColumnElement,
     Float,
@@ -49,19 +50,21 @@ class StoredDigest:
 
 
 def digests_by_shot_id(session: Session, campaign_id: int, shot_ids: Sequence[str]) -> dict[str, StoredDigest]:
-    """Stored payload hashes for the given shot ids (chunked to stay under bind limits)."""
-    out: dict[str, StoredDigest] = {}
+    """Stored payload hashes for the given shot ids, in one statement whatever their number: the ids
+    are one parameter (a JSON array read by json_each on SQLite, an array on PostgreSQL)."""
     ids = list(shot_ids)
-    for start in range(0, len(ids), 900):
-        chunk = ids[start : start + 900]
-        rows = session.execute(
-            select(Shot.shot_id, Shot.id, Shot.payload_sha256).where(
-                Shot.campaign_id == campaign_id, Shot.shot_id.in_(chunk)
-            )
-        )
-        for shot_id, pk, sha in rows:
-            out[shot_id] = StoredDigest(pk, sha)
-    return out
+    if not ids:
+        return {}
+    given: str | list[str]
+    if session.connection().dialect.name == "sqlite":
+        wanted, given = "IN (SELECT value FROM json_each(:ids))", orjson.dumps(ids).decode()
+    else:
+        wanted, given = "= ANY(:ids)", ids
+    rows = session.execute(
+        text(f"SELECT shot_id, id, payload_sha256 FROM shots WHERE campaign_id = :campaign AND shot_id {wanted}"),
+        {"campaign": campaign_id, "ids": given},
+    )
+    return {shot_id: StoredDigest(pk, sha) for shot_id, pk, sha in rows}
 
 
 def raw_payloads(session: Session, shot_pks: Iterable[int]) -> dict[int, dict[str, Any]]:

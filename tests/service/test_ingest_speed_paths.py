@@ -180,6 +180,20 @@ def test_tags_and_defaulted_fields_repeated_across_a_batch_are_stored_as_each_sh
     assert defaulted[0] != defaulted[1]
 
 
+def test_a_batch_posted_again_is_unchanged_shot_for_shot_past_a_thousand_ids(
+    client, app, campaign, ingest_headers, make_shot
+):
+    # the stored digests of every id are read in one statement, the ids one parameter
+    shots = [make_shot(case=i % 5, shot_id=f"r-{i:04d}") for i in range(1100)]
+    url = f"{_shots_url(campaign)}/batch"
+    assert client.post(url, json={"shots": shots}, headers=ingest_headers).json()["created"] == 1100
+    changed = [*shots[:700], {**shots[700], "notes": "changed"}, *shots[701:]]
+    conflict = client.post(url, json={"shots": changed}, headers=ingest_headers)
+    assert conflict.status_code == 409 and [e["field"] for e in conflict.json()["errors"]] == ["shots.700.notes"]
+    again = client.post(url, json={"shots": shots}, headers=ingest_headers)
+    assert again.status_code == 200 and again.json()["unchanged"] == 1100
+
+
 def test_a_time_written_by_a_bulk_insert_on_sqlite_is_the_text_sqlalchemy_writes():
     from datetime import UTC, datetime, timedelta, timezone
 
