@@ -42,7 +42,8 @@ def rounded_list(values: Any, digits: int = 6) -> list[Any]:
     array = np.asarray(values if values is not None else [], dtype=float)
     if array.ndim > 1:
         return [rounded_list(row, digits) for row in array]
-    return [rounded(v, digits) for v in array.tolist()]
+    spec = f".{digits}g"  # rounded of each value, inlined: charts round tens of thousands at a time
+    return [float(format(v, spec)) if v - v == 0 else None for v in array.tolist()]  # v - v: NaN for NaN, inf
 
 
 def plain(value: Any) -> Any:

@@ -287,6 +287,8 @@ class BrowserSession(Base):
 
 class AuditEntry(Base):
     __tablename__ = "audit_trail"
+    # A campaign's latest entry is one seek (the overview's change marks read it on every poll).
+    __table_args__ = (Index("ix_audit_trail_campaign_id", "campaign_slug", "id"),)
 
     id: Mapped[int] = mapped_column(BigInteger().with_variant(Integer, "sqlite"), primary_key=True)
     at: Mapped[datetime] = mapped_column(_utc_dt(), index=True)

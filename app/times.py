@@ -86,6 +86,11 @@ def _microseconds(moments: list[datetime]) -> np.ndarray:
     return np.array([(_aware(m) - _EPOCH) // _MICROSECOND for m in moments], dtype=np.int64)
 
 
+def epoch_seconds(moments: list[datetime]) -> np.ndarray:
+    """Seconds since 1970 (UTC; naive moments are UTC) as float64, the microseconds divided exactly once."""
+    return _microseconds(moments) / 1e6
+
+
 def _wall_texts(micros: np.ndarray, millis: bool) -> np.ndarray:
     """ISO 8601 wall times of microseconds since 1970 without an offset: no fraction when there is
     none, else milliseconds where they suffice (``millis``) or microseconds."""
@@ -110,16 +115,21 @@ def utc_texts(moments: list[datetime]) -> list[str]:
     return (_wall_texts(_microseconds(moments), millis=True) + "Z").tolist()
 
 
+def _by_offset(moments: list[datetime], zone: ZoneInfo) -> dict[timedelta, list[int]]:
+    """The rows of the moments by their UTC offset in ``zone``."""
+    offsets: dict[timedelta, list[int]] = {}
+    for i, moment in enumerate(moments):
+        offsets.setdefault(_aware(moment).astimezone(zone).utcoffset() or timedelta(0), []).append(i)
+    return offsets
+
+
 def local_texts(moments: list[datetime], zone: ZoneInfo) -> list[str]:
     """``iso_text(moment.astimezone(zone))`` of every moment (UTC ones, naive ones too), for a whole column."""
     if not moments:
         return []
     micros = _microseconds(moments)
-    offsets: dict[timedelta, list[int]] = {}
-    for i, moment in enumerate(moments):
-        offsets.setdefault(_aware(moment).astimezone(zone).utcoffset() or timedelta(0), []).append(i)
     out = np.empty(len(moments), dtype=object)
-    for offset, rows in offsets.items():
+    for offset, rows in _by_offset(moments, zone).items():
         picked = np.array(rows)
         if not offset:
             out[picked] = _wall_texts(micros[picked], millis=True) + "Z"
@@ -129,6 +139,17 @@ def local_texts(moments: list[datetime], zone: ZoneInfo) -> list[str]:
         suffix = sample.isoformat()[len(sample.replace(tzinfo=None).isoformat()) :]
         out[picked] = _wall_texts(micros[picked] + offset // _MICROSECOND, millis=False) + suffix
     return out.tolist()
+
+
+def local_wall_texts(moments: list[datetime], zone: ZoneInfo) -> list[str]:
+    """``local_text`` of every moment (UTC ones, naive ones too; years 1000 to 9999), for a whole column."""
+    if not moments:
+        return []
+    wall = _microseconds(moments)
+    for offset, rows in _by_offset(moments, zone).items():
+        wall[rows] += offset // _MICROSECOND
+    texts = np.datetime_as_string(wall.astype("datetime64[us]").astype("datetime64[s]"), unit="s")
+    return np.char.replace(texts, "T", " ").tolist()  # LOCAL_FORMAT
 
 
 def local_time(moment: datetime | None, zone: ZoneInfo) -> datetime | None:

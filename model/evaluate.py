@@ -19,7 +19,7 @@ validate_columns is taken as it is).
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -35,7 +35,7 @@ from model.vocabulary import OUTPUT_NAMES, SEED_METHODS, SEVERITY_BY_RANK, STATU
 
 MODEL_VERSION = "2026.12.2"
 
-_CHUNK = 8192  # rows per pass: the temporaries stay in the core's cache
+_CHUNK = 25_000  # rows per pass: the temporaries stay in the caches (L2, L3), numpy's cost per call is spread thin
 _FRONT = SEED_METHODS.index("ionization_front")
 _ELECTRON_BUNCH = SEED_METHODS.index("electron_bunch")
 _UNSEEDED = SEED_METHODS.index("none")
@@ -54,7 +54,11 @@ def _core(
     def put(name: str, value: Any, scale: float = 1.0) -> None:
         """Write an output (times its unit scale) straight into its slice of the result."""
         dest = out.get(name)
-        if dest is not None:
+        if dest is None:
+            return
+        if scale == 1.0:
+            np.copyto(dest, value)
+        else:
             np.multiply(value, scale, out=dest)
 
     # Section 2: plasma and beam.
@@ -96,12 +100,13 @@ def _core(
     zeta_s = cols["seed.position_mm"] * U.MM
     zeta_s[unseeded] = 0.0  # unseeded: the reference slice is placed behind the centre
     field_per_density = seed.cut_field_per_density(kp, charge, on_axis)
-    log_n_seed = seed.log_ionization_front_seed_density(nb0, zeta_s, sigma_z)
+    log_n_seed = np.full(zeta_s.shape, -np.inf)  # unseeded: no seed
+    log_n_seed[front] = seed.log_ionization_front_seed_density(nb0[front], zeta_s[front], sigma_z[front])
     bunch = np.flatnonzero(method == _ELECTRON_BUNCH)
     if bunch.size:
         kp_sigma_r_seed = kp[bunch] * (cols["seed.electron_sigma_r_mm"][bunch] * U.MM)
         u_seed = kp_sigma_r_seed * kp_sigma_r_seed
-        seed_on_axis = ff.driver_slice_factors(u_seed)[0] / u_seed  # R((k_p sigma_rs)^2/2)
+        seed_on_axis = ff.driver_on_axis_factor(u_seed) / u_seed  # R((k_p sigma_rs)^2/2)
         log_field = seed.log_electron_bunch_seed_field(
             cols["seed.electron_charge_pc"][bunch] * U.PC,
             cols["seed.electron_sigma_z_mm"][bunch] * U.MM,
@@ -109,7 +114,6 @@ def _core(
             seed_on_axis,
         )
         log_n_seed[bunch] = seed.log_equivalent_cut_density(log_field, field_per_density[bunch])
-    log_n_seed[unseeded] = -np.inf
     n_seed = np.exp(log_n_seed)
     put("seed_density_cm3", n_seed, 1.0 / U.PER_CM3)
     put("seed_field_mv_m", n_seed * field_per_density, 1.0 / U.MV_PER_M)
@@ -135,8 +139,9 @@ def _core(
     saturated, log_delta_exit, z_ref, n_exit, n_ref_efolds, seed_over_noise = growth.growth_to_saturation(
         log_force_reported, coupling_reported, log_force_noise, coupling_noise, length, log_sat
     )
-    modulation = np.exp(np.minimum(log_delta_exit, log_sat))
-    np.copyto(modulation, s["saturation_modulation"], where=saturated)
+    modulation = np.full(log_delta_exit.shape, s["saturation_modulation"])
+    growing = np.flatnonzero(~saturated)  # below saturation at the exit (or NaN)
+    modulation[growing] = np.exp(log_delta_exit[growing])
     kp_xi = kp * xi_ref
     wakefield = growth.wakefield_estimate(e0, abs_charge * n_ref / n0, on_axis, kp_xi, n_ref_efolds, modulation)
     hosing_scale = growth.hosing_efolds_ratio(seed_factor, growth_factor)
@@ -153,12 +158,10 @@ def _core(
 
     # Section 5: phase.
     gradient = cols["plasma.gradient_pct_per_m"] * U.PCT
-    put("phase_slip_rad", phase.phase_slip(n_ref_efolds))
-    put("phase_velocity_deficit", phase.phase_velocity_deficit(n_ref_efolds, kp, z_ref))
-    put("phase_per_pct_density_rad", phase.phase_per_pct_density(kp, xi_ref))
-    put("density_tolerance_pct", phase.density_tolerance_pct(kp, xi_ref, s["phase_tolerance_rad"]))
-    put("compensating_gradient_pct_per_m", phase.compensating_gradient_pct_per_m(n_ref_efolds, kp, xi_ref, z_ref))
-    put("gradient_phase_error_rad", phase.gradient_phase_error(kp, xi_ref, gradient, length, n_ref_efolds))
+    for name, value in phase.phase_outputs(
+        n_ref_efolds, kp, kp_xi, z_ref, gradient, length, s["phase_tolerance_rad"]
+    ).items():
+        put(name, value)
 
     # Section 6: competing effects and the measured frequency.
     ox, oy = cols["driver.offset_x_mm"], cols["driver.offset_y_mm"]
@@ -170,64 +173,57 @@ def _core(
     ion_mass = cols["plasma.ion_mass_amu"] * plasma.ATOMIC_MASS
     put("ion_motion_index", competing.ion_motion_index(cols["plasma.ion_charge"], ion_mass, wakefield, e0, kp, xi_ref))
     put("divergence_ratio", competing.divergence_ratio(z_ref, eps_g, sigma_r))
-    f_meas = cols["measured.modulation_freq_ghz"] * U.GHZ  # NaN where not measured
-    f_ref = competing.reference_frequency(f_p, gradient, z_ref)
-    put("frequency_mismatch_pct", 100.0 * competing.frequency_mismatch(f_meas, f_ref))
-    put("implied_density_cm3", competing.implied_density(n0, f_meas, f_ref), 1.0 / U.PER_CM3)
+    # Only where a frequency was measured (elsewhere both are null): the reference frequency there alone.
+    measured = np.flatnonzero(~np.isnan(cols["measured.modulation_freq_ghz"]))
+    mismatch = np.full(n0.shape, np.nan)
+    implied = np.full(n0.shape, np.nan)
+    if measured.size:
+        f_meas = cols["measured.modulation_freq_ghz"][measured] * U.GHZ
+        f_ref = competing.reference_frequency(f_p[measured], gradient[measured], z_ref[measured])
+        mismatch[measured] = competing.frequency_mismatch(f_meas, f_ref)
+        implied[measured] = competing.implied_density(n0[measured], f_meas, f_ref)
+    put("frequency_mismatch_pct", 100.0 * mismatch)
+    put("implied_density_cm3", implied, 1.0 / U.PER_CM3)
 
 
 @dataclass(frozen=True)
 class _Grading:
-    """The rules with limits as one matrix, rows in _MATRIX order (the graded rules, then ASYMPTOTIC_LIMIT), signed so
-    that every row fires above its limits: an "above" rule as it is, a "below" one negated."""
+    """The limits of the rules of _MATRIX as (rules, 1) columns, for one settings; outside is +inf for
+    ASYMPTOTIC_LIMIT (never outside), whose marginal column holds its info limit."""
 
-    metric_rows: np.ndarray  # row of each rule's metric in the float block
-    absolute: np.ndarray  # rows (of the matrix) whose metric is taken as |metric|
-    sign: np.ndarray  # (rules, 1): +1 for "above" (and info), -1 for "below"
-    marginal: np.ndarray  # (rules, 1): the marginal limit; ASYMPTOTIC_LIMIT's info limit
-    outside: np.ndarray  # (rules, 1): the outside limit; +inf for ASYMPTOTIC_LIMIT (never outside)
+    marginal: np.ndarray
+    outside: np.ndarray
 
 
 def _grading(s: Mapping[str, Any]) -> _Grading:
-    rules = [RULES_BY_CODE[code] for code in _MATRIX]
     limits = [s["limits"][code] for code in _MATRIX]
     return _Grading(
-        metric_rows=np.array([_FLOAT_ROW[r.metric] for r in rules]),
-        absolute=np.array([i for i, code in enumerate(_MATRIX) if code in ABS_METRIC_CODES], dtype=np.intp),
-        sign=np.array([[-1.0] if r.bad_when == "below" else [1.0] for r in rules]),
         marginal=np.array([[lim.get("marginal", lim.get("info"))] for lim in limits]),
         outside=np.array([[lim.get("outside", np.inf)] for lim in limits]),
     )
 
 
 def _apply_rules(floats: np.ndarray, ranks: np.ndarray, method: np.ndarray, grading: _Grading) -> None:
-    """Severity rank (0 none, 1 info, 2 marginal, 3 outside), value and limit of every rule, and the status rank, into
-    a chunk of the two result blocks (MODEL.md section 7); the rules with limits all at once, as one matrix."""
+    """Severity rank (0 none, 1 info, 2 marginal, 3 outside) of every rule and the status rank, into a chunk of the
+    rank block (MODEL.md section 7). The metrics of the rules lead the float block, grouped by the side that is bad,
+    so that each group is compared with its limits in one pass, without copies (|metric| only for the two rules
+    that take it)."""
     k = len(_MATRIX)
-    metric = floats[grading.metric_rows]
-    if grading.absolute.size:
-        metric[grading.absolute] = np.abs(metric[grading.absolute])
-    with np.errstate(invalid="ignore"):
-        signed = metric * grading.sign
-        # validated order: past the outside limit implies past the marginal one
-        marginal = signed > grading.sign * grading.marginal
-        outside = signed > grading.sign * grading.outside
+    past_marginal = np.empty((k, floats.shape[1]), dtype=bool)
+    past_outside = np.empty_like(past_marginal)
+    m, o = grading.marginal, grading.outside
+    with np.errstate(invalid="ignore"):  # NaN metrics (unseeded, unmeasured) fire nothing
+        for rows, compare, absolute in _METRIC_GROUPS:
+            metric = np.abs(floats[rows]) if absolute else floats[rows]
+            compare(metric, m[rows], out=past_marginal[rows])  # validated order: outside implies marginal
+            compare(metric, o[rows], out=past_outside[rows])
     rank = ranks[:k]
-    np.add(marginal.view(np.int8), marginal.view(np.int8), out=rank)
-    rank += outside.view(np.int8)
-    rank[k - 1] = marginal[k - 1]  # ASYMPTOTIC_LIMIT fires as info (rank 1), which never changes the status
-    # Values and limits are NaN where a rule did not fire: times fired/fired, which is 1 there and 0/0 elsewhere.
-    nan_unless_fired = marginal.astype(float)
-    with np.errstate(invalid="ignore"):
-        np.divide(nan_unless_fired, nan_unless_fired, out=nan_unless_fired)
-    np.multiply(metric, nan_unless_fired, out=floats[_VALUE_ROW0 : _VALUE_ROW0 + k])
-    limit = np.where(outside, grading.outside, grading.marginal)
-    np.multiply(limit, nan_unless_fired, out=floats[_LIMIT_ROW0 : _LIMIT_ROW0 + k])
-    # UNSEEDED: marginal whenever unseeded, with no value or limit
-    unseeded = ranks[_RANK_ROW["flag.UNSEEDED"]]
+    as_int8 = past_marginal.view(np.int8)
+    np.add(as_int8, as_int8, out=rank)
+    rank += past_outside.view(np.int8)
+    rank[_ASYMPTOTIC] = past_marginal[_ASYMPTOTIC]  # fires as info (rank 1), which never changes the status
+    unseeded = ranks[_RANK_ROW["flag.UNSEEDED"]]  # UNSEEDED: marginal whenever unseeded
     np.multiply(method == _UNSEEDED, np.int8(2), out=unseeded)
-    floats[_FLOAT_ROW["flag_value.UNSEEDED"]] = np.nan
-    floats[_FLOAT_ROW["flag_limit.UNSEEDED"]] = np.nan
     worst = rank.max(axis=0)
     np.maximum(worst, unseeded, out=worst)
     # status rank from the worst severity rank: 0, 1 (info) -> nominal 0; 2 -> marginal 1; 3 -> outside 2
@@ -235,51 +231,111 @@ def _apply_rules(floats: np.ndarray, ranks: np.ndarray, method: np.ndarray, grad
     np.maximum(worst, np.int8(0), out=ranks[_RANK_ROW["status"]])
 
 
-# The result columns as rows of two blocks: the outputs, then the values and the limits of the rules of the matrix
-# and of UNSEEDED; the ranks of the same, and the status.
-_GRADED = tuple(r.code for r in RULES if r.bad_when in ("above", "below"))
-_MATRIX = (*_GRADED, "ASYMPTOTIC_LIMIT")
-if tuple(code for code in FLAG_CODES if code not in _MATRIX) != ("UNSEEDED",):
-    raise RuntimeError("_apply_rules knows the graded rules, ASYMPTOTIC_LIMIT and UNSEEDED, no other kind")
-_BLOCK_CODES = (*_MATRIX, "UNSEEDED")
-_FLOAT_COLUMNS = (
-    *OUTPUT_NAMES,
-    *(f"flag_value.{code}" for code in _BLOCK_CODES),
-    *(f"flag_limit.{code}" for code in _BLOCK_CODES),
+# The rules with limits (_MATRIX) in three groups: fired above the limits, fired where |metric| is above them, fired
+# below them. Their metrics lead the float block in the same order, then the other outputs; the rank block holds the
+# ranks of _MATRIX and UNSEEDED, then the status.
+_ABOVE = tuple(r.code for r in RULES if r.bad_when in ("above", "info_above") and r.code not in ABS_METRIC_CODES)
+_ABS = tuple(r.code for r in RULES if r.code in ABS_METRIC_CODES)
+_BELOW = tuple(r.code for r in RULES if r.bad_when == "below")
+_MATRIX = (*_ABOVE, *_ABS, *_BELOW)
+if {RULES_BY_CODE[code].bad_when for code in _ABS} != {"above"} or tuple(
+    code for code in FLAG_CODES if code not in _MATRIX
+) != ("UNSEEDED",):
+    raise RuntimeError("_apply_rules knows rules above or below their limits (|metric| above), and UNSEEDED")
+_ASYMPTOTIC = _MATRIX.index("ASYMPTOTIC_LIMIT")
+_METRIC_GROUPS = (
+    (slice(0, len(_ABOVE)), np.greater, False),
+    (slice(len(_ABOVE), len(_ABOVE) + len(_ABS)), np.greater, True),
+    (slice(len(_ABOVE) + len(_ABS), len(_MATRIX)), np.less, False),
 )
-_RANK_COLUMNS = (*(f"flag.{code}" for code in _BLOCK_CODES), "status")
+_METRICS = tuple(RULES_BY_CODE[code].metric for code in _MATRIX)
+if len(set(_METRICS)) != len(_METRICS):
+    raise RuntimeError("two rules share a metric: the float block holds each output once")
+_FLOAT_COLUMNS = (*_METRICS, *(name for name in OUTPUT_NAMES if name not in _METRICS))
+_RANK_COLUMNS = (*(f"flag.{code}" for code in (*_MATRIX, "UNSEEDED")), "status")
 _FLOAT_ROW = {name: i for i, name in enumerate(_FLOAT_COLUMNS)}
 _RANK_ROW = {name: i for i, name in enumerate(_RANK_COLUMNS)}
-_VALUE_ROW0 = _FLOAT_ROW["flag_value." + _MATRIX[0]]
-_LIMIT_ROW0 = _FLOAT_ROW["flag_limit." + _MATRIX[0]]
+# The keys of a table, in the order evaluate_table has always given them.
+_KEY_CODES = (*(r.code for r in RULES if r.bad_when in ("above", "below")), "ASYMPTOTIC_LIMIT", "UNSEEDED")
+_TABLE_KEYS = (
+    *OUTPUT_NAMES,
+    *(f"flag_value.{code}" for code in _KEY_CODES),
+    *(f"flag_limit.{code}" for code in _KEY_CODES),
+    *(f"flag.{code}" for code in _KEY_CODES),
+    "status",
+)
+_DERIVED = {f"{kind}.{code}": (kind, code) for kind in ("flag_value", "flag_limit") for code in _KEY_CODES}
 
 
-def _evaluate_validated(clean: ValidatedColumns, s: Mapping[str, Any]) -> dict[str, np.ndarray]:
+class EvaluationTable(Mapping[str, np.ndarray]):
+    """evaluate_table's result: a mapping of the keys in the module docstring to arrays of one row per shot.
+
+    The outputs and the ranks are computed with the table. flag_value.<CODE> and flag_limit.<CODE> follow from
+    them (the rule's metric where it fired, |metric| for ABS_METRIC_CODES; the outside limit where the rank is
+    outside, the marginal or info limit where it fired otherwise; NaN where it did not fire, and always for
+    UNSEEDED), so each is built the first time it is read and kept: most readers never ask for them.
+    """
+
+    __slots__ = ("_columns", "_grading")
+
+    def __init__(self, columns: dict[str, np.ndarray], grading: _Grading):
+        self._columns = columns
+        self._grading = grading
+
+    def __getitem__(self, key: str) -> np.ndarray:
+        column = self._columns.get(key)
+        if column is None:
+            kind, code = _DERIVED[key]  # KeyError for a key that is not in the table
+            column = self._columns[key] = self._flag_column(kind, code)
+        return column
+
+    def _flag_column(self, kind: str, code: str) -> np.ndarray:
+        rank = self._columns[f"flag.{code}"]
+        if code == "UNSEEDED":  # no metric, no limit
+            return np.full(rank.shape, np.nan)
+        i = _MATRIX.index(code)
+        if kind == "flag_limit":  # the limit of each rank, NaN for rank 0 (not fired)
+            marginal, outside = self._grading.marginal[i, 0], self._grading.outside[i, 0]
+            return np.array([np.nan, marginal, marginal, outside]).take(rank)
+        metric = self._columns[RULES_BY_CODE[code].metric]
+        return np.where(rank > 0, np.abs(metric) if code in ABS_METRIC_CODES else metric, np.nan)
+
+    def __contains__(self, key: object) -> bool:
+        return key in self._columns or key in _DERIVED
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(_TABLE_KEYS)
+
+    def __len__(self) -> int:
+        return len(_TABLE_KEYS)
+
+
+def _evaluate_validated(clean: ValidatedColumns, s: Mapping[str, Any]) -> EvaluationTable:
     """The core and the rules on cache-sized chunks, each writing into its rows of the result table.
 
-    The result columns are rows of two blocks, one large allocation each (huge pages: few page
+    The stored columns are rows of two blocks, one large allocation each (huge pages: few page
     faults, where dozens of separate arrays would fault on every page).
     """
     n = clean.rows
     floats = np.empty((len(_FLOAT_COLUMNS), n))
     ranks = np.empty((len(_RANK_COLUMNS), n), dtype=np.int8)
+    outputs = dict(zip(_FLOAT_COLUMNS, floats, strict=True))
     grading = _grading(s)
     for start in range(0, n, _CHUNK):
         rows = slice(start, min(n, start + _CHUNK))
         method = clean.method_code[rows]
-        chunk = floats[:, rows]
         _core(
             {path: values[rows] for path, values in clean.items()},
             clean.species_code[rows],
             method,
             s,
-            dict(zip(OUTPUT_NAMES, chunk, strict=False)),  # the outputs lead the block
+            {name: column[rows] for name, column in outputs.items()},
         )
-        _apply_rules(chunk, ranks[:, rows], method, grading)
-    return {**dict(zip(_FLOAT_COLUMNS, floats, strict=True)), **dict(zip(_RANK_COLUMNS, ranks, strict=True))}
+        _apply_rules(floats[:, rows], ranks[:, rows], method, grading)
+    return EvaluationTable({**outputs, **dict(zip(_RANK_COLUMNS, ranks, strict=True))}, grading)
 
 
-def evaluate_table(columns: Mapping[str, Any], settings: Mapping[str, Any] | None = None) -> dict[str, np.ndarray]:
+def evaluate_table(columns: Mapping[str, Any], settings: Mapping[str, Any] | None = None) -> EvaluationTable:
     """Evaluate N shots given as dotted-path columns (MODEL.md sections 2-7); NaN cells mean absent."""
     s = resolve_settings(settings)
     return _evaluate_validated(validate_columns(columns), s)

@@ -196,11 +196,34 @@ _DRIVER_TABLE = _driver_factor_table()
 def driver_slice_factors(u: ArrayLike) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(k_p sigma_r)^2 R(a), H(u), F(u) at u = (k_p sigma_r)^2, tabulated to 1e-12 of the exact forms (MODEL.md 2)."""
     flat, shape = _flat(u)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        on_axis, seed_factor, growth_factor = cubic_values(
-            _DRIVER_TABLE, (np.log(flat) - _LN_U0) * (1.0 / _DRIVER_TABLE_STEP)
-        )
-    outside = np.flatnonzero(~((flat >= _DRIVER_TABLE_U[0]) & (flat <= _DRIVER_TABLE_U[1])))
+    factors = _driver_table_values(_DRIVER_TABLE, flat)
+    outside = _outside_driver_table(flat)
     if outside.size:  # beyond the table (or NaN): the exact forms
-        on_axis[outside], seed_factor[outside], growth_factor[outside] = _driver_factors_exact(flat[outside])
-    return tuple(x.reshape(shape)[()] for x in (on_axis, seed_factor, growth_factor))  # type: ignore[return-value]
+        for factor, exact in zip(factors, _driver_factors_exact(flat[outside]), strict=True):
+            factor[outside] = exact
+    return tuple(x.reshape(shape)[()] for x in factors)  # type: ignore[return-value]
+
+
+def driver_on_axis_factor(u: ArrayLike) -> np.ndarray:
+    """(k_p sigma_r)^2 R(a) alone, as driver_slice_factors gives it (the same table rows, the same arithmetic)."""
+    flat, shape = _flat(u)
+    (on_axis,) = _driver_table_values(_ON_AXIS_TABLE, flat)
+    outside = _outside_driver_table(flat)
+    if outside.size:
+        on_axis[outside] = flat[outside] * gaussian_on_axis_factor(0.5 * flat[outside])
+    return on_axis.reshape(shape)[()]
+
+
+_ON_AXIS_TABLE = np.ascontiguousarray(_DRIVER_TABLE[:, :4])  # the first function's coefficient rows
+
+
+def _driver_table_values(table: np.ndarray, flat: np.ndarray) -> list[np.ndarray]:
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return cubic_values(table, (np.log(flat) - _LN_U0) * (1.0 / _DRIVER_TABLE_STEP))
+
+
+def _outside_driver_table(flat: np.ndarray) -> np.ndarray:
+    """Indices of u beyond the table or NaN; two reductions where there is none (NaN fails both)."""
+    if flat.size and flat.min() >= _DRIVER_TABLE_U[0] and flat.max() <= _DRIVER_TABLE_U[1]:
+        return np.empty(0, dtype=np.intp)
+    return np.flatnonzero(~((flat >= _DRIVER_TABLE_U[0]) & (flat <= _DRIVER_TABLE_U[1])))

@@ -42,8 +42,9 @@ def gaussian_profile_integrals(upper: ArrayLike, lower: ArrayLike, sigma_z: Arra
     b = np.asarray(lower, dtype=float) / sigma_z
     # Phi(a) - Phi(b) = Phi(-b) - Phi(-a): t = +1 in the upper tail, -1 in the lower one
     t = np.copysign(1.0, a + b)
-    cdf_a = special.ndtr(-t * a)
-    cdf_b = special.ndtr(-t * b)
+    minus_t = -t
+    cdf_a = special.ndtr(minus_t * a)
+    cdf_b = special.ndtr(minus_t * b)
     scale = _SQRT_2PI * sigma_z
     between = (scale * t) * (cdf_b - cdf_a)
     # Phi(-b) = 1 - Phi(b): exact enough where b < 0, since Phi(-b) is then at least 1/2
@@ -171,10 +172,15 @@ def log_mode_modulation(log_force: ArrayLike, z: ArrayLike, efolds: ArrayLike) -
     """ln D, D(s, I, z) = s z^2 |S(I z^2)|: a mode's radius modulation, efolds = N(z) (MODEL.md section 4)."""
     z = np.asarray(z, dtype=float)
     with np.errstate(divide="ignore"):  # z = 0: no modulation yet, ln D = -inf
-        log_d = 2.0 * np.log(z)
-    log_d += log_force
-    log_d += log_series_magnitude(efolds)
-    return log_d[()]
+        log_z2 = 2.0 * np.log(z)
+    return _log_modulation(log_z2, log_force, log_series_magnitude(efolds))[()]
+
+
+def _log_modulation(log_z2: np.ndarray, log_force: ArrayLike, log_series: np.ndarray) -> np.ndarray:
+    """ln D = ln z^2 + ln s + ln|S| from its three terms, summed in that order."""
+    log_d = log_z2 + log_force
+    log_d += log_series
+    return log_d
 
 
 def efolds_at_log_target(log_target: ArrayLike) -> np.ndarray:
@@ -237,10 +243,14 @@ def growth_to_saturation(
     log_lead = np.maximum(log_seed, log_noise)
     log_lead[two] = log_seed[two]
     n_exit = efolds(i_seed, length)
-    log_delta_exit = log_mode_modulation(log_lead, length, n_exit)
+    with np.errstate(divide="ignore"):  # L = 0 (a growth curve's start): no modulation yet, ln D = -inf
+        log_l2 = 2.0 * np.log(length)
+    series_exit = log_series_magnitude(n_exit)
+    log_delta_exit = _log_modulation(log_l2, log_lead, series_exit)
     n_noise_exit = efolds(i_noise[two], length[two])
+    series_noise_exit = log_series_magnitude(n_noise_exit)
     log_delta_exit[two] = np.maximum(
-        log_delta_exit[two], log_mode_modulation(log_noise[two], length[two], n_noise_exit)
+        log_delta_exit[two], _log_modulation(log_l2[two], log_noise[two], series_noise_exit)
     )
     saturated = log_delta_exit >= log_saturation
     z_ref = length.copy()
@@ -249,16 +259,27 @@ def growth_to_saturation(
         z_ref[sat] = np.minimum(
             _saturation_distance(log_lead[sat], i_seed[sat], length[sat], n_exit[sat], log_saturation), length[sat]
         )
-        both = two[saturated[two]]
+        saturated_two = np.flatnonzero(saturated[two])
+        both = two[saturated_two]
         z_noise = _saturation_distance(
-            log_noise[both], i_noise[both], length[both], efolds(i_noise[both], length[both]), log_saturation
+            log_noise[both], i_noise[both], length[both], n_noise_exit[saturated_two], log_saturation
         )
         z_ref[both] = np.minimum(z_ref[both], z_noise)
-    with np.errstate(invalid="ignore"):  # L = 0 (a growth curve's start): no growth
-        shrink = np.cbrt((z_ref / length) ** 2)  # N ~ z^{2/3}
+    # N ~ z^{2/3}: only rows whose z_ref moved from L shrink (elsewhere the factor is exactly 1)
+    with np.errstate(invalid="ignore"):  # L = 0: z_ref/L is NaN, and so is N
+        ratio = z_ref / length
+        moved = np.flatnonzero(ratio != 1.0)
+        shrink = np.ones_like(ratio)
+        shrink[moved] = np.cbrt(ratio[moved] ** 2)
     n_seed_ref = n_exit * shrink
     seed_over_noise = log_seed - log_noise  # ln(s_seed/s_noise): exact where the couplings are the same
-    seed_over_noise[two] += log_series_magnitude(n_seed_ref[two]) - log_series_magnitude(n_noise_exit * shrink[two])
+    # ... and where not, the series at z_ref: those at the exit where z_ref is L
+    series_seed_ref = series_exit[two]
+    series_noise_ref = series_noise_exit.copy()
+    moved_two = np.flatnonzero(shrink[two] != 1.0)
+    series_seed_ref[moved_two] = log_series_magnitude(n_seed_ref[two[moved_two]])
+    series_noise_ref[moved_two] = log_series_magnitude(n_noise_exit[moved_two] * shrink[two[moved_two]])
+    seed_over_noise[two] += series_seed_ref - series_noise_ref
     return saturated, log_delta_exit, z_ref, n_exit, n_seed_ref, seed_over_noise
 
 

@@ -299,7 +299,9 @@ def _enum_column(values: np.ndarray, choices: tuple[str, ...]) -> tuple[np.ndarr
     are none of the choices are looked at one by one, to tell absent cells from unknown ones.
     """
     if values.dtype.kind == "U":
-        return values, values == "", codes_of(values, choices)
+        code = codes_of(values, choices)
+        absent = values == "" if (code < 0).any() else np.zeros(values.shape, bool)  # only an unknown cell can be ""
+        return values, absent, code
     cells = values if values.dtype.kind == "O" else values.astype(object)
     text = cells.astype(str)
     code = codes_of(text, choices)
@@ -369,7 +371,7 @@ def _check_columns(
     for f in INPUT_FIELDS:
         raw = columns.get(f.path)
         if raw is None:
-            values = np.full(n, "" if f.kind == "enum" else np.nan)
+            values = np.full(n, "") if f.kind == "enum" else np.empty(0)  # a float column absent: filled below
         else:
             values = np.asarray(raw)
             if values.ndim == 0:
@@ -441,14 +443,22 @@ def _check_columns(
     if "driver.species" not in codes or "seed.method" not in codes:  # a column of the wrong length
         return clean, codes, problems
     species, method = codes["driver.species"], codes["seed.method"]
-    needs = {
+    need_rules = {
         "species=ion": lambda: species == _ION,
         "seeded": lambda: (method >= 0) & (method != _UNSEEDED),
         "seed=electron_bunch": lambda: method == _ELECTRON_BUNCH,
     }
+    need_masks: dict[str, np.ndarray] = {}
+
+    def needs(condition: str) -> np.ndarray:
+        """The rows where a field needed for `condition` must be present (each mask built once)."""
+        if condition not in need_masks:
+            need_masks[condition] = need_rules[condition]()
+        return need_masks[condition]
+
     for f in INPUT_FIELDS:
         if f.needed_for and f.path in absent_of:
-            report(f.path, _NEEDED_TEXT[f.needed_for], needs[f.needed_for]() & absent_of[f.path])
+            report(f.path, _NEEDED_TEXT[f.needed_for], needs(f.needed_for) & absent_of[f.path])
     if "seed.position_mm" in clean and "driver.sigma_z_mm" in clean:
         with np.errstate(invalid="ignore"):
             beyond = np.abs(clean["seed.position_mm"]) > SEED_POSITION_LIMIT_SIGMA_Z * clean["driver.sigma_z_mm"]
@@ -456,7 +466,7 @@ def _check_columns(
             report(
                 "seed.position_mm",
                 "out of range (seed position beyond 10 sigma_z of the driver)",
-                beyond & needs["seeded"](),
+                beyond & needs("seeded"),
             )
     if "plasma.gradient_pct_per_m" in clean and "plasma.length_m" in clean:
         with np.errstate(invalid="ignore"):

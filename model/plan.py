@@ -208,7 +208,7 @@ def _static_range(f: InputField) -> tuple[float, float]:
     return low, high
 
 
-def _base_status(base: PlanBase, settings: Mapping[str, Any]) -> tuple[int, dict[str, np.ndarray]]:
+def _base_status(base: PlanBase, settings: Mapping[str, Any]) -> tuple[int, Mapping[str, np.ndarray]]:
     table = evaluate_table(_variant_columns(base, {}), settings)
     return int(table["status"][0]), table
 
@@ -537,7 +537,7 @@ def _window_fields(base: PlanBase, fields: Sequence[str] | None) -> list[str]:
 
 def _evaluate_one_field_changes(
     base: PlanBase, searches: Sequence[_Search], which: np.ndarray, values: np.ndarray, settings: Mapping[str, Any]
-) -> tuple[np.ndarray, dict[str, np.ndarray]]:
+) -> tuple[np.ndarray, Mapping[str, np.ndarray]]:
     """Evaluate rows that each change one field of the base: row r sets searches[which[r]].path = values[r]."""
     overrides: dict[str, np.ndarray] = {}
     for k, search in enumerate(searches):
@@ -717,7 +717,7 @@ def nearest_nominal(
         """x = x0 (1 + y) for y of shape (points, d) (clipped to the span against rounding; the base value exactly)."""
         return np.where(y == 0.0, x0, np.clip(x0 * (1.0 + y), low, high))
 
-    def nominal_at(y: np.ndarray) -> tuple[np.ndarray, dict[str, np.ndarray]]:
+    def nominal_at(y: np.ndarray) -> tuple[np.ndarray, Mapping[str, np.ndarray]]:
         """Nominal and inside the span, for points y of shape (points, d)."""
         slack = 1e-12 * (1.0 + np.abs(y))
         in_span = np.all((y >= y_low - slack) & (y <= y_high + slack), axis=1)

@@ -28,10 +28,15 @@ def driver_mass_and_charge(
     """Driver mass M [kg] and charge number Z of a species (name or SPECIES index) (MODEL.md section 2)."""
     species = np.asarray(species)
     code = species if species.dtype.kind in "iu" else codes_of(species, SPECIES)
-    ion = code == _ION
-    mass = np.where(ion, np.asarray(mass_amu, dtype=float) * ATOMIC_MASS, _MASS_BY_SPECIES.take(code, mode="clip"))
-    charge = np.where(ion, np.asarray(charge_state, dtype=float), _CHARGE_BY_SPECIES.take(code, mode="clip"))
-    return mass, charge
+    # the species' own values, then the ion rows' fields (fewer passes than np.where over every row)
+    flat = np.asarray(code).reshape(-1)
+    mass = _MASS_BY_SPECIES.take(flat, mode="clip")
+    charge = _CHARGE_BY_SPECIES.take(flat, mode="clip")
+    ion = np.flatnonzero(flat == _ION)
+    if ion.size:
+        mass[ion] = np.broadcast_to(np.asarray(mass_amu, dtype=float), np.shape(code)).reshape(-1)[ion] * ATOMIC_MASS
+        charge[ion] = np.broadcast_to(np.asarray(charge_state, dtype=float), np.shape(code)).reshape(-1)[ion]
+    return mass.reshape(np.shape(code)), charge.reshape(np.shape(code))
 
 
 def cut_field_per_density(kp: ArrayLike, charge_number: ArrayLike, on_axis_factor: ArrayLike) -> np.ndarray:

@@ -86,7 +86,7 @@ def _rows(columns: Mapping[str, np.ndarray], rows: slice | np.ndarray) -> dict[s
 
 def evaluate_where_valid(
     columns: Mapping[str, Any], settings: Mapping[str, Any] | None = None
-) -> tuple[np.ndarray, dict[str, np.ndarray]]:
+) -> tuple[np.ndarray, Mapping[str, np.ndarray]]:
     """evaluate_table on the rows the model accepts: (valid mask, table); a refused row has NaN outputs,
     status INVALID_STATUS and flag ranks 0 (MODEL.md sections 1-7).
 

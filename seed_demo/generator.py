@@ -401,7 +401,7 @@ def _truth_columns(shots: Sequence[_Shot]) -> dict[str, np.ndarray]:
 def _evaluate_truth(shots: Sequence[_Shot]) -> dict[str, np.ndarray]:
     """The model's outputs for the true machine, its reference frequency, wavenumbers and phase sensitivities."""
     columns = _truth_columns(shots)
-    truth = model.evaluate_table(columns)
+    truth = dict(model.evaluate_table(columns))  # extended below with the truths the pages compare against
     # The halo and witness truths are set on the project proxies as the campaign evaluates them (the
     # logged density, density_scale 1), so the scaling checks find exactly the exponent put here.
     logged = model.evaluate_table({**columns, _DENSITY: np.array([s.plasma["density_cm3"] for s in shots])})

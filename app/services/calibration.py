@@ -9,6 +9,7 @@ calibrate`` take what they show from the same result.
 
 from __future__ import annotations
 
+import json
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, time, timedelta
@@ -25,10 +26,11 @@ from app.plain import finite_or_none
 from app.presentation.numbers import format_number
 from app.services.campaign_settings import change_settings
 from app.services.campaigns import effective_settings, require_campaign
+from app.services.export_table import NOT_EVALUATED, ShotTable
 from app.services.phase_spread import JITTER_SOURCES, derivative_sample, phase_jitter, typical_phase_derivatives
 from app.store import calibration as store
 from app.tables import Campaign
-from app.times import campaign_zone, format_utc
+from app.times import campaign_zone, epoch_seconds, format_utc
 from model import calibration as cal
 
 Progress = Callable[[int, int, str], None]  # (done, total, message)
@@ -168,6 +170,65 @@ def run_groups(tags: Sequence[str | None]) -> tuple[list[tuple[str, np.ndarray]]
     return groups, [RUN_TAG_PATHS[i] for i in sorted(paths)]
 
 
+_RUN_TAG_KEYS = tuple(path.partition(".")[::2] for path in RUN_TAG_PATHS)  # (section, key or "")
+
+
+def run_tag_values(sections: Mapping[str, Any]) -> list[Any]:
+    """The values at RUN_TAG_PATHS of a shot's other top-level sections (None where absent or where
+    the section is no object), as ``store.read_shots`` extracts them from the raw payload."""
+    values = []
+    for top, key in _RUN_TAG_KEYS:
+        value = sections.get(top)
+        values.append((value.get(key) if isinstance(value, dict) else None) if key else value)
+    return values
+
+
+def _run_tag_texts(every_sections: Sequence[Mapping[str, Any]]) -> list[str]:
+    """``_json_array(run_tag_values(...))`` of each shot, encoded once per distinct tuple of texts and
+    nulls (other values are encoded each time: 7, 7.0 and True are equal keys, and different tags)."""
+    texts: dict[tuple[Any, ...], str] = {}
+    out = []
+    for sections in every_sections:
+        values = run_tag_values(sections)
+        if not all(v is None or type(v) is str for v in values):
+            out.append(_json_array(values))
+            continue
+        key = tuple(values)
+        text = texts.get(key)
+        if text is None:
+            text = texts[key] = _json_array(values)
+        out.append(text)
+    return out
+
+
+def _json_array(values: list[Any]) -> str:
+    try:
+        return orjson.dumps(values).decode()
+    except TypeError:  # an integer beyond 64 bits
+        return json.dumps(values, ensure_ascii=False, separators=(",", ":"))
+
+
+def shot_columns(table: ShotTable, settings_version: int) -> store.ShotColumns:
+    """``store.read_shots``' columns (the evaluated shots, SHOT_INPUTS and CALIBRATION_OUTPUTS) and every
+    input of a table read already (the weekly summary's week), the same values as read from the database."""
+    evaluated = np.flatnonzero(table.status != NOT_EVALUATED)  # read_shots joins the evaluations
+    picks = evaluated.tolist()
+    current = [
+        table.settings_version[i] == settings_version and table.model_version[i] == model.MODEL_VERSION for i in picks
+    ]
+    values = {path: table.inputs[path][evaluated] for path in SHOT_INPUTS}
+    values |= {name: table.outputs[name][evaluated] for name in store.CALIBRATION_OUTPUTS}
+    return store.ShotColumns(
+        pk=table.shot_pk[evaluated],
+        shot_id=[table.shot_id[i] for i in picks],
+        taken_at=epoch_seconds([table.taken_at[i] for i in picks]),
+        current=np.array(current, dtype=bool).reshape(-1),
+        run_tags=_run_tag_texts([table.extras[i] for i in picks]),
+        values=values,
+        every_input={path: column[evaluated] for path, column in table.inputs.items()},
+    )
+
+
 def _spread(values: Mapping[str, np.ndarray], at: np.ndarray, n: int) -> dict[str, np.ndarray]:
     """Columns of n shots holding ``values`` at the indices ``at`` (NaN, or None for text, elsewhere)."""
     out: dict[str, np.ndarray] = {}
@@ -186,26 +247,31 @@ def measure(
     progress: Progress | None = None,
     *,
     drivers: bool = True,
+    week: ShotTable | None = None,
 ) -> Calibration:
     """Everything the model-against-measurement answer shows, for shots taken in [start, end)
-    (without the driver ranking when not ``drivers``)."""
+    (without the driver ranking when not ``drivers``); ``week``: those shots already read with
+    every input (the weekly summary's table), so that nothing is read again."""
     if start is not None and end is not None and end <= start:
         raise InvalidInput([("to", "must be later than from")])
     campaign = require_campaign(session, slug)
     settings = effective_settings(campaign)
     applied = float(settings["density_scale"])
-    total = store.count_calibration_rows(session, campaign.id, start, end) if progress is not None else 0
-    shots = store.read_shots(
-        session,
-        campaign.id,
-        start,
-        end,
-        inputs=SHOT_INPUTS,
-        settings_version=campaign.settings_version,
-        model_version=model.MODEL_VERSION,
-        run_tag_paths=RUN_TAG_PATHS,
-        on_rows=(lambda done: progress(done, total, "reading shots")) if progress is not None else None,
-    )
+    if week is not None:
+        shots = shot_columns(week, campaign.settings_version)
+    else:
+        total = store.count_calibration_rows(session, campaign.id, start, end) if progress is not None else 0
+        shots = store.read_shots(
+            session,
+            campaign.id,
+            start,
+            end,
+            inputs=SHOT_INPUTS,
+            settings_version=campaign.settings_version,
+            model_version=model.MODEL_VERSION,
+            run_tag_paths=RUN_TAG_PATHS,
+            on_rows=(lambda done: progress(done, total, "reading shots")) if progress is not None else None,
+        )
     n = len(shots.shot_id)
     result = Calibration(campaign, start, end, applied, n)
     result.shot_ids, result.taken_at = shots.shot_id, shots.taken_at
@@ -229,7 +295,7 @@ def measure(
     outcomes = {**{p: values[p] for p in MEASURED_DIAGNOSTICS}, "efolds_exit": values["efolds_exit"]}
     samples = [cal.driver_sample(outcomes[name]) for name in DRIVER_OUTCOMES] if drivers else []
     wanted = np.unique(np.concatenate([rerun, phase_sample, *samples]).astype(np.int64))
-    inputs = _spread(store.read_inputs(session, shots.pk[wanted]), wanted, n)
+    inputs = _spread(shots.inputs_at(session, wanted), wanted, n)
     if rerun.size:
         subset = {path: column[rerun] for path, column in inputs.items()}
         ratios[rerun] = cal.density_scale_ratios(subset, overrides)
@@ -533,10 +599,13 @@ def parse_instant(text: str | None, name: str) -> datetime | None:
     return moment
 
 
-def week_figures(session: Session, slug: str, start: datetime, end: datetime) -> dict[str, Any]:
+def week_figures(
+    session: Session, slug: str, start: datetime, end: datetime, week: ShotTable | None = None
+) -> dict[str, Any]:
     """The weekly summary's part: the week's density scale with its interval, the changes found in
-    the week and the scaling exponents (the API's fields, without drivers and shot lists)."""
-    full = answer(measure(session, slug, start, end, drivers=False))
+    the week and the scaling exponents (the API's fields, without drivers and shot lists); ``week``:
+    the week's shots read already, with every input (``measure``)."""
+    full = answer(measure(session, slug, start, end, drivers=False, week=week))
     return {
         "density_scale": full["density_scale"],
         "applied_density_scale": full["applied_density_scale"],

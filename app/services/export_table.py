@@ -20,7 +20,7 @@ shot; everything else is what wakeledger derived.
 from __future__ import annotations
 
 import json
-from collections.abc import Iterable, Iterator, Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
 from functools import cached_property
@@ -28,6 +28,7 @@ from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
+import orjson
 
 import model
 from app.plain import float_list
@@ -251,8 +252,8 @@ class ShotTable:
         return {name: [row.get(name) for row in flat] for name in names}
 
 
-def _input_cells(table: ShotTable, path: str) -> list[Any]:
-    values = table.inputs[path]
+def _input_cells(values: np.ndarray, path: str) -> list[Any]:
+    """An input's values as JSON and CSV cells: text ("" for none), integers, floats (None for none)."""
     if path in TEXT_INPUTS:
         return ["" if v is None else str(v) for v in values.tolist()]
     cells = float_list(values)
@@ -264,7 +265,7 @@ def _input_cells(table: ShotTable, path: str) -> list[Any]:
 def _input_csv_cells(table: ShotTable, path: str) -> list[Any] | np.ndarray:
     """An input's CSV cells: a float input as its array (formatted in one go by the CSV writer)."""
     if path in TEXT_INPUTS or path in INTEGER_INPUTS:
-        return _input_cells(table, path)
+        return _input_cells(table.inputs[path], path)
     return table.inputs[path]
 
 
@@ -320,47 +321,145 @@ def csv_columns(
     return columns
 
 
-def records(table: ShotTable) -> Iterator[dict[str, Any]]:
-    """One JSON object per shot: inputs nested by section, the evaluation as the shot API
-    shows it, and the shot's other sections verbatim."""
-    sections: dict[str, list[tuple[str, list[Any]]]] = {}
-    for path in INPUT_PATHS:
-        group, name = path.split(".", 1)
-        sections.setdefault(group, []).append((name, _input_cells(table, path)))
-    n = len(table)
-    # Per group: its field names and one tuple of values per shot (dict(zip()) is the
-    # fastest way to build 10,000 small dicts).
-    groups = [
-        (group, [name for name, _ in fields], list(zip(*(cells for _, cells in fields), strict=True)) or [()] * n)
-        for group, fields in sections.items()
+# --- JSON: one object per shot --------------------------------------------------------------------
+# Written column by column, not as 10,000 dicts handed to the encoder: each column's values are
+# encoded at once (orjson; numbers hold no comma, so one array's text splits into its values) and
+# every shot's object is one fill of a template holding the keys. The bytes are orjson's for the
+# record below (the encoder gives a value the same text alone as inside a container):
+#
+#   {"shot_id", "taken_at" (UTC), "revision", "notes", "tags",
+#    the inputs nested by section ("plasma": {"density_cm3": ...}, text inputs "" for none),
+#    "evaluation": null, or the outputs then "status", "flags" ([{"code", "severity", "value", "limit",
+#                  "message"}], as ShotFlags.dicts), "model_version", "settings_version",
+#    then the shot's other sections verbatim, except one named like a key above}
+
+INPUT_GROUPS: tuple[tuple[str, tuple[tuple[str, str], ...]], ...] = tuple(
+    (group, tuple((path.split(".", 1)[1], path) for path in INPUT_PATHS if path.split(".", 1)[0] == group))
+    for group in dict.fromkeys(path.split(".", 1)[0] for path in INPUT_PATHS)
+)
+RECORD_KEYS = frozenset(
+    ("shot_id", "taken_at", "revision", "notes", "tags", "evaluation", *(g for g, _ in INPUT_GROUPS))
+)
+
+
+def _fields(pairs: Sequence[bytes]) -> bytes:
+    """``"key":%b`` for each JSON key, comma-separated (a template's slots)."""
+    return b",".join(orjson.dumps(key.decode()) + b":%b" for key in pairs)
+
+
+_RECORD = (
+    b"{"
+    + _fields([b"shot_id", b"taken_at", b"revision", b"notes", b"tags"])
+    + b"".join(
+        b"," + orjson.dumps(group) + b":{" + _fields([name.encode() for name, _ in fields]) + b"}"
+        for group, fields in INPUT_GROUPS
+    )
+    + b',"evaluation":%b%b}'  # the last slot: the other sections, each after a comma
+)
+_EVALUATION = (
+    b"{"
+    + _fields([*(name.encode() for name in EVALUATION_OUTPUT_COLUMNS), b"status", b"flags"])
+    + b","
+    + _fields([b"model_version", b"settings_version"])
+    + b"}"
+)
+_FLAG = b"{" + _fields([b"code", b"severity", b"value", b"limit", b"message"]) + b"}"
+
+
+def _numbers_json(values: list[Any]) -> list[bytes]:
+    """Each number's (or None's) JSON text, from one call of the encoder."""
+    return orjson.dumps(values)[1:-1].split(b",") if values else []
+
+
+def _texts_json(values: Sequence[Any]) -> list[bytes]:
+    """Each value's JSON text (texts, lists of texts, None)."""
+    return [orjson.dumps(v) for v in values]
+
+
+def _repeated_json(values: Sequence[Any]) -> list[bytes]:
+    """Each value's JSON text, encoded once per distinct value (statuses, codes, messages, notes)."""
+    seen: dict[Any, bytes] = {}
+    return [seen[v] if v in seen else seen.setdefault(v, orjson.dumps(v)) for v in values]
+
+
+def _tags_json(tags: Sequence[list[str]]) -> list[bytes]:
+    """Each shot's tags as a JSON array, encoded once per distinct list (most shots share a few)."""
+    seen: dict[tuple[str, ...], bytes] = {}
+    out = []
+    for t in tags:
+        key = tuple(t)
+        text = seen.get(key)
+        if text is None:
+            text = seen[key] = orjson.dumps(t)
+        out.append(text)
+    return out
+
+
+def _object_json(value: dict[str, Any]) -> bytes:
+    """Another section's values as orjson writes them; the standard encoder for what orjson refuses
+    (an integer beyond 64 bits), the same values."""
+    try:
+        return orjson.dumps(value)
+    except TypeError:
+        return json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":")).encode("utf-8")
+
+
+def _input_json(table: ShotTable, path: str, rows: slice) -> list[bytes]:
+    cells = _input_cells(table.inputs[path][rows], path)
+    return _repeated_json(cells) if path in TEXT_INPUTS else _numbers_json(cells)
+
+
+def _flags_json(table: ShotTable, rows: slice) -> list[bytes]:
+    """Each shot's flags as one JSON array."""
+    bounds = table.flags.start[rows.start : rows.stop + 1].tolist()
+    if not bounds:
+        return []
+    c, first, last = table.flags.columns, bounds[0], bounds[-1]
+    flags = [
+        _FLAG % fields
+        for fields in zip(
+            _repeated_json(c.code[first:last]),
+            _repeated_json(c.severity[first:last]),
+            _numbers_json(float_list(c.value[first:last])),
+            _numbers_json(float_list(c.limit[first:last])),
+            _repeated_json(c.message[first:last]),
+            strict=True,
+        )
     ]
-    output_names = list(EVALUATION_OUTPUT_COLUMNS)
-    output_rows = list(zip(*(float_list(table.outputs[name]) for name in output_names), strict=True)) or [()] * n
-    status = table.status.tolist()
-    flags = table.flags.dicts
-    taken_at = utc_texts(table.taken_at)
-    for i in range(n):
-        record: dict[str, Any] = {
-            "shot_id": table.shot_id[i],
-            "taken_at": taken_at[i],
-            "revision": table.revision[i],
-            "notes": table.notes[i],
-            "tags": table.tags[i],
-        }
-        for group, names, rows in groups:
-            record[group] = dict(zip(names, rows[i], strict=True))
-        if status[i] == NOT_EVALUATED:
-            record["evaluation"] = None
-        else:
-            evaluation = dict(zip(output_names, output_rows[i], strict=True))
-            evaluation["status"] = status[i]
-            evaluation["flags"] = flags[i]
-            evaluation["model_version"] = table.model_version[i]
-            evaluation["settings_version"] = table.settings_version[i]
-            record["evaluation"] = evaluation
-        for key, value in table.extras[i].items():
-            record.setdefault(key, value)
-        yield record
+    return [b"[" + b",".join(flags[a - first : b - first]) + b"]" for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
+
+
+def _others_json(sections: dict[str, Any]) -> bytes:
+    kept = {k: v for k, v in sections.items() if k not in RECORD_KEYS}
+    return b"," + _object_json(kept)[1:-1] if kept else b""
+
+
+def record_json(table: ShotTable, rows: slice) -> list[bytes]:
+    """The JSON object of each shot in ``rows`` (a slice with start and stop within the table)."""
+    evaluated = [s != NOT_EVALUATED for s in table.status[rows].tolist()]
+    evaluations = [
+        _EVALUATION % tuple(fields) if done else b"null"
+        for done, *fields in zip(
+            evaluated,
+            *(_numbers_json(float_list(table.outputs[name][rows])) for name in EVALUATION_OUTPUT_COLUMNS),
+            _repeated_json(table.status[rows].tolist()),
+            _flags_json(table, rows),
+            _repeated_json(table.model_version[rows]),
+            _numbers_json(table.settings_version[rows]),
+            strict=True,
+        )
+    ]
+    columns = [
+        _texts_json(table.shot_id[rows]),
+        _texts_json(utc_texts(table.taken_at[rows])),
+        _numbers_json(table.revision[rows]),
+        _repeated_json(table.notes[rows]),
+        _tags_json(table.tags[rows]),
+        *(_input_json(table, path, rows) for _group, fields in INPUT_GROUPS for _name, path in fields),
+        evaluations,
+        [_others_json(sections) for sections in table.extras[rows]],
+    ]
+    return [_RECORD % fields for fields in zip(*columns, strict=True)]
 
 
 def units_document() -> dict[str, str]:

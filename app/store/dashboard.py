@@ -22,6 +22,7 @@ from sqlalchemy import (
     func,
     or_,
     select,
+    type_coerce,
 )
 from sqlalchemy.orm import Session
 
@@ -72,11 +73,18 @@ def campaigns_with_status_counts(session: Session) -> list[tuple[Campaign, dict[
 # ------------------------------------------------------------------------------ counts
 
 
-def status_counts(session: Session, campaign_id: int) -> dict[str, int]:
+def status_counts(
+    session: Session, campaign_id: int, *, upto_pk: int | None = None, after_pk: int | None = None
+) -> dict[str, int]:
+    """Counted shots by status (stored up to ``upto_pk``; with ``after_pk``, only those stored after it)."""
     counts = dict.fromkeys(STATUSES, 0)
     rows = session.execute(
         select(Evaluation.status, func.count())
-        .where(Evaluation.campaign_id == campaign_id, *counted(Evaluation.shot_pk, campaign_id))
+        .where(
+            _of_campaign(Evaluation.campaign_id, campaign_id, after_pk),
+            *counted(Evaluation.shot_pk, campaign_id),
+            *_upto(upto_pk, after_pk),
+        )
         .group_by(Evaluation.status)
     )
     for status, n in rows:
@@ -91,10 +99,16 @@ class FlagCount:
     shots: int
 
 
-def flag_counts(session: Session, campaign_id: int) -> list[FlagCount]:
+def flag_counts(
+    session: Session, campaign_id: int, *, upto_pk: int | None = None, after_pk: int | None = None
+) -> list[FlagCount]:
+    """Counted shots by flag code and severity (as status_counts)."""
+    keys = [] if upto_pk is None else [Flag.shot_pk <= upto_pk]
+    if after_pk is not None:
+        keys.append(Flag.shot_pk > after_pk)
     rows = session.execute(
         select(Flag.code, Flag.severity, func.count())
-        .where(Flag.campaign_id == campaign_id, *counted(Flag.shot_pk, campaign_id))
+        .where(_of_campaign(Flag.campaign_id, campaign_id, after_pk), *counted(Flag.shot_pk, campaign_id), *keys)
         .group_by(Flag.code, Flag.severity)
         .order_by(Flag.code, Flag.severity)
     )
@@ -116,15 +130,49 @@ def latest_shot_pk(session: Session, campaign_id: int) -> int:
     return session.scalar(stmt) or 0
 
 
-def change_marks(session: Session, campaign_id: int) -> tuple[int, int, tuple[tuple[str, int], ...]]:
+UNFINISHED_JOB_STATES = ("queued", "running")
+
+Marks = tuple[int, int, tuple[tuple[str, str, str, int], ...]]
+
+
+def change_marks(session: Session, campaign: Campaign) -> Marks:
     """What moves whenever the campaign's counts may change, from three index seeks: its
-    latest shot id, the latest audited write anywhere (corrections, settings, exclusions),
-    and the progress of its running jobs (a re-evaluation rewrites statuses as it goes)."""
-    latest_audit = session.scalar(select(AuditEntry.id).order_by(AuditEntry.id.desc()).limit(1)) or 0
-    running = session.execute(
-        select(Job.id, Job.done).where(Job.state == "running", Job.campaign_id == campaign_id).order_by(Job.id)
+    latest shot id, its latest audited write (ingests, corrections, settings, exclusions:
+    each is written under the campaign's writer lock, so its entries become visible in the
+    order of their ids), and its queued and running jobs with their progress (a
+    re-evaluation rewrites statuses as it goes; a queued one is listed too, so that its end
+    moves the marks even when no read fell while it ran)."""
+    latest_audit = (
+        session.scalar(
+            select(AuditEntry.id)
+            .where(AuditEntry.campaign_slug == campaign.slug)
+            .order_by(AuditEntry.id.desc())
+            .limit(1)
+        )
+        or 0
+    )
+    unfinished = session.execute(
+        select(Job.id, Job.kind, Job.state, Job.done)
+        .where(Job.state.in_(UNFINISHED_JOB_STATES), Job.campaign_id == campaign.id)
+        .order_by(Job.id)
     ).all()
-    return latest_shot_pk(session, campaign_id), latest_audit, tuple((str(i), int(d or 0)) for i, d in running)
+    return (
+        latest_shot_pk(session, campaign.id),
+        latest_audit,
+        tuple((str(i), kind, state, int(d or 0)) for i, kind, state, d in unfinished),
+    )
+
+
+def audit_actions_between(session: Session, campaign: Campaign, after_id: int, upto_id: int) -> set[str]:
+    """The actions of the campaign's audit entries after ``after_id`` up to ``upto_id``."""
+    if upto_id <= after_id:
+        return set()
+    stmt = (
+        select(AuditEntry.action)
+        .where(AuditEntry.campaign_slug == campaign.slug, AuditEntry.id > after_id, AuditEntry.id <= upto_id)
+        .distinct()
+    )
+    return set(session.scalars(stmt))
 
 
 def excluded_count(session: Session, campaign_id: int) -> int:
@@ -154,7 +202,14 @@ class Series:
         return len(next(iter(self.columns.values()), []))
 
 
-def _evaluated(campaign_id: int) -> Select[Any]:
+def _of_campaign(key: Any, campaign_id: int, after_pk: int | None) -> ColumnElement[bool]:
+    """The campaign term of a query on ``key``'s table. Read after a shot key (a few new shots),
+    it stays off the campaign's indexes ("+ 0"): SQLite otherwise walks the campaign's whole
+    index checking the key range on each entry (15 ms a query at 100,000 shots, not 0.1 ms)."""
+    return (key + 0 if after_pk is not None else key) == campaign_id
+
+
+def _evaluated(campaign_id: int, after_pk: int | None = None) -> Select[Any]:
     # Evaluations first: their (campaign_id, status) index holds every shot key, so a status,
     # the snapshot bound and the 1-in-k thinning (shot key modulo k) are decided in the index
     # and only the shots kept are read. (With a campaign term on shots as well, SQLite walked
@@ -164,19 +219,26 @@ def _evaluated(campaign_id: int) -> Select[Any]:
         select()
         .select_from(Evaluation)
         .join(Shot, Shot.id == Evaluation.shot_pk)
-        .where(Evaluation.campaign_id == campaign_id, *counted(Evaluation.shot_pk, campaign_id))
+        .where(_of_campaign(Evaluation.campaign_id, campaign_id, after_pk), *counted(Evaluation.shot_pk, campaign_id))
     )
 
 
-def _upto(upto_pk: int | None) -> list[ColumnElement[bool]]:
+def _upto(upto_pk: int | None, after_pk: int | None = None) -> list[ColumnElement[bool]]:
     # Charts are drawn from a snapshot (shots up to the live cursor) so that live updates
-    # extend them with exactly the shots stored later.
-    return [] if upto_pk is None else [Evaluation.shot_pk <= upto_pk]
+    # extend them with exactly the shots stored later; ``after_pk`` reads only those later
+    # shots (a campaign's shot keys grow in the order its shots are stored: its writers queue).
+    out = [] if upto_pk is None else [Evaluation.shot_pk <= upto_pk]
+    return out if after_pk is None else [Evaluation.shot_pk > after_pk, *out]
 
 
 def _one_in(step: int) -> list[ColumnElement[bool]]:
     """Every step-th shot by key (none left out for 1): read from the index, no sort of the campaign."""
     return [] if step <= 1 else [Evaluation.shot_pk % step == 0]
+
+
+def thinning_step(total: int, max_points: int) -> int:
+    """k of "every k-th shot by key" that keeps at most about ``max_points`` of ``total`` shots."""
+    return -(-total // max_points) if total > max_points else 1
 
 
 def counts_with_values(
@@ -193,23 +255,28 @@ def counts_with_values_of(
     sets: Mapping[str, Sequence[ColumnElement[Any]]],
     *,
     upto_pk: int | None = None,
+    after_pk: int | None = None,
 ) -> dict[str, dict[str, int]]:
     """counts_with_values of each named set of columns, all from one pass over the campaign (at
-    100,000 shots one pass for three sets cost 100 ms of CPU, three passes 240 ms)."""
+    100,000 shots one pass for three sets cost 100 ms of CPU, three passes 240 ms); with
+    ``after_pk``, of the shots stored after it only."""
     base = (
-        _evaluated(campaign_id)
+        _evaluated(campaign_id, after_pk)
         if any(sets.values())
         else select()
         .select_from(Evaluation)
-        .where(Evaluation.campaign_id == campaign_id, *counted(Evaluation.shot_pk, campaign_id))
+        .where(_of_campaign(Evaluation.campaign_id, campaign_id, after_pk), *counted(Evaluation.shot_pk, campaign_id))
     )
     tallies = [
         func.sum(case((and_(*(c.is_not(None) for c in columns)), 1), else_=0)) if columns else func.count()
         for columns in sets.values()
     ]
     counts = {name: dict.fromkeys(STATUSES, 0) for name in sets}
-    rows = session.execute(
-        base.where(*_upto(upto_pk)).with_only_columns(Evaluation.status, *tallies).group_by(Evaluation.status)
+    rows = _plain_rows(
+        session,
+        base.where(*_upto(upto_pk, after_pk))
+        .with_only_columns(Evaluation.status, *tallies)
+        .group_by(Evaluation.status),
     )
     for status, *numbers in rows:
         for name, n in zip(sets, numbers, strict=True):
@@ -217,46 +284,65 @@ def counts_with_values_of(
     return counts
 
 
-def status_series(
+# The rows of a series carry their place in time order first: (taken_at as stored, shot key, *columns).
+SeriesRow = tuple[Any, ...]
+# taken_at as the driver gives it, for ordering only: SQLite's text sorts in time order (see
+# tables.UTCDateTime) and PostgreSQL's driver gives datetimes; turning every row's into a UTC
+# datetime cost 20-30 ms of CPU per 10,000 rows.
+_TIME_ORDER = type_coerce(Shot.taken_at, String).label("time_order")
+
+
+def series_order(row: SeriesRow) -> tuple[Any, Any]:
+    """Where a series row goes in time order (taken_at, then the shot key, as the SQL orders them)."""
+    return row[0], row[1]
+
+
+def _plain_rows(session: Session, stmt: Select[Any] | Any) -> list[tuple[Any, ...]]:
+    # Core rows from the connection: the ORM's row handling cost as much again as the read.
+    return [tuple(row) for row in session.connection().execute(stmt)]
+
+
+def status_rows(
     session: Session,
     campaign_id: int,
     status: str,
-    columns: dict[str, ColumnElement[Any]],
+    columns: Sequence[ColumnElement[Any]],
     *,
-    total: int,
-    max_points: int,
+    step: int,
     required: Sequence[ColumnElement[Any]] = (),
     upto_pk: int | None = None,
-) -> Series:
-    """Shots of one status in time order, at most ``max_points`` of them.
-
-    Past ``max_points`` every k-th shot in storage order is kept (shot id modulo k: one
-    index scan, no sort of the whole campaign), so the whole time range stays covered.
-    ``total`` is the number of shots of this status that have the ``required`` columns.
-    """
-    base = _evaluated(campaign_id).where(
-        Evaluation.status == status, *(c.is_not(None) for c in required), *_upto(upto_pk)
-    )
-    step = -(-total // max_points) if total > max_points else 1
+    after_pk: int | None = None,
+) -> list[SeriesRow]:
+    """Every ``step``-th shot by key of one status that has the ``required`` columns, in time order, as
+    (taken_at, shot key, *columns); with ``after_pk``, of the shots stored after it only."""
     stmt = (
-        base.where(*_one_in(step))
-        .with_only_columns(*(c.label(name) for name, c in columns.items()))
+        _evaluated(campaign_id, after_pk)
+        .where(
+            Evaluation.status == status,
+            *_one_in(step),  # decided in the index, before a row is read
+            *_upto(upto_pk, after_pk),
+            *(c.is_not(None) for c in required),
+        )
+        .with_only_columns(_TIME_ORDER, Shot.id, *columns)
         .order_by(Shot.taken_at, Shot.id)
     )
-    rows = session.execute(stmt).all()
-    if len(rows) > max_points:  # ids of this status were denser than average: thin evenly
+    return _plain_rows(session, stmt)
+
+
+def series_of_rows(
+    rows: Sequence[SeriesRow], names: Sequence[str], *, total: int, step: int, max_points: int
+) -> Series:
+    """The rows of status_rows as a Series of their columns ``names``, at most ``max_points`` rows: past
+    it (the kept keys of this status were denser than average) thinned evenly."""
+    if len(rows) > max_points:
         keep = (
             sorted({round(i * (len(rows) - 1) / (max_points - 1)) for i in range(max_points)})
             if max_points > 1
             else [0]
         )
         rows, step = [rows[i] for i in keep], -(-total // len(keep))
-    out: dict[str, list[Any]] = {name: [] for name in columns}
-    lists = list(out.values())
-    for row in rows:
-        for values, value in zip(lists, row, strict=False):
-            values.append(value)
-    return Series(out, total, step)
+    columns = list(zip(*rows, strict=True)) if rows else [() for _ in range(2 + len(names))]
+    return Series({name: list(values) for name, values in zip(names, columns[2:], strict=True)}, total, step)
 
 
 # --------------------------------------------------------------------------- statistics
@@ -271,6 +357,34 @@ class PhaseRows:
     sources: dict[str, list[float | None]]  # the phase-jitter sources by dotted path (density, population, ...)
     total: int  # shots with a measured phase (before thinning)
     step: int = 1
+    time_order: list[Any] = field(default_factory=list)  # taken_at as stored (series_order)
+
+
+def phase_series_rows(
+    session: Session,
+    campaign_id: int,
+    sources: Sequence[str],
+    *,
+    step: int,
+    upto_pk: int | None = None,
+    after_pk: int | None = None,
+) -> list[SeriesRow]:
+    """Every ``step``-th shot by key with a measured phase, in time order, as (taken_at, shot key,
+    phase, *sources); with ``after_pk``, of the shots stored after it only."""
+    columns = [getattr(Shot, model.column_name(path)) for path in sources]
+    phase = Shot.measured_modulation_phase_rad
+    stmt = (
+        _evaluated(campaign_id, after_pk)
+        .where(*_one_in(step), *_upto(upto_pk, after_pk), phase.is_not(None))
+        .with_only_columns(_TIME_ORDER, Shot.id, phase, *columns)
+        .order_by(Shot.taken_at, Shot.id)
+    )
+    return _plain_rows(session, stmt)
+
+
+def phase_rows_of(rows: Sequence[SeriesRow], sources: Sequence[str], *, total: int, step: int) -> PhaseRows:
+    values = [list(c) for c in zip(*rows, strict=False)] if rows else [[] for _ in range(3 + len(sources))]
+    return PhaseRows(values[1], values[2], dict(zip(sources, values[3:], strict=True)), total, step, list(values[0]))
 
 
 def phase_rows(
@@ -286,16 +400,13 @@ def phase_rows(
     have a measured phase, in taken_at order (the shot-to-shot figures compare neighbours in time),
     at most about ``max_rows`` of them (shot id modulo k past that, so the whole campaign stays
     covered). ``total``: how many shots have a measured phase, when the caller has counted them."""
-    phase = Shot.measured_modulation_phase_rad
-    base = _evaluated(campaign_id).where(phase.is_not(None), *_upto(upto_pk))
     if total is None:
+        phase = Shot.measured_modulation_phase_rad
+        base = _evaluated(campaign_id).where(phase.is_not(None), *_upto(upto_pk))
         total = session.scalar(base.with_only_columns(func.count())) or 0
-    step = -(-total // max_rows) if total > max_rows else 1
-    columns = [getattr(Shot, model.column_name(path)) for path in sources]
-    stmt = base.where(*_one_in(step)).with_only_columns(Shot.id, phase, *columns).order_by(Shot.taken_at, Shot.id)
-    rows = session.execute(stmt).all()
-    values = [list(c) for c in zip(*rows, strict=False)] if rows else [[] for _ in range(2 + len(sources))]
-    return PhaseRows(values[0], values[1], dict(zip(sources, values[2:], strict=True)), total, step)
+    step = thinning_step(total, max_rows)
+    rows = phase_series_rows(session, campaign_id, sources, step=step, upto_pk=upto_pk)
+    return phase_rows_of(rows, sources, total=total, step=step)
 
 
 def taken_at_of(session: Session, shot_pks: Sequence[int]) -> dict[int, datetime]:
@@ -306,20 +417,27 @@ def taken_at_of(session: Session, shot_pks: Sequence[int]) -> dict[int, datetime
     return {pk: as_utc(t) for pk, t in rows}
 
 
+def density_offsets_read(
+    session: Session, campaign_id: int, *, step: int, upto_pk: int | None = None, after_pk: int | None = None
+) -> list[float]:
+    """Implied/set density − 1 of every ``step``-th shot by key with an implied density (decided in
+    the index, before a row is read: no sort); with ``after_pk``, of the shots stored after it only."""
+    ratio = Evaluation.implied_density_cm3 / Shot.plasma_density_cm3 - 1.0
+    stmt = (
+        _evaluated(campaign_id, after_pk)
+        .where(*_one_in(step), *_upto(upto_pk, after_pk), Evaluation.implied_density_cm3.is_not(None))
+        .with_only_columns(ratio)
+    )
+    return [float(v) for (v,) in _plain_rows(session, stmt) if v is not None]
+
+
 def density_offsets(
     session: Session, campaign_id: int, total: int, *, max_rows: int, upto_pk: int | None = None
 ) -> tuple[list[float], int]:
     """Implied/set density − 1 of the shots with an implied density (``total`` of them, counted
-    by the caller), at most about ``max_rows`` of them (every k-th by shot key past that: read
-    from the index, no sort), and k."""
-    ratio = Evaluation.implied_density_cm3 / Shot.plasma_density_cm3 - 1.0
-    step = -(-total // max_rows) if total > max_rows else 1
-    stmt = (
-        _evaluated(campaign_id)
-        .where(Evaluation.implied_density_cm3.is_not(None), *_upto(upto_pk), *_one_in(step))
-        .with_only_columns(ratio)
-    )
-    return [float(v) for v in session.scalars(stmt) if v is not None], step
+    by the caller), at most about ``max_rows`` of them (every k-th by shot key past that), and k."""
+    step = thinning_step(total, max_rows)
+    return density_offsets_read(session, campaign_id, step=step, upto_pk=upto_pk), step
 
 
 # ------------------------------------------------------------------------------- table

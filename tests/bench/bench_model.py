@@ -6,7 +6,8 @@
 What it measures, on the same invented shots throughout (all species, all three seed methods,
 gradients, a third with a measured frequency, slow drivers and small-N corners: fronts far
 ahead of the centre, electron seeds far behind it):
-- evaluate_table on --shots shots: shots/s from the best of --repeats runs, wall and CPU time; and the same
+- evaluate_table on --shots shots: shots/s from the best of --repeats runs, wall and CPU time; the same with every
+  column of the table built and read (dict(table): the flag values and limits are built when first read), and
   with the two text columns as Python objects, as the ingest path builds them from JSON;
 - a loop of evaluate_shot over the first --loop of those shots: shots/s and the table's speed-up;
 - that the table and the loop agree on those shots (every output, status and flag; it stops if not);
@@ -25,7 +26,7 @@ import subprocess
 import sys
 import tempfile
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from pathlib import Path
 
 import numpy as np
@@ -120,11 +121,15 @@ def timed(repeats: int, fn: Callable[[], object]) -> tuple[float, float, object]
     return best_wall, best_cpu, result
 
 
-def measure_table(columns: dict[str, np.ndarray], repeats: int) -> tuple[float, float]:
+def measure_table(columns: dict[str, np.ndarray], repeats: int, every_column: bool = False) -> tuple[float, float]:
+    """(best wall s, best CPU s) of evaluate_table; with every_column, of building the table and all its columns."""
     from model import evaluate_table
 
     evaluate_table({k: v[:1000] for k, v in columns.items()})  # warm-up: imports, tables, caches
-    wall, cpu, _ = timed(repeats, lambda: evaluate_table(columns))
+    if every_column:
+        wall, cpu, _ = timed(repeats, lambda: dict(evaluate_table(columns)))
+    else:
+        wall, cpu, _ = timed(repeats, lambda: evaluate_table(columns))
     return wall, cpu
 
 
@@ -133,8 +138,9 @@ def with_text_as_objects(columns: dict[str, np.ndarray]) -> dict[str, np.ndarray
     return {k: v.astype(object) if v.dtype.kind == "U" else v for k, v in columns.items()}
 
 
-def check_table_equals_loop(table: dict[str, np.ndarray], shots: list[dict]) -> int:
-    """Compare every output, status and flag of the table's first rows with evaluate_shot; return the cells compared."""
+def check_table_equals_loop(table: Mapping[str, np.ndarray], shots: list[dict]) -> int:
+    """Compare every output, status, flag rank, value and limit of the table's first rows with evaluate_shot;
+    return the cells compared."""
     from model import FLAG_CODES, OUTPUT_NAMES, SEVERITY_BY_RANK, STATUSES, evaluate_shot
 
     checked = 0
@@ -146,15 +152,20 @@ def check_table_equals_loop(table: dict[str, np.ndarray], shots: list[dict]) -> 
                 raise SystemExit(f"table and loop differ at row {i}, {name}: {got!r} != {want!r}")
         if STATUSES[table["status"][i]] != one["status"]:
             raise SystemExit(f"table and loop differ at row {i}: status")
-        fired = {f["code"]: f["severity"] for f in one["flags"]}
+        fired = {f["code"]: f for f in one["flags"]}
         for code in FLAG_CODES:
-            if SEVERITY_BY_RANK[table[f"flag.{code}"][i]] != fired.get(code, ""):
+            flag = fired.get(code, {"severity": "", "value": None, "limit": None})
+            if SEVERITY_BY_RANK[table[f"flag.{code}"][i]] != flag["severity"]:
                 raise SystemExit(f"table and loop differ at row {i}: flag {code}")
-        checked += len(OUTPUT_NAMES) + 1 + len(FLAG_CODES)
+            for key in ("value", "limit"):
+                got, want = table[f"flag_{key}.{code}"][i], flag[key]
+                if not ((want is None and math.isnan(got)) or got == want):
+                    raise SystemExit(f"table and loop differ at row {i}: flag_{key}.{code} {got!r} != {want!r}")
+        checked += len(OUTPUT_NAMES) + 1 + 3 * len(FLAG_CODES)
     return checked
 
 
-def baseline_figure(checkout: Path, columns: dict[str, np.ndarray], repeats: int, objects: bool) -> tuple[float, float]:
+def baseline_figure(checkout: Path, columns: dict[str, np.ndarray], repeats: int, variant: str) -> tuple[float, float]:
     """(best wall s, best CPU s) of evaluate_table in another checkout, its own venv and model, on the same shots."""
     venv = checkout / ".venv" / "bin"
     python = venv / "python" if (venv / "wakeledger").exists() else Path(sys.executable)  # an installed .venv
@@ -172,7 +183,7 @@ def baseline_figure(checkout: Path, columns: dict[str, np.ndarray], repeats: int
             str(repeats),
         ]
         done = subprocess.run(
-            worker + (["--objects"] if objects else []),
+            worker + {"plain": [], "every-column": ["--every-column"], "objects": ["--objects"]}[variant],
             check=True,
             capture_output=True,
             text=True,
@@ -191,13 +202,16 @@ def main() -> None:
     parser.add_argument("--measure-only", type=Path, help=argparse.SUPPRESS)  # baseline worker: shots from this .npz
     parser.add_argument("--repo", type=Path, default=HERE.parents[2], help=argparse.SUPPRESS)
     parser.add_argument("--objects", action="store_true", help=argparse.SUPPRESS)  # worker: text columns as objects
+    parser.add_argument("--every-column", action="store_true", help=argparse.SUPPRESS)  # worker: dict(table)
     args = parser.parse_args()
     sys.path.insert(0, str(args.repo))
 
     if args.measure_only:  # runs inside the baseline's interpreter; the str status arrays it returns are not read
         with np.load(args.measure_only) as data:
             columns = {k: data[k] for k in data.files}
-        wall, cpu = measure_table(with_text_as_objects(columns) if args.objects else columns, args.repeats)
+        wall, cpu = measure_table(
+            with_text_as_objects(columns) if args.objects else columns, args.repeats, args.every_column
+        )
         print(json.dumps({"wall_s": wall, "cpu_s": cpu}))
         return
 
@@ -219,21 +233,28 @@ def main() -> None:
     # With a baseline the two are measured in turn, so that both see the same spells of load.
     rounds = max(1, args.rounds) if args.baseline else 1
     as_objects = with_text_as_objects(columns)
-    ours: dict[bool, list[tuple[float, float]]] = {False: [], True: []}
-    theirs: dict[bool, list[tuple[float, float]]] = {False: [], True: []}
+    variants = ("plain", "every-column", "objects")
+    ours: dict[str, list[tuple[float, float]]] = {v: [] for v in variants}
+    theirs: dict[str, list[tuple[float, float]]] = {v: [] for v in variants}
     for _ in range(rounds):
-        for objects in (False, True):
-            ours[objects].append(measure_table(as_objects if objects else columns, args.repeats))
+        for variant in variants:
+            shots_in = as_objects if variant == "objects" else columns
+            ours[variant].append(measure_table(shots_in, args.repeats, variant == "every-column"))
             if args.baseline:
-                theirs[objects].append(baseline_figure(args.baseline, columns, args.repeats, objects))
+                theirs[variant].append(baseline_figure(args.baseline, columns, args.repeats, variant))
     best = {k: (min(w for w, _ in v), min(c for _, c in v)) for k, v in ours.items()}
-    wall, cpu = best[False]
+    wall, cpu = best["plain"]
     rate = args.shots / wall
     print(
         f"evaluate_table  {args.shots:>9,d} shots: wall {wall:.4f} s, CPU {cpu:.4f} s -> {rate:12,.0f} shots/s "
         f"(CPU: {args.shots / cpu:,.0f} shots/s)"
     )
-    object_wall = best[True][0]
+    every_wall, every_cpu = best["every-column"]
+    print(
+        f"  the same with every column built and read (dict(table)): wall {every_wall:.4f} s, CPU {every_cpu:.4f} s "
+        f"-> {args.shots / every_wall:,.0f} shots/s"
+    )
+    object_wall = best["objects"][0]
     print(
         f"  the same with the text columns as objects (as ingest builds them): wall {object_wall:.4f} s "
         f"-> {args.shots / object_wall:,.0f} shots/s"
@@ -249,14 +270,22 @@ def main() -> None:
     cpu_speed_up = loop_cpu / args.loop * args.shots / cpu
     print(f"speed-up of evaluate_table over the loop: {rate / loop_rate:,.0f}x (CPU: {cpu_speed_up:,.0f}x)")
     cells = check_table_equals_loop(table, shots)
-    print(f"table and loop agree on the first {args.loop:,d} shots ({cells:,d} outputs, statuses and flags compared)")
+    print(
+        f"table and loop agree on the first {args.loop:,d} shots "
+        f"({cells:,d} outputs, statuses, flag ranks, values and limits compared)"
+    )
 
     if args.baseline:
-        base_wall, base_cpu = min(w for w, _ in theirs[False]), min(c for _, c in theirs[False])
-        base_object_wall = min(w for w, _ in theirs[True])
+        base_wall, base_cpu = min(w for w, _ in theirs["plain"]), min(c for _, c in theirs["plain"])
+        base_every_wall = min(w for w, _ in theirs["every-column"])
+        base_object_wall = min(w for w, _ in theirs["objects"])
         print(
             f"before this round ({args.baseline}): wall {base_wall:.4f} s, CPU {base_cpu:.4f} s -> "
             f"{args.shots / base_wall:12,.0f} shots/s (best of {rounds} x {args.repeats}, alternating with ours)"
+        )
+        print(
+            f"  the same with every column built and read: wall {base_every_wall:.4f} s "
+            f"-> {args.shots / base_every_wall:,.0f} shots/s"
         )
         print(
             f"  the same with the text columns as objects: wall {base_object_wall:.4f} s "
@@ -264,6 +293,7 @@ def main() -> None:
         )
         print(
             f"ratio to before this round: {base_wall / wall:.2f}x wall, {base_cpu / cpu:.2f}x CPU; "
+            f"with every column {base_every_wall / every_wall:.2f}x wall; "
             f"with the text columns as objects {base_object_wall / object_wall:.2f}x wall"
         )
 

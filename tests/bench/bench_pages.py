@@ -1,4 +1,4 @@
-"""Benchmark: the overview of a 100,000-shot campaign as a browser loads it (SQLite). Prints figures only.
+"""Benchmark: the overview of a 100,000-shot campaign as a browser loads it (SQLite or PostgreSQL). Prints figures only.
 
 Builds an invented campaign in a scratch SQLite database (inputs generated with numpy,
 evaluated by model.evaluate_table in one call, rows bulk-inserted with SQLAlchemy Core
@@ -8,7 +8,9 @@ the code before a change for the "before" figures), and measures:
 
 - the server: the overview's HTML plus every feed the page loads (the three chart feeds
   and the default regime map), one after another, with the browser's Accept-Encoding; the
-  server's CPU seconds for each, cold (the first round after start) and warm;
+  server's CPU seconds for each, cold (the first round after start: the HTML's first load
+  included) and warm; then the same round after each of a few new shots (posted through the
+  API one at a time, as on shift: each moves the campaign's change marks);
 - the steady live poll (``/live?since=<latest>``: nothing new), median of many;
 - headless Chromium (/usr/bin/chromium), a fresh profile each time (a first visit):
   the time from navigation until every chart on the page is drawn, the page's main-thread
@@ -23,6 +25,7 @@ Targets of issue 16 goal 1: every chart drawn within 2.5 s, HTML + feeds under 0
 a first visit under 2 MB, the steady poll under 20 ms.
 
     .venv/bin/python tests/bench/bench_pages.py [--shots 100000] [--repeat 5] [--repo PATH]
+        [--backend sqlite|postgresql] [--no-browser]
 """
 
 from __future__ import annotations
@@ -46,7 +49,7 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from served import Served, cpu_seconds, repo_argument  # noqa: E402
+from served import Served, cpu_seconds, repo_argument, scratch_database, worked_example  # noqa: E402
 
 CHROMIUM = Path("/usr/bin/chromium")
 TARGET_DRAWN_S = 2.5
@@ -154,12 +157,12 @@ def build_campaign(url: str, n: int) -> float:
     return time.perf_counter() - start
 
 
-def build_with(repo: Path, db: Path, n: int) -> None:
+def build_with(repo: Path, url: str, n: int) -> None:
     """Build the database with the served checkout's code (its venv, its schema)."""
     env = {**os.environ, "PYTHONPATH": str(repo)}
     t = time.perf_counter()
     subprocess.run(
-        [str(repo / ".venv" / "bin" / "python"), __file__, "--build-only", "--db", str(db), "--shots", str(n)],
+        [str(repo / ".venv" / "bin" / "python"), __file__, "--build-only", "--url", url, "--shots", str(n)],
         env=env,
         check=True,
         cwd=str(repo),
@@ -200,21 +203,33 @@ def timed_get(client, path: str) -> tuple[float, int, int]:
     return time.perf_counter() - t, len(raw), status
 
 
-def server_figures(client, repeat: int, pid: int) -> None:
-    """The first round is a cold load (nothing cached since the server started); the
-    server's CPU seconds are steadier than wall time on a shared machine."""
+def server_round(client, pid: int, feeds: list[str], rows: dict) -> tuple[float, float]:
+    """The HTML and every feed once, one after another: wall seconds and the server's CPU seconds."""
+    total, cpu = 0.0, cpu_seconds(pid)
+    for path in ["/campaigns/bench", *feeds]:
+        before = cpu_seconds(pid)
+        s, size, status = timed_get(client, path)
+        rows.setdefault(path, []).append((s, size, status, cpu_seconds(pid) - before))
+        total += s
+    return total, cpu_seconds(pid) - cpu
+
+
+def server_figures(client, repeat: int, pid: int, ingest: str) -> None:
+    """The first round is a cold load (nothing cached since the server started: its first HTML
+    is timed too); the server's CPU seconds are steadier than wall time on a shared machine."""
+    before = cpu_seconds(pid)
+    s, _size, _status = timed_get(client, "/campaigns/bench")
+    first_html = (s, cpu_seconds(pid) - before)
     html = client.get("/campaigns/bench").text
     feeds = overview_feeds(html)
     totals, cpus, rows = [], [], {}
     for _ in range(repeat):
-        total, cpu = 0.0, cpu_seconds(pid)
-        for path in ["/campaigns/bench", *feeds]:
-            before = cpu_seconds(pid)
-            s, size, status = timed_get(client, path)
-            rows.setdefault(path, []).append((s, size, status, cpu_seconds(pid) - before))
-            total += s
+        total, cpu = server_round(client, pid, feeds, rows)
         totals.append(total)
-        cpus.append(cpu_seconds(pid) - cpu)
+        cpus.append(cpu)
+    totals[0] += first_html[0] - rows["/campaigns/bench"][0][0]  # the cold round's HTML: the first load
+    cpus[0] += first_html[1] - rows["/campaigns/bench"][0][3]
+    rows["/campaigns/bench"][0] = (*rows["/campaigns/bench"][0][:3], first_html[1])
     print(f"\nserver: the overview's HTML and feeds one after another (wall: median of {repeat}; server CPU)")
     for path, results in rows.items():
         cold_cpu, warm_cpu = results[0][3], statistics.median(r[3] for r in results[1:]) if repeat > 1 else float("nan")
@@ -227,6 +242,7 @@ def server_figures(client, repeat: int, pid: int) -> None:
         f"  HTML + feeds: cold {totals[0]:.3f} s wall, {cpus[0]:.3f} s server CPU; "
         f"median {median:.3f} s wall, {statistics.median(cpus):.3f} s CPU (target < {TARGET_SERVER_S} s)"
     )
+    after_shot(client, repeat, pid, feeds, ingest)
 
     cursor = json.loads(re.search(r'id="live-config">(.*?)</script>', html, re.S).group(1))["cursor"]
     polls = []
@@ -240,6 +256,30 @@ def server_figures(client, repeat: int, pid: int) -> None:
     print(
         f"steady live poll (nothing new): median {statistics.median(polls) * 1000:.1f} ms wall, "
         f"max {max(polls) * 1000:.1f} ms, {cpu_ms:.1f} ms server CPU each (target < {TARGET_POLL_S * 1000:.0f} ms)"
+    )
+
+
+def after_shot(client, repeat: int, pid: int, feeds: list[str], ingest: str) -> None:
+    """On shift: one new shot posted, then the overview loaded (the first viewer after the shot pays)."""
+    rows: dict = {}
+    totals, cpus = [], []
+    for i in range(repeat):
+        shot = {**worked_example(0), "shot_id": f"bench-new-{i}-{time.time_ns()}"}
+        shot["taken_at"] = datetime.now(UTC).isoformat().replace("+00:00", "Z")
+        r = client.post("/api/v1/campaigns/bench/shots", json=shot, headers={"Authorization": f"Bearer {ingest}"})
+        assert r.status_code == 201, r.text
+        total, cpu = server_round(client, pid, feeds, rows)
+        totals.append(total)
+        cpus.append(cpu)
+    print(f"  after one new shot (median of {repeat} shots, each posted then the page loaded):")
+    for path, results in rows.items():
+        print(
+            f"    {path:64s} {statistics.median(r[0] for r in results):7.3f} s  "
+            f"CPU median {statistics.median(r[3] for r in results):.3f} s, max {max(r[3] for r in results):.3f} s"
+        )
+    print(
+        f"    HTML + feeds: median {statistics.median(totals):.3f} s wall, {statistics.median(cpus):.3f} s server CPU; "
+        f"max {max(cpus):.3f} s CPU (target < {TARGET_SERVER_S} s)"
     )
 
 
@@ -369,30 +409,45 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--shots", type=int, default=100_000)
     parser.add_argument("--repeat", type=int, default=5)
-    parser.add_argument("--db", type=Path, help="keep the database here and reuse it when it exists")
+    parser.add_argument("--db", type=Path, help="SQLite: keep the database here and reuse it when it exists")
+    parser.add_argument("--backend", choices=("sqlite", "postgresql"), default="sqlite")
+    parser.add_argument("--no-browser", action="store_true", help="the server's figures only")
     parser.add_argument("--build-only", action="store_true", help=argparse.SUPPRESS)
+    parser.add_argument("--url", help=argparse.SUPPRESS)
     repo_argument(parser)
     args = parser.parse_args()
     if args.build_only:  # run by build_with under the served checkout's venv
-        build_campaign(f"sqlite:///{args.db}", args.shots)
+        build_campaign(args.url, args.shots)
         return
 
     with tempfile.TemporaryDirectory() as tmp:
+        if args.backend == "postgresql":  # a scratch database, dropped afterwards
+            with scratch_database("postgresql", Path(tmp)) as url:
+                build_with(args.repo.resolve(), url, args.shots)
+                measure(args, url)
+            return
         db = args.db or Path(tmp) / "bench.db"
         if not db.exists():
-            build_with(args.repo.resolve(), db, args.shots)
-        served = Served(args.repo.resolve(), f"sqlite:///{db}")
-        print(f"serving {served.repo} ({args.shots:,} shots)")
-        served.start()
-        try:
-            token = served.token("viewer", "bench")
-            with closing(signed_in_client(served.base, token)) as client:
-                cookie = next((c.name, c.value) for c in client.cookies.jar if c.name == "wakeledger_session")
-                server_figures(client, args.repeat, served.server.pid)
+            build_with(args.repo.resolve(), f"sqlite:///{db}", args.shots)
+        measure(args, f"sqlite:///{db}")
+
+
+def measure(args, url: str) -> None:
+    served = Served(args.repo.resolve(), url)
+    print(f"serving {served.repo} ({args.shots:,} shots, {args.backend}); load average {os.getloadavg()[0]:.2f}")
+    served.start()
+    try:
+        token = served.token("viewer", "bench")
+        ingest = served.token("ingest", "bench-ingest")
+        with closing(signed_in_client(served.base, token)) as client:
+            cookie = next((c.name, c.value) for c in client.cookies.jar if c.name == "wakeledger_session")
+            server_figures(client, args.repeat, served.server.pid, ingest)
+            if not args.no_browser:
                 browser_figures(served.base, cookie, args.repeat, args.shots)
                 other_pages(client, args.shots, args.repeat)
-        finally:
-            served.stop()
+    finally:
+        served.stop()
+    print(f"load average at the end {os.getloadavg()[0]:.2f}")
 
 
 if __name__ == "__main__":

@@ -22,6 +22,8 @@ from model import (
     resolve_settings,
     validate_columns,
 )
+from model.evaluate import _CHUNK
+from model.rules import ABS_METRIC_CODES, RULES_BY_CODE
 
 EXAMPLE = {
     "driver": {
@@ -120,7 +122,7 @@ def test_table_longer_than_one_processing_chunk_equals_a_loop():
     shots = mixed_shots(n=120, seed=3)
     columns = {path: np.tile(values, 334) for path, values in to_columns(shots).items()}  # 40080 rows
     table = evaluate_table(columns)
-    for i in (0, 1, 32767, 32768, 32769, 40079):
+    for i in (0, 1, _CHUNK - 1, _CHUNK, _CHUNK + 1, 32767, 32768, 32769, 40079):
         assert_table_row_equals_shot(table, i, evaluate_shot(shots[i % 120]))
 
 
@@ -209,6 +211,52 @@ def test_validated_columns_pass_through_evaluate_table_unchecked_and_cannot_be_c
     table, again = evaluate_table(clean), evaluate_table(columns)
     for name, values in table.items():
         np.testing.assert_array_equal(values, again[name])
+
+
+def test_flag_values_and_limits_are_the_metric_and_the_limit_crossed_where_a_flag_fired_and_nan_elsewhere():
+    # issue: flag_value.<CODE> and flag_limit.<CODE> follow from the outputs and the ranks, so the table builds them
+    # only when read; whoever reads them (the store, the exports, the planner) gets the same numbers as before
+    settings = {"limits": {"WEAK_SEED": {"marginal": 6.0, "outside": 1.0}, "ASYMPTOTIC_LIMIT": {"info": 0.5}}}
+    limits = resolve_settings(settings)["limits"]
+    table = evaluate_table(to_columns(mixed_shots(n=240, seed=5)), settings)
+    for code in FLAG_CODES:
+        rank, value, limit = table[f"flag.{code}"], table[f"flag_value.{code}"], table[f"flag_limit.{code}"]
+        fired = rank > 0
+        assert value.dtype == limit.dtype == np.float64 and value.shape == rank.shape
+        assert np.isnan(value[~fired]).all() and np.isnan(limit[~fired]).all()
+        if code == "UNSEEDED":  # no metric, no limit
+            assert np.isnan(value).all() and np.isnan(limit).all()
+            continue
+        rule = RULES_BY_CODE[code]
+        metric = np.abs(table[rule.metric]) if code in ABS_METRIC_CODES else table[rule.metric]
+        np.testing.assert_array_equal(value[fired], metric[fired])
+        crossed = [
+            limits[code]["outside"] if r == 3 else limits[code].get("marginal", limits[code].get("info"))
+            for r in rank[fired]
+        ]
+        np.testing.assert_array_equal(limit[fired], np.array(crossed, dtype=float))
+        assert table[f"flag_value.{code}"] is value  # built once, then kept
+    fired_somewhere = {code for code in FLAG_CODES if table[f"flag.{code}"].any()}
+    assert {"WEAK_SEED", "UNSEEDED", "BEAM_TOO_WIDE"} <= fired_somewhere
+
+
+def test_table_is_a_read_only_mapping_with_the_keys_in_the_order_they_always_had():
+    table = evaluate_table(to_columns(mixed_shots(n=12)))
+    codes = [c for c in FLAG_CODES if c not in ("UNSEEDED", "ASYMPTOTIC_LIMIT")] + ["ASYMPTOTIC_LIMIT", "UNSEEDED"]
+    assert list(table) == [
+        *OUTPUT_NAMES,
+        *(f"flag_value.{c}" for c in codes),
+        *(f"flag_limit.{c}" for c in codes),
+        *(f"flag.{c}" for c in codes),
+        "status",
+    ]
+    assert len(table) == len(list(table)) and "flag_value.WEAK_SEED" in table and "flag_value.NOPE" not in table
+    with pytest.raises(KeyError):
+        table["flag_value.NOPE"]
+    with pytest.raises(TypeError):
+        table["status"] = np.zeros(12)  # type: ignore[index]
+    copied = dict(table)
+    assert list(copied) == list(table) and all(copied[key] is table[key] for key in table)
 
 
 def test_density_scale_is_a_model_setting_shown_with_the_others():

@@ -207,3 +207,56 @@ def test_summary_document_is_strict_json_without_nan(week_summary):
     summary, _ = week_summary
     text = json.dumps(summary_document(summary), allow_nan=False)
     assert "NaN" not in text
+
+
+# The flagged-shot sentences as the report's template wrote them before they were written in Python
+# (app.services.weekly.report.sentences_html): the reference its bytes are held to.
+TEMPLATE_SENTENCES = """{% for g in groups %}
+<div class="sentence">
+  <p>{% if g.code %}<code>{{ g.code }}</code> <span class="status {{ g.severity }}">{{ g.severity }}</span>: {{ g.message }}{% else %}<span class="note">no stored flag</span>{% endif %}
+    <span class="note">— {{ g.shots | length }} shot{{ "" if g.shots | length == 1 else "s" }}</span></p>
+  <p class="shots">{{ shot_list(g.shots, limit) }}
+  {% if g.shots | length > limit %}<span class="note">and {{ g.shots | length - limit }} more</span>{% endif %}</p>
+</div>
+{% endfor %}
+"""  # noqa: E501
+
+
+def test_the_reports_flag_sentences_are_the_markup_the_template_wrote_with_hostile_texts_escaped():
+    """Each flag sentence once with its shots, as the template wrote it, byte for byte: texts that need
+    escaping (shot ids and messages with <, &, quotes), a shot without a stored flag, a sentence with more
+    shots than the report lists, and local times across a daylight-saving change."""
+    from datetime import UTC, datetime, timedelta
+
+    import jinja2
+    from markupsafe import Markup
+
+    from app.services.weekly.report import sentence_groups, sentences_html, shot_cells
+    from app.services.weekly.summary import FlaggedShot
+    from app.store.exports import FlagRow
+    from app.times import local_text
+
+    zone = ZoneInfo("Europe/Zurich")
+    start = datetime(2026, 10, 24, 22, 30, 0, 250_000, tzinfo=UTC)  # the last Sunday of October: 03:00 -> 02:00
+    sentences = ['weak <seed> & "noise"', "it's slow", "ok"]
+    shots = []
+    for i in range(40):
+        reasons = [
+            FlagRow(i, code, "marginal" if i % 3 else "outside", None, None, sentences[(i + j) % 3])
+            for j, code in enumerate(("WEAK_SEED", "SLOW<DRIVER>")[: i % 3])
+        ]
+        when = start + timedelta(minutes=17 * i)
+        shots.append(FlaggedShot(f"s-{i}<b>&'\"" if i % 7 == 0 else f"s-{i}", when, "outside", reasons))
+    groups = sentence_groups(shots)
+    assert any(not g.code for g in groups) and max(len(g.shots) for g in groups) > 5
+
+    def shot_list(listed, limit):  # the template's shot lists, one cell per shot
+        return Markup(", ").join(
+            Markup('<code title="{}">{}</code>').format(local_text(s.taken_at, zone), s.shot_id) for s in listed[:limit]
+        )
+
+    environment = jinja2.Environment(autoescape=True, trim_blocks=True, lstrip_blocks=True)
+    for limit in (5, 500):
+        expected = environment.from_string(TEMPLATE_SENTENCES).render(groups=groups, shot_list=shot_list, limit=limit)
+        written = sentences_html(groups, shot_cells(shots, zone), limit)
+        assert str(written) + "\n" == expected

@@ -23,6 +23,7 @@ from app.presentation.charts import axis, layout, padded, robust_range, text_for
 from app.presentation.fields import field_label, short_label
 from app.presentation.numbers import format_number
 from app.presentation.palette import INK, OKABE_ITO, SEVERITY_STYLES, STATUS_STYLES, rgba
+from app.services.dashboard.feed_reads import DirectReader, Reader
 from app.services.ingest.evaluation import model_columns
 from app.services.phase_spread import (
     JITTER_SOURCES,
@@ -35,7 +36,7 @@ from app.services.phase_spread import (
 )
 from app.store import dashboard as store
 from app.store import shots as shot_store
-from app.tables import Campaign, Shot
+from app.tables import Campaign
 from app.times import campaign_zone, chart_time
 
 # Limits that keep a 100,000-shot campaign's pages small and quick.
@@ -235,31 +236,29 @@ def _series_by_status(
     flagged_points: int = FLAGGED_POINTS_CAP,
     totals: dict[str, int] | None = None,
     with_time: bool = True,
+    reader: Reader | None = None,
 ) -> list[_StatusSeries]:
     """Nominal shots thinned to ``nominal_points``; flagged shots all kept up to a cap, in time
     order (``taken_at`` among the columns unless ``with_time`` is false: a map has no time axis).
     ``totals``: the shots per status that have the ``required`` values, when already counted."""
-    wanted: dict[str, Any] = (
-        {"shot_id": Shot.shot_id, "taken_at": Shot.taken_at} if with_time else {"shot_id": Shot.shot_id}
-    )
-    wanted.update({name: store.NUMERIC_COLUMNS[name] for name in columns})
-    needed = [store.NUMERIC_COLUMNS[name] for name in required]
+    reader = _reader(session, campaign, upto_pk, reader)
+    wanted = ["shot_id", "taken_at", *columns] if with_time else ["shot_id", *columns]
     if totals is None:
-        totals = store.counts_with_values(session, campaign.id, needed, upto_pk=upto_pk)
+        totals = reader.value_counts({"": tuple(required)})[""]
     out = []
     for status in model.STATUSES:
-        series = store.status_series(
-            session,
-            campaign.id,
-            status,
-            wanted,
-            total=totals.get(status, 0),
-            max_points=nominal_points if status == "nominal" else flagged_points,
-            required=needed,
-            upto_pk=upto_pk,
-        )
+        total = totals.get(status, 0)
+        max_points = nominal_points if status == "nominal" else flagged_points
+        step = store.thinning_step(total, max_points)
+        rows = reader.series_rows(status, wanted, step=step, required=required)
+        series = store.series_of_rows(rows, wanted, total=total, step=step, max_points=max_points)
         out.append(_StatusSeries(status, series))
     return out
+
+
+def _reader(session: Session, campaign: Campaign, upto_pk: int | None, reader: Reader | None) -> Reader:
+    """The overview's cached reads when given, else the database now (up to ``upto_pk``)."""
+    return reader if reader is not None else DirectReader(session, campaign, upto_pk)
 
 
 def _series_note(item: _StatusSeries) -> str:
@@ -281,11 +280,16 @@ class _Pins:
 
     def keep(self, xs: Sequence[Any], ys: Sequence[Any]) -> list[bool]:
         """Which of these points (numbers; None for missing) lie inside both ranges."""
-        return [self._inside(x, self.x_lim) and self._inside(y, self.y_lim) for x, y in zip(xs, ys, strict=True)]
+        if len(xs) != len(ys):
+            raise ValueError("as many x as y values")
+        return (self._inside(xs, self.x_lim) & self._inside(ys, self.y_lim)).tolist()
 
     @staticmethod
-    def _inside(v: Any, lim: tuple[float, float] | None) -> bool:
-        return lim is None or v is None or lim[0] <= v <= lim[1]
+    def _inside(values: Sequence[Any], lim: tuple[float, float] | None) -> np.ndarray:
+        v = np.array(values, dtype=float)  # None becomes NaN: missing counts as inside
+        if lim is None:
+            return np.ones(len(v), dtype=bool)
+        return np.isnan(v) | ((lim[0] <= v) & (v <= lim[1]))
 
     @staticmethod
     def _clamp(v: float, lim: tuple[float, float] | None) -> tuple[float, int]:
@@ -340,7 +344,11 @@ def _epoch(moment: datetime) -> float:
 
 
 def timeline_figure(
-    session: Session, campaign: Campaign, upto_pk: int | None = None, totals: dict[str, int] | None = None
+    session: Session,
+    campaign: Campaign,
+    upto_pk: int | None = None,
+    totals: dict[str, int] | None = None,
+    reader: Reader | None = None,
 ) -> dict[str, Any]:
     """Key conditions against time, one panel each: nominal shots as a thin line, flagged shots
     marked by shape and colour, robust ranges (one wild value or date cannot flatten a panel)."""
@@ -353,6 +361,7 @@ def timeline_figure(
         upto_pk=upto_pk,
         flagged_points=TIMELINE_FLAGGED_POINTS,
         totals=totals,
+        reader=reader,
     )
     panels = len(TIMELINE_FIELDS)
     gap = 0.04
@@ -460,6 +469,7 @@ def _status_map(
     upto_pk: int | None = None,
     totals: dict[str, int] | None = None,
     cells: tuple[int, int] = WIDE_MARKER_CELLS,
+    reader: Reader | None = None,
 ) -> _StatusMap:
     """Shots by status on robust ranges (a wild value is pinned at the edge and marked); many
     nominal shots as a density, many flagged shots one marker per cell (module constants)."""
@@ -472,6 +482,7 @@ def _status_map(
         upto_pk=upto_pk,
         totals=totals,
         with_time=False,
+        reader=reader,
     )
     xs = {item.status: rounded_list(item.series.columns[x]) for item in by_status}
     ys = {item.status: rounded_list(item.series.columns[y]) for item in by_status}
@@ -552,10 +563,11 @@ def regime_figure(
     y: str,
     upto_pk: int | None = None,
     totals: dict[str, int] | None = None,
+    reader: Reader | None = None,
 ) -> dict[str, Any]:
     """Any two conditions or outputs against each other, coloured and shaped by status, on
     robust ranges: a wild value is pinned at the edge and marked, not allowed to flatten the map."""
-    scatter = _status_map(session, campaign, x, y, upto_pk=upto_pk, totals=totals)
+    scatter = _status_map(session, campaign, x, y, upto_pk=upto_pk, totals=totals, reader=reader)
     figure_layout = layout(
         height=520,
         xaxis=axis(field_label(x), exponentformat="power", **_axis_range(scatter.x_lim)),
@@ -582,16 +594,21 @@ class PhaseData:
 
 
 def phase_data(
-    session: Session, campaign: Campaign, upto_pk: int | None = None, totals: dict[str, int] | None = None
+    session: Session,
+    campaign: Campaign,
+    upto_pk: int | None = None,
+    totals: dict[str, int] | None = None,
+    reader: Reader | None = None,
 ) -> PhaseData:
     """The shots with a measured phase: counted by status (the chart's legend; their sum is the
     figures' count; ``totals`` when already counted), read in time order (thinned past
     PHASE_MAX_ROWS) and the typical phase derivatives over an even sample of them."""
+    reader = _reader(session, campaign, upto_pk, reader)
     if totals is None:
-        totals = store.counts_with_values(session, campaign.id, [store.NUMERIC_COLUMNS[PHASE_FIELD]], upto_pk=upto_pk)
-    rows = store.phase_rows(
-        session, campaign.id, JITTER_SOURCES, max_rows=PHASE_MAX_ROWS, upto_pk=upto_pk, total=sum(totals.values())
-    )
+        totals = reader.value_counts({"": (PHASE_FIELD,)})[""]
+    total = sum(totals.values())
+    step = store.thinning_step(total, PHASE_MAX_ROWS)
+    rows = store.phase_rows_of(reader.phase_rows(JITTER_SOURCES, step=step), JITTER_SOURCES, total=total, step=step)
     return PhaseData(totals, rows, phase_derivatives(session, campaign, rows))
 
 
@@ -649,7 +666,11 @@ def phase_groups(session: Session, data: PhaseData) -> list[PhaseGroup]:
 
 
 def phase_figure(
-    session: Session, campaign: Campaign, upto_pk: int | None = None, data: PhaseData | None = None
+    session: Session,
+    campaign: Campaign,
+    upto_pk: int | None = None,
+    data: PhaseData | None = None,
+    reader: Reader | None = None,
 ) -> dict[str, Any]:
     """Measured modulation phase against shot time, beside the jitter the logged jitters predict.
 
@@ -660,7 +681,7 @@ def phase_figure(
     (both about running windows of neighbouring shots, app.services.phase_spread).
     """
     zone = campaign_zone(campaign.timezone)
-    data = data if data is not None else phase_data(session, campaign, upto_pk)
+    data = data if data is not None else phase_data(session, campaign, upto_pk, reader=reader)
     by_status = _series_by_status(
         session,
         campaign,
@@ -669,6 +690,7 @@ def phase_figure(
         required=(PHASE_FIELD,),
         upto_pk=upto_pk,
         totals=data.totals,
+        reader=reader,
     )
     groups = phase_groups(session, data)
     traces: list[dict[str, Any]] = []
@@ -788,31 +810,47 @@ class CalibrationSummary:
     thinned_step: int = 1  # the median comes from about every k-th shot of a large campaign
 
 
-def calibration_totals(session: Session, campaign: Campaign, upto_pk: int | None = None) -> dict[str, int]:
+def calibration_totals(reader: Reader) -> dict[str, int]:
     """Shots with a predicted and a measured frequency, by status (the chart's legend; their sum
     is the figures' count: the implied density needs the measured frequency)."""
-    needed = [store.NUMERIC_COLUMNS[name] for name in CALIBRATION_FIELDS]
-    return store.counts_with_values(session, campaign.id, needed, upto_pk=upto_pk)
+    return reader.value_counts({"": CALIBRATION_FIELDS})[""]
 
 
 def calibration_summary(
-    session: Session, campaign: Campaign, upto_pk: int | None = None, totals: dict[str, int] | None = None
+    session: Session,
+    campaign: Campaign,
+    upto_pk: int | None = None,
+    totals: dict[str, int] | None = None,
+    reader: Reader | None = None,
 ) -> CalibrationSummary:
-    totals = totals if totals is not None else calibration_totals(session, campaign, upto_pk)
+    reader = _reader(session, campaign, upto_pk, reader)
+    totals = totals if totals is not None else calibration_totals(reader)
     n = sum(totals.values())
-    offsets, step = store.density_offsets(session, campaign.id, n, max_rows=CALIBRATION_MAX_ROWS, upto_pk=upto_pk)
+    step = store.thinning_step(n, CALIBRATION_MAX_ROWS)
+    offsets = reader.density_offsets(step=step)
     median = float(np.median(offsets)) if offsets else None
     return CalibrationSummary(n, median, step)
 
 
 def calibration_figure(
-    session: Session, campaign: Campaign, upto_pk: int | None = None, totals: dict[str, int] | None = None
+    session: Session,
+    campaign: Campaign,
+    upto_pk: int | None = None,
+    totals: dict[str, int] | None = None,
+    reader: Reader | None = None,
 ) -> dict[str, Any]:
     """Measured modulation frequency against the plasma frequency the set density predicts, by
     status on robust ranges (as the regime map), with the line where they are equal."""
     predicted, measured = CALIBRATION_FIELDS
     scatter = _status_map(
-        session, campaign, predicted, measured, upto_pk=upto_pk, totals=totals, cells=HALF_WIDTH_MARKER_CELLS
+        session,
+        campaign,
+        predicted,
+        measured,
+        upto_pk=upto_pk,
+        totals=totals,
+        cells=HALF_WIDTH_MARKER_CELLS,
+        reader=reader,
     )
     traces = scatter.traces
     if any(t.get("x") for t in traces):  # across the predicted frequencies shown (the axis stays on the shots)
@@ -848,9 +886,12 @@ class FlagCodeCount:
         return sum(self.by_severity.values())
 
 
-def flag_code_counts(session: Session, campaign: Campaign) -> list[FlagCodeCount]:
+def flag_code_counts(
+    session: Session, campaign: Campaign, rows: Sequence[store.FlagCount] | None = None
+) -> list[FlagCodeCount]:
+    """Shots by flag code and severity, the most frequent code first (``rows``: store.flag_counts, when read)."""
     counts: dict[str, dict[str, int]] = {}
-    for row in store.flag_counts(session, campaign.id):
+    for row in rows if rows is not None else store.flag_counts(session, campaign.id):
         counts.setdefault(row.code, {})[row.severity] = row.shots
     return [FlagCodeCount(code, counts[code]) for code in sorted(counts, key=lambda c: (-sum(counts[c].values()), c))]
 

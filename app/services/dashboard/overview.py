@@ -5,7 +5,6 @@ current (new shots, counts, and the text the table shows for them).
 
 from __future__ import annotations
 
-import threading
 from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import datetime
@@ -18,6 +17,7 @@ from app.errors import InvalidInput
 from app.plain import rounded
 from app.presentation.fields import field_label
 from app.presentation.numbers import MISSING, format_number
+from app.services.dashboard.feed_reads import CachedReader, campaign_marks, campaign_reads
 from app.services.dashboard.figures import (
     CALIBRATION_FIELDS,
     DEFAULT_REGIME_AXES,
@@ -179,7 +179,8 @@ def calibration_facts(summary: CalibrationSummary) -> list[tuple[str, str]]:
 
 
 # Chart feeds by campaign, chart and parameters, kept while the campaign's change marks
-# stand still: every viewer of an overview shares one computation per new shot.
+# stand still: every viewer of an overview shares one computation per new shot, which reads
+# only the new shots when nothing else changed (feed_reads).
 _FEEDS: dict[tuple[Any, ...], tuple[tuple[Any, ...], dict[str, Any]]] = {}
 _FEEDS_MAX = 64
 
@@ -187,7 +188,7 @@ _FEEDS_MAX = 64
 def chart_feed(session: Session, campaign: Campaign, name: str, **params: Any) -> dict[str, Any]:
     """A chart drawn from the shots stored up to now, that cursor for the live feed, and
     the figures shown beside it (computed once per change of the campaign's marks)."""
-    marks = (*store.change_marks(session, campaign.id), campaign.settings_version)
+    marks = campaign_marks(session, campaign)
     where = (str(session.get_bind().engine.url), campaign.id, name, tuple(sorted(params.items())))
     cached = _FEEDS.get(where)
     if cached is not None and cached[0] == marks:
@@ -207,47 +208,34 @@ _COUNTED_VALUES: dict[str, tuple[str, ...]] = {
     "calibration": CALIBRATION_FIELDS,
     "regime": DEFAULT_REGIME_AXES,
 }
-_VALUE_COUNTS: dict[tuple[str, int], tuple[tuple[Any, ...], dict[str, dict[str, int]]]] = {}
-_VALUE_COUNTS_LOCK = threading.Lock()
-
-
-def _value_counts(session: Session, campaign: Campaign, marks: tuple[Any, ...]) -> dict[str, dict[str, int]]:
-    where = (str(session.get_bind().engine.url), campaign.id)
-    with _VALUE_COUNTS_LOCK:
-        cached = _VALUE_COUNTS.get(where)
-        if cached is not None and cached[0] == marks:
-            return cached[1]
-        sets = {name: [store.NUMERIC_COLUMNS[c] for c in columns] for name, columns in _COUNTED_VALUES.items()}
-        counts = store.counts_with_values_of(session, campaign.id, sets, upto_pk=marks[0])
-        if len(_VALUE_COUNTS) >= _COUNTS_MAX_CAMPAIGNS:
-            _VALUE_COUNTS.clear()
-        _VALUE_COUNTS[where] = (marks, counts)
-        return counts
 
 
 def _chart_feed(
     session: Session, campaign: Campaign, name: str, marks: tuple[Any, ...], **params: Any
 ) -> dict[str, Any]:
-    cursor = marks[0]
+    reader = CachedReader(session, campaign, campaign_reads(session, campaign, marks))
+    cursor = reader.reads.upto_pk
     if name == "regime" and (params["x"], params["y"]) != DEFAULT_REGIME_AXES:  # counted for itself
-        return {"figure": regime_figure(session, campaign, upto_pk=cursor, **params), "cursor": cursor}
-    totals = _value_counts(session, campaign, marks)[name]
+        return {"figure": regime_figure(session, campaign, upto_pk=cursor, reader=reader, **params), "cursor": cursor}
+    totals = reader.value_counts(_COUNTED_VALUES)[name]
     if name == "phase":  # the chart and its figures from one read of the phases
-        data = phase_data(session, campaign, cursor, totals=totals)
+        data = phase_data(session, campaign, cursor, totals=totals, reader=reader)
         return {
-            "figure": phase_figure(session, campaign, upto_pk=cursor, data=data),
+            "figure": phase_figure(session, campaign, upto_pk=cursor, data=data, reader=reader),
             "cursor": cursor,
             "facts": phase_facts(phase_summary(session, campaign, data=data)),
         }
     if name == "calibration":  # the chart's counts are the figures' count too
         return {
-            "figure": calibration_figure(session, campaign, upto_pk=cursor, totals=totals),
+            "figure": calibration_figure(session, campaign, upto_pk=cursor, totals=totals, reader=reader),
             "cursor": cursor,
-            "facts": calibration_facts(calibration_summary(session, campaign, cursor, totals=totals)),
+            "facts": calibration_facts(calibration_summary(session, campaign, cursor, totals=totals, reader=reader)),
         }
     if name == "regime":
-        return {"figure": regime_figure(session, campaign, upto_pk=cursor, totals=totals, **params), "cursor": cursor}
-    return {"figure": timeline_figure(session, campaign, upto_pk=cursor, totals=totals), "cursor": cursor}
+        figure = regime_figure(session, campaign, upto_pk=cursor, totals=totals, reader=reader, **params)
+        return {"figure": figure, "cursor": cursor}
+    figure = timeline_figure(session, campaign, upto_pk=cursor, totals=totals, reader=reader)
+    return {"figure": figure, "cursor": cursor}
 
 
 def regime_feed(session: Session, campaign: Campaign, x: str, y: str) -> dict[str, Any]:
@@ -293,15 +281,29 @@ _COUNTS_MAX_CAMPAIGNS = 256
 
 
 def campaign_counts(session: Session, campaign: Campaign) -> CampaignCounts:
-    marks = (*store.change_marks(session, campaign.id), campaign.settings_version)
+    marks = campaign_marks(session, campaign)
     where = (str(session.get_bind().engine.url), campaign.id)
     cached = _COUNTS.get(where)
     if cached is not None and cached[0] == marks:
         return cached[1]
+    reads = campaign_reads(session, campaign, marks)  # after new shots only, only they are counted
+    upto = reads.upto_pk
+    counts = reads.read(
+        ("status counts",),
+        1,
+        lambda after: store.status_counts(session, campaign.id, upto_pk=upto, after_pk=after),
+        lambda old, new: {status: n + new.get(status, 0) for status, n in old.items()},
+    )
+    flags = reads.read(
+        ("flag counts",),
+        1,
+        lambda after: store.flag_counts(session, campaign.id, upto_pk=upto, after_pk=after),
+        _added_flag_counts,
+    )
     fresh = CampaignCounts(
-        marks[0],
-        store.status_counts(session, campaign.id),
-        flag_code_counts(session, campaign),
+        upto,
+        dict(counts),
+        flag_code_counts(session, campaign, flags),
         store.shot_page(
             session,
             campaign.id,
@@ -317,6 +319,13 @@ def campaign_counts(session: Session, campaign: Campaign) -> CampaignCounts:
         _COUNTS.clear()
     _COUNTS[where] = (marks, fresh)
     return fresh
+
+
+def _added_flag_counts(old: list[store.FlagCount], new: list[store.FlagCount]) -> list[store.FlagCount]:
+    shots: dict[tuple[str, str], int] = {}
+    for row in (*old, *new):
+        shots[row.code, row.severity] = shots.get((row.code, row.severity), 0) + row.shots
+    return [store.FlagCount(code, severity, n) for (code, severity), n in sorted(shots.items())]
 
 
 def overview(session: Session, campaign: Campaign, shot_url: str | None = None) -> Overview:

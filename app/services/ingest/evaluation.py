@@ -34,7 +34,9 @@ def model_columns(stored: Mapping[str, Sequence[Any]]) -> dict[str, np.ndarray]:
     return columns
 
 
-def evaluate_inputs(inputs: Mapping[str, np.ndarray], overrides: Mapping[str, Any], mode: str) -> dict[str, np.ndarray]:
+def evaluate_inputs(
+    inputs: Mapping[str, np.ndarray], overrides: Mapping[str, Any], mode: str
+) -> Mapping[str, np.ndarray]:
     """model.evaluate_table over dotted-path input columns, timed for /metrics."""
     start = time.perf_counter()
     table = model.evaluate_table(inputs, overrides)

@@ -413,6 +413,9 @@ def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, n
         previous=_previous_week(session, campaign, week, figures),
         model_versions=sorted({v for v in shots.model_version if v}),
         shots=shots,
-        model_check=week_figures(session, campaign.slug, start_local.astimezone(UTC), end_local.astimezone(UTC)),
+        # From the week's table: its shots are not read again.
+        model_check=week_figures(
+            session, campaign.slug, start_local.astimezone(UTC), end_local.astimezone(UTC), week=shots
+        ),
         excluded_count=export_store.count_shots(session, _week_window(campaign, week, "only")),
     )

@@ -15,7 +15,6 @@ import json
 from collections.abc import Callable
 from dataclasses import asdict
 from functools import partial
-from itertools import islice
 from typing import Any, BinaryIO
 from zoneinfo import ZoneInfo
 
@@ -24,7 +23,7 @@ import orjson
 from app.advisory import ADVISORY_CAUTION
 from app.plain import plain
 from app.presentation.csv_writer import write_csv
-from app.services.export_table import ShotTable, arrow_table, csv_columns, records, units_document
+from app.services.export_table import ShotTable, arrow_table, csv_columns, record_json, units_document
 from app.services.weekly.report import render_html
 from app.services.weekly.summary import REASON_SEVERITIES, WeeklySummary, collector_paused, flagged_rows
 from app.services.weekly.summary_rows import summary_csv_columns
@@ -147,8 +146,8 @@ def write_summary_csv(summary: WeeklySummary, out: BinaryIO, progress: Progress 
 
 
 def write_json(summary: WeeklySummary, out: BinaryIO, progress: Progress | None = None) -> None:
-    """The JSON document, its shots serialised JSON_CHUNK_SHOTS at a time (the same bytes as the
-    whole document at once, without every shot's objects alive together)."""
+    """The JSON document, its shots written JSON_CHUNK_SHOTS at a time (the same bytes as the whole
+    document at once, without every shot's text alive together)."""
     document = {
         "kind": DOCUMENT_KIND,
         "version": DOCUMENT_VERSION,
@@ -158,14 +157,13 @@ def write_json(summary: WeeklySummary, out: BinaryIO, progress: Progress | None 
     }
     head = json_document_bytes(document)
     out.write(head[: -len(b"]}")])  # the shots are the last member
-    shots = records(summary.shots)
-    total, done = summary.shot_count, 0
-    while part := list(islice(shots, JSON_CHUNK_SHOTS)):
+    total = summary.shot_count
+    for done in range(0, total, JSON_CHUNK_SHOTS):
+        rows = slice(done, min(done + JSON_CHUNK_SHOTS, total))
         out.write(b"," if done else b"")
-        out.write(json_document_bytes(part)[1:-1])
-        done += len(part)
+        out.write(b",".join(record_json(summary.shots, rows)))
         if progress:
-            progress(done, total)
+            progress(rows.stop, total)
     out.write(b"]}")
     if progress and not total:
         progress(0, 0)

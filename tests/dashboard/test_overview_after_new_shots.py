@@ -1,0 +1,135 @@
+"""On shift a shot arrives every few seconds. After each new shot the overview's chart feeds and
+counts read only the new shots (app.services.dashboard.feed_reads) and show exactly what reading
+the whole campaign afresh shows, with every series thinned as a large campaign's are (the caps are
+lowered so that the test campaign's shots are "many"). A correction, an exclusion, a settings
+change or a re-evaluation in between makes them read the campaign afresh. Nothing here is timed."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import pytest
+
+from app.services.campaigns import find_campaign
+from app.services.dashboard import feed_reads, figures, overview
+from app.store import dashboard as store
+from tests.support.jobs import run_queued_jobs
+from tests.support.page_shots import page_shots
+
+SLUG = "test-campaign"
+FEEDS = ("timeline", "phase", "calibration")
+
+
+@pytest.fixture
+def thinned(monkeypatch):
+    """Caps so low that the seeded campaign's series are every k-th shot, k changing as shots arrive."""
+    monkeypatch.setattr(figures, "TIMELINE_NOMINAL_POINTS", 7)
+    monkeypatch.setattr(figures, "TIMELINE_FLAGGED_POINTS", 2)
+    monkeypatch.setattr(figures, "FLAGGED_POINTS_CAP", 2)
+    monkeypatch.setattr(figures, "SCATTER_NOMINAL_POINTS", 9)
+    monkeypatch.setattr(figures, "PHASE_MAX_ROWS", 10)
+    monkeypatch.setattr(figures, "CALIBRATION_MAX_ROWS", 8)
+    monkeypatch.setattr(figures, "NOMINAL_MARKERS_MAX", 5)
+    monkeypatch.setattr(figures, "FLAGGED_MARKERS_MAX", 2)
+
+
+@pytest.fixture
+def reads_after(monkeypatch) -> list[Any]:
+    """The ``after_pk`` of every count of the campaign's values: None when it was read whole."""
+    seen: list[Any] = []
+    counting = store.counts_with_values_of
+
+    def recorded(*args, **kwargs):
+        seen.append(kwargs.get("after_pk"))
+        return counting(*args, **kwargs)
+
+    monkeypatch.setattr(store, "counts_with_values_of", recorded)
+    return seen
+
+
+def _overview(app) -> dict[str, Any]:
+    """Every feed the overview page loads and its counts, as a viewer's browser would get them now."""
+    with app.state.session_factory() as session:
+        campaign = find_campaign(session, SLUG)
+        shown: dict[str, Any] = {name: overview.chart_feed(session, campaign, name) for name in FEEDS}
+        shown["regime"] = overview.regime_feed(session, campaign, *figures.DEFAULT_REGIME_AXES)
+        shown["counts"] = overview.campaign_counts(session, campaign)
+        page = vars(overview.overview(session, campaign))
+        shown["page"] = {name: value for name, value in page.items() if name != "campaign"}
+        return shown
+
+
+def _read_afresh(app) -> dict[str, Any]:
+    """The same, from the whole campaign, leaving the caches as they were."""
+    kept = (dict(feed_reads._CAMPAIGNS), dict(overview._FEEDS), dict(overview._COUNTS))
+    for cache in (feed_reads._CAMPAIGNS, overview._FEEDS, overview._COUNTS):
+        cache.clear()
+    try:
+        return _overview(app)
+    finally:
+        for cache, entries in zip((feed_reads._CAMPAIGNS, overview._FEEDS, overview._COUNTS), kept, strict=True):
+            cache.clear()
+            cache.update(entries)
+
+
+def _post(client, headers, shot) -> None:
+    response = client.post(f"/api/v1/campaigns/{SLUG}/shots", json=shot, headers=headers)
+    assert response.status_code == 201, response.text
+
+
+def test_after_each_new_shot_the_overview_shows_exactly_what_reading_the_campaign_afresh_shows(
+    app, seeded, client, admin_headers, make_shot, thinned, reads_after
+):
+    _overview(app)
+    new = page_shots(make_shot, count=48)[36:]  # the same mix of statuses, later
+    for i in range(3, 9):  # stored late: taken before every other shot (some of them are kept in each series)
+        new[i]["taken_at"] = f"2026-11-16T06:{5 * i:02d}:00Z"
+    new[8].pop("measured")  # no measured frequency or phase
+    for shot in new:
+        _post(client, admin_headers, shot)
+        reads_after.clear()
+        after_the_shot = _overview(app)
+        assert reads_after and None not in reads_after  # only the new shot was read
+        assert after_the_shot == _read_afresh(app)
+
+
+def test_a_correction_an_exclusion_or_a_settings_change_makes_the_overview_read_the_campaign_afresh(
+    app, seeded, client, admin_headers, make_shot, thinned, reads_after
+):
+    _overview(app)
+    corrected = make_shot(0, shot_id="pg-0003", changes={"plasma.density_cm3": 4.4e14})
+    response = client.put(
+        f"/api/v1/campaigns/{SLUG}/shots/pg-0003?reason=unit fix", json=corrected, headers=admin_headers
+    )
+    assert response.status_code == 200, response.text
+    _post(client, admin_headers, page_shots(make_shot, count=37)[36])
+    writes = [
+        lambda: client.post(
+            f"/api/v1/campaigns/{SLUG}/shots/pg-0005/exclusion", json={"reason": "test pulse"}, headers=admin_headers
+        ),
+        lambda: client.patch(f"/api/v1/campaigns/{SLUG}/settings", json={"noise_floor": 0.002}, headers=admin_headers),
+    ]
+    for write in [None, *writes]:
+        if write is not None:
+            assert write().status_code < 300
+        reads_after.clear()
+        shown = _overview(app)
+        assert None in reads_after  # read whole
+        assert shown == _read_afresh(app)
+    run_queued_jobs(app)  # the settings' re-evaluation rewrites statuses: its end moves the marks
+    reads_after.clear()
+    assert _overview(app) == _read_afresh(app) and None in reads_after
+
+
+def test_a_queued_reevaluation_is_among_the_change_marks(app, seeded, client, admin_headers):
+    with app.state.session_factory() as session:
+        before = store.change_marks(session, find_campaign(session, SLUG))
+    client.patch(f"/api/v1/campaigns/{SLUG}/settings", json={"noise_floor": 0.002}, headers=admin_headers)
+    with app.state.session_factory() as session:
+        campaign = find_campaign(session, SLUG)
+        queued = store.change_marks(session, campaign)
+        assert [(kind, state) for _, kind, state, _ in queued[2]] == [("reevaluate", "queued")]
+        assert not feed_reads.only_new_shots(session, campaign, (*before, 1), (*queued, 1))
+    run_queued_jobs(app)
+    with app.state.session_factory() as session:
+        assert store.change_marks(session, find_campaign(session, SLUG))[2] == ()
