@@ -10,6 +10,8 @@ PostgreSQL is reached through psycopg 3 (``postgresql+psycopg://``).
 from __future__ import annotations
 
 import json
+import logging
+import sqlite3
 import threading
 import time
 import zlib
@@ -28,6 +30,10 @@ T = TypeVar("T")
 
 # Connection execution option read by the SQLite "begin" hook.
 _SQLITE_BEGIN = "wakeledger_sqlite_begin"
+# Connection info flag: the WAL autocheckpoint is off until the connection's next transaction begins.
+_CHECKPOINT_DEFERRED = "wakeledger_checkpoint_deferred"
+SQLITE_AUTOCHECKPOINT_PAGES = 1000  # SQLite's own default
+log = logging.getLogger(__name__)
 
 
 def normalise_url(url: str) -> str:
@@ -68,6 +74,8 @@ def make_engine(url: str) -> Engine:
 
         @event.listens_for(engine, "begin")
         def _sqlite_begin(conn):  # pragma: no cover - trivial
+            if conn.info.pop(_CHECKPOINT_DEFERRED, False):
+                conn.exec_driver_sql(f"PRAGMA wal_autocheckpoint={SQLITE_AUTOCHECKPOINT_PAGES}")
             mode = conn.get_execution_options().get(_SQLITE_BEGIN, "DEFERRED")
             conn.exec_driver_sql(f"BEGIN {mode}")
 
@@ -204,6 +212,40 @@ def begin_write(session: Session, lock_name: str | None = None) -> None:
     if conn.dialect.name == "postgresql" and lock_name is not None:
         key = zlib.crc32(lock_name.encode())  # 32-bit, fits pg_advisory_xact_lock(bigint)
         conn.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": key})
+
+
+def defer_wal_checkpoint(session: Session) -> None:
+    """SQLite: the commit of this write transaction leaves the WAL checkpoint to ``checkpoint_wal``.
+
+    A commit that grows the WAL past SQLITE_AUTOCHECKPOINT_PAGES copies the WAL into the
+    database file before it returns: about 40 ms of a 5,000-shot batch, spent while the writer
+    queue waits. The commit is as durable without it (the WAL is synced; the checkpoint only
+    moves pages), so the caller answers first and runs ``checkpoint_wal`` after. The next
+    transaction on the connection has the autocheckpoint back, so one that is missed (a crash
+    between the two) is made by a later commit. PostgreSQL: nothing to do.
+    """
+    conn = session.connection()
+    if conn.dialect.name != "sqlite":
+        return
+    conn.exec_driver_sql("PRAGMA wal_autocheckpoint=0")
+    conn.info[_CHECKPOINT_DEFERRED] = True
+
+
+def checkpoint_wal(engine: Engine) -> None:
+    """SQLite: copy the WAL's committed pages into the database file now. PASSIVE: it waits for no
+    reader or writer (what they hold stays in the WAL for a later checkpoint), and returns at once
+    when another checkpoint is under way. PostgreSQL: nothing to do."""
+    if engine.dialect.name != "sqlite":
+        return
+    raw = engine.raw_connection()  # autocommit (no BEGIN is emitted for a raw connection)
+    try:
+        driver = raw.driver_connection
+        assert driver is not None
+        driver.execute("PRAGMA wal_checkpoint(PASSIVE)").fetchall()
+    except sqlite3.Error as exc:  # pragma: no cover - the next commit past the threshold checkpoints instead
+        log.warning("WAL checkpoint after a batch did not run: %s", exc)
+    finally:
+        raw.close()
 
 
 def is_retryable(exc: BaseException) -> bool:

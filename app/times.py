@@ -61,12 +61,11 @@ def format_utc(moment: datetime) -> str:
     microseconds) only when present."""
     when = as_utc(moment)
     assert when is not None
-    text = f"{when.year:04d}-{when.month:02d}-{when.day:02d}T{when.hour:02d}:{when.minute:02d}:{when.second:02d}"
-    if when.microsecond % 1000:
-        text += f".{when.microsecond:06d}"
-    elif when.microsecond:
-        text += f".{when.microsecond // 1000:03d}"
-    return text + "Z"
+    # isoformat (C) writes YYYY-MM-DDTHH:MM:SS, then .ffffff when there are microseconds, then +00:00
+    text = when.isoformat()
+    if when.microsecond % 1000 or not when.microsecond:
+        return text[:-6] + "Z"
+    return text[:-9] + "Z"  # whole milliseconds: three digits
 
 
 def iso_text(moment: datetime) -> str:

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from typing import Annotated, Any, Literal
 
-from fastapi import APIRouter, Body, Depends, Path, Query, Request, Response
+from fastapi import APIRouter, BackgroundTasks, Body, Depends, Path, Query, Request, Response
 from fastapi.responses import PlainTextResponse
 
 from app.config import Settings
@@ -18,7 +18,6 @@ from app.routers.json_body import StrictJSONRoute
 from app.schemas import (
     AuditPage,
     BatchIn,
-    BatchItemOut,
     BatchOut,
     CampaignCreate,
     CampaignList,
@@ -41,7 +40,7 @@ from app.services import campaigns as campaign_service
 from app.services import jobs as job_service
 from app.services import shots as shot_service
 from app.services.campaign_settings import change_settings
-from app.services.ingest import correct_shot, ingest_shots
+from app.services.ingest import correct_shot, ingest_shots, write_back_wal
 
 router = APIRouter(prefix="/api/v1", tags=["api"], route_class=StrictJSONRoute)
 ops_router = APIRouter(tags=["operations"], route_class=StrictJSONRoute)
@@ -177,6 +176,7 @@ def post_batch(
     who: Ingester,
     response: Response,
     settings: Annotated[Settings, Depends(get_settings)],
+    after_answer: BackgroundTasks,
 ) -> BatchOut:
     """All or nothing: 422 lists every failing shot index and field; 409 on a conflicting replay."""
     if len(batch.shots) > settings.max_batch_shots:
@@ -189,18 +189,21 @@ def post_batch(
         batch=True,
         max_future=settings.max_future,
         alert_policy=alerts.AlertPolicy.from_settings(settings),
+        defer_checkpoint=True,
     )
+    after_answer.add_task(write_back_wal, session)  # the stored batch is answered before its WAL pages are copied
     created = result.count("created")
     if created == 0:
         response.status_code = 200
-    return BatchOut(
-        created=created,
-        unchanged=result.count("unchanged"),
-        duplicates_in_batch=result.count("duplicate_in_batch"),
-        items=[
-            BatchItemOut(index=i.index, shot_id=i.shot_id, outcome=i.outcome, status=i.status)  # type: ignore[arg-type]
-            for i in result.items
-        ],
+    return BatchOut.model_validate(  # the items as dicts: pydantic checks them in one call
+        {
+            "created": created,
+            "unchanged": result.count("unchanged"),
+            "duplicates_in_batch": result.count("duplicate_in_batch"),
+            "items": [
+                {"index": i.index, "shot_id": i.shot_id, "outcome": i.outcome, "status": i.status} for i in result.items
+            ],
+        }
     )
 
 

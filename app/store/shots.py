@@ -8,11 +8,14 @@ from __future__ import annotations
 
 import base64
 import json
+import sqlite3
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
+from itertools import chain
 from typing import Any, cast
 
+import orjson
 from sqlalchemy import (
     ColumnElement,
     Float,
@@ -47,19 +50,21 @@ class StoredDigest:
 
 
 def digests_by_shot_id(session: Session, campaign_id: int, shot_ids: Sequence[str]) -> dict[str, StoredDigest]:
-    """Stored payload hashes for the given shot ids (chunked to stay under bind limits)."""
-    out: dict[str, StoredDigest] = {}
+    """Stored payload hashes for the given shot ids, in one statement whatever their number: the ids
+    are one parameter (a JSON array read by json_each on SQLite, an array on PostgreSQL)."""
     ids = list(shot_ids)
-    for start in range(0, len(ids), 900):
-        chunk = ids[start : start + 900]
-        rows = session.execute(
-            select(Shot.shot_id, Shot.id, Shot.payload_sha256).where(
-                Shot.campaign_id == campaign_id, Shot.shot_id.in_(chunk)
-            )
-        )
-        for shot_id, pk, sha in rows:
-            out[shot_id] = StoredDigest(pk, sha)
-    return out
+    if not ids:
+        return {}
+    given: str | list[str]
+    if session.connection().dialect.name == "sqlite":
+        wanted, given = "IN (SELECT value FROM json_each(:ids))", orjson.dumps(ids).decode()
+    else:
+        wanted, given = "= ANY(:ids)", ids
+    rows = session.execute(
+        text(f"SELECT shot_id, id, payload_sha256 FROM shots WHERE campaign_id = :campaign AND shot_id {wanted}"),
+        {"campaign": campaign_id, "ids": given},
+    )
+    return {shot_id: StoredDigest(pk, sha) for shot_id, pk, sha in rows}
 
 
 def raw_payloads(session: Session, shot_pks: Iterable[int]) -> dict[int, dict[str, Any]]:
@@ -88,12 +93,18 @@ def _processed(process: Callable[[Any], Any], values: Sequence[Any]) -> list[Any
     return out
 
 
+# SQLite: rows per INSERT statement (multi-row VALUES). Each statement run costs the driver
+# binding and stepping overhead once: 100 rows a statement take about a quarter less CPU than
+# one-row statements (a 5,000-shot batch writes some 35,000 rows).
+ROWS_PER_STATEMENT = 100
+
+
 def bulk_insert(session: Session, table: Table, rows: Columns) -> None:
-    """Insert rows given as columns in one driver call.
+    """Insert rows given as columns in one driver call (two on SQLite, for the rows past the last full group).
 
     The values go through each column type's own bind processor, then straight to the
-    driver (SQLite: executemany; PostgreSQL: COPY), skipping SQLAlchemy's per-row
-    parameter handling, the largest cost of a 5,000-shot batch.
+    driver (SQLite: executemany of ROWS_PER_STATEMENT-row statements; PostgreSQL: COPY),
+    skipping SQLAlchemy's per-row parameter handling, the largest cost of a 5,000-shot batch.
     """
     if not rows or not len(next(iter(rows.values()))):
         return
@@ -127,9 +138,18 @@ def bulk_insert(session: Session, table: Table, rows: Columns) -> None:
                 for row in zip(*columns, strict=False):
                     copy.write_row(row)
         return
-    placeholders = ", ".join("?" * len(names))
+    insert = f"INSERT INTO {quote(table.name)} ({column_list}) VALUES "
+    one_row = "(" + ", ".join("?" * len(names)) + ")"
     values = list(zip(*columns, strict=True))
-    conn.exec_driver_sql(f"INSERT INTO {quote(table.name)} ({column_list}) VALUES ({placeholders})", values)
+    driver = conn.connection.driver_connection
+    assert driver is not None
+    per_statement = max(1, min(ROWS_PER_STATEMENT, driver.getlimit(sqlite3.SQLITE_LIMIT_VARIABLE_NUMBER) // len(names)))
+    whole = len(values) // per_statement * per_statement
+    if whole:
+        groups = [tuple(chain.from_iterable(values[i : i + per_statement])) for i in range(0, whole, per_statement)]
+        conn.exec_driver_sql(insert + ", ".join([one_row] * per_statement), groups)
+    if whole < len(values):
+        conn.exec_driver_sql(insert + one_row, values[whole:])
 
 
 def insert_shots(session: Session, rows: Columns) -> list[int]:

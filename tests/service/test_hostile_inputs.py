@@ -6,7 +6,7 @@ Each answers a 4xx naming the field, stores nothing, and the server keeps answer
 from __future__ import annotations
 
 import json
-from datetime import UTC, datetime, timedelta
+from datetime import UTC, datetime, timedelta, timezone
 
 import pytest
 from sqlalchemy import func, select
@@ -215,6 +215,12 @@ def test_a_shot_dated_more_than_a_day_ahead_of_the_server_is_refused(client, app
 def test_instants_are_written_in_rfc_3339_with_a_four_digit_year():
     assert format_utc(datetime(1, 1, 1, 4, tzinfo=UTC)) == "0001-01-01T04:00:00Z"
     assert format_utc(datetime(2026, 11, 27, 14, 5, 0, 120000, tzinfo=UTC)) == "2026-11-27T14:05:00.120Z"
+    assert format_utc(datetime(2026, 11, 27, 14, 5, 0, 123456, tzinfo=UTC)) == "2026-11-27T14:05:00.123456Z"
+    assert format_utc(datetime(2026, 11, 27, 14, 5, 0, 1, tzinfo=UTC)) == "2026-11-27T14:05:00.000001Z"
+    assert format_utc(datetime(2026, 11, 27, 14, 5, 0, 999000, tzinfo=UTC)) == "2026-11-27T14:05:00.999Z"
+    assert format_utc(datetime(9999, 12, 31, 23, 59, 59, tzinfo=UTC)) == "9999-12-31T23:59:59Z"
+    assert format_utc(datetime(2026, 11, 27, 15, 5, tzinfo=timezone(timedelta(hours=1)))) == "2026-11-27T14:05:00Z"
+    assert format_utc(datetime(2026, 11, 27, 14, 5)) == "2026-11-27T14:05:00Z"  # naive: already UTC
 
 
 @pytest.mark.parametrize("value", [1764000000, -2.5, "1764000000", "-2.5"])

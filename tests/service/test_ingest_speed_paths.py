@@ -6,13 +6,23 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
 import threading
 
 import pytest
 from sqlalchemy import select, text, update
+from sqlalchemy.orm import Session
 
 import model
-from app.database import FifoLock, begin_write, writer_queue
+from app.database import (
+    SQLITE_AUTOCHECKPOINT_PAGES,
+    FifoLock,
+    begin_write,
+    checkpoint_wal,
+    defer_wal_checkpoint,
+    json_dumps,
+    writer_queue,
+)
 from app.errors import InvalidInput
 from app.services.ingest import payloads as payload_rules
 from app.services.ingest.payloads import canonical_json, legacy_payload_digest, prepare_all, stored_comparable
@@ -115,6 +125,75 @@ def test_every_flag_of_a_batch_is_stored_as_the_shot_evaluated_alone_reports_it(
     assert stored == expected and sum(map(len, stored.values())) > len(shots)
 
 
+def test_a_batch_of_hundreds_stores_every_shot_revision_evaluation_and_flag_once(
+    client, app, campaign, ingest_headers, make_shot
+):
+    # 230 shots: two full multi-row statements of each table on SQLite and the rows after them
+    shots = [
+        make_shot(
+            case=i % 5,
+            shot_id=f"h-{i:03d}",
+            taken_at=f"2026-11-17T10:{i // 60:02d}:{i % 60:02d}.{i:03d}Z",
+            changes={"plasma.density_cm3": 10 ** (13 + (i % 17) / 4)},
+        )
+        for i in range(230)
+    ]
+    posted = client.post(f"{_shots_url(campaign)}/batch", json={"shots": shots}, headers=ingest_headers)
+    assert posted.status_code == 201 and posted.json()["created"] == 230
+    with app.state.session_factory() as session:
+        stored = session.execute(
+            text(
+                "SELECT s.shot_id, s.plasma_density_cm3, e.status, r.revision, "
+                "(SELECT count(*) FROM flags f WHERE f.shot_pk = s.id) "
+                "FROM shots s JOIN evaluations e ON e.shot_pk = s.id JOIN shot_revisions r ON r.shot_pk = s.id "
+                "ORDER BY s.shot_id"
+            )
+        ).all()
+        counts = [session.scalar(text(f"SELECT count(*) FROM {t}")) for t in ("shots", "shot_revisions", "evaluations")]
+        flag_rows = session.scalar(text("SELECT count(*) FROM flags"))
+    expected = []
+    for shot in shots:
+        evaluated = model.evaluate_shot(shot)
+        expected.append(
+            (shot["shot_id"], shot["plasma"]["density_cm3"], evaluated["status"], 1, len(evaluated["flags"]))
+        )
+    assert [tuple(r) for r in stored] == expected
+    assert counts == [230, 230, 230] and flag_rows == sum(e[4] for e in expected) > 230
+
+
+def test_tags_and_defaulted_fields_repeated_across_a_batch_are_stored_as_each_shot_has_them(
+    client, app, campaign, ingest_headers, make_shot
+):
+    tags = [["scan"], ["scan", "density"], [], ["scan"], ["density", "scan"], ["é", "night shift"], []]
+    shots = [make_shot(shot_id=f"t-{i}", drop=["driver.offset_x_mm"] if i % 2 else ()) for i in range(len(tags))]
+    for shot, shot_tags in zip(shots, tags, strict=True):
+        shot["tags"] = shot_tags
+    posted = client.post(f"{_shots_url(campaign)}/batch", json={"shots": shots}, headers=ingest_headers)
+    assert posted.status_code == 201
+    stored_tags = _stored_text(app, "shots", "tags")
+    assert [json.loads(t) for t in stored_tags] == tags
+    assert stored_tags == [json_dumps(t) for t in tags]
+    with app.state.session_factory() as session:
+        defaulted = session.scalars(text("SELECT e.defaulted_fields FROM evaluations e ORDER BY e.shot_pk")).all()
+    defaulted = [json.loads(d) if isinstance(d, str) else d for d in defaulted]
+    assert defaulted == [payload_rules.defaulted_fields(s) for s in shots]
+    assert defaulted[0] != defaulted[1]
+
+
+def test_a_batch_posted_again_is_unchanged_shot_for_shot_past_a_thousand_ids(
+    client, app, campaign, ingest_headers, make_shot
+):
+    # the stored digests of every id are read in one statement, the ids one parameter
+    shots = [make_shot(case=i % 5, shot_id=f"r-{i:04d}") for i in range(1100)]
+    url = f"{_shots_url(campaign)}/batch"
+    assert client.post(url, json={"shots": shots}, headers=ingest_headers).json()["created"] == 1100
+    changed = [*shots[:700], {**shots[700], "notes": "changed"}, *shots[701:]]
+    conflict = client.post(url, json={"shots": changed}, headers=ingest_headers)
+    assert conflict.status_code == 409 and [e["field"] for e in conflict.json()["errors"]] == ["shots.700.notes"]
+    again = client.post(url, json={"shots": shots}, headers=ingest_headers)
+    assert again.status_code == 200 and again.json()["unchanged"] == 1100
+
+
 def test_a_time_written_by_a_bulk_insert_on_sqlite_is_the_text_sqlalchemy_writes():
     from datetime import UTC, datetime, timedelta, timezone
 
@@ -136,6 +215,49 @@ def test_a_time_written_by_a_bulk_insert_on_sqlite_is_the_text_sqlalchemy_writes
     assert [UTCDateTime.sqlite_text(m) for m in moments] == [process(m) for m in moments]
     with pytest.raises(ValueError):
         UTCDateTime.sqlite_text(datetime(2026, 11, 17))
+
+
+# --- the WAL checkpoint after the answer (SQLite) --------------------------------------------------
+
+
+def _file_holds_every_page(engine) -> bool:
+    """Whether the database file itself holds all pages (nothing waits in the WAL to be copied)."""
+    path = engine.url.database
+    with engine.connect() as conn:
+        pages = conn.exec_driver_sql("PRAGMA page_count").scalar() * conn.exec_driver_sql("PRAGMA page_size").scalar()
+    return os.path.getsize(path) >= pages
+
+
+@pytest.mark.parametrize("backend", ["sqlite"], indirect=True)
+def test_a_batch_is_answered_and_its_pages_then_reach_the_database_file(
+    client, app, campaign, ingest_headers, make_shot
+):
+    shots = [make_shot(case=i % 5, shot_id=f"w-{i}") for i in range(300)]
+    posted = client.post(f"{_shots_url(campaign)}/batch", json={"shots": shots}, headers=ingest_headers)
+    assert posted.status_code == 201
+    # 300 shots are fewer WAL pages than SQLite's own checkpoint waits for: the file has them all
+    # because the checkpoint ran after the answer
+    assert _file_holds_every_page(app.state.engine)
+
+
+@pytest.mark.parametrize("backend", ["sqlite"], indirect=True)
+def test_a_commit_that_defers_the_checkpoint_leaves_the_wal_and_the_connection_gets_it_back(app):
+    engine = app.state.engine
+    with engine.connect() as conn:
+        with Session(bind=conn) as session:
+            begin_write(session)
+            session.execute(text("CREATE TABLE scratch_pages (b BLOB)"))
+            defer_wal_checkpoint(session)
+            # 6 MB: past the 1,000 pages at which a commit would copy the WAL into the file
+            session.execute(text("INSERT INTO scratch_pages VALUES (:b)"), [{"b": bytes(4000)}] * 1500)
+            session.commit()
+        assert not _file_holds_every_page(engine)
+        dbapi = conn.connection.dbapi_connection
+        assert dbapi.execute("PRAGMA wal_autocheckpoint").fetchone()[0] == 0
+        with conn.begin():  # the next transaction on that connection checkpoints as SQLite does
+            assert conn.exec_driver_sql("PRAGMA wal_autocheckpoint").scalar() == SQLITE_AUTOCHECKPOINT_PAGES
+    checkpoint_wal(engine)
+    assert _file_holds_every_page(engine)
 
 
 # --- the writer queue ---------------------------------------------------------------------------------

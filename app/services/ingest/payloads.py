@@ -45,9 +45,10 @@ KNOWN_FIELDS: dict[str, tuple[str, ...]] = {
     section: tuple(f.path.split(".", 1)[1] for f in model.INPUT_FIELDS if f.path.startswith(section + "."))
     for section in model.SECTIONS
 }
+_KNOWN_KEYS = {section: frozenset(names) for section, names in KNOWN_FIELDS.items()}
 _DEFAULTED = tuple(f for f in model.INPUT_FIELDS if f.default is not None)
 _FLOAT_MAX = 1.7976931348623157e308
-_NUMBER_OR_ABSENT = (int, float, type(None))
+_NUMBER_OR_ABSENT = frozenset({int, float, type(None)})
 _CHECK_CHUNK = 64  # rows per vectorised check; a failing chunk is re-checked shot by shot
 
 
@@ -71,7 +72,7 @@ def payload_columns(payloads: Sequence[Mapping[str, Any]]) -> dict[str, np.ndarr
     for f in model.INPUT_FIELDS:
         section, name = f.path.split(".", 1)
         values = [b.get(name) for b in blocks[section]]
-        if f.kind != "enum" and all(type(v) in _NUMBER_OR_ABSENT for v in values):
+        if f.kind != "enum" and set(map(type, values)) <= _NUMBER_OR_ABSENT:
             columns[f.path] = np.array(values, dtype=float)
         else:
             columns[f.path] = _object_array(values)
@@ -95,7 +96,7 @@ def needs_single_check(payload: Mapping[str, Any]) -> bool:
     object, or seed fields without a seed method."""
     for section in model.SECTIONS:
         block = payload.get(section)
-        if block is not None and not isinstance(block, Mapping):
+        if block is not None and type(block) is not dict and not isinstance(block, Mapping):
             return True
     seed = payload.get("seed")
     return isinstance(seed, Mapping) and seed.get("method") is None and any(v is not None for v in seed.values())
@@ -105,8 +106,12 @@ def needs_single_check(payload: Mapping[str, Any]) -> bool:
 
 
 def comparable_payload(payload: Mapping[str, Any], taken_at: datetime) -> dict[str, Any]:
-    """The payload as compared for replays: taken_at as the UTC instant, in any offset written."""
-    return {**payload, "taken_at": format_utc(taken_at)}
+    """The payload as compared for replays: taken_at as the UTC instant, in any offset written
+    (the payload itself, not a copy, when it writes taken_at so already: the usual shot)."""
+    utc = format_utc(taken_at)
+    if type(payload) is dict and payload.get("taken_at") == utc:
+        return payload
+    return {**payload, "taken_at": utc}
 
 
 def stored_comparable(payload: Mapping[str, Any]) -> dict[str, Any]:
@@ -120,14 +125,20 @@ def canonical_json(value: Any) -> str:
 
     It is hashed for the digest and stored as it is in both raw_payload columns.
     """
+    return canonical_bytes(value).decode("utf-8")
+
+
+def canonical_bytes(value: Any) -> bytes:
+    """``canonical_json`` as UTF-8 bytes, the form hashed for the digest."""
     try:
         data = orjson.dumps(value, option=orjson.OPT_SORT_KEYS)
     except TypeError:
-        return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+        text = json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+        return text.encode("utf-8")
     # orjson writes NaN and infinity as null: where a null shows, look for them.
     if b"null" in data and _has_non_finite(value):
         raise ValueError("NaN or infinity is not allowed")
-    return data.decode("utf-8")
+    return data
 
 
 def _has_non_finite(value: Any) -> bool:
@@ -141,7 +152,12 @@ def _has_non_finite(value: Any) -> bool:
 
 
 def text_digest(text: str) -> str:
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+    return bytes_digest(text.encode("utf-8"))
+
+
+def bytes_digest(data: bytes) -> str:
+    """The digest of a canonical JSON text given as its UTF-8 bytes: sha256, hex."""
+    return hashlib.sha256(data).hexdigest()
 
 
 def payload_digest(comparable: Mapping[str, Any]) -> str:
@@ -198,8 +214,10 @@ def unknown_field_problems(payload: Mapping[str, Any], prefix: str = "") -> list
     problems: list[FieldProblem] = []
     for section, known in KNOWN_FIELDS.items():
         block = payload.get(section)
-        if not isinstance(block, Mapping):
+        if block is None or (type(block) is not dict and not isinstance(block, Mapping)):
             continue
+        if block.keys() <= _KNOWN_KEYS[section]:
+            continue  # the usual section: every key known
         for key in block:
             if key in known:
                 continue
@@ -441,15 +459,16 @@ def prepare_all(
             failing.add(i)
         comparable = comparable_payload(payload, envelope.taken_at) if envelope else dict(payload)
         try:
-            compared = canonical_json(comparable)
+            compared = canonical_bytes(comparable)
             # One text for the digest and the stored payload, unless taken_at was written another way.
-            text = compared if comparable.get("taken_at") == payload.get("taken_at") else canonical_json(payload)
+            same = comparable is payload or comparable.get("taken_at") == payload.get("taken_at")
+            text = compared.decode("utf-8") if same else canonical_json(payload)
         except ValueError:  # NaN or infinity somewhere; _physics names where
             non_finite.append(True)
             continue
         non_finite.append(False)
         if envelope is not None and i not in failing:
-            valid[i] = (envelope, comparable, text_digest(compared), text)
+            valid[i] = (envelope, comparable, bytes_digest(compared), text)
     inputs, physics_failing = _checked_inputs(
         [payloads[i] for i in objects], [f"shots.{i}" if batch else "" for i in objects], non_finite, out
     )

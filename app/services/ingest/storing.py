@@ -24,7 +24,7 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 import model
-from app.database import begin_write, run_write
+from app.database import begin_write, checkpoint_wal, defer_wal_checkpoint, run_write
 from app.errors import FieldProblem, InvalidInput, NotFound, ShotConflict
 from app.plain import float_list
 from app.services import alerts, metrics
@@ -162,17 +162,20 @@ def ingest_shots(
     batch: bool = True,
     max_future: timedelta = DEFAULT_MAX_FUTURE,
     alert_policy: alerts.AlertPolicy | None = None,
+    defer_checkpoint: bool = False,
 ) -> IngestResult:
     """Store and evaluate shots all-or-nothing, committed before returning.
 
     ``batch`` only changes how failing fields are named (``shots.<i>.<path>`` or ``<path>``);
+    with ``defer_checkpoint`` (the API's batches) the caller runs ``write_back_wal`` once it has
+    answered (app.database.defer_wal_checkpoint);
     ``max_future`` is how far past the server's clock a ``taken_at`` may lie; with an
     ``alert_policy`` (the API's requests), new shots matching the campaign's alert targets
     queue their deliveries in the same transaction (backlog imports and the demo pass none).
     Raises NotFound (campaign), InvalidInput (invalid shots), ShotConflict (conflicting payloads).
     """
     with cyclic_gc_paused():
-        return _ingest(session, campaign_slug, payloads, actor, batch, max_future, alert_policy)
+        return _ingest(session, campaign_slug, payloads, actor, batch, max_future, alert_policy, defer_checkpoint)
 
 
 def _ingest(
@@ -183,6 +186,7 @@ def _ingest(
     batch: bool,
     max_future: timedelta,
     alert_policy: alerts.AlertPolicy | None,
+    defer_checkpoint: bool,
 ) -> IngestResult:
     prepared = prepare_all(payloads, batch, max_future=max_future)
 
@@ -229,6 +233,8 @@ def _ingest(
         result = IngestResult(campaign=campaign)
         new = [s for s in unique if s.shot_id not in stored]
         if new:
+            if defer_checkpoint:
+                defer_wal_checkpoint(session)
             now = datetime.now(UTC)
             pks = shot_store.insert_shots(session, shot_columns(prepared, new, campaign.id, now))
             shot_store.insert_revisions(session, revision_columns(pks, new, 1, "first version", actor, now))
@@ -274,6 +280,11 @@ def _ingest(
     metrics.SHOTS_INGESTED.inc(result.count("created"))
     metrics.SHOTS_UNCHANGED.inc(result.count("unchanged") + result.count("duplicate_in_batch"))
     return result
+
+
+def write_back_wal(session: Session) -> None:
+    """After answering a batch stored with ``defer_checkpoint``: the WAL checkpoint its commit left."""
+    checkpoint_wal(session.get_bind().engine)
 
 
 # --- corrections ---------------------------------------------------------------------------------------
