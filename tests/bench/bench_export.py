@@ -2,7 +2,8 @@
 
 The shots are real model evaluations: varied invented shots (the model benchmark's mix, with
 notes, tags and a DAQ section) stored through the ingest service, this week and the week
-before, into a temporary SQLite database. Each format is then written by a fresh process
+before, into a scratch database (SQLite file, or `--backend postgresql`: a new PostgreSQL
+database dropped afterwards). Each format is then written by a fresh process
 (`--repo PATH`: another checkout's code, for "before" figures on the same database), counted
 from the query to the finished file as `wakeledger export` does it (weekly.exports.week_file +
 write_file; a checkout without it: build_weekly_summary + write_export_file): wall and CPU
@@ -11,11 +12,13 @@ before the export). `summary.csv` is the summary table (`--table summary`). Targ
 under 1 s per format, peak memory under 300 MB.
 
     .venv/bin/python tests/bench/bench_export.py [--shots 10000] [--repeat 3] [--repo PATH]
+        [--backend sqlite|postgresql]
 """
 
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import os
 import resource
@@ -28,6 +31,10 @@ from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parents[1]
+sys.path.insert(0, str(HERE))
+
+from served import scratch_database  # noqa: E402
+
 TARGET_S = 1.0
 TARGET_MB = 300.0
 WEEK = "2026-W47"
@@ -44,7 +51,6 @@ def rss_mb() -> float:
 def store(url: str, shots: int) -> None:
     """The campaign and two weeks of shots, through the ingest service (this checkout's)."""
     sys.path.insert(0, str(ROOT))
-    sys.path.insert(0, str(HERE))
     from bench_ingest import make_shots
 
     from app.database import make_engine, make_session_factory, upgrade_database
@@ -117,6 +123,7 @@ def main() -> None:
     parser.add_argument("--repeat", type=int, default=3)
     parser.add_argument("--repo", type=Path, default=ROOT, help="the checkout whose code writes the files")
     parser.add_argument("--database-url", help="reuse a database stored by an earlier run (kept)")
+    parser.add_argument("--backend", choices=("sqlite", "postgresql"), default="sqlite")
     parser.add_argument("--formats", help="comma-separated, e.g. csv,json (default: all and csv:summary)")
     parser.add_argument("--one", nargs=2, metavar=("FORMAT", "OUT"), help=argparse.SUPPRESS)  # the child
     args = parser.parse_args()
@@ -125,8 +132,9 @@ def main() -> None:
         print(json.dumps(one_format(args.database_url, args.one[0], Path(args.one[1]), args.repeat)))
         return
 
-    with tempfile.TemporaryDirectory(prefix="wakeledger-bench-") as tmp:
-        url = args.database_url or f"sqlite:///{tmp}/bench.db"
+    with contextlib.ExitStack() as scope:
+        tmp = scope.enter_context(tempfile.TemporaryDirectory(prefix="wakeledger-bench-"))
+        url = args.database_url or scope.enter_context(scratch_database(args.backend, Path(tmp)))
         if not args.database_url:
             t = time.perf_counter()
             store(url, args.shots)
