@@ -61,6 +61,10 @@ class Settings(BaseSettings):
     alert_attempts: int = Field(default=5, ge=1, le=20)
     alert_backoff_seconds: float = Field(default=10.0, ge=0)
     alerts_per_request: int = Field(default=20, ge=1)
+    # At start-up the server computes, in the background, the overview (counts and chart feeds)
+    # of this many campaigns with the latest shots, so the first viewer after a restart gets
+    # them from memory instead of waiting for a read of the whole campaign. 0: off.
+    warm_overview_campaigns: int = Field(default=3, ge=0)
 
     @field_validator("public_url")
     @classmethod

@@ -7,6 +7,7 @@ several app processes may serve behind one proxy.
 
 from __future__ import annotations
 
+import threading
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
@@ -30,6 +31,7 @@ from app.routers import (
 )
 from app.routers.guards import AuthenticateBeforeBody, BodySizeLimit, CompressPages, RefuseNulInUrl, ServedUnderPrefix
 from app.services import reevaluation
+from app.services.dashboard import overview
 from app.services.rate_limits import RateLimiter
 from app.version import VERSION
 
@@ -67,7 +69,17 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         # (queued once, under the campaign's lock, however many app processes start).
         with factory() as session:
             reevaluation.queue_model_upgrades(session)
+        warming = threading.Thread(
+            target=overview.warm_overviews,
+            args=(factory, settings.warm_overview_campaigns),
+            name="wakeledger-warm-overviews",
+            daemon=True,
+        )
+        if settings.warm_overview_campaigns:
+            warming.start()
         yield
+        if warming.is_alive():
+            warming.join(timeout=60)  # its reads hold connections the engine is about to close
         engine.dispose()
 
     app = FastAPI(

@@ -15,7 +15,8 @@ Databases
 - ``empty_database_url``: a database with no tables at all (for migration tests).
 
 App
-- ``settings``: app.config.Settings for ``database_url`` (demo mode off, no migration at start).
+- ``settings``: app.config.Settings for ``database_url`` (demo mode off, no migration at start;
+  no overview warm-up at start, as for every app and server the tests start).
 - ``app``: ``create_app(settings)``; ``client``: a starlette TestClient (lifespan run).
 - ``live_server``: base URL ("http://127.0.0.1:<port>") of a real uvicorn serving ``app``
   on a free loopback port, stopped after the test.
@@ -62,6 +63,9 @@ PG_ENV = "WAKELEDGER_TEST_POSTGRES_URL"
 BACKENDS_ENV = "WAKELEDGER_TEST_BACKENDS"
 REQUIRE_PG_ENV = "WAKELEDGER_REQUIRE_POSTGRES"
 PG_SKIP_REASON = f"PostgreSQL tests need {PG_ENV} (e.g. postgresql+psycopg://postgres@127.0.0.1:5432/postgres)"
+# No start-up warm-up of overviews in apps and servers the tests start (they inherit the
+# environment): a test reads what it asks for, when it asks; tests/dashboard turns it on.
+os.environ.setdefault("WAKELEDGER_WARM_OVERVIEW_CAMPAIGNS", "0")
 
 
 def _skip_postgres() -> None:

@@ -130,6 +130,13 @@ def latest_shot_pk(session: Session, campaign_id: int) -> int:
     return session.scalar(stmt) or 0
 
 
+def campaigns_by_latest_shot(session: Session, limit: int) -> list[Campaign]:
+    """The ``limit`` campaigns with shots whose latest shot is the newest, newest first (one
+    seek of the (campaign_id, id) index per campaign)."""
+    latest = select(func.max(Shot.id)).where(Shot.campaign_id == Campaign.id).scalar_subquery()
+    return list(session.scalars(select(Campaign).where(latest.is_not(None)).order_by(latest.desc()).limit(limit)))
+
+
 UNFINISHED_JOB_STATES = ("queued", "running")
 
 Marks = tuple[int, int, tuple[tuple[str, str, str, int], ...]]

@@ -6,6 +6,7 @@ change or a re-evaluation in between makes them read the campaign afresh. Nothin
 
 from __future__ import annotations
 
+import time
 from typing import Any
 
 import pytest
@@ -133,3 +134,44 @@ def test_a_queued_reevaluation_is_among_the_change_marks(app, seeded, client, ad
     run_queued_jobs(app)
     with app.state.session_factory() as session:
         assert store.change_marks(session, find_campaign(session, SLUG))[2] == ()
+
+
+def _forget_every_read() -> None:
+    for cache in (feed_reads._CAMPAIGNS, overview._FEEDS, overview._COUNTS):
+        cache.clear()
+
+
+def test_after_a_restart_the_first_viewer_gets_the_overview_the_server_warmed_and_it_equals_a_fresh_read(
+    app, seeded, thinned, reads_after
+):
+    _forget_every_read()  # as in a process just started
+    overview.warm_overviews(app.state.session_factory, campaigns=3)
+    reads_after.clear()
+    first_view = _overview(app)
+    assert reads_after == []  # every count and feed came from what the warm-up computed
+    assert first_view == _read_afresh(app)
+
+
+def test_the_server_warms_the_overviews_in_the_background_when_it_starts(seeded, settings):
+    from fastapi.testclient import TestClient
+
+    from app.main import create_app
+
+    _forget_every_read()
+    started = create_app(settings.model_copy(update={"warm_overview_campaigns": 1}))
+    try:
+        with TestClient(started):
+            deadline = time.monotonic() + 120  # the suite's bound for a loaded machine
+            while len(overview._FEEDS) < len(FEEDS) + 1 and time.monotonic() < deadline:
+                time.sleep(0.05)
+        assert {key[2] for key in overview._FEEDS} == {*FEEDS, "regime"}  # joined at shutdown: complete
+    finally:
+        started.state.engine.dispose()
+
+
+def test_a_failing_warm_up_is_logged_and_leaves_the_server_running(caplog):
+    def broken_factory():
+        raise RuntimeError("database unreachable")
+
+    overview.warm_overviews(broken_factory, campaigns=3)  # no exception
+    assert "warming the overviews failed" in caplog.text
