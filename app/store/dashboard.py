@@ -317,11 +317,13 @@ def status_rows(
     *,
     step: int,
     required: Sequence[ColumnElement[Any]] = (),
+    required_any: Sequence[Sequence[ColumnElement[Any]]] = (),
     upto_pk: int | None = None,
     after_pk: int | None = None,
 ) -> list[SeriesRow]:
-    """Every ``step``-th shot by key of one status that has the ``required`` columns, in time order, as
-    (taken_at, shot key, *columns); with ``after_pk``, of the shots stored after it only."""
+    """Every ``step``-th shot by key of one status that has the ``required`` columns (and, given
+    ``required_any``, all the columns of at least one of those sets), in time order, as (taken_at,
+    shot key, *columns); with ``after_pk``, of the shots stored after it only."""
     stmt = (
         _evaluated(campaign_id, after_pk)
         .where(
@@ -329,11 +331,19 @@ def status_rows(
             *_one_in(step),  # decided in the index, before a row is read
             *_upto(upto_pk, after_pk),
             *(c.is_not(None) for c in required),
+            *_having_any(required_any),
         )
         .with_only_columns(_TIME_ORDER, Shot.id, *columns)
         .order_by(Shot.taken_at, Shot.id)
     )
     return _plain_rows(session, stmt)
+
+
+def _having_any(sets: Sequence[Sequence[ColumnElement[Any]]]) -> list[ColumnElement[bool]]:
+    """Rows with every column of at least one of ``sets`` set (none asked, or an empty set: every row)."""
+    if not sets or any(not columns for columns in sets):
+        return []
+    return [or_(*(and_(*(c.is_not(None) for c in columns)) for columns in sets))]
 
 
 def series_of_rows(

@@ -175,3 +175,37 @@ def test_a_failing_warm_up_is_logged_and_leaves_the_server_running(caplog):
 
     overview.warm_overviews(broken_factory, campaigns=3)  # no exception
     assert "warming the overviews failed" in caplog.text
+
+
+def test_charts_that_thin_alike_share_one_read_and_draw_exactly_what_their_own_reads_draw(
+    app, seeded, client, admin_headers, make_shot, thinned, monkeypatch
+):
+    later = page_shots(make_shot, count=40)[36:]
+    later[0].pop("measured")  # no measured phase or frequency: the phase chart and the calibration map leave it out
+    later[1]["measured"].pop("modulation_phase_rad")  # a frequency but no phase
+    for shot in later:
+        _post(client, admin_headers, shot)
+    reads: list[str] = []
+    reading = store.status_rows
+
+    def recorded(*args, **kwargs):
+        reads.append(args[2])
+        return reading(*args, **kwargs)
+
+    monkeypatch.setattr(store, "status_rows", recorded)
+    _forget_every_read()
+    shown = _overview(app)
+    shared_reads = len(reads)
+    with app.state.session_factory() as session:
+        campaign = find_campaign(session, SLUG)
+        cursor = shown["timeline"]["cursor"]
+        reads.clear()
+        own = {  # each chart through its own reads (DirectReader), now
+            "timeline": figures.timeline_figure(session, campaign, upto_pk=cursor),
+            "phase": figures.phase_figure(session, campaign, upto_pk=cursor),
+            "calibration": figures.calibration_figure(session, campaign, upto_pk=cursor),
+            "regime": figures.regime_figure(session, campaign, *figures.DEFAULT_REGIME_AXES, upto_pk=cursor),
+        }
+    for name, figure in own.items():
+        assert shown[name]["figure"] == figure, name
+    assert shared_reads < len(reads)  # 3 statuses x 4 charts read separately; alike ones shared

@@ -23,7 +23,7 @@ from app.presentation.charts import axis, layout, padded, robust_range, text_for
 from app.presentation.fields import field_label, short_label
 from app.presentation.numbers import format_number
 from app.presentation.palette import INK, OKABE_ITO, SEVERITY_STYLES, STATUS_STYLES, rgba
-from app.services.dashboard.feed_reads import DirectReader, Reader
+from app.services.dashboard.feed_reads import DirectReader, Reader, SeriesRequest
 from app.services.ingest.evaluation import model_columns
 from app.services.phase_spread import (
     JITTER_SOURCES,
@@ -225,33 +225,47 @@ class _StatusSeries:
     series: store.Series
 
 
+def timeline_series() -> SeriesRequest:
+    """The timeline's read: every panel's field, nominal shots and flagged shots thinned apart."""
+    return SeriesRequest(
+        ("shot_id", "taken_at", *TIMELINE_FIELDS), (), TIMELINE_NOMINAL_POINTS, TIMELINE_FLAGGED_POINTS
+    )
+
+
+def phase_series() -> SeriesRequest:
+    """The phase chart's points: the shots with a measured phase."""
+    return SeriesRequest(
+        ("shot_id", "taken_at", PHASE_FIELD), (PHASE_FIELD,), TIMELINE_NOMINAL_POINTS, FLAGGED_POINTS_CAP
+    )
+
+
+def map_series(x: str, y: str) -> SeriesRequest:
+    """A map's points (no time axis): the shots with both values."""
+    return SeriesRequest(("shot_id", *dict.fromkeys((x, y))), (x, y), SCATTER_NOMINAL_POINTS, FLAGGED_POINTS_CAP)
+
+
 def _series_by_status(
     session: Session,
     campaign: Campaign,
-    columns: Sequence[str],
+    request: SeriesRequest,
     *,
-    nominal_points: int,
-    required: Sequence[str] = (),
     upto_pk: int | None = None,
-    flagged_points: int = FLAGGED_POINTS_CAP,
     totals: dict[str, int] | None = None,
-    with_time: bool = True,
     reader: Reader | None = None,
 ) -> list[_StatusSeries]:
-    """Nominal shots thinned to ``nominal_points``; flagged shots all kept up to a cap, in time
-    order (``taken_at`` among the columns unless ``with_time`` is false: a map has no time axis).
-    ``totals``: the shots per status that have the ``required`` values, when already counted."""
+    """Each status's shots as ``request`` reads them: nominal shots thinned to its nominal points,
+    flagged shots all kept up to its flagged points, in time order. ``totals``: the shots per
+    status that have the request's values, when already counted."""
     reader = _reader(session, campaign, upto_pk, reader)
-    wanted = ["shot_id", "taken_at", *columns] if with_time else ["shot_id", *columns]
     if totals is None:
-        totals = reader.value_counts({"": tuple(required)})[""]
+        totals = reader.value_counts({"": request.required})[""]
     out = []
     for status in model.STATUSES:
-        total = totals.get(status, 0)
-        max_points = nominal_points if status == "nominal" else flagged_points
-        step = store.thinning_step(total, max_points)
-        rows = reader.series_rows(status, wanted, step=step, required=required)
-        series = store.series_of_rows(rows, wanted, total=total, step=step, max_points=max_points)
+        step = request.step(status, totals)
+        rows = reader.series_rows(status, request.columns, step=step, required=request.required)
+        series = store.series_of_rows(
+            rows, request.columns, total=totals.get(status, 0), step=step, max_points=request.points(status)
+        )
         out.append(_StatusSeries(status, series))
     return out
 
@@ -353,16 +367,7 @@ def timeline_figure(
     """Key conditions against time, one panel each: nominal shots as a thin line, flagged shots
     marked by shape and colour, robust ranges (one wild value or date cannot flatten a panel)."""
     zone = campaign_zone(campaign.timezone)
-    by_status = _series_by_status(
-        session,
-        campaign,
-        TIMELINE_FIELDS,
-        nominal_points=TIMELINE_NOMINAL_POINTS,
-        upto_pk=upto_pk,
-        flagged_points=TIMELINE_FLAGGED_POINTS,
-        totals=totals,
-        reader=reader,
-    )
+    by_status = _series_by_status(session, campaign, timeline_series(), upto_pk=upto_pk, totals=totals, reader=reader)
     panels = len(TIMELINE_FIELDS)
     gap = 0.04
     height = (1 - gap * (panels - 1)) / panels
@@ -473,17 +478,7 @@ def _status_map(
 ) -> _StatusMap:
     """Shots by status on robust ranges (a wild value is pinned at the edge and marked); many
     nominal shots as a density, many flagged shots one marker per cell (module constants)."""
-    by_status = _series_by_status(
-        session,
-        campaign,
-        tuple(dict.fromkeys((x, y))),
-        nominal_points=SCATTER_NOMINAL_POINTS,
-        required=(x, y),
-        upto_pk=upto_pk,
-        totals=totals,
-        with_time=False,
-        reader=reader,
-    )
+    by_status = _series_by_status(session, campaign, map_series(x, y), upto_pk=upto_pk, totals=totals, reader=reader)
     xs = {item.status: rounded_list(item.series.columns[x]) for item in by_status}
     ys = {item.status: rounded_list(item.series.columns[y]) for item in by_status}
     x_lim = robust_range([v for values in xs.values() for v in values if v is not None])
@@ -682,16 +677,7 @@ def phase_figure(
     """
     zone = campaign_zone(campaign.timezone)
     data = data if data is not None else phase_data(session, campaign, upto_pk, reader=reader)
-    by_status = _series_by_status(
-        session,
-        campaign,
-        (PHASE_FIELD,),
-        nominal_points=TIMELINE_NOMINAL_POINTS,
-        required=(PHASE_FIELD,),
-        upto_pk=upto_pk,
-        totals=data.totals,
-        reader=reader,
-    )
+    by_status = _series_by_status(session, campaign, phase_series(), upto_pk=upto_pk, totals=data.totals, reader=reader)
     groups = phase_groups(session, data)
     traces: list[dict[str, Any]] = []
     centres, upper, lower, measured_rms, expected = [], [], [], [], []

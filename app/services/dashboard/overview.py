@@ -18,7 +18,7 @@ from app.errors import InvalidInput
 from app.plain import rounded
 from app.presentation.fields import field_label
 from app.presentation.numbers import MISSING, format_number
-from app.services.dashboard.feed_reads import CachedReader, campaign_marks, campaign_reads
+from app.services.dashboard.feed_reads import CachedReader, SeriesRequest, campaign_marks, campaign_reads
 from app.services.dashboard.figures import (
     CALIBRATION_FIELDS,
     DEFAULT_REGIME_AXES,
@@ -31,11 +31,14 @@ from app.services.dashboard.figures import (
     calibration_summary,
     flag_code_counts,
     flag_figure,
+    map_series,
     phase_data,
     phase_figure,
+    phase_series,
     phase_summary,
     regime_figure,
     timeline_figure,
+    timeline_series,
 )
 from app.services.dashboard.table import TABLE_NOTES_CHARS, TABLE_VALUE_COLUMNS
 from app.services.phase_spread import JITTER_SOURCE_NAMES, JITTER_SOURCES, NEIGHBOUR_WINDOW_SHOTS
@@ -213,10 +216,23 @@ _COUNTED_VALUES: dict[str, tuple[str, ...]] = {
 }
 
 
+def _page_series() -> dict[str, SeriesRequest]:
+    """The series the feeds of a page read, by the name of their value counts (series that thin
+    alike share one read, feed_reads)."""
+    return {
+        "timeline": timeline_series(),
+        "phase": phase_series(),
+        "calibration": map_series(*CALIBRATION_FIELDS),
+        "regime": map_series(*DEFAULT_REGIME_AXES),
+    }
+
+
 def _chart_feed(
     session: Session, campaign: Campaign, name: str, marks: tuple[Any, ...], **params: Any
 ) -> dict[str, Any]:
-    reader = CachedReader(session, campaign, campaign_reads(session, campaign, marks))
+    reader = CachedReader(
+        session, campaign, campaign_reads(session, campaign, marks), shared=_page_series(), counted=_COUNTED_VALUES
+    )
     cursor = reader.reads.upto_pk
     if name == "regime" and (params["x"], params["y"]) != DEFAULT_REGIME_AXES:
         # Counted and read for itself, and not kept: the reads of every pair a viewer looks at would pile up.
