@@ -528,7 +528,7 @@ class TextProgressBar:
 
 
 def _export_args(p: argparse.ArgumentParser) -> None:
-    from app.services.weekly.table import EXPORT_FORMATS, EXPORT_TABLES
+    from app.services.weekly.formats import EXPORT_FORMATS, EXPORT_TABLES
 
     p.add_argument("--campaign", required=True, metavar="SLUG")
     p.add_argument(
@@ -560,7 +560,7 @@ def export(args: argparse.Namespace, settings: Settings) -> int:
     from app.database import make_engine, make_session_factory
     from app.errors import NotFound
     from app.services.weekly.exports import week_file, week_problems
-    from app.services.weekly.table import EXPORT_FORMATS
+    from app.services.weekly.formats import EXPORT_FORMATS
 
     def fail(message: str, code: int = 2) -> int:
         print(f"wakeledger export: error: {message}", file=sys.stderr)

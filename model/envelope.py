@@ -50,7 +50,6 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy.optimize import minimize_scalar
 
 from model import quadrature
 from model.evaluate import evaluate_shot, growth_along_plasma
@@ -594,6 +593,10 @@ def fit_efolds(z: np.ndarray, delta: np.ndarray, n_closed: np.ndarray) -> tuple[
         shape = log_z2 + log_series_magnitude(kappa * n)
         a = float(np.mean(y - shape))
         return float(np.sum((y - shape - a) ** 2)), a
+
+    # Imported here: scipy.optimize takes ~0.3 s to import, which every process that imports
+    # the model (the server, workers, each command) would otherwise pay for this one fit.
+    from scipy.optimize import minimize_scalar
 
     best = minimize_scalar(lambda k: residual(k)[0], bounds=(0.05, 20.0), method="bounded", options={"xatol": 1e-6})
     return float(best.x), residual(float(best.x))[1]

@@ -20,10 +20,9 @@ from sqlalchemy.orm import Session
 from app.errors import FieldProblem, InvalidInput
 from app.services.campaigns import require_campaign
 from app.services.files import write_atomically
+from app.services.weekly.formats import EXPORT_FORMATS, EXPORT_TABLES
 from app.services.weekly.summary import build_weekly_summary, export_file_name, week_shots
 from app.services.weekly.table import (
-    EXPORT_FORMATS,
-    EXPORT_TABLES,
     Progress,
     write_export,
     write_shots_csv,

@@ -24,6 +24,7 @@ from app.advisory import ADVISORY_CAUTION
 from app.plain import plain
 from app.presentation.csv_writer import write_csv
 from app.services.export_table import ShotTable, arrow_table, csv_columns, record_json, units_document
+from app.services.weekly.formats import EXPORT_FORMATS
 from app.services.weekly.report import render_html
 from app.services.weekly.summary import REASON_SEVERITIES, WeeklySummary, collector_paused, flagged_rows
 from app.services.weekly.summary_rows import summary_csv_columns
@@ -31,8 +32,6 @@ from app.times import campaign_zone, iso_text, utc_texts
 
 Progress = Callable[[int, int], None]
 
-EXPORT_FORMATS = ("csv", "json", "html", "parquet")
-EXPORT_TABLES = ("shots", "summary")  # a CSV's rows: one per shot, or one per figure of the summary
 MEDIA_TYPES = {
     "csv": "text/csv; charset=utf-8",
     "json": "application/json",
