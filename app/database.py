@@ -33,6 +33,9 @@ _SQLITE_BEGIN = "wakeledger_sqlite_begin"
 # Connection info flag: the WAL autocheckpoint is off until the connection's next transaction begins.
 _CHECKPOINT_DEFERRED = "wakeledger_checkpoint_deferred"
 SQLITE_AUTOCHECKPOINT_PAGES = 1000  # SQLite's own default
+# Statement execution option: PostgreSQL sends the result rows in binary (the bulk reads of
+# app.store.exports: floats and integers arrive as 8 bytes, not as text to parse).
+BINARY_ROWS = "wakeledger_binary_rows"
 log = logging.getLogger(__name__)
 
 
@@ -80,7 +83,16 @@ def make_engine(url: str) -> Engine:
             conn.exec_driver_sql(f"BEGIN {mode}")
 
         return engine
-    return create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=10, **_JSON)
+    from psycopg.pq import Format  # here: a SQLite deployment never loads the driver
+
+    engine = create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=10, **_JSON)
+
+    @event.listens_for(engine, "before_cursor_execute")
+    def _binary_rows(conn, cursor, statement, parameters, context, executemany):  # pragma: no cover - trivial
+        if context is not None and context.execution_options.get(BINARY_ROWS):
+            cursor.format = Format.BINARY
+
+    return engine
 
 
 def make_session_factory(engine: Engine) -> sessionmaker[Session]:

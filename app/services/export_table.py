@@ -91,7 +91,7 @@ class ShotFlags:
         order = np.flatnonzero(known)
         if order.size < len(flags) or np.any(np.diff(row[order]) < 0):
             order = order[np.argsort(row[order], kind="stable")]  # shots not read in key order
-            flags = _taken(flags, order)
+            flags = flags.taken(order)
             row = row[order]
         start = np.zeros(n + 1, dtype=np.int64)
         np.cumsum(np.bincount(row, minlength=n), out=start[1:])
@@ -128,18 +128,6 @@ class ShotFlags:
             )
         ]
         return self.per_shot(every)
-
-
-def _taken(flags: FlagColumns, order: np.ndarray) -> FlagColumns:
-    picks = order.tolist()
-    return FlagColumns(
-        flags.shot_pk[order],
-        [flags.code[j] for j in picks],
-        [flags.severity[j] for j in picks],
-        flags.value[order],
-        flags.limit[order],
-        [flags.message[j] for j in picks],
-    )
 
 
 @dataclass
