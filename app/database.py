@@ -136,7 +136,7 @@ def read_meanwhile(read: Session, work: Callable[[Session], T]) -> Iterator[Call
 
     PostgreSQL: ``work`` runs in a thread on a second session whose transaction imports the
     snapshot (``pg_export_snapshot``), so the server answers its queries while this process
-    works on other rows (a weekly export waited a quarter of its time for the server).
+    works on other rows (a weekly export waited a quarter of its time for the server, query after query).
     SQLite: ``work`` runs on ``read`` when its result is first asked for (one process does all).
     """
     engine = read.get_bind().engine

@@ -126,7 +126,7 @@ def fetch_shot_rows(session: Session, stmt: Select[Any]) -> dict[str, list[Any]]
     return _columns(list(result.keys()), result.all())
 
 
-def iter_shot_rows(session: Session, stmt: Select[Any], chunk: int = 2000) -> Iterator[dict[str, list[Any]]]:
+def iter_shot_rows(session: Session, stmt: Select[Any], chunk: int = 1000) -> Iterator[dict[str, list[Any]]]:
     """The rows of ``shot_rows_query`` (or of any select) column-wise, ``chunk`` rows at a time (a
     server-side cursor where the driver has one): memory stays flat; at least one (possibly empty) chunk.
     The options go on the statement: ``Connection.execution_options`` would change the session's
@@ -249,7 +249,7 @@ def fetch_flags(session: Session, conditions: Sequence[ColumnElement[bool]]) -> 
     # as reading them; numpy orders them by shot key, then flag key (the rules' order) instead.
     stmt = select(*columns).join(Shot, Shot.id == Flag.shot_pk).where(*conditions)
     parts, keys = [], []
-    for c in iter_shot_rows(session, stmt, chunk=10_000):
+    for c in iter_shot_rows(session, stmt, chunk=2000):
         parts.append(FlagColumns.of_lists(c["shot_pk"], c["code"], c["severity"], c["value"], c["limit"], c["message"]))
         keys.append(np.array(c["id"], dtype=np.int64).reshape(-1))
     flags = FlagColumns.concatenated(parts)

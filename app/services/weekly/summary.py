@@ -345,28 +345,23 @@ class _WeekFigures:
     ranges: list[QuantityRange]
 
 
-@dataclass
-class _PreviousWeekRead:
-    shots: ShotTable  # the key conditions and outputs only
-    flag_counts: list[tuple[str, str, int]]
-
-
-def _read_previous_week(session: Session, window: list[Any]) -> _PreviousWeekRead:
+def _read_previous_week(session: Session, window: list[Any]) -> ShotTable:
+    """The previous week's shots: the key conditions and outputs only."""
     stmt = export_store.shot_rows_query(
         window,
         input_columns=[model.column_name(k) for k in KEY_CONDITIONS],
         output_columns=list(KEY_OUTPUTS),
         details=False,
     )
-    shots = ShotTable.from_chunks(export_store.iter_shot_rows(session, stmt))
-    return _PreviousWeekRead(shots, export_store.count_flags(session, window))
+    return ShotTable.from_chunks(export_store.iter_shot_rows(session, stmt))
 
 
-def _previous_week(prev: IsoWeek, read: _PreviousWeekRead, current: _WeekFigures) -> WeekComparison:
+def _previous_week(
+    prev: IsoWeek, shots: ShotTable, codes_severities_shots: list[tuple[str, str, int]], current: _WeekFigures
+) -> WeekComparison:
     keys = KEY_CONDITIONS + KEY_OUTPUTS
-    shots = read.shots
     counts = status_counts(shots.status)
-    flags = _shot_count_per_code(flag_counts(read.flag_counts))
+    flags = _shot_count_per_code(flag_counts(codes_severities_shots))
     medians = {k: _median(shots.values(k)) for k in keys}
     cur_flags = _shot_count_per_code(current.flag_counts)
     status_keys = list(dict.fromkeys([*current.status_counts, *counts]))
@@ -396,8 +391,10 @@ def build_weekly_summary(
 def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, now: datetime | None) -> WeeklySummary:
     zone = campaign_zone(campaign.timezone)
     prev_window = _week_window(campaign, week.previous())
-    # The previous week is read meanwhile (PostgreSQL: on a second connection, same snapshot).
-    with read_meanwhile(session, lambda read: _read_previous_week(read, prev_window)) as previous:
+    # The previous week's flags are counted meanwhile (PostgreSQL: on a second connection of the same
+    # snapshot; the server's longest query of a summary, with a result of a few rows, while this
+    # process reads and computes the week).
+    with read_meanwhile(session, lambda read: export_store.count_flags(read, prev_window)) as previous_flags:
         shots = load_week_shots(session, campaign, week)
         figures = _WeekFigures(
             shot_count=len(shots),
@@ -411,7 +408,9 @@ def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, n
             session, campaign.slug, start_local.astimezone(UTC), end_local.astimezone(UTC), week=shots
         )
         excluded_count = export_store.count_shots(session, _week_window(campaign, week, "only"))
-        comparison = _previous_week(week.previous(), previous(), figures)
+        comparison = _previous_week(
+            week.previous(), _read_previous_week(session, prev_window), previous_flags(), figures
+        )
     return WeeklySummary(
         campaign_slug=campaign.slug,
         campaign_name=campaign.name,
