@@ -162,8 +162,10 @@ def _json_object(raw: Any) -> dict[str, Any]:
         payload = orjson.loads(raw)
     except orjson.JSONDecodeError:
         return json.loads(raw)
-    if isinstance(payload, dict) and any(_may_be_rounded(v) for k, v in payload.items() if k not in _MODEL_SECTIONS):
-        return json.loads(raw)
+    if isinstance(payload, dict):
+        for key, value in payload.items():
+            if type(value) is not str and key not in _MODEL_SECTIONS and _may_be_rounded(value):
+                return json.loads(raw)
     return payload
 
 
