@@ -11,12 +11,14 @@ from __future__ import annotations
 
 import json
 import logging
+import re
 import sqlite3
 import threading
 import time
 import zlib
 from collections import deque
 from collections.abc import Callable, Iterator
+from concurrent.futures import ThreadPoolExecutor
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any, TypeVar
@@ -33,6 +35,9 @@ _SQLITE_BEGIN = "wakeledger_sqlite_begin"
 # Connection info flag: the WAL autocheckpoint is off until the connection's next transaction begins.
 _CHECKPOINT_DEFERRED = "wakeledger_checkpoint_deferred"
 SQLITE_AUTOCHECKPOINT_PAGES = 1000  # SQLite's own default
+# Statement execution option: PostgreSQL sends the result rows in binary (the bulk reads of
+# app.store.exports: floats and integers arrive as 8 bytes, not as text to parse).
+BINARY_ROWS = "wakeledger_binary_rows"
 log = logging.getLogger(__name__)
 
 
@@ -80,7 +85,16 @@ def make_engine(url: str) -> Engine:
             conn.exec_driver_sql(f"BEGIN {mode}")
 
         return engine
-    return create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=10, **_JSON)
+    from psycopg.pq import Format  # here: a SQLite deployment never loads the driver
+
+    engine = create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=10, **_JSON)
+
+    @event.listens_for(engine, "before_cursor_execute")
+    def _binary_rows(conn, cursor, statement, parameters, context, executemany):  # pragma: no cover - trivial
+        if context is not None and context.execution_options.get(BINARY_ROWS):
+            cursor.format = Format.BINARY
+
+    return engine
 
 
 def make_session_factory(engine: Engine) -> sessionmaker[Session]:
@@ -110,6 +124,44 @@ def snapshot_read(session: Session) -> Iterator[Session]:
     with Session(engine) as read:
         read.connection(execution_options={"isolation_level": "REPEATABLE READ"})
         yield read
+
+
+_SNAPSHOT_ID = re.compile(r"[0-9A-Fa-f-]+")
+
+
+@contextmanager
+def read_meanwhile(read: Session, work: Callable[[Session], T]) -> Iterator[Callable[[], T]]:
+    """Run ``work`` (reads) on the snapshot of ``read`` (a ``snapshot_read`` session) while the
+    caller goes on reading; yields the function that returns its result.
+
+    PostgreSQL: ``work`` runs in a thread on a second session whose transaction imports the
+    snapshot (``pg_export_snapshot``), so the server answers its queries while this process
+    works on other rows (a weekly export waited a quarter of its time for the server, query after query).
+    SQLite: ``work`` runs on ``read`` when its result is first asked for (one process does all).
+    """
+    engine = read.get_bind().engine
+    if engine.dialect.name != "postgresql":
+        results: list[T] = []
+
+        def result() -> T:
+            if not results:
+                results.append(work(read))
+            return results[0]
+
+        yield result
+        return
+    snapshot = read.connection().exec_driver_sql("SELECT pg_export_snapshot()").scalar_one()
+    if not _SNAPSHOT_ID.fullmatch(snapshot):  # it is written into the statement below
+        raise ValueError(f"unexpected snapshot id {snapshot!r}")
+
+    def on_snapshot() -> T:
+        with Session(engine) as beside:
+            connection = beside.connection(execution_options={"isolation_level": "REPEATABLE READ"})
+            connection.exec_driver_sql(f"SET TRANSACTION SNAPSHOT '{snapshot}'")
+            return work(beside)
+
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="read-meanwhile") as pool:
+        yield pool.submit(on_snapshot).result
 
 
 class WriterQueueTimeout(Exception):

@@ -91,7 +91,7 @@ class ShotFlags:
         order = np.flatnonzero(known)
         if order.size < len(flags) or np.any(np.diff(row[order]) < 0):
             order = order[np.argsort(row[order], kind="stable")]  # shots not read in key order
-            flags = _taken(flags, order)
+            flags = flags.taken(order)
             row = row[order]
         start = np.zeros(n + 1, dtype=np.int64)
         np.cumsum(np.bincount(row, minlength=n), out=start[1:])
@@ -128,18 +128,6 @@ class ShotFlags:
             )
         ]
         return self.per_shot(every)
-
-
-def _taken(flags: FlagColumns, order: np.ndarray) -> FlagColumns:
-    picks = order.tolist()
-    return FlagColumns(
-        flags.shot_pk[order],
-        [flags.code[j] for j in picks],
-        [flags.severity[j] for j in picks],
-        flags.value[order],
-        flags.limit[order],
-        [flags.message[j] for j in picks],
-    )
 
 
 @dataclass
@@ -212,6 +200,9 @@ class ShotTable:
 
     @classmethod
     def _joined(cls, parts: Sequence[ShotTable]) -> ShotTable:
+        """The parts as one table; their input and output columns are dropped from them as they are
+        joined (one column at a time held twice, not the week's 7 MB of numbers)."""
+
         def arrays(pick: Any) -> np.ndarray:
             return np.concatenate([pick(p) for p in parts])
 
@@ -229,8 +220,8 @@ class ShotTable:
             model_version=lists(lambda p: p.model_version),
             settings_version=lists(lambda p: p.settings_version),
             status=arrays(lambda p: p.status),
-            inputs={path: arrays(lambda p, path=path: p.inputs[path]) for path in first.inputs},
-            outputs={name: arrays(lambda p, name=name: p.outputs[name]) for name in first.outputs},
+            inputs={path: arrays(lambda p, path=path: p.inputs.pop(path)) for path in list(first.inputs)},
+            outputs={name: arrays(lambda p, name=name: p.outputs.pop(name)) for name in list(first.outputs)},
             flags=first.flags,
             extras=lists(lambda p: p.extras),
             excluded_at=lists(lambda p: p.excluded_at),

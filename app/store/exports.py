@@ -16,10 +16,11 @@ from typing import Any, NamedTuple
 
 import numpy as np
 import orjson
-from sqlalchemy import ColumnElement, Select, Text, distinct, func, select, type_coerce
+from sqlalchemy import ColumnElement, Select, Text, cast, distinct, func, select
 from sqlalchemy.orm import Session
 
 import model
+from app.database import BINARY_ROWS
 from app.store.exclusions import counted
 from app.tables import Evaluation, Flag, Shot
 
@@ -87,14 +88,15 @@ def shot_rows_query(
             Shot.taken_at,
             Shot.revision,
             Shot.notes,
-            # Raw JSON text: most shots have no tags, and decoding 10,000 "[]" through the
-            # JSON type costs more than the rest of the row.
-            type_coerce(Shot.tags, Text).label("tags"),
+            # Raw JSON text, cast in SQL (psycopg would decode a PostgreSQL json column itself,
+            # with the standard parser): most shots have no tags, and decoding 10,000 "[]"
+            # through the JSON type costs more than the rest of the row.
+            cast(Shot.tags, Text).label("tags"),
             Evaluation.model_version,
             Evaluation.settings_version,
         ]
     if payloads:
-        meta.append(type_coerce(Shot.raw_payload, Text).label("raw_payload"))
+        meta.append(cast(Shot.raw_payload, Text).label("raw_payload"))
     if exclusion:
         meta += [Shot.excluded_at, Shot.excluded_reason]
     shot_cols = [Shot.__table__.c[name] for name in input_columns]
@@ -124,12 +126,13 @@ def fetch_shot_rows(session: Session, stmt: Select[Any]) -> dict[str, list[Any]]
     return _columns(list(result.keys()), result.all())
 
 
-def iter_shot_rows(session: Session, stmt: Select[Any], chunk: int = 2000) -> Iterator[dict[str, list[Any]]]:
+def iter_shot_rows(session: Session, stmt: Select[Any], chunk: int = 1000) -> Iterator[dict[str, list[Any]]]:
     """The rows of ``shot_rows_query`` (or of any select) column-wise, ``chunk`` rows at a time (a
     server-side cursor where the driver has one): memory stays flat; at least one (possibly empty) chunk.
-    The option goes on the statement: ``Connection.execution_options`` would change the session's
-    connection in place and buffer every later result read on it."""
-    result = session.connection().execute(stmt.execution_options(yield_per=chunk))
+    The options go on the statement: ``Connection.execution_options`` would change the session's
+    connection in place and buffer every later result read on it. PostgreSQL sends the rows in
+    binary (``app.database.BINARY_ROWS``): parsing 900,000 floats from text cost more than the query."""
+    result = session.connection().execute(stmt.execution_options(yield_per=chunk, **{BINARY_ROWS: True}))
     keys = list(result.keys())
     empty = True
     for part in result.partitions():
@@ -148,14 +151,38 @@ def _json_list(raw: Any) -> list[str]:
 
 
 def _json_object(raw: Any) -> dict[str, Any]:
+    """A shot's raw payload decoded (orjson), with the integers beyond 64 bits of the sections beside
+    the model's exact: orjson reads those as floats, so such a shot is decoded again by the standard
+    parser. (The model's own sections are read from their columns; they are not searched.)"""
     if isinstance(raw, dict):
         return raw
     if not raw:
         return {}
     try:
-        return orjson.loads(raw)
-    except orjson.JSONDecodeError:  # an integer beyond 64 bits: the standard parser keeps it
+        payload = orjson.loads(raw)
+    except orjson.JSONDecodeError:
         return json.loads(raw)
+    if isinstance(payload, dict):
+        for key, value in payload.items():
+            if type(value) is not str and key not in _MODEL_SECTIONS and _may_be_rounded(value):
+                return json.loads(raw)
+    return payload
+
+
+_MODEL_SECTIONS = frozenset(model.SECTIONS)
+_BEYOND_64_BITS = 2.0**63  # orjson keeps integers in [-2**63, 2**64) exact
+
+
+def _may_be_rounded(value: Any) -> bool:
+    """Whether a decoded value holds a float as large as an integer beyond 64 bits read by orjson."""
+    kind = type(value)
+    if kind is float:
+        return abs(value) >= _BEYOND_64_BITS
+    if kind is dict:
+        return any(map(_may_be_rounded, value.values()))
+    if kind is list:
+        return any(map(_may_be_rounded, value))
+    return False
 
 
 @dataclass(frozen=True)
@@ -185,6 +212,18 @@ class FlagColumns:
             list(message),
         )
 
+    def taken(self, order: np.ndarray) -> FlagColumns:
+        """The flags at the positions ``order``, in that order."""
+        picks = order.tolist()
+        return FlagColumns(
+            self.shot_pk[order],
+            [self.code[j] for j in picks],
+            [self.severity[j] for j in picks],
+            self.value[order],
+            self.limit[order],
+            [self.message[j] for j in picks],
+        )
+
     @classmethod
     def empty(cls) -> FlagColumns:
         return cls.of_lists([], [], [], [], [], [])
@@ -204,17 +243,20 @@ class FlagColumns:
 
 
 def fetch_flags(session: Session, conditions: Sequence[ColumnElement[bool]]) -> FlagColumns:
-    """Every flag of the current evaluations of the shots matching ``conditions``, by shot (in taken_at
-    order) then rule order."""
-    columns: list[Any] = [Flag.shot_pk, Flag.code, Flag.severity, Flag.value, Flag.limit.label("limit"), Flag.message]
-    # In the shots' own order (their index) then rule order: the flags need no sort of their own.
-    order = (Shot.taken_at, Shot.id, Flag.id)
-    stmt = select(*columns).join(Shot, Shot.id == Flag.shot_pk).where(*conditions).order_by(*order)
-    parts = [
-        FlagColumns.of_lists(c["shot_pk"], c["code"], c["severity"], c["value"], c["limit"], c["message"])
-        for c in iter_shot_rows(session, stmt, chunk=10_000)
-    ]
-    return FlagColumns.concatenated(parts)
+    """Every flag of the current evaluations of the shots matching ``conditions``, by shot key then
+    rule order (``ShotFlags.of_shots`` puts them in a table's row order)."""
+    columns: list[Any] = [Flag.shot_pk, Flag.id, Flag.code, Flag.severity, Flag.value, Flag.limit.label("limit"),
+                          Flag.message]  # fmt: skip
+    # No ORDER BY: PostgreSQL's sort of a week's 40,000 joined flags (spilled to disk) cost as much
+    # as reading them; numpy orders them by shot key, then flag key (the rules' order) instead.
+    stmt = select(*columns).join(Shot, Shot.id == Flag.shot_pk).where(*conditions)
+    parts, keys = [], []
+    for c in iter_shot_rows(session, stmt, chunk=2000):
+        parts.append(FlagColumns.of_lists(c["shot_pk"], c["code"], c["severity"], c["value"], c["limit"], c["message"]))
+        keys.append(np.array(c["id"], dtype=np.int64).reshape(-1))
+    flags = FlagColumns.concatenated(parts)
+    order = np.lexsort((np.concatenate(keys), flags.shot_pk))
+    return flags.taken(order) if np.any(np.diff(order) < 0) else flags
 
 
 def fetch_flags_of(session: Session, shot_pks: Sequence[int]) -> FlagColumns:
@@ -240,7 +282,7 @@ def iter_payloads(
 ) -> Iterator[dict[str, Any]]:
     """The raw payloads of the shots matching ``conditions`` (any order), one at a time."""
     stmt = (
-        select(type_coerce(Shot.raw_payload, Text))
+        select(cast(Shot.raw_payload, Text))
         .select_from(Shot)
         .outerjoin(Evaluation, Evaluation.shot_pk == Shot.id)
         .where(*conditions)

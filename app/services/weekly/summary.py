@@ -23,7 +23,7 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 import model
-from app.database import snapshot_read
+from app.database import read_meanwhile, snapshot_read
 from app.plain import finite_or_none, float_list
 from app.presentation.fields import unit_of
 from app.services.calibration import week_figures
@@ -345,19 +345,23 @@ class _WeekFigures:
     ranges: list[QuantityRange]
 
 
-def _previous_week(session: Session, campaign: Campaign, week: IsoWeek, current: _WeekFigures) -> WeekComparison:
-    prev = week.previous()
-    window = _week_window(campaign, prev)
-    keys = KEY_CONDITIONS + KEY_OUTPUTS
+def _read_previous_week(session: Session, window: list[Any]) -> ShotTable:
+    """The previous week's shots: the key conditions and outputs only."""
     stmt = export_store.shot_rows_query(
         window,
         input_columns=[model.column_name(k) for k in KEY_CONDITIONS],
         output_columns=list(KEY_OUTPUTS),
         details=False,
     )
-    shots = ShotTable.from_chunks(export_store.iter_shot_rows(session, stmt))
+    return ShotTable.from_chunks(export_store.iter_shot_rows(session, stmt))
+
+
+def _previous_week(
+    prev: IsoWeek, shots: ShotTable, codes_severities_shots: list[tuple[str, str, int]], current: _WeekFigures
+) -> WeekComparison:
+    keys = KEY_CONDITIONS + KEY_OUTPUTS
     counts = status_counts(shots.status)
-    flags = _shot_count_per_code(flag_counts(export_store.count_flags(session, window)))
+    flags = _shot_count_per_code(flag_counts(codes_severities_shots))
     medians = {k: _median(shots.values(k)) for k in keys}
     cur_flags = _shot_count_per_code(current.flag_counts)
     status_keys = list(dict.fromkeys([*current.status_counts, *counts]))
@@ -386,14 +390,27 @@ def build_weekly_summary(
 
 def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, now: datetime | None) -> WeeklySummary:
     zone = campaign_zone(campaign.timezone)
-    shots = load_week_shots(session, campaign, week)
-    figures = _WeekFigures(
-        shot_count=len(shots),
-        status_counts=status_counts(shots.status),
-        flag_counts=_flag_counts_of(shots),
-        ranges=[quantity_range(k, shots.values(k)) for k in KEY_CONDITIONS + KEY_OUTPUTS],
-    )
-    start_local, end_local = week.bounds_local(zone)
+    prev_window = _week_window(campaign, week.previous())
+    # The previous week's flags are counted meanwhile (PostgreSQL: on a second connection of the same
+    # snapshot; the server's longest query of a summary, with a result of a few rows, while this
+    # process reads and computes the week).
+    with read_meanwhile(session, lambda read: export_store.count_flags(read, prev_window)) as previous_flags:
+        shots = load_week_shots(session, campaign, week)
+        figures = _WeekFigures(
+            shot_count=len(shots),
+            status_counts=status_counts(shots.status),
+            flag_counts=_flag_counts_of(shots),
+            ranges=[quantity_range(k, shots.values(k)) for k in KEY_CONDITIONS + KEY_OUTPUTS],
+        )
+        start_local, end_local = week.bounds_local(zone)
+        # From the week's table: its shots are not read again.
+        model_check = week_figures(
+            session, campaign.slug, start_local.astimezone(UTC), end_local.astimezone(UTC), week=shots
+        )
+        excluded_count = export_store.count_shots(session, _week_window(campaign, week, "only"))
+        comparison = _previous_week(
+            week.previous(), _read_previous_week(session, prev_window), previous_flags(), figures
+        )
     return WeeklySummary(
         campaign_slug=campaign.slug,
         campaign_name=campaign.name,
@@ -410,12 +427,9 @@ def _build_weekly_summary(session: Session, campaign: Campaign, week: IsoWeek, n
         ranges=figures.ranges,
         phase_stability=phase_stability(shots, campaign.model_settings or {}),
         density_calibration=density_calibration(shots),
-        previous=_previous_week(session, campaign, week, figures),
+        previous=comparison,
         model_versions=sorted({v for v in shots.model_version if v}),
         shots=shots,
-        # From the week's table: its shots are not read again.
-        model_check=week_figures(
-            session, campaign.slug, start_local.astimezone(UTC), end_local.astimezone(UTC), week=shots
-        ),
-        excluded_count=export_store.count_shots(session, _week_window(campaign, week, "only")),
+        model_check=model_check,
+        excluded_count=excluded_count,
     )
