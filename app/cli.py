@@ -165,6 +165,7 @@ def _run_server(app, sock, settings: Settings, log_level: str) -> None:
 
     from app.logs import uvicorn_log_config
 
+    app.state.freeze_after_start = True  # a long-lived server (app.main's lifespan)
     config = uvicorn.Config(
         app,
         log_level=log_level,

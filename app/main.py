@@ -7,6 +7,7 @@ several app processes may serve behind one proxy.
 
 from __future__ import annotations
 
+import gc
 import threading
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
@@ -69,6 +70,13 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         # (queued once, under the campaign's lock, however many app processes start).
         with factory() as session:
             reevaluation.queue_model_upgrades(session)
+        if getattr(_app.state, "freeze_after_start", False):  # set by `wakeledger serve`
+            # What the start-up made (modules, routes: a few hundred thousand objects) lives as
+            # long as the server; out of the collector's sight, the full collection that a large
+            # read sets off walks only what came since (0.1 s less CPU in a first load of the
+            # overview at 100,000 shots).
+            gc.collect()
+            gc.freeze()
         warming = threading.Thread(
             target=overview.warm_overviews,
             args=(factory, settings.warm_overview_campaigns),

@@ -209,3 +209,26 @@ def test_charts_that_thin_alike_share_one_read_and_draw_exactly_what_their_own_r
     for name, figure in own.items():
         assert shown[name]["figure"] == figure, name
     assert shared_reads < len(reads)  # 3 statuses x 4 charts read separately; alike ones shared
+
+
+def test_a_served_app_keeps_what_it_started_with_out_of_the_garbage_collectors_walks(settings):
+    import gc
+
+    from fastapi.testclient import TestClient
+
+    from app.main import create_app
+
+    served = create_app(settings)
+    served.state.freeze_after_start = True  # as `wakeledger serve` does
+    try:
+        with TestClient(served):
+            assert gc.get_freeze_count() > 0
+    finally:
+        gc.unfreeze()  # the test process goes on collecting as before
+        served.state.engine.dispose()
+    plain = create_app(settings)  # an app embedded elsewhere (the tests) leaves the collector alone
+    try:
+        with TestClient(plain):
+            assert gc.get_freeze_count() == 0
+    finally:
+        plain.state.engine.dispose()
