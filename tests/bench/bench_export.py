@@ -3,7 +3,7 @@
 The shots are real model evaluations: varied invented shots (the model benchmark's mix, with
 notes, tags and a DAQ section) stored through the ingest service, this week and the week
 before, into a scratch database (SQLite file, or `--backend postgresql`: a new PostgreSQL
-database dropped afterwards). Each format is then written by a fresh process
+database dropped afterwards, analysed as autovacuum would). Each format is then written by a fresh process
 (`--repo PATH`: another checkout's code, for "before" figures on the same database), counted
 from the query to the finished file as `wakeledger export` does it (weekly.exports.week_file +
 write_file; a checkout without it: build_weekly_summary + write_export_file): wall and CPU
@@ -75,6 +75,14 @@ def store(url: str, shots: int) -> None:
             with factory() as session:
                 chunk = payloads[first : first + 5000]
                 ingest_shots(session, "bench-week", chunk, "bench", max_future=timedelta(days=30))
+    engine = factory.kw["bind"]
+    if engine.dialect.name == "postgresql":
+        # The planner's statistics, as autovacuum gathers them soon after a load on a running
+        # database (this machine's test server runs without autovacuum).
+        from sqlalchemy import text
+
+        with engine.connect().execution_options(isolation_level="AUTOCOMMIT") as conn:
+            conn.execute(text("ANALYZE"))
 
 
 def one_format(url: str, fmt: str, out: Path, repeat: int) -> dict:

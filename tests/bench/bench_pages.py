@@ -164,7 +164,7 @@ def build_campaign(url: str, n: int) -> float:
                 )
     if engine.dialect.name == "postgresql":
         # The planner's statistics, as autovacuum gathers them within a minute of a bulk load on a
-        # running database; before that its guesses seq-scan for the excluded shots (30-40 ms a query).
+        # running database (the PostgreSQL here runs with autovacuum off).
         with engine.connect().execution_options(isolation_level="AUTOCOMMIT") as conn:
             conn.execute(text("ANALYZE"))
     engine.dispose()
