@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from datetime import UTC, datetime
 
+import pytest
 from sqlalchemy import func, select
 
 from app.database import make_engine, make_session_factory, read_meanwhile, snapshot_read
@@ -29,30 +30,27 @@ def campaigns(session) -> int:
     return session.scalar(select(func.count()).select_from(Campaign))
 
 
-def test_a_write_committed_between_two_reads_of_a_snapshot_is_not_seen_by_the_second(database_url):
+@pytest.fixture
+def factory(database_url):
     engine = make_engine(database_url)
-    try:
-        factory = make_session_factory(engine)
-        with factory() as session, snapshot_read(session) as read:
-            before = campaigns(read)
-            add_campaign_meanwhile(factory)
+    yield make_session_factory(engine)
+    engine.dispose()
+
+
+def test_a_write_committed_between_two_reads_of_a_snapshot_is_not_seen_by_the_second(factory):
+    with factory() as session, snapshot_read(session) as read:
+        before = campaigns(read)
+        add_campaign_meanwhile(factory)
+        assert campaigns(read) == before
+    with factory() as session:
+        assert campaigns(session) == before + 1
+
+
+def test_reads_run_meanwhile_see_the_snapshot_of_the_report_not_a_write_committed_since(factory):
+    with factory() as session, snapshot_read(session) as read:
+        before = campaigns(read)
+        add_campaign_meanwhile(factory)
+        with read_meanwhile(read, campaigns) as meanwhile:
             assert campaigns(read) == before
-        with factory() as session:
-            assert session.scalar(select(func.count()).select_from(Campaign)) == before + 1
-    finally:
-        engine.dispose()
-
-
-def test_reads_run_meanwhile_see_the_snapshot_of_the_report_not_a_write_committed_since(database_url):
-    engine = make_engine(database_url)
-    try:
-        factory = make_session_factory(engine)
-        with factory() as session, snapshot_read(session) as read:
-            before = campaigns(read)
-            add_campaign_meanwhile(factory)
-            with read_meanwhile(read, campaigns) as meanwhile:
-                assert campaigns(read) == before
-                assert meanwhile() == before
-                assert meanwhile() == before  # asked again: the same answer, not read again
-    finally:
-        engine.dispose()
+            assert meanwhile() == before
+            assert meanwhile() == before  # asked again: the same answer, not read again
