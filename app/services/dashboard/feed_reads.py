@@ -274,8 +274,8 @@ class DirectReader(Reader):
 
 class CachedReader(DirectReader):
     """The same reads through the campaign's CampaignReads: made once per marks, extended after.
-    ``shared``: the page's series requests, by the name of their counts among ``counted`` (the
-    value counts the page's feeds share); series of them that thin alike share one read."""
+    ``shared``: the page's series requests by chart, whose value counts (``values_counted``) the
+    page's feeds share; series of them that thin alike share one read."""
 
     def __init__(
         self,
@@ -283,11 +283,16 @@ class CachedReader(DirectReader):
         campaign: Campaign,
         reads: CampaignReads,
         shared: Mapping[str, SeriesRequest] | None = None,
-        counted: Mapping[str, Sequence[str]] | None = None,
     ) -> None:
         super().__init__(session, campaign, reads.upto_pk)
         self.reads = reads
-        self.shared, self.counted = shared or {}, counted or {}
+        self.shared = shared or {}
+        self.counted = self.values_counted(self.shared)
+
+    @staticmethod
+    def values_counted(shared: Mapping[str, SeriesRequest]) -> dict[str, tuple[str, ...]]:
+        """The value sets whose shots per status are counted, by chart: each request's own."""
+        return {name: request.required for name, request in shared.items()}
 
     def _sharing(
         self, status: str, columns: Sequence[str], step: int, required: Sequence[str]

@@ -206,19 +206,9 @@ def chart_feed(session: Session, campaign: Campaign, name: str, **params: Any) -
     return feed
 
 
-# The shots that have the values of each chart a page loads at once, by status: one pass over
-# the campaign that the page's feeds share (the first to need it counts, the others wait for it).
-_COUNTED_VALUES: dict[str, tuple[str, ...]] = {
-    "timeline": (),
-    "phase": (PHASE_FIELD,),
-    "calibration": CALIBRATION_FIELDS,
-    "regime": DEFAULT_REGIME_AXES,
-}
-
-
 def _page_series() -> dict[str, SeriesRequest]:
-    """The series the feeds of a page read, by the name of their value counts (series that thin
-    alike share one read, feed_reads)."""
+    """The series the feeds of a page read, by chart (series that thin alike share one read,
+    feed_reads; built when asked, from the module caps of the moment)."""
     return {
         "timeline": timeline_series(),
         "phase": phase_series(),
@@ -227,12 +217,15 @@ def _page_series() -> dict[str, SeriesRequest]:
     }
 
 
+# The shots that have the values of each chart a page loads at once, by status: one pass over
+# the campaign that the page's feeds share (the first to need it counts, the others wait for it).
+_COUNTED_VALUES = CachedReader.values_counted(_page_series())
+
+
 def _chart_feed(
     session: Session, campaign: Campaign, name: str, marks: tuple[Any, ...], **params: Any
 ) -> dict[str, Any]:
-    reader = CachedReader(
-        session, campaign, campaign_reads(session, campaign, marks), shared=_page_series(), counted=_COUNTED_VALUES
-    )
+    reader = CachedReader(session, campaign, campaign_reads(session, campaign, marks), shared=_page_series())
     cursor = reader.reads.upto_pk
     if name == "regime" and (params["x"], params["y"]) != DEFAULT_REGIME_AXES:
         # Counted and read for itself, and not kept: the reads of every pair a viewer looks at would pile up.
